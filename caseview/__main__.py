@@ -1,0 +1,5 @@
+import sys
+
+from caseview.cli.main import main
+
+sys.exit(main())

@@ -1,0 +1,271 @@
+"""The stage model: stages, transition rates with covariate effects, observation channels.
+
+A :class:`StageModel` is an immutable description of a continuous-time hidden-Markov model:
+
+* ordered stages, an initial stage distribution that applies at each case's first contact;
+* allowed transitions ``r -> s`` with a baseline rate per day and covariate effects as log
+  hazard ratios, ``q_rs(x) = rate_rs * exp(sum_k beta_rs,k * x_k)``;
+* categorical observation channels, independent given the stage, each with a per-stage row
+  of category probabilities (misclassification / emission probabilities);
+* stages with no way out are absorbing.
+
+Everything here is plain numpy; parsing files is the application's job (``caseview.modelfile``).
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass, field, replace
+
+import numpy as np
+
+__all__ = ["Transition", "Channel", "StageModel", "ModelError"]
+
+
+class ModelError(ValueError):
+    """A stage model that is not internally consistent."""
+
+
+@dataclass(frozen=True)
+class Transition:
+    """One allowed move between stages.
+
+    Parameters
+    ----------
+    source, target : int
+        Stage indices.
+    rate : float
+        Baseline transition rate per day (covariates all zero).
+    effects : dict[str, float]
+        Log hazard ratio per covariate name.
+    fixed_rate : bool
+        Keep ``rate`` at its value when fitting.
+    fixed_effects : frozenset[str]
+        Covariate effects kept at their value when fitting.
+    """
+
+    source: int
+    target: int
+    rate: float
+    effects: dict = field(default_factory=dict)
+    fixed_rate: bool = False
+    fixed_effects: frozenset = frozenset()
+
+
+@dataclass(frozen=True)
+class Channel:
+    """A categorical observation channel.
+
+    Parameters
+    ----------
+    name : str
+    categories : tuple[str, ...]
+    probabilities : ndarray, shape (n_stages, n_categories)
+        Row ``r`` is the distribution of the recorded category given stage ``r``.
+    fixed_stages : frozenset[int]
+        Stage rows kept at their value when fitting.
+    """
+
+    name: str
+    categories: tuple
+    probabilities: np.ndarray
+    fixed_stages: frozenset = frozenset()
+
+    @property
+    def n_categories(self) -> int:
+        return len(self.categories)
+
+
+@dataclass(frozen=True)
+class StageModel:
+    """A continuous-time hidden-Markov stage model (immutable).
+
+    Parameters
+    ----------
+    stages : tuple[str, ...]
+    initial : ndarray, shape (n_stages,)
+        Stage distribution at each case's first recorded contact.
+    transitions : tuple[Transition, ...]
+    channels : tuple[Channel, ...]
+    covariates : tuple[str, ...]
+        Covariate names, in the column order used by ``covariate_values`` arrays.
+    follow_up_stages : tuple[str, ...]
+        Stages that call for follow-up (used by the application's rules).
+    exact_entry_stages : tuple[str, ...]
+        Absorbing stages whose entry date is known exactly when recorded.
+    initial_fixed : bool
+        Keep ``initial`` at its value when fitting.
+    name : str
+    """
+
+    stages: tuple
+    initial: np.ndarray
+    transitions: tuple
+    channels: tuple = ()
+    covariates: tuple = ()
+    follow_up_stages: tuple = ()
+    exact_entry_stages: tuple = ()
+    initial_fixed: bool = False
+    name: str = "stage model"
+
+    def __post_init__(self):
+        self.validate()
+
+    # ------------------------------------------------------------------ checks
+    def validate(self) -> None:
+        """Raise :class:`ModelError` with a precise message if anything is inconsistent."""
+        n = len(self.stages)
+        if n < 2:
+            raise ModelError("a stage model needs at least two stages")
+        if len(set(self.stages)) != n:
+            dup = sorted({s for s in self.stages if list(self.stages).count(s) > 1})
+            raise ModelError(f"duplicate stage name(s): {', '.join(dup)}")
+        initial = np.asarray(self.initial, dtype=float)
+        if initial.shape != (n,):
+            raise ModelError(f"initial distribution has {initial.size} values, expected {n}")
+        if np.any(initial < 0) or abs(initial.sum() - 1.0) > 1e-6:
+            raise ModelError(f"initial probabilities must be >= 0 and sum to 1 (sum is {initial.sum():.8g})")
+        seen = set()
+        for t in self.transitions:
+            if not (0 <= t.source < n and 0 <= t.target < n):
+                raise ModelError(f"transition {t.source}->{t.target} refers to a stage that does not exist")
+            if t.source == t.target:
+                raise ModelError(f"transition from {self.stages[t.source]} to itself is not allowed")
+            key = (t.source, t.target)
+            if key in seen:
+                raise ModelError(f"transition {self.stages[t.source]} -> {self.stages[t.target]} is listed twice")
+            seen.add(key)
+            if not np.isfinite(t.rate) or t.rate < 0:
+                raise ModelError(
+                    f"transition {self.stages[t.source]} -> {self.stages[t.target]}: rate must be a "
+                    f"non-negative number per day, got {t.rate!r}")
+            for cov, beta in t.effects.items():
+                if cov not in self.covariates:
+                    raise ModelError(
+                        f"transition {self.stages[t.source]} -> {self.stages[t.target]}: effect of unknown "
+                        f"covariate {cov!r} (declared covariates: {', '.join(self.covariates) or 'none'})")
+                if not np.isfinite(beta):
+                    raise ModelError(f"effect of {cov!r} on {self.stages[t.source]} -> "
+                                     f"{self.stages[t.target]} must be a finite number")
+        if len(set(self.covariates)) != len(self.covariates):
+            raise ModelError("duplicate covariate names")
+        names = [c.name for c in self.channels]
+        if len(set(names)) != len(names):
+            raise ModelError("duplicate channel names")
+        clash = set(names) & set(self.covariates)
+        if clash:
+            raise ModelError(f"name used for both a channel and a covariate: {', '.join(sorted(clash))}")
+        for c in self.channels:
+            p = np.asarray(c.probabilities, dtype=float)
+            if len(set(c.categories)) != len(c.categories):
+                raise ModelError(f"channel {c.name!r}: duplicate category names")
+            if p.shape != (n, len(c.categories)):
+                raise ModelError(f"channel {c.name!r}: probabilities must have one row per stage and one "
+                                 f"column per category, shape {(n, len(c.categories))}, got {p.shape}")
+            for r in range(n):
+                if np.any(p[r] < 0) or abs(p[r].sum() - 1.0) > 1e-6:
+                    raise ModelError(f"channel {c.name!r}, stage {self.stages[r]}: probabilities must be >= 0 "
+                                     f"and sum to 1 within 1e-6 (sum is {p[r].sum():.8g})")
+        for s in self.follow_up_stages + self.exact_entry_stages:
+            if s not in self.stages:
+                raise ModelError(f"unknown stage {s!r} (stages: {', '.join(self.stages)})")
+        for s in self.exact_entry_stages:
+            if self.stage_index(s) not in self.absorbing_stages:
+                raise ModelError(f"exact entry is only for absorbing stages; {s!r} has a way out")
+
+    # ------------------------------------------------------------- properties
+    @property
+    def n_stages(self) -> int:
+        return len(self.stages)
+
+    @property
+    def n_covariates(self) -> int:
+        return len(self.covariates)
+
+    def stage_index(self, name: str) -> int:
+        try:
+            return self.stages.index(name)
+        except ValueError:
+            raise ModelError(f"unknown stage {name!r} (stages: {', '.join(self.stages)})") from None
+
+    @property
+    def absorbing_stages(self) -> tuple:
+        """Indices of stages with no allowed way out."""
+        out = {t.source for t in self.transitions}
+        return tuple(r for r in range(self.n_stages) if r not in out)
+
+    @property
+    def follow_up_mask(self) -> np.ndarray:
+        """Boolean mask over stages, True for follow-up stages."""
+        mask = np.zeros(self.n_stages, dtype=bool)
+        for s in self.follow_up_stages:
+            mask[self.stage_index(s)] = True
+        return mask
+
+    def transition(self, source: str, target: str) -> Transition:
+        r, s = self.stage_index(source), self.stage_index(target)
+        for t in self.transitions:
+            if (t.source, t.target) == (r, s):
+                return t
+        raise ModelError(f"no transition {source} -> {target} in the model")
+
+    # ------------------------------------------------------------- generators
+    def baseline_rate_matrix(self) -> np.ndarray:
+        """Off-diagonal baseline rates, shape (n_stages, n_stages), zero where not allowed."""
+        rates = np.zeros((self.n_stages, self.n_stages))
+        for t in self.transitions:
+            rates[t.source, t.target] = t.rate
+        return rates
+
+    def effect_array(self) -> np.ndarray:
+        """Log hazard ratios, shape (n_stages, n_stages, n_covariates)."""
+        beta = np.zeros((self.n_stages, self.n_stages, self.n_covariates))
+        for t in self.transitions:
+            for cov, value in t.effects.items():
+                beta[t.source, t.target, self.covariates.index(cov)] = value
+        return beta
+
+    def generators(self, covariate_values: np.ndarray) -> np.ndarray:
+        """Generator matrices for many covariate vectors.
+
+        Parameters
+        ----------
+        covariate_values : ndarray, shape (m, n_covariates) or (n_covariates,)
+
+        Returns
+        -------
+        Q : ndarray, shape (m, n_stages, n_stages) (or (n_stages, n_stages) for one vector)
+            Rows sum to zero; ``Q[r, s] = rate_rs * exp(beta_rs . x)`` off the diagonal.
+        """
+        x = np.asarray(covariate_values, dtype=float)
+        single = x.ndim == 1
+        x = np.atleast_2d(x)
+        if x.shape[1] != self.n_covariates:
+            raise ModelError(f"expected {self.n_covariates} covariate values per row, got {x.shape[1]}")
+        rates = self.baseline_rate_matrix()
+        if self.n_covariates:
+            q = rates[None] * np.exp(np.einsum("rsk,mk->mrs", self.effect_array(), x))
+        else:
+            q = np.broadcast_to(rates, (x.shape[0],) + rates.shape).copy()
+        idx = np.arange(self.n_stages)
+        q[:, idx, idx] = 0.0
+        q[:, idx, idx] = -q.sum(axis=2)
+        return q[0] if single else q
+
+    def generator(self, covariate_values=None) -> np.ndarray:
+        """Generator matrix Q, shape (n_stages, n_stages), for one covariate vector (default all zero)."""
+        if covariate_values is None:
+            covariate_values = np.zeros(self.n_covariates)
+        return self.generators(np.asarray(covariate_values, dtype=float).reshape(-1))
+
+    def emission_matrices(self) -> tuple:
+        """Per-channel probability tables, each ndarray shape (n_stages, n_categories)."""
+        return tuple(np.asarray(c.probabilities, dtype=float) for c in self.channels)
+
+    # ------------------------------------------------------------------ edits
+    def with_rates(self, rates: dict) -> "StageModel":
+        """A copy with some baseline rates replaced: ``{(source_name, target_name): rate}``."""
+        new = []
+        for t in self.transitions:
+            key = (self.stages[t.source], self.stages[t.target])
+            new.append(replace(t, rate=float(rates[key])) if key in rates else t)
+        return replace(self, transitions=tuple(new))

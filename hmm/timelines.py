@@ -1,0 +1,149 @@
+"""Case timelines as flat numpy arrays: the engine's input for a whole caseload.
+
+Contacts of all cases are stored flat, sorted by case then time, with ``offsets`` marking where
+each case starts (CSR layout). Case ``i`` owns rows ``offsets[i]:offsets[i+1]``.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+
+import numpy as np
+
+__all__ = ["Timelines", "MISSING"]
+
+#: Code for "not observed" in ``Timelines.observations``.
+MISSING = -1
+
+
+@dataclass(frozen=True)
+class Timelines:
+    """Contacts of many cases.
+
+    Parameters
+    ----------
+    offsets : ndarray of int64, shape (n_cases + 1,)
+        ``offsets[0] == 0``, non-decreasing, ``offsets[-1] == n_contacts``. Every case has at
+        least one contact.
+    times : ndarray of float64, shape (n_contacts,)
+        Contact times in days (any origin), non-decreasing within each case.
+    observations : ndarray of int16, shape (n_contacts, n_channels)
+        Category index per channel, ``MISSING`` (-1) when not observed.
+    allowed_stages : ndarray of bool, shape (n_contacts, n_stages)
+        Stages the contact is compatible with: all True unless a stage was known directly
+        (one stage, or a set of stages).
+    covariates : ndarray of float64, shape (n_contacts, n_covariates)
+        Covariate values recorded at each contact; they hold until the next contact.
+    """
+
+    offsets: np.ndarray
+    times: np.ndarray
+    observations: np.ndarray
+    allowed_stages: np.ndarray
+    covariates: np.ndarray
+
+    def __post_init__(self):
+        n = self.times.shape[0]
+        if self.offsets.ndim != 1 or self.offsets[0] != 0 or self.offsets[-1] != n:
+            raise ValueError("offsets must start at 0 and end at the number of contacts")
+        if np.any(np.diff(self.offsets) < 1):
+            raise ValueError("every case needs at least one contact")
+        for name in ("observations", "allowed_stages", "covariates"):
+            if getattr(self, name).shape[0] != n:
+                raise ValueError(f"{name} must have one row per contact ({n})")
+        if n and np.any(~self.allowed_stages.any(axis=1)):
+            raise ValueError("a contact must allow at least one stage")
+        if n > 1:
+            same_case = np.repeat(np.arange(self.n_cases), self.n_contacts_per_case)
+            step = np.diff(self.times)
+            if np.any((step < 0) & (same_case[1:] == same_case[:-1])):
+                raise ValueError("contact times must be non-decreasing within each case")
+
+    # ---------------------------------------------------------------- shapes
+    @property
+    def n_cases(self) -> int:
+        return self.offsets.shape[0] - 1
+
+    @property
+    def n_contacts(self) -> int:
+        return self.times.shape[0]
+
+    @property
+    def n_contacts_per_case(self) -> np.ndarray:
+        """ndarray of int64, shape (n_cases,)."""
+        return np.diff(self.offsets)
+
+    @property
+    def case_of_contact(self) -> np.ndarray:
+        """Case index of every contact, ndarray of int64, shape (n_contacts,)."""
+        return np.repeat(np.arange(self.n_cases), self.n_contacts_per_case)
+
+    @property
+    def first_index(self) -> np.ndarray:
+        """Row of each case's first contact, shape (n_cases,)."""
+        return self.offsets[:-1]
+
+    @property
+    def last_index(self) -> np.ndarray:
+        """Row of each case's last contact, shape (n_cases,)."""
+        return self.offsets[1:] - 1
+
+    # ----------------------------------------------------------- construction
+    @classmethod
+    def from_contacts(cls, case_index, times, observations, allowed_stages, covariates) -> "Timelines":
+        """Build from unsorted per-contact arrays; ``case_index`` (int, shape (n_contacts,)) names the case.
+
+        Cases are numbered ``0..max(case_index)``; every number must have a contact. Rows are sorted
+        stably by (case, time).
+        """
+        case_index = np.asarray(case_index, dtype=np.int64)
+        times = np.asarray(times, dtype=float)
+        order = np.lexsort((times, case_index))
+        counts = np.bincount(case_index, minlength=case_index.max() + 1 if case_index.size else 0)
+        offsets = np.concatenate([[0], np.cumsum(counts)]).astype(np.int64)
+        return cls(
+            offsets=offsets,
+            times=times[order],
+            observations=np.asarray(observations, dtype=np.int16)[order],
+            allowed_stages=np.asarray(allowed_stages, dtype=bool)[order],
+            covariates=np.asarray(covariates, dtype=float)[order],
+        )
+
+    # -------------------------------------------------------------- selection
+    def subset(self, cases) -> "Timelines":
+        """Timelines of the chosen cases (index array or boolean mask), in the order given."""
+        cases = np.asarray(cases)
+        if cases.dtype == bool:
+            cases = np.flatnonzero(cases)
+        counts = self.n_contacts_per_case[cases]
+        starts = self.offsets[cases]
+        rows = np.repeat(starts - np.concatenate([[0], np.cumsum(counts)[:-1]]), counts) + np.arange(counts.sum())
+        return Timelines(
+            offsets=np.concatenate([[0], np.cumsum(counts)]).astype(np.int64),
+            times=self.times[rows],
+            observations=self.observations[rows],
+            allowed_stages=self.allowed_stages[rows],
+            covariates=self.covariates[rows],
+        )
+
+    def until(self, time: float) -> tuple["Timelines", np.ndarray]:
+        """Contacts at or before ``time``.
+
+        Returns
+        -------
+        timelines : Timelines
+            Only cases whose first contact is at or before ``time``, only their contacts up to it.
+        kept_cases : ndarray of int64
+            Indices (into this object's cases) of the cases kept, in order.
+        """
+        keep_row = self.times <= time
+        kept_counts = np.add.reduceat(keep_row.astype(np.int64), self.offsets[:-1]) if self.n_contacts else \
+            np.zeros(0, dtype=np.int64)
+        kept_cases = np.flatnonzero(kept_counts > 0)
+        return Timelines(
+            offsets=np.concatenate([[0], np.cumsum(kept_counts[kept_cases])]).astype(np.int64),
+            times=self.times[keep_row],
+            observations=self.observations[keep_row],
+            allowed_stages=self.allowed_stages[keep_row],
+            covariates=self.covariates[keep_row],
+        ), kept_cases
