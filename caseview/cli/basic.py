@@ -1,0 +1,219 @@
+"""``caseview score``, ``caseview history`` and ``caseview demo``."""
+
+from __future__ import annotations
+
+import datetime as dt
+import sys
+from pathlib import Path
+
+from caseview import ADVISORY_NOTICE
+
+ROOT = Path(__file__).resolve().parents[2]
+DEMO_TIMELINES = ROOT / "demo_cases" / "home_support_demo.csv"
+DEMO_MODEL = ROOT / "demo_cases" / "home_support_model.json"
+
+
+def register(sub) -> None:
+    p = sub.add_parser("score", help="stage probabilities now and within a horizon for every case",
+                       description="Score every case whose first contact is on or before the as-of date, "
+                                   "using only contacts on or before it. " + ADVISORY_NOTICE)
+    p.add_argument("workspace", metavar="WS")
+    p.add_argument("--as-of", required=True, metavar="YYYY-MM-DD")
+    p.add_argument("--horizon", type=float, default=90.0, metavar="DAYS", help="forecast horizon (default 90)")
+    p.add_argument("--out", required=True, metavar="SCORES.csv", help="output CSV ('-' for standard output)")
+    p.set_defaults(run=run_score)
+
+    p = sub.add_parser("history", help="smoothed stage probabilities and most likely path at each contact",
+                       description="One row per contact of one case: recorded values, smoothed stage "
+                                   "probabilities given all that case's contacts up to the as-of date, and "
+                                   "the most likely stage path (Viterbi). " + ADVISORY_NOTICE)
+    p.add_argument("workspace", metavar="WS")
+    p.add_argument("case_id", metavar="CASE_ID")
+    p.add_argument("--as-of", metavar="YYYY-MM-DD", help="use contacts up to this date (default: all)")
+    p.add_argument("--out", required=True, metavar="HISTORY.csv", help="output CSV ('-' for standard output)")
+    p.set_defaults(run=run_history)
+
+    p = sub.add_parser("demo", help="create a ready workspace holding the invented demo caseload",
+                       description="Create a workspace at PATH with the invented home-support demo model and "
+                                   "caseload (no real people or data).")
+    p.add_argument("path", metavar="PATH")
+    p.add_argument("--by", metavar="NAME", help="who is recorded in the audit trail (default: OS user)")
+    p.set_defaults(run=run_demo)
+
+
+# ---------------------------------------------------------------- helpers
+def actor_name(args) -> str:
+    """The name recorded in the audit trail: ``--by`` or the operating-system user (attribution only)."""
+    import getpass
+
+    by = getattr(args, "by", None)
+    if by:
+        return by
+    try:
+        return getpass.getuser()
+    except Exception:  # no user database entry (containers)
+        return "unknown-user"
+
+
+def open_workspace(path):
+    from caseview.storage import Workspace
+
+    ws = Workspace.open(path)
+    for warning in ws.warnings:
+        print(f"caseview: warning: {warning}", file=sys.stderr)
+    return ws
+
+
+def write_table(out: str, header: list, columns: list) -> None:
+    """Write columns (equal-length sequences of already formatted text) as CSV to a path or '-'."""
+    import csv
+
+    rows = zip(*columns) if columns else iter(())
+    if out == "-":
+        writer = csv.writer(sys.stdout, lineterminator="\n")
+        writer.writerow(header)
+        writer.writerows(rows)
+        return
+    path = Path(out)
+    tmp = path.with_name(path.name + ".part")
+    try:
+        with open(tmp, "w", newline="", encoding="utf-8") as handle:
+            writer = csv.writer(handle, lineterminator="\n")
+            writer.writerow(header)
+            writer.writerows(rows)
+        tmp.replace(path)
+    except OSError as exc:
+        from caseview.errors import InputError
+
+        tmp.unlink(missing_ok=True)
+        raise InputError(f"{out}: cannot write ({exc.strerror})") from None
+
+
+def format_probabilities(values):
+    """Probabilities as fixed 6-decimal text, vectorised."""
+    import numpy as np
+
+    return np.char.mod("%.6f", np.clip(values, 0.0, 1.0)).tolist()
+
+
+def format_days(days):
+    import numpy as np
+
+    return np.datetime_as_string(np.asarray(days, dtype="int64").astype("datetime64[D]")).tolist()
+
+
+def safe_text(values):
+    """Text cells that a spreadsheet could run as a formula get a leading apostrophe."""
+    return [("'" + v) if v[:1] in ("=", "+", "-", "@") else v for v in map(str, values)]
+
+
+# ---------------------------------------------------------------- score
+def run_score(args) -> int:
+    import numpy as np
+
+    from caseview.scoring import parse_date, score_caseload
+
+    as_of = parse_date(args.as_of, "--as-of")
+    with open_workspace(args.workspace) as ws:
+        flags = None
+        try:
+            from caseview.followup import assess_caseload
+        except ModuleNotFoundError:
+            scores = score_caseload(ws, as_of, args.horizon)
+        else:
+            assessment = assess_caseload(ws, as_of, args.horizon)
+            scores, flags = assessment.scores, assessment.flags
+    model = scores.model
+    n = scores.n_cases
+    header = ["case_id", "as_of", "last_contact", "days_since_contact"]
+    columns = [safe_text(scores.case_ids), [as_of.isoformat()] * n, format_days(scores.last_contact_day),
+               scores.days_since_contact.astype(str).tolist()]
+    for s, stage in enumerate(model.stages):
+        header.append(f"p_{stage}")
+        columns.append(format_probabilities(scores.p_now[:, s]))
+    header += ["most_likely_stage", "horizon_days"]
+    columns += [scores.most_likely_stage_names.tolist(), [f"{scores.horizon_days:g}"] * n]
+    for s, stage in enumerate(model.stages):
+        header.append(f"p_reach_{stage}")
+        columns.append(format_probabilities(scores.p_reach[:, s]))
+    header += ["flags", "coordinator", "p_follow_up_now", "p_reach_follow_up"]
+    columns += [list(flags) if flags is not None else [""] * n, safe_text(scores.coordinators),
+                format_probabilities(scores.p_follow_up_now), format_probabilities(scores.p_reach_follow_up)]
+    write_table(args.out, header, columns)
+    if args.out != "-":
+        flagged = int(np.count_nonzero([bool(f) for f in flags])) if flags is not None else 0
+        print(f"scored {n} cases as of {as_of.isoformat()} (horizon {scores.horizon_days:g} days, "
+              f"model version {scores.model_version}); {flagged} flagged; wrote {args.out}")
+        print(ADVISORY_NOTICE)
+    return 0
+
+
+# ---------------------------------------------------------------- history
+def run_history(args) -> int:
+    import numpy as np
+
+    from caseview.errors import InputError
+    from caseview.scoring import parse_date, to_day
+    from hmm.inference import most_likely_path, smoothed_probabilities
+
+    as_of_day = to_day(parse_date(args.as_of, "--as-of")) if args.as_of else None
+    with open_workspace(args.workspace) as ws:
+        model, version = ws.current_model()
+        caseload = ws.load_caseload(model, as_of_day=as_of_day)
+    hits = np.flatnonzero(caseload.case_ids == args.case_id)
+    if not hits.size:
+        when = f" with a contact on or before {args.as_of}" if args.as_of else ""
+        raise InputError(f"case {args.case_id!r}: no such case in {args.workspace}{when}")
+    case = int(hits[0])
+    timelines = caseload.timelines.subset([case])
+    rows = slice(caseload.timelines.offsets[case], caseload.timelines.offsets[case + 1])
+    smoothed = smoothed_probabilities(model, timelines)
+    path = most_likely_path(model, timelines)
+    n = timelines.n_contacts
+    header = ["case_id", "date"]
+    columns = [[args.case_id] * n, format_days(caseload.contact_days[rows])]
+    for channel in model.channels:
+        header.append(channel.name)
+        columns.append(list(caseload.raw_values[channel.name][rows]))
+    for k, name in enumerate(model.covariates):
+        header.append(name)
+        columns.append([f"{v:g}" for v in timelines.covariates[:, k]])
+    if "stage_known" in caseload.raw_values:
+        header.append("stage_known")
+        columns.append(list(caseload.raw_values["stage_known"][rows]))
+    for s, stage in enumerate(model.stages):
+        header.append(f"p_{stage}")
+        columns.append(format_probabilities(smoothed[:, s]))
+    header.append("path_stage")
+    columns.append([model.stages[i] for i in path])
+    write_table(args.out, header, columns)
+    if args.out != "-":
+        print(f"case {args.case_id}: {n} contacts (model version {version.id}); wrote {args.out}")
+        print(ADVISORY_NOTICE)
+    return 0
+
+
+# ---------------------------------------------------------------- demo
+def run_demo(args) -> int:
+    from caseview.errors import InputError
+    from caseview.storage import Workspace
+    from caseview.timeline_io import import_file
+
+    path = Path(args.path)
+    if path.exists():
+        raise InputError(f"{path}: already exists; choose a new path for the demo workspace")
+    actor = actor_name(args)
+    ws = Workspace.create(path, DEMO_MODEL.read_text(encoding="utf-8"), actor)
+    try:
+        report = import_file(ws, DEMO_TIMELINES, actor=actor)
+    except BaseException:
+        ws.close()
+        path.unlink(missing_ok=True)
+        raise
+    ws.close()
+    print(f"created demo workspace {path}: {report.summary()}")
+    print("The demo caseload and model are invented (no real people or data). " + ADVISORY_NOTICE)
+    today = dt.date.today().isoformat()
+    print(f"next: caseview score {path} --as-of 2026-11-30 --out scores.csv   (or: caseview gui {path}; "
+          f"today is {today})")
+    return 0
