@@ -197,7 +197,7 @@ def run_history(args) -> int:
 def run_demo(args) -> int:
     from caseview.errors import InputError
     from caseview.storage import Workspace
-    from caseview.timeline_io import import_file
+    from caseview.timeline_io import import_timelines
 
     path = Path(args.path)
     if path.exists():
@@ -205,13 +205,13 @@ def run_demo(args) -> int:
     actor = actor_name(args)
     ws = Workspace.create(path, DEMO_MODEL.read_text(encoding="utf-8"), actor)
     try:
-        report = import_file(ws, DEMO_TIMELINES, actor=actor)
+        report = import_timelines(ws, DEMO_TIMELINES, actor=actor)
     except BaseException:
         ws.close()
         path.unlink(missing_ok=True)
         raise
     ws.close()
-    print(f"created demo workspace {path}: {report.summary()}")
+    print(f"created demo workspace {path}: {report.cases_added} invented cases, {report.contacts_added} contacts")
     print("The demo caseload and model are invented (no real people or data). " + ADVISORY_NOTICE)
     today = dt.date.today().isoformat()
     print(f"next: caseview score {path} --as-of 2026-11-30 --out scores.csv   (or: caseview gui {path}; "
