@@ -2,10 +2,22 @@
 
 Pure numpy/scipy; no files, databases, Qt or plotting. Usable from a notebook::
 
-    from hmm import StageModel, Timelines
+    from hmm import StageModel, Timelines, forward, smoothed_probabilities
 """
 
+from .inference import (Forecast, ForwardResult, backward, contact_likelihoods, forecast, forward,
+                        most_likely_path, occupancy_over_time, reach_probability, smoothed_probabilities,
+                        stage_probabilities_now)
 from .model import Channel, ModelError, StageModel, Transition
+from .simulate import SimulatedCaseload, regular_contacts, simulate_caseload, simulate_path
 from .timelines import MISSING, Timelines
+from .transition import eigen_path_is_safe, transition_matrices, transition_matrix
 
-__all__ = ["Channel", "ModelError", "StageModel", "Transition", "Timelines", "MISSING"]
+__all__ = [
+    "Channel", "ModelError", "StageModel", "Transition", "Timelines", "MISSING",
+    "transition_matrix", "transition_matrices", "eigen_path_is_safe",
+    "contact_likelihoods", "forward", "backward", "smoothed_probabilities", "most_likely_path",
+    "stage_probabilities_now", "forecast", "reach_probability", "occupancy_over_time",
+    "ForwardResult", "Forecast",
+    "simulate_path", "simulate_caseload", "regular_contacts", "SimulatedCaseload",
+]

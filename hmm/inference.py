@@ -1,0 +1,530 @@
+"""Forward-backward, Viterbi and stage probabilities for a whole caseload at once.
+
+Every function works on all cases together. Cases are put in order of decreasing number of
+contacts, so the cases that have a ``k``-th contact form a prefix of that order; the only Python
+loop is over the contact position ``k``, each step being one numpy operation over all those cases.
+Transition matrices are computed once per distinct (covariate row, gap) pair
+(:func:`hmm.transition.distinct_transition_matrices`).
+
+Model conventions
+-----------------
+* ``model.initial`` applies at each case's first contact: ``alpha_0 = initial * likelihood_0``.
+* The move from contact ``j`` to ``j + 1`` uses the generator built from the covariates
+  recorded at contact ``j`` (covariates are piecewise constant).
+* The observation model enters only through :func:`contact_likelihoods`.
+* Exact entry into an absorbing stage: when a contact allows exactly one stage ``s`` and ``s`` is
+  in ``model.exact_entry_stages``, the contact records the date the case *entered* ``s``. The
+  step into it is then "in some transient stage ``r`` just before, and moved to ``s`` at that
+  date": column ``s`` of the step matrix is the density
+  ``sum_{r != s} P(prev -> r, dt) * Q[r, s]`` (per day) instead of ``P(prev -> s, dt)``.
+  The log-likelihood then includes ``log(rate)`` terms, as usual for exactly observed
+  transition times (Jackson 2011, msm, "exact death times").
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass, field
+
+import numpy as np
+
+from .model import StageModel
+from .timelines import Timelines
+from .transition import distinct_transition_matrices, factorise
+
+__all__ = [
+    "ForwardResult", "Forecast", "contact_likelihoods", "forward", "backward",
+    "smoothed_probabilities", "most_likely_path", "stage_probabilities_now", "forecast",
+    "reach_probability", "occupancy_over_time",
+]
+
+
+# --------------------------------------------------------------------------- observation hook
+def contact_likelihoods(model: StageModel, timelines: Timelines) -> np.ndarray:
+    """Probability of each contact's recorded evidence given each stage.
+
+    Parameters
+    ----------
+    model : StageModel
+    timelines : Timelines
+
+    Returns
+    -------
+    ndarray, shape (n_contacts, n_stages)
+        Product over channels of the emission probability of the recorded category (a missing
+        value contributes 1), times 0/1 for the contact's ``allowed_stages``.
+    """
+    observations = timelines.observations
+    if observations.shape[1] != len(model.channels):
+        raise ValueError(f"timelines have {observations.shape[1]} observation channels, "
+                         f"the model has {len(model.channels)}")
+    tables = model.emission_matrices()
+    for c, table in enumerate(tables):
+        codes = observations[:, c]
+        if codes.size and (codes.max() >= table.shape[1] or codes.min() < -1):
+            raise ValueError(f"channel {model.channels[c].name!r}: category code out of range "
+                             f"-1..{table.shape[1] - 1}")
+    # One table over joint codes of all channels (a missing value is its own code, probability 1),
+    # so each contact needs a single lookup; per-channel lookups if that table would be large.
+    sizes = [t.shape[1] + 1 for t in tables]
+    likelihood = timelines.allowed_stages.astype(float)
+    if tables and np.prod(sizes, dtype=float) <= 4096:
+        joint = np.ones((1, model.n_stages))
+        code = np.zeros(observations.shape[0], dtype=np.int64)
+        for table, size, c in zip(tables, sizes, range(len(tables))):
+            with_missing = np.vstack([table.T, np.ones((1, model.n_stages))])     # (C + 1, S), row C = missing
+            joint = (joint[:, None, :] * with_missing[None, :, :]).reshape(-1, model.n_stages)
+            code = code * size + np.where(observations[:, c] < 0, size - 1, observations[:, c])
+        likelihood *= joint[code]
+    else:
+        for c, table in enumerate(tables):
+            # Row -1 (the appended ones) is what a MISSING (-1) code picks.
+            likelihood *= np.vstack([table.T, np.ones((1, model.n_stages))])[observations[:, c]]
+    return likelihood
+
+
+# --------------------------------------------------------------------------- shared plan
+@dataclass
+class _Plan:
+    """Everything forward, backward and Viterbi share for one (model, timelines).
+
+    Contacts are laid out *position-major*: all first contacts (cases in decreasing-length
+    order), then all second contacts, and so on. The contacts at position ``k`` are then the
+    slice ``current(k)`` and the contacts just before them are ``previous(k)``, both plain views.
+    ``layout[i]`` is the original row of position-major row ``i``.
+    """
+
+    layout: np.ndarray            # (n_contacts,)
+    likelihood: np.ndarray        # (n_contacts, S), position-major
+    active_counts: np.ndarray     # (max_contacts,) cases with more than k contacts
+    base: np.ndarray              # (max_contacts,) position-major start of position k
+    step_matrices: np.ndarray     # (m, S, S)
+    step_index: np.ndarray        # (n_contacts,) position-major; matrix for the step INTO each contact
+
+    def current(self, k: int) -> slice:
+        return slice(self.base[k], self.base[k] + self.active_counts[k])
+
+    def previous(self, k: int) -> slice:
+        return slice(self.base[k - 1], self.base[k - 1] + self.active_counts[k])
+
+    def steps(self, k: int) -> np.ndarray:
+        return np.take(self.step_matrices, self.step_index[self.current(k)], axis=0)
+
+    def to_rows(self, values: np.ndarray) -> np.ndarray:
+        """Position-major array back to the timelines' row order."""
+        out = np.empty_like(values)
+        out[self.layout] = values
+        return out
+
+
+def _covariate_groups(covariates: np.ndarray) -> tuple:
+    """Distinct covariate rows and the index of each row.
+
+    Parameters
+    ----------
+    covariates : ndarray, shape (n, K)
+
+    Returns
+    -------
+    distinct : ndarray, shape (g, K)
+    index : ndarray of int64, shape (n,)
+        ``distinct[index] == covariates``.
+    """
+    n, n_columns = covariates.shape
+    if n_columns == 0 or n == 0:
+        return np.zeros((1, n_columns)), np.zeros(n, dtype=np.int64)
+    # Factorise column by column (fast 1-D sorts) and combine the codes into one integer key.
+    key = np.zeros(n, dtype=np.int64)
+    radix = 1
+    for c in range(n_columns):
+        values, codes = factorise(covariates[:, c])
+        radix *= values.size
+        if radix >= 2**62:
+            distinct, index = np.unique(covariates, axis=0, return_inverse=True)
+            return distinct, index.reshape(-1)
+        key = key * values.size + codes.reshape(-1)
+    keys, index = factorise(key)
+    first = np.zeros(keys.size, dtype=np.int64)
+    first[index[::-1]] = np.arange(n - 1, -1, -1)  # a row holding each distinct key
+    return covariates[first], index
+
+
+def _exact_entry_contacts(model: StageModel, allowed: np.ndarray) -> np.ndarray:
+    """Boolean (n_contacts,): the contact records the exact date of entry into its one allowed stage."""
+    if not model.exact_entry_stages:
+        return np.zeros(allowed.shape[0], dtype=bool)
+    # Compare bit-packed rows with the one-stage patterns (much faster than row sums over bools).
+    packed = np.packbits(allowed, axis=1, bitorder="little")
+    result = np.zeros(allowed.shape[0], dtype=bool)
+    for name in model.exact_entry_stages:
+        pattern = np.zeros((1, model.n_stages), dtype=bool)
+        pattern[0, model.stage_index(name)] = True
+        result |= (packed == np.packbits(pattern, axis=1, bitorder="little")).all(axis=1)
+    return result
+
+
+def _prepare(model: StageModel, timelines: Timelines, method: str = "auto") -> _Plan:
+    n_stages = model.n_stages
+    if timelines.allowed_stages.shape[1] != n_stages:
+        raise ValueError(f"timelines allow {timelines.allowed_stages.shape[1]} stages, model has {n_stages}")
+    likelihood = contact_likelihoods(model, timelines)
+    counts = timelines.n_contacts_per_case
+    order = np.argsort(-counts, kind="stable")
+    max_contacts = int(counts.max()) if counts.size else 0
+    active_counts = counts.size - np.cumsum(np.bincount(counts, minlength=max_contacts + 1))[:max_contacts]
+
+    n = timelines.n_contacts
+    step_index = np.full(n, -1, dtype=np.int64)
+    into = np.ones(n, dtype=bool)
+    into[timelines.first_index] = False
+    into_rows = np.flatnonzero(into)
+    if into_rows.size:
+        distinct, group = _covariate_groups(timelines.covariates[into_rows - 1])
+        gaps = timelines.times[into_rows] - timelines.times[into_rows - 1]
+        generators = model.generators(distinct)
+        matrices, index = distinct_transition_matrices(generators, gaps, group, method)
+        exact_rows = _exact_entry_contacts(model, timelines.allowed_stages)[into_rows]
+        if exact_rows.any():
+            # Second copy of every needed pair with exact-entry columns replaced by the density
+            # sum_{r != s} P(prev -> r) Q[r, s]; Q[s, s] = 0 for an absorbing s, so it is (P Q)[:, s].
+            needed = np.unique(index[exact_rows])
+            pair_generator = np.zeros(matrices.shape[0], dtype=np.int64)
+            pair_generator[index] = group
+            density = matrices[needed] @ generators[pair_generator[needed]]
+            exact_stages = [model.stage_index(s) for s in model.exact_entry_stages]
+            entered = matrices[needed].copy()
+            entered[:, :, exact_stages] = density[:, :, exact_stages]
+            position = np.full(matrices.shape[0], -1)
+            position[needed] = matrices.shape[0] + np.arange(needed.size)
+            matrices = np.concatenate([matrices, entered])
+            index = np.where(exact_rows, position[index], index)
+        step_index[into_rows] = index
+    else:
+        matrices = np.zeros((0, n_stages, n_stages))
+    starts = timelines.offsets[:-1][order]
+    layout = np.concatenate([starts[:c] + k for k, c in enumerate(active_counts)]) if n else \
+        np.zeros(0, dtype=np.int64)
+    base = np.concatenate([[0], np.cumsum(active_counts)[:-1]]).astype(np.int64)
+    return _Plan(layout, likelihood[layout], active_counts, base, matrices, step_index[layout])
+
+
+# --------------------------------------------------------------------------- forward-backward
+@dataclass
+class ForwardResult:
+    """Scaled forward pass.
+
+    Attributes
+    ----------
+    log_likelihood : ndarray, shape (n_cases,)
+        Log-likelihood of each case's timeline (``-inf`` if impossible under the model).
+    filtered : ndarray, shape (n_contacts, n_stages)
+        P(stage at contact j | that case's evidence up to and including contact j); a row of zeros
+        after the evidence became impossible.
+    log_scale : ndarray, shape (n_contacts,)
+        Log of the per-contact scaling constant; summed over a case it gives ``log_likelihood``.
+    """
+
+    log_likelihood: np.ndarray
+    filtered: np.ndarray
+    log_scale: np.ndarray
+    _plan: _Plan = field(default=None, repr=False)
+
+
+def _forward(plan: _Plan, initial: np.ndarray, timelines: Timelines) -> ForwardResult:
+    n, n_stages = plan.likelihood.shape
+    filtered = np.zeros((n, n_stages))
+    scale = np.zeros(n)
+    for k in range(plan.active_counts.size):
+        rows = plan.current(k)
+        if k == 0:
+            alpha = initial[None, :] * plan.likelihood[rows]
+        else:
+            alpha = np.einsum("ns,nst->nt", filtered[plan.previous(k)], plan.steps(k)) * plan.likelihood[rows]
+        total = alpha.sum(axis=1)
+        scale[rows] = total
+        filtered[rows] = alpha / np.where(total > 0, total, 1.0)[:, None]
+    with np.errstate(divide="ignore"):
+        log_scale = plan.to_rows(np.log(scale))
+    filtered = plan.to_rows(filtered)
+    log_likelihood = np.add.reduceat(log_scale, timelines.offsets[:-1]) if n else np.zeros(0)
+    return ForwardResult(log_likelihood, filtered, log_scale, plan)
+
+
+def forward(model: StageModel, timelines: Timelines, method: str = "auto") -> ForwardResult:
+    """Scaled forward algorithm over every case.
+
+    Parameters
+    ----------
+    model : StageModel
+    timelines : Timelines
+    method : {"auto", "eigen", "expm"}
+        How transition matrices are computed (:func:`hmm.transition.distinct_transition_matrices`).
+
+    Returns
+    -------
+    ForwardResult
+        ``log_likelihood`` (n_cases,), ``filtered`` (n_contacts, n_stages), ``log_scale`` (n_contacts,).
+    """
+    plan = _prepare(model, timelines, method)
+    return _forward(plan, np.asarray(model.initial, dtype=float), timelines)
+
+
+def backward(model: StageModel, timelines: Timelines, forward_result: ForwardResult | None = None) -> np.ndarray:
+    """Scaled backward variables.
+
+    Parameters
+    ----------
+    model : StageModel
+    timelines : Timelines
+    forward_result : ForwardResult, optional
+        From :func:`forward` on the same inputs (computed if not given; its scaling is used).
+
+    Returns
+    -------
+    ndarray, shape (n_contacts, n_stages)
+        ``beta_j[r] = P(evidence after contact j | stage r at j) / prod of later scale constants``,
+        so ``filtered * beta`` is the smoothed distribution. 1 at each case's last contact.
+    """
+    if forward_result is None or forward_result._plan is None:
+        forward_result = forward(model, timelines)
+    plan = forward_result._plan
+    n, n_stages = plan.likelihood.shape
+    scale = np.exp(forward_result.log_scale[plan.layout])
+    scale = np.where(scale > 0, scale, 1.0)
+    beta = np.ones((n, n_stages))
+    for k in range(plan.active_counts.size - 1, 0, -1):
+        rows = plan.current(k)
+        weighted = plan.likelihood[rows] * beta[rows] / scale[rows][:, None]
+        beta[plan.previous(k)] = np.einsum("nst,nt->ns", plan.steps(k), weighted)
+    return plan.to_rows(beta)
+
+
+def smoothed_probabilities(model: StageModel, timelines: Timelines, method: str = "auto",
+                           forward_result: ForwardResult | None = None) -> np.ndarray:
+    """P(stage at each contact | all of that case's evidence), by scaled forward-backward.
+
+    Parameters
+    ----------
+    model : StageModel
+    timelines : Timelines
+    method : {"auto", "eigen", "expm"}
+    forward_result : ForwardResult, optional
+        Reuse an earlier :func:`forward` on the same inputs.
+
+    Returns
+    -------
+    ndarray, shape (n_contacts, n_stages)
+        Rows sum to 1 (rows of zeros for cases whose evidence is impossible under the model).
+    """
+    if forward_result is None or forward_result._plan is None:
+        forward_result = forward(model, timelines, method)
+    smoothed = forward_result.filtered * backward(model, timelines, forward_result)
+    total = smoothed.sum(axis=1, keepdims=True)
+    return smoothed / np.where(total > 0, total, 1.0)
+
+
+def most_likely_path(model: StageModel, timelines: Timelines, method: str = "auto",
+                     forward_result: ForwardResult | None = None) -> np.ndarray:
+    """Most likely sequence of stages at the contacts of each case (Viterbi, in log space).
+
+    Parameters
+    ----------
+    model : StageModel
+    timelines : Timelines
+    method : {"auto", "eigen", "expm"}
+    forward_result : ForwardResult, optional
+        From :func:`forward` on the same inputs; only its transition matrices are reused.
+
+    Returns
+    -------
+    ndarray of int64, shape (n_contacts,)
+        Stage index at every contact; ties go to the lower stage index.
+    """
+    plan = forward_result._plan if forward_result is not None and forward_result._plan is not None \
+        else _prepare(model, timelines, method)
+    n, n_stages = plan.likelihood.shape
+    with np.errstate(divide="ignore"):
+        log_likelihood = np.log(plan.likelihood)
+        log_steps = np.log(plan.step_matrices)
+        log_initial = np.log(np.asarray(model.initial, dtype=float))
+    score = np.empty((n, n_stages))
+    pointer = np.zeros((n, n_stages), dtype=np.int16)
+    counts = plan.active_counts
+    for k in range(counts.size):
+        rows = plan.current(k)
+        if k == 0:
+            score[rows] = log_initial[None, :] + log_likelihood[rows]
+            continue
+        candidates = score[plan.previous(k)][:, :, None] + np.take(log_steps, plan.step_index[rows], axis=0)
+        best = candidates.argmax(axis=1)
+        pointer[rows] = best
+        score[rows] = np.take_along_axis(candidates, best[:, None, :], axis=1)[:, 0, :] + log_likelihood[rows]
+    path = np.zeros(n, dtype=np.int64)
+    for k in range(counts.size - 1, -1, -1):
+        rows = plan.current(k)
+        # Cases whose last contact is at position k (the tail of the active prefix) start the
+        # trace-back from their best final score; the others follow the pointer from position k + 1.
+        following = counts[k + 1] if k + 1 < counts.size else 0
+        ending = slice(rows.start + following, rows.stop)
+        path[ending] = score[ending].argmax(axis=1)
+        if following:
+            later = slice(plan.base[k + 1], plan.base[k + 1] + following)
+            path[rows.start:rows.start + following] = pointer[later][np.arange(following), path[later]]
+    return plan.to_rows(path)
+
+
+# --------------------------------------------------------------------------- now and ahead
+def _propagate(model: StageModel, probabilities: np.ndarray, covariates: np.ndarray, gaps: np.ndarray,
+               rate_rows_zeroed: np.ndarray | None = None) -> np.ndarray:
+    """``p_i P_i(gap_i)`` with P from each row's covariates, optionally with some rows of Q zeroed."""
+    distinct, group = _covariate_groups(np.asarray(covariates, dtype=float).reshape(probabilities.shape[0], -1))
+    generators = model.generators(distinct)
+    if rate_rows_zeroed is not None:
+        generators = generators.copy()
+        generators[:, rate_rows_zeroed, :] = 0.0
+    matrices, index = distinct_transition_matrices(generators, gaps, group)
+    return np.einsum("ns,nst->nt", probabilities, matrices[index])
+
+
+def stage_probabilities_now(model: StageModel, timelines: Timelines, as_of, filtered: np.ndarray | None = None):
+    """Stage probabilities of each case on a given day, from the evidence up to that day.
+
+    Parameters
+    ----------
+    model : StageModel
+    timelines : Timelines
+        Already cut to contacts on or before ``as_of`` (:meth:`Timelines.until`).
+    as_of : float or ndarray, shape (n_cases,)
+        Day (same origin as ``timelines.times``), not before any case's last contact.
+    filtered : ndarray, shape (n_contacts, n_stages), optional
+        ``forward(model, timelines).filtered`` if already computed.
+
+    Returns
+    -------
+    ndarray, shape (n_cases, n_stages)
+        Filtered distribution at the last contact, propagated to ``as_of`` with the generator of
+        the last contact's covariates.
+    """
+    if filtered is None:
+        filtered = forward(model, timelines).filtered
+    last = timelines.last_index
+    gaps = np.broadcast_to(np.asarray(as_of, dtype=float), last.shape) - timelines.times[last]
+    if np.any(gaps < 0):
+        case = int(np.flatnonzero(gaps < 0)[0])
+        raise ValueError(f"as_of is before the last contact of case {case} "
+                         f"(day {timelines.times[last][case]:g}); cut the timelines with Timelines.until first")
+    return _propagate(model, filtered[last], timelines.covariates[last], gaps)
+
+
+@dataclass
+class Forecast:
+    """Where cases will be after a horizon.
+
+    Attributes
+    ----------
+    at_horizon : ndarray, shape (n_cases, n_stages)
+        P(stage at the horizon).
+    reach : ndarray, shape (n_cases, n_stages)
+        P(in that stage at least once within [0, horizon]); at least the current probability.
+    horizon : float
+    """
+
+    at_horizon: np.ndarray
+    reach: np.ndarray
+    horizon: float
+
+
+def _check_horizon(horizon) -> float:
+    horizon = float(horizon)
+    if not np.isfinite(horizon) or horizon < 0:
+        raise ValueError(f"horizon must be a number of days >= 0, got {horizon!r}")
+    return horizon
+
+
+def forecast(model: StageModel, probabilities, covariates, horizon: float) -> Forecast:
+    """Stage occupancy at a horizon and probability of reaching each stage within it.
+
+    Parameters
+    ----------
+    model : StageModel
+    probabilities : ndarray, shape (n_cases, n_stages)
+        Current stage probabilities (for example :func:`stage_probabilities_now`).
+    covariates : ndarray, shape (n_cases, n_covariates)
+        Covariates assumed to hold over the horizon.
+    horizon : float
+        Days ahead, >= 0.
+
+    Returns
+    -------
+    Forecast
+        ``reach[:, s]`` makes stage ``s`` absorbing (its row of Q set to zero), propagates, and
+        reads column ``s``: the first-passage probability into ``s`` by the horizon.
+    """
+    probabilities = np.atleast_2d(np.asarray(probabilities, dtype=float))
+    horizon = _check_horizon(horizon)
+    n = probabilities.shape[0]
+    gaps = np.full(n, horizon)
+    at_horizon = _propagate(model, probabilities, covariates, gaps)
+    reach = np.empty_like(probabilities)
+    for s in range(model.n_stages):  # loop over stages, each batched over the caseload
+        reach[:, s] = _propagate(model, probabilities, covariates, gaps, np.array([s]))[:, s]
+    return Forecast(at_horizon, np.clip(reach, 0.0, 1.0), horizon)
+
+
+def reach_probability(model: StageModel, probabilities, covariates, horizon: float, target_mask) -> np.ndarray:
+    """Probability of being in any of a set of stages at least once within a horizon.
+
+    Parameters
+    ----------
+    model : StageModel
+    probabilities : ndarray, shape (n_cases, n_stages)
+    covariates : ndarray, shape (n_cases, n_covariates)
+    horizon : float
+        Days, >= 0.
+    target_mask : ndarray of bool, shape (n_stages,)
+        The set of stages (for example ``model.follow_up_mask``); all made absorbing together.
+
+    Returns
+    -------
+    ndarray, shape (n_cases,)
+    """
+    probabilities = np.atleast_2d(np.asarray(probabilities, dtype=float))
+    target = np.asarray(target_mask, dtype=bool)
+    if target.shape != (model.n_stages,):
+        raise ValueError(f"target_mask must have {model.n_stages} entries, got {target.shape}")
+    gaps = np.full(probabilities.shape[0], _check_horizon(horizon))
+    ahead = _propagate(model, probabilities, covariates, gaps, np.flatnonzero(target))
+    return np.clip(ahead[:, target].sum(axis=1), 0.0, 1.0)
+
+
+def occupancy_over_time(model: StageModel, probabilities, covariates, days) -> np.ndarray:
+    """Stage probabilities on several future days (for charts).
+
+    Parameters
+    ----------
+    model : StageModel
+    probabilities : ndarray, shape (n_cases, n_stages)
+    covariates : ndarray, shape (n_cases, n_covariates)
+    days : ndarray, shape (T,)
+        Offsets from now in days, >= 0.
+
+    Returns
+    -------
+    ndarray, shape (n_cases, T, n_stages)
+    """
+    probabilities = np.atleast_2d(np.asarray(probabilities, dtype=float))
+    days = np.asarray(days, dtype=float).reshape(-1)
+    if days.size and (not np.all(np.isfinite(days)) or days.min() < 0):
+        raise ValueError("days must be offsets >= 0")
+    n = probabilities.shape[0]
+    distinct, group = _covariate_groups(np.asarray(covariates, dtype=float).reshape(n, -1))
+    generators = model.generators(distinct)
+    all_groups = np.repeat(np.arange(distinct.shape[0]), days.size)
+    all_days = np.tile(days, distinct.shape[0])
+    matrices = distinct_transition_matrices(generators, all_days, all_groups)
+    table = matrices[0][matrices[1]].reshape(distinct.shape[0], days.size, model.n_stages, model.n_stages)
+    result = np.empty((n, days.size, model.n_stages))
+    chunk = max(1, 2_000_000 // max(1, days.size * model.n_stages ** 2))  # bounds the gathered memory
+    for start in range(0, n, chunk):
+        part = slice(start, start + chunk)
+        result[part] = np.einsum("ns,ntsu->ntu", probabilities[part], table[group[part]])
+    return result

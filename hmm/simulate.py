@@ -1,0 +1,223 @@
+"""Simulate stage processes exactly (Gillespie) and observe them at irregular contacts.
+
+Randomness always comes from an explicit ``numpy.random.Generator``. The caseload simulator
+steps all cases together: a loop over contact position, and inside it a loop over jumps where
+each iteration moves every case that still has a jump before its next contact.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+
+import numpy as np
+
+from .inference import _covariate_groups
+from .model import StageModel
+from .timelines import MISSING, Timelines
+
+__all__ = ["simulate_path", "simulate_caseload", "regular_contacts", "SimulatedCaseload"]
+
+
+def simulate_path(generator, start_stage: int, duration: float, rng: np.random.Generator) -> tuple:
+    """One exact continuous-time path (Gillespie's direct method).
+
+    Parameters
+    ----------
+    generator : ndarray, shape (S, S)
+    start_stage : int
+    duration : float
+        Days to simulate.
+    rng : numpy.random.Generator
+
+    Returns
+    -------
+    jump_times : ndarray, shape (J + 1,)
+        0 followed by the time of every jump within ``[0, duration]``.
+    stages : ndarray of int64, shape (J + 1,)
+        Stage entered at each of those times (``stages[0] == start_stage``).
+    """
+    q = np.asarray(generator, dtype=float)
+    times, stages = [0.0], [int(start_stage)]
+    t, s = 0.0, int(start_stage)
+    while True:
+        rate = -q[s, s]
+        if rate <= 0:
+            break
+        t += rng.exponential(1.0 / rate)
+        if t > duration:
+            break
+        weights = np.where(np.arange(q.shape[0]) == s, 0.0, np.maximum(q[s], 0.0))
+        s = int(rng.choice(q.shape[0], p=weights / weights.sum()))
+        times.append(t)
+        stages.append(s)
+    return np.array(times), np.array(stages, dtype=np.int64)
+
+
+@dataclass(frozen=True)
+class SimulatedCaseload:
+    """A simulated caseload and the truth behind it.
+
+    Attributes
+    ----------
+    timelines : Timelines
+    true_stages : ndarray of int64, shape (n_contacts,)
+        The stage each case was really in at each recorded contact.
+    case_of_contact : ndarray of int64, shape (n_contacts,)
+    exact_entry_contact : ndarray of bool, shape (n_contacts,)
+        True for contacts that record the exact date of entry into an exact-entry stage.
+    """
+
+    timelines: Timelines
+    true_stages: np.ndarray
+    case_of_contact: np.ndarray
+    exact_entry_contact: np.ndarray
+
+
+def regular_contacts(n_cases: int, n_contacts: int, gap: float, start: float = 0.0) -> list:
+    """Contact times ``start, start + gap, ...`` for every case.
+
+    Returns
+    -------
+    list of ndarray, each shape (n_contacts,)
+    """
+    times = start + gap * np.arange(n_contacts, dtype=float)
+    return [times.copy() for _ in range(n_cases)]
+
+
+def _draw_categories(cdf_rows: np.ndarray, rng: np.random.Generator) -> np.ndarray:
+    """Inverse-CDF draw per row; ``cdf_rows`` shape (n, C)."""
+    u = rng.random(cdf_rows.shape[0])
+    return np.minimum((u[:, None] >= cdf_rows).sum(axis=1), cdf_rows.shape[1] - 1)
+
+
+def simulate_caseload(model: StageModel, contact_times, covariates, rng: np.random.Generator,
+                      missing_probability=0.0, exact_entry: bool = True) -> SimulatedCaseload:
+    """Simulate every case's hidden stage path and the evidence recorded at its contacts.
+
+    Parameters
+    ----------
+    model : StageModel
+    contact_times : list of ndarray
+        Per case, sorted contact days (at least one each).
+    covariates : list of ndarray, each shape (n_contacts_i, n_covariates), or ndarray (n_cases, n_covariates)
+        Covariates recorded at each contact (a 2-D array gives each case constant covariates).
+    rng : numpy.random.Generator
+    missing_probability : float or ndarray, shape (n_channels,)
+        Chance that a channel is not recorded at a contact (recorded as ``MISSING``).
+    exact_entry : bool
+        If True and a path enters one of ``model.exact_entry_stages`` before the next scheduled
+        contact, one contact is recorded at that entry time (allowed stages = only that stage,
+        all channels missing, covariates of the previous contact) and the case's timeline stops.
+
+    Returns
+    -------
+    SimulatedCaseload
+        Start stage drawn from ``model.initial`` at the first contact; between contacts ``j`` and
+        ``j + 1`` the chain runs with the generator of contact ``j``'s covariates.
+    """
+    counts = np.array([len(t) for t in contact_times], dtype=np.int64)
+    if counts.size == 0 or counts.min() < 1:
+        raise ValueError("every case needs at least one contact time")
+    offsets = np.concatenate([[0], np.cumsum(counts)])
+    times = np.concatenate([np.asarray(t, dtype=float) for t in contact_times])
+    n_cases, n_flat, n_stages = counts.size, times.size, model.n_stages
+    if isinstance(covariates, np.ndarray) and covariates.ndim == 2 and covariates.shape[0] == n_cases \
+            and not (n_cases == n_flat):
+        cov = np.repeat(covariates.astype(float), counts, axis=0)
+    elif isinstance(covariates, np.ndarray) and covariates.ndim == 2 and covariates.shape[0] == n_flat:
+        cov = covariates.astype(float)
+    else:
+        cov = np.concatenate([np.asarray(c, dtype=float).reshape(-1, model.n_covariates) for c in covariates])
+    if cov.shape != (n_flat, model.n_covariates):
+        raise ValueError(f"covariates must give {model.n_covariates} values at each of {n_flat} contacts")
+    case_of = np.repeat(np.arange(n_cases), counts)
+    if n_flat > 1 and np.any((np.diff(times) < 0) & (case_of[1:] == case_of[:-1])):
+        raise ValueError("contact times must be sorted within each case")
+
+    distinct, group = _covariate_groups(cov)
+    generators = model.generators(distinct)
+    leave_rate = -np.einsum("gss->gs", generators)                      # (G, S)
+    jumps = np.clip(generators, 0.0, None)
+    jumps[:, np.arange(n_stages), np.arange(n_stages)] = 0.0
+    with np.errstate(invalid="ignore", divide="ignore"):
+        jump_cdf = np.cumsum(jumps, axis=2) / leave_rate[:, :, None]      # (G, S, S)
+    exact_mask = np.zeros(n_stages, dtype=bool)
+    if exact_entry:
+        exact_mask[[model.stage_index(s) for s in model.exact_entry_stages]] = True
+
+    order = np.argsort(-counts, kind="stable")
+    starts = offsets[:-1][order]
+    true_stage = np.full(n_flat, -1, dtype=np.int64)
+    recorded = np.zeros(n_flat, dtype=bool)
+    stage = np.zeros(n_cases, dtype=np.int64)                          # indexed by sorted position
+    stopped = np.zeros(n_cases, dtype=bool)
+    entry_time = np.zeros(n_cases)
+    entry_stage = np.zeros(n_cases, dtype=np.int64)
+    entry_row = np.zeros(n_cases, dtype=np.int64)
+
+    stage[:] = _draw_categories(np.tile(np.cumsum(model.initial), (n_cases, 1)), rng)
+    true_stage[starts] = stage
+    recorded[starts] = True
+    for k in range(1, int(counts.max())):
+        active = np.flatnonzero((counts[order] > k) & ~stopped)
+        rows = starts[active] + k
+        t, end, g, s = times[rows - 1], times[rows], group[rows - 1], stage[active]
+        moving = np.arange(active.size)
+        while moving.size:
+            rate = leave_rate[g[moving], s[moving]]
+            with np.errstate(divide="ignore"):
+                hold = np.where(rate > 0, rng.standard_exponential(moving.size) / rate, np.inf)
+            jumped = t[moving] + hold < end[moving]
+            moving = moving[jumped]
+            if not moving.size:
+                break
+            t[moving] += hold[jumped]
+            u = rng.random(moving.size)
+            cdf = jump_cdf[g[moving], s[moving]]
+            s[moving] = np.minimum((u[:, None] >= cdf).sum(axis=1), n_stages - 1)
+            entered = exact_mask[s[moving]]
+            if entered.any():
+                who = moving[entered]
+                stopped[active[who]] = True
+                entry_time[active[who]] = t[who]
+                entry_stage[active[who]] = s[who]
+                entry_row[active[who]] = rows[who] - 1
+                moving = moving[~entered]
+        stage[active] = s
+        going_on = ~stopped[active]
+        true_stage[rows[going_on]] = s[going_on]
+        recorded[rows[going_on]] = True
+
+    # Evidence at scheduled contacts.
+    kept = np.flatnonzero(recorded)
+    n_channels = len(model.channels)
+    missing = np.broadcast_to(np.asarray(missing_probability, dtype=float), (n_channels,))
+    observations = np.full((kept.size, n_channels), MISSING, dtype=np.int16)
+    for c, table in enumerate(model.emission_matrices()):
+        codes = _draw_categories(np.cumsum(table, axis=1)[true_stage[kept]], rng)
+        lost = rng.random(kept.size) < missing[c]
+        observations[:, c] = np.where(lost, MISSING, codes)
+    allowed = np.ones((kept.size, n_stages), dtype=bool)
+
+    # Exact-entry contacts.
+    entries = np.flatnonzero(stopped)
+    entry_allowed = np.zeros((entries.size, n_stages), dtype=bool)
+    entry_allowed[np.arange(entries.size), entry_stage[entries]] = True
+    all_case = np.concatenate([case_of[kept], order[entries]])
+    all_times = np.concatenate([times[kept], entry_time[entries]])
+    sort = np.lexsort((all_times, all_case))
+    case_sorted = all_case[sort]
+    per_case = np.bincount(case_sorted, minlength=n_cases)
+    timelines = Timelines(
+        offsets=np.concatenate([[0], np.cumsum(per_case)]).astype(np.int64),
+        times=all_times[sort],
+        observations=np.concatenate([observations, np.full((entries.size, n_channels), MISSING, np.int16)])[sort],
+        allowed_stages=np.concatenate([allowed, entry_allowed])[sort],
+        covariates=np.concatenate([cov[kept], cov[entry_row[entries]]])[sort],
+    )
+    return SimulatedCaseload(
+        timelines=timelines,
+        true_stages=np.concatenate([true_stage[kept], entry_stage[entries]])[sort],
+        case_of_contact=case_sorted,
+        exact_entry_contact=np.concatenate([np.zeros(kept.size, bool), np.ones(entries.size, bool)])[sort],
+    )
