@@ -1,0 +1,265 @@
+"""Run every caseview benchmark in one go and print the table (ratios against hmmlearn, targets, memory).
+
+Every measured command runs in a fresh process, one at a time (``benchmarks/measure.py``): the
+time is wall-clock time of the whole command including its start-up, the memory is that process's
+peak resident set size. The hmmlearn reference runs in a fresh process too
+(``benchmarks/reference_hmmlearn.py``); its time covers only the library calls, its memory the
+whole process. See benchmarks/README.md for what each figure means.
+
+Run::
+
+    python benchmarks/run_all.py                 # full sizes (100,000 cases; fits on 3,000 and 10,000)
+    python benchmarks/run_all.py --quick         # small sizes, about a minute, a smoke run
+    python benchmarks/run_all.py --skip-gui --skip-fit --cases 20000
+"""
+
+from __future__ import annotations
+
+import argparse
+import datetime as dt
+import json
+import os
+import platform
+import re
+import shlex
+import shutil
+import subprocess
+import sys
+import tempfile
+import time
+from pathlib import Path
+
+HERE = Path(__file__).resolve().parent
+ROOT = HERE.parent
+sys.path.insert(0, str(HERE))
+
+from measure import Measured, run_measured  # noqa: E402
+from report import Row, render_results, render_table  # noqa: E402
+
+PYTHON = sys.executable
+MEMORY_TARGET_MB = 1024.0
+
+
+def caseview_command() -> list:
+    script = Path(PYTHON).with_name("caseview")
+    return [str(script)] if script.exists() else [PYTHON, "-m", "caseview"]
+
+
+def available_commands() -> set:
+    done = subprocess.run(caseview_command() + ["--help"], capture_output=True, text=True)
+    return set(re.findall(r"^\s{4}([a-z][\w-]*)\s", done.stdout, flags=re.M))
+
+
+def gui_timing_available() -> bool:
+    done = subprocess.run([PYTHON, "-c", "import caseview.gui.timing"], capture_output=True,
+                          env={**os.environ, "QT_QPA_PLATFORM": "offscreen"})
+    return done.returncode == 0
+
+
+def log(message: str) -> None:
+    print(f"[{time.strftime('%H:%M:%S')}] {message}", flush=True)
+
+
+def generate(cases: int, layout: str, out: Path, seed: int, covariates: str = "constant", **models) -> dict:
+    command = [PYTHON, str(HERE / "generate.py"), "--cases", str(cases), "--layout", layout, "--out", str(out),
+               "--seed", str(seed), "--covariates", covariates]
+    for option, path in models.items():
+        command += [f"--{option.replace('_', '-')}", str(path)]
+    done = subprocess.run(command, capture_output=True, text=True, check=True)
+    summary = json.loads(done.stdout.strip().splitlines()[-1])
+    log(f"generated {summary['cases']:,} cases, {summary['contacts']:,} contacts ({layout}) "
+        f"in {summary['seconds']:.1f} s -> {out.name}")
+    return summary
+
+
+def make_workspace(ws: Path, model: Path, csv: Path, notes: list) -> Measured:
+    """``caseview init`` (untimed) then ``caseview import`` (measured)."""
+    cv = caseview_command()
+    if ws.exists():
+        ws.unlink()
+    init = subprocess.run(cv + ["init", str(ws), "--model", str(model)], capture_output=True, text=True)
+    if init.returncode:
+        raise RuntimeError(f"caseview init failed: {init.stderr.strip()}")
+    imported = run_measured(cv + ["import", str(ws), str(csv)])
+    if not imported.ok:
+        raise RuntimeError(f"caseview import {csv.name} failed: {imported.problem()}")
+    return imported
+
+
+def score_cross_check(scores_csv: Path, posterior_npy: Path, stages: list) -> float:
+    """Largest |caseview p_now - hmmlearn posterior at the last contact| over all cases and stages."""
+    import numpy as np
+    import pandas as pd
+
+    frame = pd.read_csv(scores_csv).sort_values("case_id")
+    ours = frame[[f"p_{s}" for s in stages]].to_numpy(dtype=float)
+    reference = np.load(posterior_npy)
+    if ours.shape != reference.shape:
+        return float("inf")
+    return float(np.abs(ours - reference).max())
+
+
+def main(argv=None) -> int:
+    parser = argparse.ArgumentParser(description=__doc__.splitlines()[0])
+    parser.add_argument("--cases", type=int, default=100_000, help="cases for score, import and window (default 100000)")
+    parser.add_argument("--fit-cases", default="3000,10000", help="comma-separated fit sizes (default 3000,10000)")
+    parser.add_argument("--n-iter", type=int, default=100, help="hmmlearn EM iterations (default 100)")
+    parser.add_argument("--seed", type=int, default=20261202)
+    parser.add_argument("--quick", action="store_true", help="small sizes (5000 cases, fit on 300): a smoke run")
+    for part in ("score", "fit", "import", "gui", "irregular-score"):
+        parser.add_argument(f"--skip-{part}", action="store_true")
+    parser.add_argument("--workdir", type=Path, help="where data and workspaces go (default: a temporary directory)")
+    parser.add_argument("--keep", action="store_true", help="keep the work directory")
+    parser.add_argument("--results", type=Path, default=HERE / "results.md",
+                        help="markdown file for the table (default benchmarks/results.md; '' for none)")
+    args = parser.parse_args(argv)
+    if args.quick:
+        args.cases = min(args.cases, 5000)
+        args.fit_cases = "300"
+    fit_sizes = [int(x) for x in args.fit_cases.split(",") if x.strip()]
+    command_line = "python benchmarks/run_all.py " + " ".join(shlex.quote(a) for a in (argv or sys.argv[1:]))
+
+    work = args.workdir or Path(tempfile.mkdtemp(prefix="caseview-bench-"))
+    work.mkdir(parents=True, exist_ok=True)
+    os.environ["QT_QPA_PLATFORM"] = "offscreen"
+    commands = available_commands()
+    log(f"caseview commands available: {', '.join(sorted(commands)) or 'none'}; work directory {work}")
+    load_before = os.getloadavg()
+    rows: list[Row] = []
+    notes: list[str] = []
+    missing: list[str] = []
+    cv = caseview_command()
+    n = args.cases
+
+    def need(*names) -> bool:
+        absent = [c for c in names if c not in commands]
+        if absent:
+            missing.append(f"`caseview {' / '.join(absent)}` not available yet")
+        return not absent
+
+    try:
+        # ------------------------------------------------ import + irregular score + window
+        irregular_ws = work / "irregular.cvw"
+        irregular = None
+        if not (args.skip_import and args.skip_gui and args.skip_irregular_score) and need("init", "import"):
+            irregular = generate(n, "irregular", work / "irregular.csv", args.seed, model_out=work / "demo_model.json")
+            log("timing caseview import (irregular gaps)")
+            imported = make_workspace(irregular_ws, work / "demo_model.json", work / "irregular.csv", notes)
+            if not args.skip_import:
+                rows.append(Row(f"`caseview import`, {n:,} cases, {irregular['contacts']:,} contacts, irregular gaps",
+                                imported.seconds, None, "<= 10 s", imported.peak_mb, limit=10.0))
+            notes.append("import said: " + " / ".join(imported.stdout.strip().splitlines()))
+        if irregular and not args.skip_irregular_score and need("score"):
+            log("timing caseview score (irregular gaps)")
+            scored = run_measured(cv + ["score", str(irregular_ws), "--as-of", irregular["last_day"],
+                                        "--out", str(work / "irregular_scores.csv")])
+            if scored.ok:
+                rows.append(Row(f"`caseview score`, {n:,} cases, irregular gaps (issue 2 figure)",
+                                scored.seconds, None, "(no target)", scored.peak_mb))
+            else:
+                missing.append(f"caseview score (irregular) failed: {scored.problem()}")
+        if irregular and not args.skip_gui:
+            if gui_timing_available():
+                log("timing the window's caseload table (open, sort, filter)")
+                gui = run_measured([PYTHON, str(HERE / "gui_timing.py"), str(irregular_ws), "--as-of",
+                                    irregular["last_day"]])
+                figures = gui.last_json_line()
+                if gui.ok and figures:
+                    rows.append(Row(f"window: open {n:,}-case workspace until the table shows data",
+                                    figures["window_open"], None, "<= 3 s", gui.peak_mb, limit=3.0))
+                    rows.append(Row("window: sort the table (slowest of 5 columns x 2 directions)",
+                                    figures["sort_max"], None, "<= 0.1 s", gui.peak_mb, limit=0.1))
+                    rows.append(Row("window: filter the table (slowest of coordinator / search / flagged / clear)",
+                                    figures["filter_max"], None, "<= 0.1 s", gui.peak_mb, limit=0.1))
+                    parts = ", ".join(f"{k} {v:.3f} s" for k, v in figures.items() if isinstance(v, float))
+                    notes.append(f"window breakdown: {parts}")
+                else:
+                    missing.append(f"window timing failed: {gui.problem() or 'no figures printed'}")
+            else:
+                missing.append("caseview.gui.timing not importable yet")
+
+        # ------------------------------------------------ score vs hmmlearn (equal gaps)
+        if not args.skip_score and need("init", "import", "score"):
+            equal = generate(n, "equal", work / "equal.csv", args.seed, model_out=work / "equal_model.json")
+            make_workspace(work / "equal.cvw", work / "equal_model.json", work / "equal.csv", notes)
+            log("timing caseview score (equal gaps)")
+            scored = run_measured(cv + ["score", str(work / "equal.cvw"), "--as-of", equal["last_day"],
+                                        "--out", str(work / "equal_scores.csv")])
+            log("timing hmmlearn score + predict_proba")
+            reference = run_measured([PYTHON, str(HERE / "reference_hmmlearn.py"), "score", "--arrays",
+                                      equal["arrays"], "--model", str(work / "equal_model.json"),
+                                      "--posterior-out", str(work / "hmmlearn_posterior.npy")])
+            ref = reference.last_json_line()
+            if scored.ok and reference.ok:
+                rows.append(Row(f"`caseview score` vs hmmlearn `score`+`predict_proba`, {n:,} cases x 12, "
+                                f"equal 30-day gaps", scored.seconds, ref["seconds"], "ratio <= 0.5",
+                                scored.peak_mb, reference.peak_mb, ratio_limit=0.5,
+                                cpu_seconds=scored.cpu_seconds, reference_cpu_seconds=ref.get("cpu_seconds")))
+                stages = json.loads((work / "equal_model.json").read_text())["stages"]
+                diff = score_cross_check(work / "equal_scores.csv", work / "hmmlearn_posterior.npy", stages)
+                notes.append(f"score cross-check: max |caseview p_now - hmmlearn posterior at last contact| = "
+                             f"{diff:.1e} over {n:,} cases (CSV has 6 decimals); hmmlearn used {ref['groups']} "
+                             f"models (one per covariate pattern), total log-likelihood {ref['log_likelihood']:.3f}")
+            else:
+                missing.append(f"score comparison failed: {scored.problem() or reference.problem()}")
+
+        # ------------------------------------------------ fit vs hmmlearn EM
+        if not args.skip_fit:
+            have_fit = need("init", "import", "fit")
+            for m in fit_sizes:
+                csv = work / f"fit_{m}.csv"
+                data = generate(m, "equal", csv, args.seed + m, covariates="zero", model_out=work / "fit_truth.json",
+                                start_model_out=work / "fit_start.json")
+                fitted = None
+                if have_fit:
+                    ws = work / f"fit_{m}.cvw"
+                    make_workspace(ws, work / "fit_start.json", csv, notes)
+                    log(f"timing caseview fit ({m:,} cases)")
+                    fitted = run_measured(cv + ["fit", str(ws)])
+                log(f"timing hmmlearn EM ({m:,} cases, n_iter={args.n_iter}, tol=1e-4)")
+                reference = run_measured([PYTHON, str(HERE / "reference_hmmlearn.py"), "fit", "--arrays",
+                                          data["arrays"], "--model", str(work / "fit_start.json"),
+                                          "--n-iter", str(args.n_iter), "--tol", "1e-4"])
+                ref = reference.last_json_line()
+                if not reference.ok:
+                    missing.append(f"hmmlearn EM at {m} failed: {reference.problem()}")
+                    continue
+                target = "ratio <= 0.5" if m == fit_sizes[0] else "(no target)"
+                label = f"`caseview fit` vs hmmlearn EM, {m:,} cases x 12, equal 30-day gaps"
+                ref_note = (f"fit {m:,}: hmmlearn EM ran {ref['iterations']} iterations (converged flag "
+                            f"{ref['converged']}), final log-likelihood {ref['log_likelihood']:.3f}")
+                if fitted is not None and fitted.ok:
+                    rows.append(Row(label, fitted.seconds, ref["seconds"], target, fitted.peak_mb, reference.peak_mb,
+                                    ratio_limit=0.5 if target.startswith("ratio") else None,
+                                    cpu_seconds=fitted.cpu_seconds, reference_cpu_seconds=ref.get("cpu_seconds")))
+                    tail = " | ".join(fitted.stdout.strip().splitlines()[-3:])
+                    notes.append(f"{ref_note}; caseview fit said: {tail}")
+                else:
+                    rows.append(Row(label + " (caseview fit NOT MEASURED)", None, ref["seconds"], target, None,
+                                    reference.peak_mb, ratio_limit=0.5 if target.startswith("ratio") else None))
+                    notes.append(ref_note)
+                    if fitted is not None:
+                        missing.append(f"caseview fit at {m} failed: {fitted.problem()}")
+    finally:
+        if not args.keep and not args.workdir:
+            shutil.rmtree(work, ignore_errors=True)
+
+    quick = " (quick run: sizes are below the targets' sizes)" if args.quick else ""
+    table = render_table(rows, MEMORY_TARGET_MB)
+    print()
+    print(table)
+    for note in notes:
+        print(f"- {note}")
+    for item in missing:
+        print(f"- NOT MEASURED: {item}")
+    context = (f"{dt.datetime.now().strftime('%Y-%m-%d %H:%M')}, {platform.node()}, {os.cpu_count()} cores, "
+               f"Python {platform.python_version()}, load average before the run "
+               f"{load_before[0]:.2f}/{load_before[1]:.2f}/{load_before[2]:.2f}{quick}")
+    if str(args.results):
+        args.results.write_text(render_results(table, notes, missing, command_line, context), encoding="utf-8")
+        print(f"\nwrote {args.results}")
+    return 0 if all(r.passed() is not False for r in rows) and not missing else 1
+
+
+if __name__ == "__main__":
+    sys.exit(main())

@@ -1,0 +1,54 @@
+"""``caseview report``: the team-meeting PDF, the XLSX workbook or the CSV stage summary.
+
+Heavy libraries (matplotlib, openpyxl, the engine) are imported inside :func:`run_report`.
+"""
+
+from __future__ import annotations
+
+
+def register(subparsers) -> None:
+    parser = subparsers.add_parser(
+        "report", help="write a caseload report (PDF, XLSX or CSV, chosen by the file extension)",
+        description="Write a caseload report for a team meeting: a PDF with charts and tables, an XLSX "
+                    "workbook or a CSV stage summary (format from the extension of --out). The report is "
+                    "recorded in the workspace's audit trail. Advisory only.")
+    parser.add_argument("workspace", metavar="WS", help="workspace file")
+    parser.add_argument("--as-of", required=True, metavar="YYYY-MM-DD", help="date the caseload is assessed on")
+    parser.add_argument("--out", required=True, metavar="FILE", help="output file: .pdf, .xlsx or .csv")
+    parser.add_argument("--horizon", type=float, default=90.0, metavar="DAYS",
+                        help="forecast horizon in days (default 90)")
+    parser.add_argument("--coordinator", metavar="C", help="only this coordinator's cases")
+    parser.add_argument("--flagged-only", action="store_true", help="list only flagged cases")
+    parser.add_argument("--since", metavar="YYYY-MM-DD", help="show what changed since this earlier date")
+    parser.add_argument("--dates", choices=("calendar", "relative", "shifted"), default="calendar",
+                        help="calendar (default); relative = days since each case's first contact (safer for "
+                             "sharing); shifted = a random offset per case (NOT Safe Harbor de-identification)")
+    parser.add_argument("--seed", type=int, metavar="N", help="seed for --dates shifted (default: random)")
+    parser.add_argument("--by", metavar="NAME", help="who is making the report (audit trail; default login name)")
+    parser.set_defaults(run=run_report)
+
+
+def run_report(args) -> int:
+    import sys
+
+    from caseview import ADVISORY_NOTICE
+    from caseview.reports import build_report, report_format
+    from caseview.scoring import parse_date
+    from caseview.storage import Workspace
+
+    report_format(args.out)                      # fail on a bad extension before opening anything
+    as_of = parse_date(args.as_of, "--as-of")
+    since = parse_date(args.since, "--since") if args.since else None
+    if args.seed is not None and args.dates != "shifted":
+        print("caseview: note: --seed only matters with --dates shifted", file=sys.stderr)
+    with Workspace.open(args.workspace) as ws:
+        for warning in getattr(ws, "warnings", []) or []:
+            print(f"caseview: warning: {warning}", file=sys.stderr)
+        result = build_report(ws, as_of, args.out, horizon_days=args.horizon, coordinator=args.coordinator,
+                              flagged_only=args.flagged_only, since=since, dates=args.dates, seed=args.seed,
+                              actor=args.by)
+    what = f"{result.count} page(s)" if result.format == "pdf" else f"{result.count} case row(s)"
+    print(f"wrote {result.path} ({result.format}, {what}; sha256 {result.sha256})")
+    print(f"audit chain head: {result.audit_head}")
+    print(ADVISORY_NOTICE)
+    return 0

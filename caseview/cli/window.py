@@ -1,0 +1,43 @@
+"""``caseview gui``: the desktop window, or a screenshot of it rendered offscreen."""
+
+from __future__ import annotations
+
+import sys
+
+
+def register(subparsers) -> None:
+    p = subparsers.add_parser("gui", help="open the desktop window (or render it to a PNG with --screenshot)",
+                              description="Open the caseview window. Everything it shows is advisory.")
+    p.add_argument("workspace", nargs="?", metavar="WS", help="workspace file to open")
+    p.add_argument("--case", metavar="ID", help="select this case")
+    p.add_argument("--as-of", metavar="DATE", help="as-of date YYYY-MM-DD (default today)")
+    p.add_argument("--screenshot", metavar="PNG", help="render the window offscreen to this PNG and exit")
+    p.add_argument("--panel", choices=("caseload", "queue", "model"), default="caseload",
+                   help="panel to show in the screenshot (default caseload)")
+    p.add_argument("--size", metavar="WxH", default="1400x900", help="window size for --screenshot (default 1400x900)")
+    p.set_defaults(run=run)
+
+
+def run(args) -> int:
+    from caseview.errors import InputError
+    from caseview.scoring import parse_date
+
+    as_of = parse_date(args.as_of, "--as-of") if args.as_of else None
+    try:
+        width, height = (int(v) for v in args.size.lower().split("x"))
+    except ValueError:
+        raise InputError(f"--size: expected WIDTHxHEIGHT such as 1400x900, got {args.size!r}") from None
+    if width < 1400 or height < 900:
+        raise InputError(f"--size: the window needs at least 1400x900, got {args.size}")
+    if args.screenshot is None:
+        from caseview.gui.app import has_display
+
+        if not has_display():
+            print("caseview: no display found. Render the window to a file with "
+                  "'caseview gui WS --screenshot out.png', or use the command line: "
+                  "'caseview score WS --as-of YYYY-MM-DD --out scores.csv'.", file=sys.stderr)
+            return 2
+    from caseview.gui.launch import run_window
+
+    return run_window(args.workspace, case_id=args.case, as_of=as_of, screenshot=args.screenshot,
+                      size=(width, height), panel=("caseload", "queue", "model").index(args.panel))

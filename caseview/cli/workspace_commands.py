@@ -1,0 +1,189 @@
+"""Workspace commands: ``init``, ``import``, ``export``, ``backup``, ``audit verify|show``.
+
+The actor recorded in the audit trail is the operating-system user (``getpass.getuser()``) unless
+``--by NAME`` is given. This is attribution, not authentication: caseview does not check who
+anyone is; protect the workspace file with the operating system's permissions.
+"""
+
+from __future__ import annotations
+
+import sys
+
+
+def _actor(args) -> str:
+    if getattr(args, "by", None):
+        return args.by
+    import getpass
+
+    try:
+        return getpass.getuser()
+    except Exception:  # no user name in the environment
+        return "unknown"
+
+
+def _open(path):
+    from caseview.storage import Workspace
+
+    ws = Workspace.open(path)
+    for warning in ws.warnings:
+        print(f"caseview: warning: {warning}", file=sys.stderr)
+    return ws
+
+
+def _add_by(parser) -> None:
+    parser.add_argument("--by", metavar="NAME", help="name recorded in the audit trail (default: the "
+                        "operating-system user; attribution, not authentication)")
+
+
+def register(subparsers) -> None:
+    p = subparsers.add_parser("init", help="create a new workspace file with a stage model",
+                              description="Create a new workspace (one SQLite file at any path) with MODEL.json "
+                                          "as its first model. Refuses an existing file.")
+    p.add_argument("workspace", metavar="WS")
+    p.add_argument("--model", required=True, metavar="MODEL.json")
+    _add_by(p)
+    p.set_defaults(run=run_init)
+
+    p = subparsers.add_parser("import", help="import case timelines from CSV or XLSX (all rows or none)",
+                              description="Validate the whole file against the current model, then store every "
+                                          "row in one transaction, or nothing if anything is wrong.")
+    p.add_argument("workspace", metavar="WS")
+    p.add_argument("file", metavar="FILE.csv|FILE.xlsx")
+    p.add_argument("--map", action="append", default=[], metavar="SOURCE=TARGET",
+                   help="read file column SOURCE as TARGET (repeatable)")
+    p.add_argument("--drop", action="append", default=[], metavar="COLUMN", help="leave out a file column (repeatable)")
+    p.add_argument("--replace", action="store_true",
+                   help="replace stored contacts of the same case and date that differ (audited)")
+    _add_by(p)
+    p.set_defaults(run=run_import)
+
+    p = subparsers.add_parser("export", help="export the timelines in the import layout (CSV or XLSX)")
+    p.add_argument("workspace", metavar="WS")
+    p.add_argument("--out", required=True, metavar="FILE.csv|FILE.xlsx")
+    _add_by(p)
+    p.set_defaults(run=run_export)
+
+    p = subparsers.add_parser("backup", help="copy the workspace safely (SQLite online backup)")
+    p.add_argument("workspace", metavar="WS")
+    p.add_argument("destination", metavar="DEST")
+    _add_by(p)
+    p.set_defaults(run=run_backup)
+
+    p = subparsers.add_parser("audit", help="check or show the tamper-evident audit trail")
+    audit_sub = p.add_subparsers(dest="audit_command", metavar="verify|show", parser_class=type(p))
+    v = audit_sub.add_parser("verify", help="recompute the hash chain; non-zero exit names the first bad entry")
+    v.add_argument("workspace", metavar="WS")
+    v.set_defaults(run=run_audit_verify)
+    s = audit_sub.add_parser("show", help="list audit entries")
+    s.add_argument("workspace", metavar="WS")
+    s.add_argument("--case", metavar="ID", help="only entries about this case")
+    s.add_argument("--since", metavar="YYYY-MM-DD", help="only entries on or after this date (UTC)")
+    s.set_defaults(run=run_audit_show)
+    p.set_defaults(run=lambda args: (p.print_help(), 2)[1])
+
+
+def run_init(args) -> int:
+    from pathlib import Path
+
+    from caseview.errors import InputError
+    from caseview.storage import Workspace
+
+    path = Path(args.model)
+    try:
+        text = path.read_text(encoding="utf-8-sig")
+    except FileNotFoundError:
+        raise InputError(f"{path}: model file not found") from None
+    except UnicodeDecodeError as exc:
+        raise InputError(f"{path}: not UTF-8 text (byte {exc.start}); save the model file as UTF-8") from None
+    except OSError as exc:
+        raise InputError(f"{path}: cannot read model file ({exc.strerror})") from None
+    from caseview.modelfile import parse_model
+
+    parse_model(text, source=str(path))  # names the model file in any message
+    with Workspace.create(args.workspace, text, _actor(args)) as ws:
+        for warning in ws.warnings:
+            print(f"caseview: warning: {warning}", file=sys.stderr)
+        model, version = ws.current_model()
+        print(f"created workspace {ws.path} with model version {version.id} ({model.name})")
+        print(f"audit chain head: {ws.audit_head()}")
+    return 0
+
+
+def _mapping(pairs) -> dict:
+    from caseview.errors import InputError
+
+    out = {}
+    for pair in pairs:
+        source, sep, target = pair.partition("=")
+        if not sep or not source.strip() or not target.strip():
+            raise InputError(f"--map {pair!r}: expected SOURCE=TARGET, e.g. --map ClientRef=case_id")
+        out[source.strip()] = target.strip()
+    return out
+
+
+def run_import(args) -> int:
+    from caseview.timeline_io import import_timelines
+
+    mapping = _mapping(args.map)
+    with _open(args.workspace) as ws:
+        result = import_timelines(ws, args.file, _actor(args), mapping=mapping, drop=args.drop, replace=args.replace)
+        for warning in result.warnings:
+            print(f"caseview: warning: {warning}", file=sys.stderr)
+        print(f"imported {result.file} (sha256 {result.sha256}, {result.rows_read} rows read)")
+        print(f"cases added: {result.cases_added}")
+        print(f"contacts added: {result.contacts_added}")
+        print(f"exact duplicates skipped: {result.duplicates_skipped}")
+        print(f"replaced: {result.replaced}")
+    return 0
+
+
+def run_export(args) -> int:
+    from caseview.timeline_io import export_timelines
+
+    with _open(args.workspace) as ws:
+        result = export_timelines(ws, args.out, _actor(args))
+        print(f"exported {result.rows} contacts of {result.cases} cases to {result.file} (sha256 {result.sha256})")
+        print(f"audit chain head: {result.audit_head}")
+    return 0
+
+
+def run_backup(args) -> int:
+    with _open(args.workspace) as ws:
+        dest = ws.backup(args.destination, actor=_actor(args))
+        print(f"backed up {ws.path} to {dest}")
+        print(f"audit chain head: {ws.audit_head()}")
+    return 0
+
+
+def run_audit_verify(args) -> int:
+    with _open(args.workspace) as ws:
+        result = ws.audit_verify()
+    if result.ok:
+        print(f"audit trail intact: {result.n_entries} entries; chain head {result.head_hash}")
+        return 0
+    print(f"caseview: error: audit trail broken at entry {result.first_bad_id}: {result.problem}", file=sys.stderr)
+    return 4
+
+
+def run_audit_show(args) -> int:
+    import datetime as _dt
+    import json
+
+    from caseview.errors import InputError
+
+    since = None
+    if args.since:
+        try:
+            since = _dt.date.fromisoformat(args.since).isoformat()
+        except ValueError:
+            raise InputError(f"--since {args.since!r}: expected a date as YYYY-MM-DD") from None
+    with _open(args.workspace) as ws:
+        entries = ws.audit_entries(case_id=args.case, since_utc=since)
+        head = ws.audit_head()
+    for e in entries:
+        details = json.dumps(e.details, sort_keys=True, ensure_ascii=False)
+        if len(details) > 300:
+            details = details[:297] + "..."
+        print(f"{e.id}\t{e.at_utc}\t{e.actor}\t{e.action}\t{e.target}\t{details}")
+    print(f"{len(entries)} entries shown; chain head {head}")
+    return 0

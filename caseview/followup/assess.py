@@ -1,0 +1,219 @@
+"""Assess a caseload: scores, flags with reasons, next contact due, review status, priority.
+
+:func:`assess_scores` is pure (no database); :func:`assess_caseload` adds the workspace: its rule
+set, the previous saved score run (for ``sharp_rise``), the reviews, the automatic re-open of
+dismissed flags, and optionally saves this run as a snapshot. It is cheap enough to run inside
+``caseview score``: rules are vectorised and the leave-one-out reasons are computed for flagged
+cases only.
+"""
+
+from __future__ import annotations
+
+import datetime as dt
+from dataclasses import dataclass
+
+import numpy as np
+
+from .flags import INFLUENCE_CONTACTS, evaluate_rules, explain
+from .rules import SCHEDULE_RULE, RuleSet, default_rules, workspace_rules
+from .schedule import SEARCH_LIMIT_DAYS, next_contact_due_day
+
+
+@dataclass(frozen=True)
+class CaseloadAssessment:
+    """Flags, reasons, schedule and review state; arrays aligned with ``scores`` rows.
+
+    Attributes
+    ----------
+    scores : caseview.scoring.CaseloadScores
+    rules : RuleSet
+    flags : ndarray of object, shape (n_cases,)
+        Names of the rules that fired joined by ';' ('' when none).
+    is_flagged : ndarray of bool, shape (n_cases,)
+    reasons : list[list[FlagReason]], length n_cases
+    reason_text : ndarray of object, shape (n_cases,)
+        One readable line per case ('' when not flagged).
+    next_contact_due_day : ndarray of int64, shape (n_cases,)
+        Day (since 1970-01-01) the follow-up probability would reach the ``in_follow_up_now``
+        threshold if nothing new is observed; the as-of day when already over; -1 if not within
+        :data:`~caseview.followup.schedule.SEARCH_LIMIT_DAYS`.
+    review_status : ndarray of object, shape (n_cases,)
+        '' (not flagged, never reviewed) | new | acknowledged | actioned | dismissed.
+    reviewed_by, reviewed_at : ndarray of object, shape (n_cases,)
+        Actor and UTC time of the latest review ('' when none).
+    priority : ndarray, shape (n_cases,)
+        Higher = contact sooner: ``is_flagged + (p_follow_up_now + p_reach_follow_up) / 2``, so
+        every flagged case ranks above every unflagged one and, within each group, cases rank by
+        their follow-up probabilities.
+    previous_as_of : date or None
+        As-of date of the saved run used by ``sharp_rise``.
+    previous_p_follow_up : ndarray, shape (n_cases,)
+        P(follow-up now) in that run (NaN where the case was not in it).
+    reopened : list[str]
+        Case IDs whose dismissed flag this assessment re-opened.
+    saved_run_id : int or None
+    """
+
+    scores: object
+    rules: RuleSet
+    flags: np.ndarray
+    is_flagged: np.ndarray
+    reasons: list
+    reason_text: np.ndarray
+    next_contact_due_day: np.ndarray
+    review_status: np.ndarray
+    reviewed_by: np.ndarray
+    reviewed_at: np.ndarray
+    priority: np.ndarray
+    previous_as_of: dt.date | None = None
+    previous_p_follow_up: np.ndarray | None = None
+    reopened: tuple = ()
+    saved_run_id: int | None = None
+
+    @property
+    def order(self) -> np.ndarray:
+        """Default table order: highest priority first (ties by case ID)."""
+        return np.lexsort((self.scores.case_ids.astype(str), -self.priority))
+
+    def flag_counts(self) -> dict:
+        """Rule name -> number of cases it flagged."""
+        return {name: int(sum(name in f.split(";") for f in self.flags if f)) for name in self.rules.names}
+
+
+def _review_arrays(case_ids, is_flagged, latest: dict):
+    n = len(case_ids)
+    status = np.where(is_flagged, "new", "").astype(object)
+    by = np.full(n, "", dtype=object)
+    at = np.full(n, "", dtype=object)
+    for i, code in enumerate(case_ids):
+        review = latest.get(str(code))
+        if review is not None:
+            status[i], by[i], at[i] = review.status, review.actor, review.at_utc
+    return status, by, at
+
+
+def assess_scores(scores, rules: RuleSet | None = None, previous_p_follow_up=None,
+                  previous_as_of: dt.date | None = None, latest_reviews: dict | None = None,
+                  influence_contacts: int = INFLUENCE_CONTACTS,
+                  schedule_limit_days: int = SEARCH_LIMIT_DAYS) -> CaseloadAssessment:
+    """Flags, reasons and schedule for already computed scores (no database).
+
+    Parameters
+    ----------
+    scores : caseview.scoring.CaseloadScores
+    rules : RuleSet, optional
+        Default rules when None.
+    previous_p_follow_up : ndarray, shape (n_cases,), optional
+        P(follow-up now) per case in the previous saved run (NaN where absent).
+    latest_reviews : dict, optional
+        Case code -> latest ``ReviewRow``.
+    """
+    rules = rules or default_rules()
+    n = scores.n_cases
+    previous = np.full(n, np.nan) if previous_p_follow_up is None else np.asarray(previous_p_follow_up, float)
+    evaluation = evaluate_rules(scores, rules, previous)
+    is_flagged = evaluation.fired.any(axis=1)
+    names = np.asarray(rules.names, dtype=object)
+    flags = np.array([";".join(names[row]) for row in evaluation.fired], dtype=object) if n else \
+        np.zeros(0, dtype=object)
+    reasons, reason_text = explain(scores, rules, evaluation, previous, previous_as_of, influence_contacts)
+    due = next_contact_due_day(scores.model, scores.p_now, scores.last_covariates,
+                               rules[SCHEDULE_RULE].threshold, scores.as_of_day, schedule_limit_days)
+    status, by, at = _review_arrays(scores.case_ids, is_flagged, latest_reviews or {})
+    priority = is_flagged.astype(float) + 0.5 * (scores.p_follow_up_now + scores.p_reach_follow_up)
+    return CaseloadAssessment(scores, rules, flags, is_flagged, reasons, reason_text, due, status, by, at,
+                              priority, previous_as_of, previous)
+
+
+def assess_caseload(ws, as_of: dt.date, horizon_days: float = 90.0, rules: RuleSet | None = None,
+                    callback=None, save_snapshot: bool = False, reopen: bool = True,
+                    actor: str | None = None) -> CaseloadAssessment:
+    """Score the workspace's caseload as of ``as_of`` and assess it.
+
+    Parameters
+    ----------
+    ws : caseview.storage.Workspace
+    as_of : datetime.date
+    horizon_days : float
+    rules : RuleSet, optional
+        The workspace's rules (setting ``follow_up_rules``, defaults if unset) when None.
+    callback : callable(fraction), optional
+        Progress; raise from it to cancel.
+    save_snapshot : bool
+        Store this run (``score_runs`` + ``case_scores``) for the next ``sharp_rise`` comparison;
+        audited as ``scores.snapshot``.
+    reopen : bool
+        Re-open dismissed flags whose risk rose materially (see :mod:`caseview.followup.reviews`).
+    actor : str, optional
+        Recorded with a saved snapshot (default: the OS user).
+    """
+    from caseview.scoring import score_caseload
+    from caseview.storage import followup_store as store
+
+    from .reviews import reopen_candidates, reopen_dismissed
+
+    def scoring_progress(fraction):
+        if callback:
+            callback(0.8 * fraction)
+
+    rules = rules or workspace_rules(ws)
+    scores = score_caseload(ws, as_of, horizon_days, callback=scoring_progress)
+    previous_run = store.previous_run(ws.connection, as_of.isoformat())
+    previous, previous_as_of = None, None
+    if previous_run is not None:
+        _, previous_text, values = previous_run
+        previous_as_of = dt.date.fromisoformat(previous_text)
+        previous = np.array([values.get(str(code), np.nan) for code in scores.case_ids], dtype=float)
+    latest = store.latest_reviews(ws.connection)
+    assessment = assess_scores(scores, rules, previous, previous_as_of, latest)
+    if callback:
+        callback(0.9)
+    reopened = []
+    if reopen:
+        candidates = reopen_candidates(latest, scores.case_ids, scores.p_follow_up_now, as_of)
+        if candidates:
+            flags_by_case = dict(zip(map(str, scores.case_ids), assessment.flags))
+            reopened = reopen_dismissed(ws, candidates, as_of, flags_by_case)
+            if reopened:
+                status, by, at = _review_arrays(scores.case_ids, assessment.is_flagged,
+                                                store.latest_reviews(ws.connection))
+                assessment = _replace(assessment, review_status=status, reviewed_by=by, reviewed_at=at)
+    run_id = None
+    if save_snapshot:
+        run_id = save_run(ws, assessment, actor or _os_user())
+    assessment = _replace(assessment, reopened=tuple(reopened), saved_run_id=run_id)
+    if callback:
+        callback(1.0)
+    return assessment
+
+
+def _replace(assessment, **changes):
+    from dataclasses import replace
+
+    return replace(assessment, **changes)
+
+
+def _os_user() -> str:
+    import getpass
+
+    try:
+        return getpass.getuser()
+    except Exception:
+        return "unknown-user"
+
+
+def save_run(ws, assessment: CaseloadAssessment, actor: str) -> int:
+    """Store the assessment's scores as a snapshot, with its audit entry, in one transaction."""
+    from caseview.storage import followup_store as store
+    from caseview.storage.audit import utc_now
+
+    scores = assessment.scores
+    with ws.transaction():
+        run_id = store.save_score_run(ws.connection, scores.as_of.isoformat(), scores.horizon_days,
+                                      scores.model_version, utc_now(), scores.case_ids, scores.p_follow_up_now,
+                                      scores.p_reach_follow_up, assessment.flags)
+        ws.audit_append(actor, "scores.snapshot", f"score_run:{run_id}",
+                        {"run_id": run_id, "as_of": scores.as_of.isoformat(), "horizon_days": scores.horizon_days,
+                         "model_version": scores.model_version, "n_cases": scores.n_cases,
+                         "n_flagged": int(assessment.is_flagged.sum()), "flag_counts": assessment.flag_counts()})
+    return run_id

@@ -1,0 +1,200 @@
+"""Supervisor reviews of flags: a small status machine, audited.
+
+Statuses and the allowed changes (anything else is refused with an InputError that says what is
+allowed from the current status)::
+
+    new           -> acknowledged                 (someone has seen the flag)
+    acknowledged  -> actioned | dismissed         (contact made / concern judged unfounded)
+    actioned      -> acknowledged                 (a later concern on the same case is taken up)
+    dismissed     -> acknowledged                 (the dismissal is reconsidered by a person)
+    dismissed     -> new                          (automatic re-open only, actor "caseview")
+
+A case without any review has status ``new`` (when flagged). A dismissal needs a non-empty note
+giving the reason. Each change is stored in ONE transaction with its audit entry (action
+``review.<status>``, target the case ID; details: previous status, note, flags, P(follow-up now),
+as-of date). The actor is the operating-system user unless ``--by`` names someone: attribution,
+not authentication.
+
+Re-opening: a dismissed case whose P(follow-up stage now) at a later assessment (as-of date on or
+after the dismissal's) is at least :data:`REOPEN_RISE` (0.15, absolute) above the value recorded at
+dismissal goes back to ``new`` (audited as ``review.reopened`` by ``caseview``). 0.15 is somewhat
+below the sharp-rise rule's 0.20: a person already looked at this case and set it aside, so a
+smaller but clear change in the evidence is enough to ask them to look again. Drift alone
+rarely gets there: the largest 30-day rise of a demo case with no new contact was 0.08 (see
+:mod:`caseview.followup.rules`, ``sharp_rise``).
+"""
+
+from __future__ import annotations
+
+import datetime as dt
+import math
+
+from caseview.errors import InputError
+
+STATUSES = ("new", "acknowledged", "actioned", "dismissed")
+#: Statuses a person may set (``new`` is set only by the automatic re-open).
+SETTABLE_STATUSES = ("acknowledged", "actioned", "dismissed")
+ALLOWED_CHANGES = {
+    "new": ("acknowledged",),
+    "acknowledged": ("actioned", "dismissed"),
+    "actioned": ("acknowledged",),
+    "dismissed": ("acknowledged",),
+}
+REOPEN_RISE = 0.15
+REOPEN_ACTOR = "caseview"
+
+
+def check_change(case_id: str, current: str, status: str, note: str) -> None:
+    """Raise InputError unless ``current -> status`` is allowed (with the note rules)."""
+    if status not in SETTABLE_STATUSES:
+        raise InputError(f"review of {case_id}: status must be one of {', '.join(SETTABLE_STATUSES)}, "
+                         f"got {status!r}")
+    if status == current:
+        raise InputError(f"review of {case_id}: the case is already {current}")
+    allowed = ALLOWED_CHANGES[current]
+    if status not in allowed:
+        raise InputError(f"review of {case_id}: cannot go from {current} to {status}; "
+                         f"from {current} the allowed status is {' or '.join(allowed)}")
+    if status == "dismissed" and not (note or "").strip():
+        raise InputError(f"review of {case_id}: a dismissal needs a reason; give it with --note TEXT")
+
+
+def _finite_or_none(value):
+    if value is None:
+        return None
+    value = float(value)
+    return value if math.isfinite(value) else None
+
+
+def _case_numbers(ws, case_id: str, assessment, as_of):
+    """(flags, p_follow_up_now, as_of text) for a case, from an assessment or by scoring."""
+    if assessment is None:
+        from caseview.scoring import score_caseload
+
+        from caseview.storage import followup_store as store
+
+        from .flags import evaluate_rules
+        from .rules import workspace_rules
+
+        when = as_of or dt.datetime.now(dt.timezone.utc).date()
+        scores = score_caseload(ws, when)
+        row = scores.row_of(case_id)
+        if row < 0:
+            return "", None, when.isoformat()
+        previous_run = store.previous_run(ws.connection, when.isoformat())
+        previous = None
+        if previous_run is not None:
+            previous = [previous_run[2].get(str(code), float("nan")) for code in scores.case_ids]
+        rules = workspace_rules(ws)
+        fired = evaluate_rules(scores, rules, previous).fired[row]
+        flags = ";".join(name for name, hit in zip(rules.names, fired) if hit)
+        return flags, float(scores.p_follow_up_now[row]), when.isoformat()
+    row = assessment.scores.row_of(case_id)
+    if row < 0:
+        return "", None, assessment.scores.as_of.isoformat()
+    return (str(assessment.flags[row]), float(assessment.scores.p_follow_up_now[row]),
+            assessment.scores.as_of.isoformat())
+
+
+def record_review(ws, case_id: str, status: str, note: str, actor: str, assessment=None,
+                  as_of: dt.date | None = None):
+    """Change a case's review status, with its audit entry, in one transaction.
+
+    Parameters
+    ----------
+    ws : caseview.storage.Workspace
+    case_id : str
+        The pseudonymous case code.
+    status : {"acknowledged", "actioned", "dismissed"}
+    note : str
+        Free text; required (non-empty) for a dismissal.
+    actor : str
+        Who made the change (attribution, not authentication).
+    assessment : CaseloadAssessment, optional
+        Where the case's flags and P(follow-up now) are read from; when None the caseload is
+        scored as of ``as_of`` (default: today, UTC).
+
+    Returns
+    -------
+    caseview.storage.followup_store.ReviewRow
+        The stored review.
+
+    Raises
+    ------
+    InputError
+        Unknown case, a change that is not allowed, a dismissal without a reason.
+    """
+    from caseview.storage import followup_store as store
+
+    if not actor or not str(actor).strip():
+        raise InputError(f"review of {case_id}: the actor name is empty; give one with --by NAME")
+    if not store.case_exists(ws.connection, case_id):
+        raise InputError(f"case {case_id!r}: no such case in {ws.path}")
+    note = (note or "").strip()
+    # Validate against the stored status before the (possibly slow) scoring, then again inside
+    # the write transaction so that a concurrent change cannot slip in between.
+    previous = store.latest_reviews(ws.connection, case_id).get(case_id)
+    check_change(case_id, previous.status if previous else "new", status, note)
+    flags, p_follow_up, as_of_text = _case_numbers(ws, case_id, assessment, as_of)
+    with ws.transaction():
+        previous = store.latest_reviews(ws.connection, case_id).get(case_id)
+        current = previous.status if previous else "new"
+        check_change(case_id, current, status, note)
+        details = {"from": current, "to": status, "note": note, "flags": flags,
+                   "p_follow_up_now": _finite_or_none(p_follow_up), "as_of": as_of_text}
+        entry = ws.audit_append(actor, f"review.{status}", case_id, details)
+        store.insert_review(ws.connection, case_id, status, note, actor, entry.at_utc, flags,
+                            _finite_or_none(p_follow_up), as_of_text, entry.id)
+    return store.latest_reviews(ws.connection, case_id)[case_id]
+
+
+def reopen_candidates(latest: dict, case_ids, p_follow_up_now, as_of: dt.date, rise: float = REOPEN_RISE) -> list:
+    """Dismissed cases whose P(follow-up now) rose by at least ``rise`` since dismissal.
+
+    Parameters
+    ----------
+    latest : dict
+        Case code -> latest ReviewRow.
+    case_ids : ndarray of object, shape (n,)
+    p_follow_up_now : ndarray, shape (n,)
+    as_of : date
+        The assessment date; only dismissals recorded as of this date or earlier count.
+
+    Returns
+    -------
+    list of (case_id, value_at_dismissal, value_now)
+    """
+    out = []
+    iso = as_of.isoformat()
+    for code, value in zip(case_ids, p_follow_up_now):
+        review = latest.get(str(code))
+        if review is None or review.status != "dismissed" or review.p_follow_up is None:
+            continue
+        if review.as_of is not None and review.as_of > iso:
+            continue
+        if float(value) - review.p_follow_up >= rise - 1e-12:
+            out.append((str(code), float(review.p_follow_up), float(value)))
+    return out
+
+
+def reopen_dismissed(ws, candidates: list, as_of: dt.date, flags_by_case: dict) -> list:
+    """Set the candidates back to ``new``, one transaction with their audit entries."""
+    from caseview.storage import followup_store as store
+
+    if not candidates:
+        return []
+    with ws.transaction():
+        latest = store.latest_reviews(ws.connection)
+        done = []
+        for code, before, now in candidates:
+            if latest.get(code) is None or latest[code].status != "dismissed":
+                continue  # changed by someone else meanwhile
+            note = (f"re-opened: P(follow-up stage now) rose from {before:.2f} at dismissal to {now:.2f} "
+                    f"as of {as_of.isoformat()} (rise >= {REOPEN_RISE:.2f})")
+            details = {"from": "dismissed", "to": "new", "note": note, "flags": flags_by_case.get(code, ""),
+                       "p_follow_up_now": now, "p_follow_up_at_dismissal": before, "as_of": as_of.isoformat()}
+            entry = ws.audit_append(REOPEN_ACTOR, "review.reopened", code, details)
+            store.insert_review(ws.connection, code, "new", note, REOPEN_ACTOR, entry.at_utc,
+                                flags_by_case.get(code, ""), now, as_of.isoformat(), entry.id)
+            done.append(code)
+    return done

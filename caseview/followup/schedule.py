@@ -1,0 +1,100 @@
+"""Next contact due: the day a case's follow-up probability would reach the threshold.
+
+If nothing new is observed, a case's stage distribution moves forward from the as-of date as
+``p(t) = p_now expm(Q t)`` with ``Q`` from the last recorded covariates (Kolmogorov forward
+equation). The next contact is due on the first whole day ``t >= 0`` with
+``sum_{s in follow-up} p(t)[s] >= threshold``: day 0 (the as-of date) when the case is already over,
+and "never" (-1) when it does not get there within the search limit.
+
+The search is exact on whole days and batched over the caseload: for each distinct covariate row
+the matrices ``P(1) ... P(B)`` of one block of ``B`` days are computed once; each block step is one
+``einsum`` over every still-open case, and the block's last day starts the next block.
+"""
+
+from __future__ import annotations
+
+import numpy as np
+
+from hmm.transition import distinct_transition_matrices
+
+#: How far ahead the schedule looks, in days (two years).
+SEARCH_LIMIT_DAYS = 730
+#: Days per block of the search (one einsum per block).
+BLOCK_DAYS = 30
+NEVER = -1
+
+
+def days_until_threshold(model, probabilities, covariates, threshold: float,
+                         limit_days: int = SEARCH_LIMIT_DAYS, block_days: int = BLOCK_DAYS) -> np.ndarray:
+    """First whole day on which P(follow-up stage) reaches ``threshold`` with no new contact.
+
+    Parameters
+    ----------
+    model : hmm.StageModel
+        Its ``follow_up_mask`` defines the follow-up stages.
+    probabilities : ndarray, shape (n_cases, n_stages)
+        Stage probabilities on the as-of date.
+    covariates : ndarray, shape (n_cases, n_covariates)
+        Covariates assumed to hold from the as-of date on (the last recorded ones).
+    threshold : float
+    limit_days : int
+        Largest offset searched.
+    block_days : int
+
+    Returns
+    -------
+    ndarray of int64, shape (n_cases,)
+        Offset in days from the as-of date (0 = already at or over), or -1 (:data:`NEVER`) when the
+        threshold is not reached within ``limit_days``.
+    """
+    probabilities = np.atleast_2d(np.asarray(probabilities, dtype=float))
+    n = probabilities.shape[0]
+    mask = model.follow_up_mask
+    result = np.full(n, NEVER, dtype=np.int64)
+    if n == 0 or not mask.any():
+        return result
+    covariates = np.asarray(covariates, dtype=float).reshape(n, -1)
+    if covariates.shape[1]:
+        distinct, group = np.unique(covariates, axis=0, return_inverse=True)
+        group = group.reshape(-1)
+    else:
+        distinct, group = np.zeros((1, 0)), np.zeros(n, dtype=np.int64)
+    already = probabilities[:, mask].sum(axis=1) >= threshold
+    result[already] = 0
+    open_cases = np.flatnonzero(~already)
+    if not open_cases.size or limit_days < 1:
+        return result
+    block = int(max(1, min(block_days, limit_days)))
+    generators = model.generators(distinct)
+    steps = np.arange(1, block + 1, dtype=float)
+    matrices, index = distinct_transition_matrices(
+        generators, np.tile(steps, distinct.shape[0]), np.repeat(np.arange(distinct.shape[0]), block))
+    table = matrices[index].reshape(distinct.shape[0], block, model.n_stages, model.n_stages)
+    follow_up_table = table[..., mask].sum(axis=-1)  # (G, B, S): P(in follow-up after d days | stage)
+    current = probabilities[open_cases]
+    start = 0
+    while open_cases.size and start < limit_days:
+        g = group[open_cases]
+        level = np.einsum("ns,nbs->nb", current, follow_up_table[g])  # (n_open, B)
+        days = start + np.arange(1, block + 1)
+        level[:, days > limit_days] = -np.inf
+        crossed = level >= threshold
+        hit = crossed.any(axis=1)
+        result[open_cases[hit]] = start + 1 + crossed[hit].argmax(axis=1)
+        keep = ~hit
+        open_cases = open_cases[keep]
+        current = np.einsum("ns,nst->nt", current[keep], table[g[keep], -1])
+        start += block
+    return result
+
+
+def next_contact_due_day(model, probabilities, covariates, threshold: float, as_of_day: int,
+                         limit_days: int = SEARCH_LIMIT_DAYS) -> np.ndarray:
+    """Calendar day (days since 1970-01-01) the next contact is due, or -1 for "not within the limit".
+
+    Returns
+    -------
+    ndarray of int64, shape (n_cases,)
+    """
+    offsets = days_until_threshold(model, probabilities, covariates, threshold, limit_days)
+    return np.where(offsets >= 0, int(as_of_day) + offsets, NEVER).astype(np.int64)

@@ -1,0 +1,297 @@
+"""The caseload table: a Qt item model over numpy arrays (no per-row Python objects).
+
+Sorting is ``numpy.argsort`` on a precomputed integer or float key per column, wrapped in
+``layoutAboutToBeChanged`` / ``layoutChanged``; filters (coordinator, stage, flagged, review
+status, case-ID search) are boolean masks. ``data()`` is O(1): it indexes the arrays through the
+current row order and formats one value.
+"""
+
+from __future__ import annotations
+
+import numpy as np
+from PySide6.QtCore import QAbstractTableModel, QModelIndex, Qt
+
+from caseview.scoring import from_day
+
+COLUMNS = ("Case", "Coordinator", "Last contact", "Days since", "Likely stage now",
+           "Follow-up now", "Reach follow-up", "Next contact due", "Flags", "Review")
+CASE, COORDINATOR, LAST_CONTACT, DAYS_SINCE, STAGE, P_NOW, P_REACH, NEXT_DUE, FLAGS, REVIEW = range(10)
+PROBABILITY_COLUMNS = (P_NOW, P_REACH)
+#: Role carrying the raw probability (0..1) for the bar delegate.
+PROBABILITY_ROLE = Qt.UserRole + 1
+#: Role carrying the row index into the scores arrays.
+CASE_ROW_ROLE = Qt.UserRole + 2
+REVIEW_STATUSES = ("", "new", "acknowledged", "actioned", "dismissed")
+
+
+def _ranks(values: np.ndarray) -> np.ndarray:
+    """Integer rank of each text value (equal texts share a rank), shape (n,)."""
+    if values.size == 0:
+        return np.zeros(0, dtype=np.int64)
+    _, inverse = np.unique(values.astype(str), return_inverse=True)
+    return inverse.astype(np.int64)
+
+
+class CaseloadTableModel(QAbstractTableModel):
+    """Rows = cases of a :class:`~caseview.gui.data_source.LoadedCaseload`, in the current order."""
+
+    def __init__(self, parent=None):
+        super().__init__(parent)
+        self.scores = None
+        self.assessment = None
+        self._n = 0
+        self.order = np.zeros(0, dtype=np.int64)   # scores rows in display order
+        self._mask = np.zeros(0, dtype=bool)
+        self._sort_column = -1                      # -1 = priority
+        self._sort_descending = True
+        self._filters = {"coordinator": "", "stage": -1, "flagged_only": False, "review": None, "search": ""}
+        self.horizon_days = 90.0
+
+    # ------------------------------------------------------------------ loading
+    def set_caseload(self, loaded) -> None:
+        """Show a new :class:`LoadedCaseload` (keeps the current filters and sort)."""
+        self.beginResetModel()
+        scores = loaded.scores
+        self.scores = scores
+        self.assessment = loaded.assessment
+        n = self._n = scores.n_cases
+        self.horizon_days = scores.horizon_days
+        self.case_ids = np.asarray(scores.case_ids, dtype=object)
+        self._case_ids_upper = np.char.upper(self.case_ids.astype(str)) if n else np.zeros(0, dtype=str)
+        self.coordinators = np.asarray(scores.coordinators, dtype=object)
+        self.stage_names = np.asarray(scores.model.stages, dtype=object)
+        self.most_likely = np.asarray(scores.most_likely_stage, dtype=np.int64)
+        self.most_likely_p = scores.p_now[np.arange(n), self.most_likely] if n else np.zeros(0)
+        a = self.assessment
+        if a is not None:
+            self.flag_names = np.asarray(a.flags, dtype=object)
+            self.is_flagged = np.asarray(a.is_flagged, dtype=bool)
+            self.reason_text = np.asarray(a.reason_text, dtype=object)
+            self.next_due = np.asarray(a.next_contact_due_day, dtype=np.int64)
+            self.review = np.array(a.review_status, dtype=object)
+            self.priority = np.asarray(a.priority, dtype=float)
+        else:
+            self.flag_names = np.full(n, "", dtype=object)
+            self.is_flagged = np.zeros(n, dtype=bool)
+            self.reason_text = np.full(n, "", dtype=object)
+            self.next_due = np.full(n, -1, dtype=np.int64)
+            self.review = np.full(n, "", dtype=object)
+            self.priority = np.asarray(scores.p_reach_follow_up, dtype=float)
+        due_key = np.where(self.next_due < 0, np.iinfo(np.int64).max, self.next_due)
+        self._keys = {
+            CASE: _ranks(self.case_ids), COORDINATOR: _ranks(self.coordinators),
+            LAST_CONTACT: scores.last_contact_day, DAYS_SINCE: scores.days_since_contact,
+            STAGE: self.most_likely * 2.0 + self.most_likely_p, P_NOW: scores.p_follow_up_now,
+            P_REACH: scores.p_reach_follow_up, NEXT_DUE: due_key, FLAGS: _ranks(self.flag_names),
+            REVIEW: _ranks(self.review), -1: self.priority,
+        }
+        self._mask = self._compute_mask()
+        self.order = self._sorted(np.flatnonzero(self._mask))
+        self.endResetModel()
+
+    def clear(self) -> None:
+        self.beginResetModel()
+        self.scores = self.assessment = None
+        self._n = 0
+        self.order = np.zeros(0, dtype=np.int64)
+        self.endResetModel()
+
+    # --------------------------------------------------------------- Qt model API
+    def rowCount(self, parent=QModelIndex()) -> int:
+        return 0 if parent.isValid() else int(self.order.size)
+
+    def columnCount(self, parent=QModelIndex()) -> int:
+        return 0 if parent.isValid() else len(COLUMNS)
+
+    def headerData(self, section, orientation, role=Qt.DisplayRole):
+        if orientation == Qt.Horizontal:
+            if role == Qt.DisplayRole:
+                if section == P_REACH:
+                    return f"Reach follow-up ({self.horizon_days:g} d)"
+                return COLUMNS[section]
+            if role == Qt.ToolTipRole:
+                return _HEADER_TIPS[section]
+            return None
+        if role == Qt.DisplayRole:
+            return str(section + 1)
+        return None
+
+    def data(self, index, role=Qt.DisplayRole):
+        if not index.isValid() or self.scores is None:
+            return None
+        row = int(self.order[index.row()])
+        column = index.column()
+        if role == Qt.DisplayRole or role == Qt.AccessibleTextRole:
+            return self._text(row, column)
+        if role == PROBABILITY_ROLE:
+            if column == P_NOW:
+                return float(self.scores.p_follow_up_now[row])
+            if column == P_REACH:
+                return float(self.scores.p_reach_follow_up[row])
+            if column == STAGE:
+                return float(self.most_likely_p[row])
+            return None
+        if role == CASE_ROW_ROLE:
+            return row
+        if role == Qt.ToolTipRole:
+            if column == FLAGS and self.reason_text[row]:
+                return str(self.reason_text[row])
+            if column in PROBABILITY_COLUMNS:
+                return "Advisory estimate from the stage model, not a diagnosis."
+            return None
+        if role == Qt.TextAlignmentRole:
+            if column in (DAYS_SINCE, P_NOW, P_REACH):
+                return int(Qt.AlignRight | Qt.AlignVCenter)
+            return int(Qt.AlignLeft | Qt.AlignVCenter)
+        return None
+
+    def probability_at(self, view_row: int, column: int):
+        """Raw probability (0..1) behind a bar cell, or None (same as PROBABILITY_ROLE)."""
+        if self.scores is None or not 0 <= view_row < self.order.size:
+            return None
+        row = int(self.order[view_row])
+        if column == P_NOW:
+            return float(self.scores.p_follow_up_now[row])
+        if column == P_REACH:
+            return float(self.scores.p_reach_follow_up[row])
+        if column == STAGE:
+            return float(self.most_likely_p[row])
+        return None
+
+    def _text(self, row: int, column: int) -> str:
+        s = self.scores
+        if column == CASE:
+            return str(self.case_ids[row])
+        if column == COORDINATOR:
+            return str(self.coordinators[row]) or "-"
+        if column == LAST_CONTACT:
+            return from_day(s.last_contact_day[row]).isoformat()
+        if column == DAYS_SINCE:
+            return str(int(s.days_since_contact[row]))
+        if column == STAGE:
+            return f"{self.stage_names[self.most_likely[row]]} ({self.most_likely_p[row] * 100:.0f}%)"
+        if column == P_NOW:
+            return f"{s.p_follow_up_now[row] * 100:.0f}%"
+        if column == P_REACH:
+            return f"{s.p_reach_follow_up[row] * 100:.0f}%"
+        if column == NEXT_DUE:
+            day = int(self.next_due[row])
+            if day < 0:
+                return "-" if self.assessment is None else "not within limit"
+            return "now" if day <= s.as_of_day else from_day(day).isoformat()
+        if column == FLAGS:
+            return str(self.flag_names[row]).replace("_", " ").replace(";", ", ")
+        if column == REVIEW:
+            return str(self.review[row]) or ("not reviewed" if self.is_flagged[row] else "")
+        return ""
+
+    def sort(self, column: int, order=Qt.AscendingOrder) -> None:
+        """Sort by a column (``-1`` = priority, highest first)."""
+        if self.scores is None:
+            return
+        self._sort_column = int(column)
+        self._sort_descending = order == Qt.DescendingOrder if column >= 0 else True
+        self.layoutAboutToBeChanged.emit()
+        old_order = self.order
+        self.order = self._sorted(old_order)
+        self._remap_persistent(old_order)
+        self.layoutChanged.emit()
+
+    def sort_by_priority(self) -> None:
+        self.sort(-1)
+
+    @property
+    def sort_column(self) -> int:
+        return self._sort_column
+
+    def _sorted(self, rows: np.ndarray) -> np.ndarray:
+        key = self._keys[self._sort_column][rows]
+        if self._sort_descending:
+            # stable descending: sort the negated key (ties keep their order)
+            order = np.argsort(-key.astype(float), kind="stable")
+        else:
+            order = np.argsort(key, kind="stable")
+        return rows[order]
+
+    def _remap_persistent(self, old_order: np.ndarray) -> None:
+        persistent = self.persistentIndexList()
+        if not persistent:
+            return
+        position = np.empty(self._n, dtype=np.int64)
+        position[self.order] = np.arange(self.order.size)
+        new = []
+        for index in persistent:
+            case_row = int(old_order[index.row()])
+            new.append(self.index(int(position[case_row]), index.column()))
+        self.changePersistentIndexList(persistent, new)
+
+    # -------------------------------------------------------------------- filters
+    def set_filters(self, **changes) -> None:
+        """Change filters: ``coordinator`` ('' = all), ``stage`` (index, -1 = all), ``flagged_only``,
+        ``review`` (status text, '' = not reviewed, None = all), ``search`` (case-ID substring)."""
+        unknown = set(changes) - set(self._filters)
+        if unknown:
+            raise KeyError(f"unknown filter(s): {', '.join(sorted(unknown))}")
+        self._filters.update(changes)
+        if self.scores is None:
+            return
+        self.beginResetModel()
+        self._mask = self._compute_mask()
+        self.order = self._sorted(np.flatnonzero(self._mask))
+        self.endResetModel()
+
+    @property
+    def filters(self) -> dict:
+        return dict(self._filters)
+
+    def _compute_mask(self) -> np.ndarray:
+        f = self._filters
+        mask = np.ones(self._n, dtype=bool)
+        if f["coordinator"]:
+            mask &= self.coordinators == f["coordinator"]
+        if f["stage"] is not None and f["stage"] >= 0:
+            mask &= self.most_likely == f["stage"]
+        if f["flagged_only"]:
+            mask &= self.is_flagged
+        if f["review"] is not None:
+            mask &= self.review == f["review"]
+        text = f["search"].strip().upper()
+        if text and self._n:
+            mask &= np.char.find(self._case_ids_upper, text) >= 0
+        return mask
+
+    # -------------------------------------------------------------------- helpers
+    def case_row(self, view_row: int) -> int:
+        """Scores row shown at ``view_row``."""
+        return int(self.order[view_row])
+
+    def view_row_of_case(self, case_id: str) -> int:
+        """Display row of ``case_id`` or -1 (hidden or unknown)."""
+        hits = np.flatnonzero(self.case_ids[self.order] == case_id) if self.order.size else []
+        return int(hits[0]) if len(hits) else -1
+
+    def coordinator_names(self) -> list:
+        return sorted({str(c) for c in self.coordinators if c}) if self.scores is not None else []
+
+    def set_review_status(self, case_row: int, status: str) -> None:
+        """Show a new review status for one case (after :func:`record_review`)."""
+        self.review[case_row] = status
+        self._keys[REVIEW] = _ranks(self.review)
+        position = np.flatnonzero(self.order == case_row)
+        if position.size:
+            index = self.index(int(position[0]), REVIEW)
+            self.dataChanged.emit(index, index, [Qt.DisplayRole])
+
+
+_HEADER_TIPS = {
+    CASE: "Pseudonymous case code",
+    COORDINATOR: "Care coordinator at the last contact",
+    LAST_CONTACT: "Date of the last recorded contact on or before the as-of date",
+    DAYS_SINCE: "Days from the last contact to the as-of date",
+    STAGE: "Most likely stage on the as-of date and its probability (advisory)",
+    P_NOW: "Chance of being in a follow-up stage on the as-of date (advisory)",
+    P_REACH: "Chance of being in a follow-up stage at least once within the horizon (advisory)",
+    NEXT_DUE: "When the follow-up chance would cross the rule threshold if nothing new is observed",
+    FLAGS: "Follow-up rules that fired; hover for the reasons",
+    REVIEW: "Supervisor review status of the flag",
+}

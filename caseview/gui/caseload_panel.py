@@ -1,0 +1,185 @@
+"""The caseload table with its filter bar and probability bars."""
+
+from __future__ import annotations
+
+from PySide6.QtCore import QRect, Qt, Signal
+from PySide6.QtGui import QColor, QKeySequence, QShortcut
+from PySide6.QtWidgets import (QAbstractItemView, QCheckBox, QComboBox, QHBoxLayout, QHeaderView, QLabel,
+                               QLineEdit, QStyledItemDelegate, QTableView, QVBoxLayout, QWidget)
+
+from . import theme
+from .caseload_model import P_NOW, P_REACH, PROBABILITY_ROLE, REVIEW_STATUSES, STAGE, CaseloadTableModel
+
+
+ANY = "*"  # item data meaning "no filter" for the review combo (a text, never None)
+
+
+class ProbabilityDelegate(QStyledItemDelegate):
+    """Paints a thin bar under the percentage; its colour repeats the value (never the only cue)."""
+
+    def paint(self, painter, option, index):
+        super().paint(painter, option, index)
+        # Ask the Python model directly: on PySide6 6.12 with Python 3.11, QModelIndex.data() and
+        # QComboBox.currentData() returning None drop a reference to None (crash after many calls).
+        value = index.model().probability_at(index.row(), index.column())
+        if value is None:
+            return
+        rect = option.rect.adjusted(4, option.rect.height() - 6, -4, -2)
+        painter.save()
+        painter.fillRect(rect, QColor(128, 128, 128, 50))
+        filled = QRect(rect.left(), rect.top(), max(1, int(rect.width() * float(value))), rect.height())
+        colour = theme.colour("accent") if index.column() == STAGE else theme.risk_colour(float(value))
+        painter.fillRect(filled, QColor(colour))
+        painter.restore()
+
+
+class CaseloadPanel(QWidget):
+    """Filter bar + table. Emits ``case_selected(case_row)`` (row into the scores arrays)."""
+
+    case_selected = Signal(int)
+
+    def __init__(self, parent=None):
+        super().__init__(parent)
+        self.model = CaseloadTableModel(self)
+        self.search = QLineEdit(placeholderText="Search case ID  (Ctrl+F)")
+        self.search.setAccessibleName("Search by case ID")
+        self.search.setClearButtonEnabled(True)
+        self.coordinator = QComboBox()
+        self.coordinator.setAccessibleName("Filter by coordinator")
+        self.stage = QComboBox()
+        self.stage.setAccessibleName("Filter by most likely stage")
+        self.flagged = QCheckBox("Flagged only")
+        self.flagged.setAccessibleName("Show flagged cases only")
+        self.review = QComboBox()
+        self.review.setAccessibleName("Filter by review status")
+        self.review.addItem("Any review status", ANY)
+        for status in REVIEW_STATUSES:
+            self.review.addItem(status or "not reviewed", status)
+        self.count = QLabel("No caseload open")
+        self.count.setAccessibleName("Number of cases shown")
+        bar = QHBoxLayout()
+        for w in (self.search, self.coordinator, self.stage, self.flagged, self.review):
+            bar.addWidget(w)
+        bar.addStretch(1)
+        bar.addWidget(self.count)
+        self.search.setMinimumWidth(200)
+        for combo in (self.coordinator, self.stage, self.review):
+            combo.setSizeAdjustPolicy(QComboBox.AdjustToContents)
+
+        self.table = QTableView()
+        self.table.setObjectName("caseloadTable")
+        self.table.setAccessibleName("Caseload table")
+        self.table.setModel(self.model)
+        self.table.setSortingEnabled(False)  # we call model.sort ourselves (priority is the default)
+        self.table.setSelectionBehavior(QAbstractItemView.SelectRows)
+        self.table.setSelectionMode(QAbstractItemView.SingleSelection)
+        self.table.setAlternatingRowColors(True)
+        self.table.setWordWrap(False)
+        vertical = self.table.verticalHeader()
+        vertical.hide()
+        vertical.setSectionResizeMode(QHeaderView.Fixed)  # uniform rows: O(1) layout at 100,000 rows
+        vertical.setDefaultSectionSize(self.fontMetrics().height() + 10)
+        header = self.table.horizontalHeader()
+        header.setSectionsClickable(True)
+        header.setSortIndicatorShown(True)
+        header.setSortIndicator(-1, Qt.DescendingOrder)
+        header.sectionClicked.connect(self._header_clicked)
+        header.setStretchLastSection(True)
+        for column, width in enumerate((100, 95, 100, 85, 170, 110, 165, 130, 200, 110)):
+            self.table.setColumnWidth(column, width)
+        delegate = ProbabilityDelegate(self.table)
+        for column in (STAGE, P_NOW, P_REACH):
+            self.table.setItemDelegateForColumn(column, delegate)
+        self.table.selectionModel().currentRowChanged.connect(self._current_changed)
+
+        layout = QVBoxLayout(self)
+        layout.setContentsMargins(0, 0, 0, 0)
+        layout.addLayout(bar)
+        layout.addWidget(self.table, 1)
+
+        self.search.textChanged.connect(lambda text: self._filter(search=text))
+        self.coordinator.currentIndexChanged.connect(lambda _: self._filter(coordinator=self.coordinator.currentData()))
+        self.stage.currentIndexChanged.connect(lambda _: self._filter(stage=int(self.stage.currentData())))
+        self.flagged.toggled.connect(lambda on: self._filter(flagged_only=bool(on)))
+        self.review.currentIndexChanged.connect(lambda _: self._filter(
+            review=None if self.review.currentData() == ANY else self.review.currentData()))
+        QShortcut(QKeySequence.Find, self, activated=self.focus_search)
+        QShortcut(QKeySequence("Ctrl+Shift+P"), self, activated=self.sort_by_priority)
+        self._last_case_row = -1
+
+    # --------------------------------------------------------------------- loading
+    def set_caseload(self, loaded) -> None:
+        keep = self.current_case_id()
+        self.model.set_caseload(loaded)
+        self._fill_combo(self.coordinator, "All coordinators", "", [(c, c) for c in self.model.coordinator_names()])
+        self._fill_combo(self.stage, "Any likely stage", -1, [(s, i) for i, s in enumerate(loaded.scores.model.stages)])
+        self.flagged.setEnabled(loaded.assessment is not None)
+        self.review.setEnabled(loaded.assessment is not None)
+        self._update_count()
+        if keep and self.select_case(keep):
+            return
+        if self.model.rowCount() and not self.table.currentIndex().isValid():
+            self.table.selectRow(0)
+
+    def _fill_combo(self, combo, all_text, all_value, items):
+        current = combo.currentData() if combo.count() else all_value
+        combo.blockSignals(True)
+        combo.clear()
+        combo.addItem(all_text, all_value)  # never None as item data (see ProbabilityDelegate.paint)
+        for text, data in items:
+            combo.addItem(str(text), data)
+        position = combo.findData(current)
+        combo.setCurrentIndex(max(0, position))
+        combo.blockSignals(False)
+
+    # --------------------------------------------------------------------- actions
+    def focus_search(self) -> None:
+        self.search.setFocus(Qt.ShortcutFocusReason)
+        self.search.selectAll()
+
+    def sort_by_priority(self) -> None:
+        self.model.sort_by_priority()
+        self.table.horizontalHeader().setSortIndicator(-1, Qt.DescendingOrder)
+
+    def _header_clicked(self, column: int) -> None:
+        header = self.table.horizontalHeader()
+        if self.model.sort_column == column:
+            order = Qt.AscendingOrder if header.sortIndicatorOrder() == Qt.DescendingOrder else Qt.DescendingOrder
+        else:
+            order = Qt.AscendingOrder
+        header.setSortIndicator(column, order)
+        self.model.sort(column, order)
+
+    def _filter(self, **change) -> None:
+        keep = self.current_case_id()
+        self.model.set_filters(**change)
+        self._update_count()
+        if keep:
+            self.select_case(keep)
+
+    def _update_count(self) -> None:
+        shown, total = self.model.rowCount(), self.model._n
+        flagged = int(self.model.is_flagged.sum()) if self.model.scores is not None else 0
+        self.count.setText(f"{shown:,} of {total:,} cases shown · {flagged:,} flagged")
+
+    def _current_changed(self, current, _previous) -> None:
+        if current.isValid():
+            row = self.model.case_row(current.row())
+            if row != self._last_case_row:
+                self._last_case_row = row
+                self.case_selected.emit(row)
+
+    def current_case_id(self) -> str | None:
+        index = self.table.currentIndex()
+        if not index.isValid() or self.model.scores is None:
+            return None
+        return str(self.model.case_ids[self.model.case_row(index.row())])
+
+    def select_case(self, case_id: str) -> bool:
+        """Select and show ``case_id``; False if it is not in the table (or filtered out)."""
+        view_row = self.model.view_row_of_case(case_id)
+        if view_row < 0:
+            return False
+        self.table.selectRow(view_row)
+        self.table.scrollTo(self.model.index(view_row, 0), QAbstractItemView.PositionAtCenter)
+        return True

@@ -1,0 +1,80 @@
+"""Where the window's caseload comes from: a workspace on disk, scored in a worker thread.
+
+The window talks to a *source* with this small interface (tests use an in-memory one):
+
+``label`` (str), ``load(as_of, horizon_days, callback) -> LoadedCaseload`` (runs in a worker
+thread), ``workspace()`` (a main-thread :class:`caseview.storage.Workspace`, or None),
+``current_model()`` (StageModel), ``close()``.
+"""
+
+from __future__ import annotations
+
+import datetime as dt
+from dataclasses import dataclass, field
+from pathlib import Path
+
+
+@dataclass
+class LoadedCaseload:
+    """Scores of one caseload as of one date, with the follow-up assessment when available.
+
+    Attributes
+    ----------
+    scores : caseview.scoring.CaseloadScores
+    assessment : caseview.followup.CaseloadAssessment or None
+        None when follow-up rules are not available (then priority = P(reach follow-up)).
+    notes : list[str]
+        Plain messages for the status bar (for example "follow-up rules not available yet").
+    """
+
+    scores: object
+    assessment: object | None = None
+    notes: list = field(default_factory=list)
+
+
+def followup_module():
+    """``caseview.followup`` or None if that capability has not landed."""
+    try:
+        import caseview.followup as followup  # noqa: PLC0415
+        return followup
+    except ImportError:
+        return None
+
+
+class WorkspaceSource:
+    """A caseview workspace file. Worker threads open their own connection (one per thread)."""
+
+    def __init__(self, path):
+        from caseview.storage import Workspace
+
+        self.path = Path(path)
+        self._workspace = Workspace.open(self.path)  # main-thread connection; raises WorkspaceError
+        self.label = self.path.name
+        self.warnings = list(getattr(self._workspace, "warnings", []) or [])
+
+    def workspace(self):
+        return self._workspace
+
+    def current_model(self):
+        return self._workspace.current_model()[0]
+
+    def load(self, as_of: dt.date, horizon_days: float, callback=None) -> LoadedCaseload:
+        from caseview.storage import Workspace
+
+        notes = []
+        with Workspace.open(self.path) as ws:
+            followup = followup_module()
+            if followup is not None:
+                assessment = followup.assess_caseload(ws, as_of, horizon_days, callback=callback)
+                return LoadedCaseload(assessment.scores, assessment, notes)
+            from caseview.scoring import score_caseload
+
+            scores = score_caseload(ws, as_of, horizon_days, callback=callback)
+            notes.append("Follow-up flags are not available yet; ordered by chance of reaching follow-up.")
+            return LoadedCaseload(scores, None, notes)
+
+    def close(self) -> None:
+        try:
+            self._workspace.close()
+        except Exception:  # closing must never fail loudly
+            pass

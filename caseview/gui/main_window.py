@@ -1,0 +1,406 @@
+"""The main window: top bar (workspace, as-of date, horizon), advisory banner, and the panels."""
+
+from __future__ import annotations
+
+import datetime as dt
+import getpass
+from pathlib import Path
+
+from PySide6.QtCore import QDate, QEventLoop, QSettings, Qt, QTimer, Signal
+from PySide6.QtGui import QAction, QKeySequence
+from PySide6.QtWidgets import (QDateEdit, QFileDialog, QLabel, QMainWindow, QMessageBox, QProgressBar,
+                               QPushButton, QSpinBox, QSplitter, QTabWidget, QToolBar, QToolButton,
+                               QVBoxLayout, QWidget, QMenu)
+
+from caseview import ADVISORY_NOTICE
+
+from . import theme
+from .case_view import CaseView
+from .caseload_panel import CaseloadPanel
+from .workers import JobRunner
+
+MAX_RECENT = 8
+
+
+def current_actor() -> str:
+    try:
+        return getpass.getuser() or "unknown"
+    except Exception:
+        return "unknown"
+
+
+class MainWindow(QMainWindow):
+    """caseview's window. ``caseload_loaded`` fires after every finished scoring run."""
+
+    caseload_loaded = Signal(object)
+    load_failed = Signal(str)
+
+    def __init__(self, as_of: dt.date | None = None, parent=None):
+        super().__init__(parent)
+        self.setWindowTitle("caseview")
+        self.setObjectName("caseviewMainWindow")
+        self.source = None
+        self.loaded = None
+        self.actor = current_actor()
+        self.jobs = JobRunner(self)
+        self._pending_case = None
+        self._build_top_bar(as_of or dt.date.today())
+        self._build_body()
+        self._build_status_bar()
+        self._build_menus()
+        self._restore_state()
+
+    # ------------------------------------------------------------------ building
+    def _build_top_bar(self, as_of: dt.date) -> None:
+        bar = QToolBar("Workspace")
+        bar.setObjectName("topBar")
+        bar.setMovable(False)
+        bar.setToolButtonStyle(Qt.ToolButtonTextBesideIcon)
+        self.addToolBar(Qt.TopToolBarArea, bar)
+        self.action_new = QAction(theme.icon("new"), "New…", self, shortcut=QKeySequence.New,
+                                  triggered=self.create_workspace_dialog)
+        self.action_new.setToolTip("Create a workspace from a model file (Ctrl+N)")
+        self.action_open = QAction(theme.icon("open"), "Open…", self, shortcut=QKeySequence.Open,
+                                   triggered=self.open_workspace_dialog)
+        self.action_open.setToolTip("Open a workspace (Ctrl+O)")
+        self.recent_menu = QMenu("Recent workspaces", self)
+        self.recent_menu.aboutToShow.connect(self._fill_recent_menu)
+        self.action_import = QAction(theme.icon("import"), "Import contacts…", self, shortcut="Ctrl+I",
+                                     triggered=self.import_dialog)
+        self.action_report = QAction(theme.icon("report"), "Report…", self, shortcut="Ctrl+R",
+                                     triggered=self.report_dialog)
+        self.action_rescore = QAction(theme.icon("rescore"), "Rescore", self, shortcut=QKeySequence("F5"),
+                                      triggered=self.rescore)
+        self.action_rescore.setToolTip("Score every case again as of the chosen date (F5)")
+        bar.addAction(self.action_new)
+        bar.addAction(self.action_open)
+        recent_button = QToolButton()
+        recent_button.setText("Recent")
+        recent_button.setAccessibleName("Recent workspaces")
+        recent_button.setMenu(self.recent_menu)
+        recent_button.setPopupMode(QToolButton.InstantPopup)
+        bar.addWidget(recent_button)
+        bar.addSeparator()
+        bar.addAction(self.action_import)
+        bar.addAction(self.action_report)
+        bar.addSeparator()
+        bar.addWidget(QLabel(" As of "))
+        self.as_of_edit = QDateEdit(QDate(as_of.year, as_of.month, as_of.day))
+        self.as_of_edit.setCalendarPopup(True)
+        self.as_of_edit.setDisplayFormat("yyyy-MM-dd")
+        self.as_of_edit.setAccessibleName("As-of date")
+        self.as_of_edit.setToolTip("Estimates use contacts on or before this date")
+        bar.addWidget(self.as_of_edit)
+        bar.addWidget(QLabel("  Horizon "))
+        self.horizon_spin = QSpinBox()
+        self.horizon_spin.setRange(1, 3650)
+        self.horizon_spin.setValue(90)
+        self.horizon_spin.setSuffix(" days")
+        self.horizon_spin.setAccessibleName("Forecast horizon in days")
+        bar.addWidget(self.horizon_spin)
+        bar.addAction(self.action_rescore)
+        self.workspace_label = QLabel("  No workspace open")
+        self.workspace_label.setAccessibleName("Open workspace")
+        bar.addWidget(self.workspace_label)
+        self._rescore_timer = QTimer(self, singleShot=True, interval=400, timeout=self.rescore)
+        self.as_of_edit.dateChanged.connect(lambda _: self._rescore_timer.start())
+        self.horizon_spin.valueChanged.connect(lambda _: self._rescore_timer.start())
+
+    def _build_body(self) -> None:
+        self.banner = QLabel(ADVISORY_NOTICE)
+        self.banner.setObjectName("advisoryBanner")
+        self.banner.setAccessibleName("Advisory notice")
+        self.banner.setWordWrap(True)
+        self.banner.setStyleSheet(theme.banner_style(theme.is_dark()))
+        self.caseload = CaseloadPanel()
+        self.case_view = CaseView()
+        self.caseload.case_selected.connect(self.case_view.show_case)
+        split = QSplitter(Qt.Vertical)
+        split.setObjectName("caseloadSplit")
+        split.addWidget(self.caseload)
+        split.addWidget(self.case_view)
+        split.setStretchFactor(0, 1)
+        split.setStretchFactor(1, 1)
+        split.setSizes([380, 420])
+        self.caseload_split = split
+        from .model_panel import ModelPanel
+        from .risk_queue import RiskQueue
+
+        self.risk_queue = RiskQueue(self)
+        self.model_panel = ModelPanel(self)
+        self.tabs = QTabWidget()
+        self.tabs.setObjectName("mainTabs")
+        self.tabs.addTab(split, "Caseload")
+        self.tabs.addTab(self.risk_queue, theme.icon("flag"), "Risk queue")
+        self.tabs.addTab(self.model_panel, theme.icon("fit"), "Model")
+        central = QWidget()
+        layout = QVBoxLayout(central)
+        layout.setContentsMargins(6, 4, 6, 2)
+        layout.addWidget(self.banner)
+        layout.addWidget(self.tabs, 1)
+        self.setCentralWidget(central)
+
+    def _build_status_bar(self) -> None:
+        status = self.statusBar()
+        self.progress = QProgressBar()
+        self.progress.setRange(0, 100)
+        self.progress.setMaximumWidth(220)
+        self.progress.setAccessibleName("Progress of the background job")
+        self.progress.hide()
+        self.cancel_button = QPushButton("Cancel")
+        self.cancel_button.setAccessibleName("Cancel the background job")
+        self.cancel_button.hide()
+        self.cancel_button.clicked.connect(lambda: self.jobs.cancel("score"))
+        status.addPermanentWidget(self.progress)
+        status.addPermanentWidget(self.cancel_button)
+        status.showMessage("Open a workspace (Ctrl+O) or create one from a model file (Ctrl+N).")
+
+    def _build_menus(self) -> None:
+        menu = self.menuBar().addMenu("&Workspace")
+        menu.addAction(self.action_new)
+        menu.addAction(self.action_open)
+        menu.addMenu(self.recent_menu)
+        menu.addSeparator()
+        menu.addAction(self.action_import)
+        menu.addAction(self.action_report)
+        menu.addSeparator()
+        menu.addAction(QAction("Close window", self, shortcut=QKeySequence.Quit, triggered=self.close))
+        view = self.menuBar().addMenu("&View")
+        view.addAction(self.action_rescore)
+        view.addAction(QAction("Find case", self, shortcut=QKeySequence.Find, triggered=self.caseload.focus_search))
+        view.addAction(QAction("Sort by priority", self, shortcut="Ctrl+Shift+P",
+                               triggered=self.caseload.sort_by_priority))
+        for i, name in enumerate(("Caseload", "Risk queue", "Model")):
+            view.addAction(QAction(name, self, shortcut=f"Ctrl+{i + 1}",
+                                   triggered=lambda _=False, i=i: self.tabs.setCurrentIndex(i)))
+
+    # ------------------------------------------------------------------ settings
+    def _restore_state(self) -> None:
+        # check contains() first: a missing value comes back as None, which PySide6 6.12 on
+        # Python 3.11 converts with a reference-count error
+        settings = QSettings()
+        if settings.contains("window/geometry"):
+            self.restoreGeometry(settings.value("window/geometry"))
+        if settings.contains("window/state"):
+            self.restoreState(settings.value("window/state"))
+        if settings.contains("window/horizon"):
+            horizon = settings.value("window/horizon")
+            self.horizon_spin.blockSignals(True)
+            self.horizon_spin.setValue(int(horizon))
+            self.horizon_spin.blockSignals(False)
+
+    def _save_state(self) -> None:
+        settings = QSettings()
+        settings.setValue("window/geometry", self.saveGeometry())
+        settings.setValue("window/state", self.saveState())
+        settings.setValue("window/horizon", self.horizon_spin.value())
+
+    def recent_workspaces(self) -> list:
+        settings = QSettings()
+        value = settings.value("recent/workspaces") if settings.contains("recent/workspaces") else []
+        value = value or []
+        return [value] if isinstance(value, str) else list(value)
+
+    def _remember(self, path: Path) -> None:
+        recent = [str(path)] + [p for p in self.recent_workspaces() if p != str(path)]
+        QSettings().setValue("recent/workspaces", recent[:MAX_RECENT])
+
+    def _fill_recent_menu(self) -> None:
+        self.recent_menu.clear()
+        recent = self.recent_workspaces()
+        if not recent:
+            self.recent_menu.addAction("(none yet)").setEnabled(False)
+        for path in recent:
+            self.recent_menu.addAction(path, lambda p=path: self.open_workspace(p))
+
+    # ------------------------------------------------------------------ workspace
+    @property
+    def as_of(self) -> dt.date:
+        d = self.as_of_edit.date()
+        return dt.date(d.year(), d.month(), d.day())
+
+    @property
+    def horizon_days(self) -> float:
+        return float(self.horizon_spin.value())
+
+    def workspace(self):
+        """The main-thread workspace, or None (no workspace, or an in-memory source)."""
+        return self.source.workspace() if self.source is not None else None
+
+    def open_workspace_dialog(self) -> None:
+        path, _ = QFileDialog.getOpenFileName(self, "Open workspace", "", "caseview workspace (*.cvw);;All files (*)")
+        if path:
+            self.open_workspace(path)
+
+    def create_workspace_dialog(self) -> None:
+        model_path, _ = QFileDialog.getOpenFileName(self, "Model file for the new workspace", "",
+                                                    "Stage model (*.json)")
+        if not model_path:
+            return
+        path, _ = QFileDialog.getSaveFileName(self, "New workspace", "", "caseview workspace (*.cvw)")
+        if path:
+            self.create_workspace(model_path, path)
+
+    def create_workspace(self, model_path, path) -> bool:
+        from caseview.errors import CaseviewError
+        from caseview.modelfile import parse_model
+
+        try:
+            text = Path(model_path).read_text(encoding="utf-8-sig")
+            parse_model(text, source=str(model_path))
+            from caseview.storage import Workspace
+
+            Workspace.create(path, text, self.actor).close()
+        except ImportError:
+            self.show_error("Workspaces are not available in this build yet.")
+            return False
+        except (CaseviewError, OSError) as exc:
+            self.show_error(str(exc))
+            return False
+        return self.open_workspace(path)
+
+    def open_workspace(self, path, case_id: str | None = None) -> bool:
+        """Open a workspace file and score it in the background."""
+        from caseview.errors import CaseviewError
+
+        try:
+            from .data_source import WorkspaceSource
+
+            source = WorkspaceSource(path)
+        except ImportError:
+            self.show_error("Workspaces are not available in this build yet (storage is missing).")
+            return False
+        except CaseviewError as exc:
+            self.show_error(str(exc))
+            return False
+        self._remember(Path(path).resolve())
+        self.set_source(source, case_id)
+        for warning in source.warnings:
+            self.statusBar().showMessage(warning)
+        return True
+
+    def set_source(self, source, case_id: str | None = None) -> None:
+        """Show a caseload source (a workspace or, in tests, an in-memory stand-in)."""
+        if self.source is not None and self.source is not source:
+            self.jobs.cancel("score")
+            self.source.close()
+        self.source = source
+        self._pending_case = case_id
+        self.workspace_label.setText(f"  Workspace: {source.label}")
+        self.setWindowTitle(f"caseview — {source.label}")
+        self.model_panel.set_source(source)
+        self.rescore()
+
+    # ------------------------------------------------------------------ scoring
+    def rescore(self) -> None:
+        if self.source is None:
+            return
+        source, as_of, horizon = self.source, self.as_of, self.horizon_days
+        self.progress.setValue(0)
+        self.progress.show()
+        self.cancel_button.show()
+        self.statusBar().showMessage(f"Scoring as of {as_of.isoformat()}…")
+        self.jobs.start("score", lambda callback: source.load(as_of, horizon, callback),
+                        on_finished=self._scored, on_failed=self._score_failed,
+                        on_progress=lambda f: self.progress.setValue(int(100 * f)),
+                        on_cancelled=self._score_cancelled)
+
+    def _job_ended(self) -> None:
+        self.progress.hide()
+        self.cancel_button.hide()
+
+    def _scored(self, loaded) -> None:
+        self._job_ended()
+        self.loaded = loaded
+        self.case_view.set_scores(loaded.scores)
+        self.caseload.set_caseload(loaded)
+        self.risk_queue.set_caseload(loaded)
+        if self._pending_case:
+            if not self.caseload.select_case(self._pending_case):
+                self.statusBar().showMessage(f"Case {self._pending_case} is not in this caseload as of "
+                                             f"{self.as_of.isoformat()}.")
+            self._pending_case = None
+        notes = " ".join(loaded.notes)
+        self.statusBar().showMessage(f"Scored {loaded.scores.n_cases:,} cases as of {self.as_of.isoformat()}, "
+                                     f"horizon {self.horizon_days:g} days. {notes}")
+        self.caseload_loaded.emit(loaded)
+
+    def _score_failed(self, message: str) -> None:
+        self._job_ended()
+        self.show_error(f"Scoring failed: {message}")
+        self.load_failed.emit(message)
+
+    def _score_cancelled(self) -> None:
+        self._job_ended()
+        self.statusBar().showMessage("Scoring cancelled; the table shows the previous run.")
+
+    # ------------------------------------------------------------------ dialogs
+    def import_dialog(self) -> None:
+        if self.workspace() is None:
+            self.show_error("Open a workspace first (Ctrl+O).")
+            return
+        from .import_dialog import ImportDialog
+
+        dialog = ImportDialog(self.source, self.actor, self)
+        if dialog.exec():
+            self.rescore()
+
+    def report_dialog(self) -> None:
+        if self.workspace() is None:
+            self.show_error("Open a workspace first (Ctrl+O).")
+            return
+        from .report_dialog import ReportDialog
+
+        ReportDialog(self, self).exec()
+
+    def show_error(self, message: str) -> None:
+        """A plain message (never a traceback); offscreen it goes to the status bar only."""
+        self.statusBar().showMessage(message)
+        if self.isVisible() and not self.property("quiet"):
+            QMessageBox.warning(self, "caseview", message)
+
+    # ------------------------------------------------------------------ screenshots / closing
+    def wait_for_jobs(self, timeout_ms: int = 120000) -> bool:
+        loop = QEventLoop()
+        timer = QTimer(singleShot=True, interval=timeout_ms, timeout=loop.quit)
+        poll = QTimer(interval=30, timeout=lambda: loop.quit() if not self.jobs.busy() else None)
+        timer.start()
+        poll.start()
+        if self.jobs.busy():
+            loop.exec()
+        poll.stop()
+        # deliver queued results
+        from PySide6.QtWidgets import QApplication
+
+        for _ in range(5):
+            QApplication.processEvents()
+        return not self.jobs.busy()
+
+    def render_screenshot(self, path, workspace=None, case_id=None, size=(1400, 900), tab: int = 0) -> int:
+        from caseview.errors import WorkspaceError
+
+        self.setProperty("quiet", True)
+        self.resize(*size)
+        self.show()
+        if workspace and not self.open_workspace(workspace, case_id=case_id):
+            raise WorkspaceError(self.statusBar().currentMessage())
+        self.wait_for_jobs()
+        self.tabs.setCurrentIndex(tab)
+        from PySide6.QtWidgets import QApplication
+
+        QApplication.processEvents()
+        if self.case_view.canvas is not None:
+            self.case_view.canvas.draw()
+        pixmap = self.grab()
+        if not pixmap.save(str(path), "PNG"):
+            raise WorkspaceError(f"{path}: cannot write the screenshot")
+        self.close()
+        return 0
+
+    def closeEvent(self, event) -> None:
+        self._save_state()
+        self.jobs.shutdown()
+        self.model_panel.shutdown()
+        if self.source is not None:
+            self.source.close()
+        super().closeEvent(event)

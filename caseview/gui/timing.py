@@ -1,0 +1,92 @@
+"""Measure how fast the caseload table opens, sorts and filters (for the benchmark script).
+
+``measure_table(loaded)`` times an already scored caseload; ``measure_open_sort_filter(path)``
+opens a workspace, scores it (timed separately: that runs in a worker in the window) and then
+times the table.
+"""
+
+from __future__ import annotations
+
+import datetime as dt
+import os
+import time
+
+
+def _application():
+    os.environ.setdefault("QT_QPA_PLATFORM", "offscreen")
+    from .app import create_application
+
+    return create_application(["caseview-timing"])
+
+
+def measure_table(loaded) -> dict:
+    """Seconds to show a :class:`LoadedCaseload` in the table and sort/filter it.
+
+    Returns
+    -------
+    dict
+        ``open_table`` (model + view + first paint), ``sort_<column>`` for a few columns,
+        ``sort_max``, ``filter_coordinator``, ``filter_search``, ``filter_flagged``,
+        ``filter_clear``, ``filter_max``, and ``n_cases``.
+    """
+    app = _application()
+    from PySide6.QtCore import Qt
+
+    from .caseload_model import CASE, DAYS_SINCE, LAST_CONTACT, P_REACH, STAGE
+    from .caseload_panel import CaseloadPanel
+
+    result = {"n_cases": int(loaded.scores.n_cases)}
+    start = time.perf_counter()
+    panel = CaseloadPanel()  # the window's own table set-up (fixed row heights, bar delegate)
+    panel.resize(1400, 800)
+    panel.set_caseload(loaded)
+    panel.show()
+    panel.grab()  # force a paint
+    app.processEvents()
+    result["open_table"] = time.perf_counter() - start
+    model, view = panel.model, panel.table
+    sorts = {"case": CASE, "last_contact": LAST_CONTACT, "days_since": DAYS_SINCE, "stage": STAGE,
+             "reach_follow_up": P_REACH}
+    for name, column in sorts.items():
+        for order in (Qt.AscendingOrder, Qt.DescendingOrder):
+            t = time.perf_counter()
+            model.sort(column, order)
+            view.viewport().repaint()
+            key = f"sort_{name}"
+            result[key] = max(result.get(key, 0.0), time.perf_counter() - t)
+    result["sort_max"] = max(v for k, v in result.items() if k.startswith("sort_"))
+    coordinators = model.coordinator_names()
+    for name, change in (("filter_coordinator", {"coordinator": coordinators[0] if coordinators else ""}),
+                         ("filter_search", {"coordinator": "", "search": "12"}),
+                         ("filter_flagged", {"search": "", "flagged_only": True}),
+                         ("filter_clear", {"flagged_only": False})):
+        t = time.perf_counter()
+        panel._filter(**change)
+        view.viewport().repaint()
+        result[name] = time.perf_counter() - t
+    result["filter_max"] = max(v for k, v in result.items() if k.startswith("filter_"))
+    panel.close()
+    panel.deleteLater()
+    return result
+
+
+def measure_open_sort_filter(ws_path, as_of: dt.date | None = None, horizon_days: float = 90.0) -> dict:
+    """Open the workspace at ``ws_path``, score it, and time the table (see :func:`measure_table`).
+
+    Extra keys: ``open_workspace`` (open file + read model), ``score`` (load + score + flags, the
+    worker's job in the window).
+    """
+    _application()
+    from .data_source import WorkspaceSource
+
+    start = time.perf_counter()
+    source = WorkspaceSource(ws_path)
+    source.current_model()
+    opened = time.perf_counter() - start
+    t = time.perf_counter()
+    loaded = source.load(as_of or dt.date.today(), horizon_days)
+    scored = time.perf_counter() - t
+    result = measure_table(loaded)
+    result.update(open_workspace=opened, score=scored)
+    source.close()
+    return result

@@ -1,0 +1,138 @@
+"""Team-meeting reports and exports: PDF (charts and tables), XLSX workbook, CSV stage summary.
+
+:func:`build_report` is the one entry point (used by ``caseview report`` and the window's export
+dialog, which calls it in a worker): it assesses the caseload, writes the file chosen by its
+extension, and records the report in the workspace's audit trail. Everything in a report is
+advisory; every page and sheet carries :data:`caseview.ADVISORY_NOTICE`.
+
+Sharing outside the team: ``dates="relative"`` (days since each case's first contact; safer) or
+``dates="shifted"`` (a random offset per case; NOT Safe Harbor de-identification). See
+:mod:`caseview.reports.deidentify`.
+"""
+
+from __future__ import annotations
+
+import datetime as dt
+import getpass
+import hashlib
+import os
+import tempfile
+from dataclasses import dataclass
+from pathlib import Path
+
+from caseview.errors import InputError
+
+FORMATS = {".pdf": "pdf", ".xlsx": "xlsx", ".csv": "csv"}
+
+__all__ = ["FORMATS", "ReportResult", "build_report", "report_format"]
+
+
+@dataclass(frozen=True)
+class ReportResult:
+    """What :func:`build_report` made.
+
+    Attributes
+    ----------
+    path : pathlib.Path
+    format : str  ("pdf", "xlsx" or "csv")
+    count : int
+        Pages (PDF) or case rows (XLSX Cases sheet, CSV).
+    audit_head : str
+        Audit chain head after the report was recorded.
+    sha256 : str
+        Hash of the written file (also in the audit entry).
+    """
+
+    path: Path
+    format: str
+    count: int
+    audit_head: str
+    sha256: str
+
+    @property
+    def n_pages(self) -> int | None:
+        return self.count if self.format == "pdf" else None
+
+    @property
+    def n_rows(self) -> int | None:
+        return None if self.format == "pdf" else self.count
+
+
+def report_format(path) -> str:
+    """"pdf", "xlsx" or "csv" from the file extension, else InputError."""
+    suffix = Path(path).suffix.lower()
+    if suffix not in FORMATS:
+        raise InputError(f"--out {path}: unknown report type {suffix or '(no extension)'!r}; "
+                         f"expected a file name ending in .pdf, .xlsx or .csv")
+    return FORMATS[suffix]
+
+
+def _as_date(value, what: str) -> dt.date | None:
+    if value is None or isinstance(value, dt.date):
+        return value
+    from caseview.scoring import parse_date
+
+    return parse_date(str(value), what)
+
+
+def _default_actor() -> str:
+    try:
+        return getpass.getuser()
+    except Exception:  # no user name available (some containers)
+        return "unknown"
+
+
+def build_report(ws, as_of, out_path, *, horizon_days: float = 90, coordinator: str | None = None,
+                 flagged_only: bool = False, since=None, dates: str = "calendar", seed=None,
+                 actor: str | None = None, callback=None, assess=None) -> ReportResult:
+    """Write a report and record it in the audit trail.
+
+    Parameters
+    ----------
+    ws : caseview.storage.Workspace
+    as_of : datetime.date or str (YYYY-MM-DD)
+    out_path : str or Path
+        ``.pdf``, ``.xlsx`` or ``.csv``; the file is written to a temporary name beside it and
+        moved into place only when complete, so a failure never leaves a half-written report.
+    horizon_days, coordinator, flagged_only, since, dates, seed
+        See :func:`caseview.reports.data.collect_report_data`.
+    actor : str, optional
+        Who made the report (audit trail); default the login name.
+    callback : callable(fraction), optional
+        Progress; raise from it to cancel.
+    assess : callable, optional
+        Replacement for :func:`caseview.followup.assess_caseload` (tests).
+    """
+    from .data import collect_report_data
+
+    out_path = Path(out_path)
+    kind = report_format(out_path)
+    as_of = _as_date(as_of, "--as-of")
+    since = _as_date(since, "--since")
+    if not out_path.parent.exists():
+        raise InputError(f"--out {out_path}: folder {out_path.parent} does not exist")
+    progress = callback or (lambda fraction: None)
+    data = collect_report_data(ws, as_of, horizon_days=float(horizon_days), coordinator=coordinator,
+                               flagged_only=flagged_only, since=since, dates=dates, seed=seed, assess=assess,
+                               callback=lambda f: progress(0.7 * f))
+    handle, temporary = tempfile.mkstemp(prefix=".caseview-report-", suffix=out_path.suffix, dir=out_path.parent)
+    os.close(handle)
+    try:
+        if kind == "pdf":
+            from .pdf import write_pdf as writer
+        elif kind == "xlsx":
+            from .spreadsheet import write_xlsx as writer
+        else:
+            from .csv_export import write_csv as writer
+        count = writer(data, temporary)
+        progress(0.95)
+        digest = hashlib.sha256(Path(temporary).read_bytes()).hexdigest()
+        details = {"format": kind, "as_of": as_of.isoformat(), "options": data.options, "sha256": digest,
+                   "count": int(count)}
+        ws.audit_append(actor or _default_actor(), "report.create", out_path.name, details)
+        os.replace(temporary, out_path)
+    finally:
+        if os.path.exists(temporary):
+            os.unlink(temporary)
+    progress(1.0)
+    return ReportResult(out_path, kind, int(count), ws.audit_head(), digest)

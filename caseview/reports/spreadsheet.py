@@ -1,0 +1,148 @@
+"""The XLSX workbook (openpyxl): sheets Summary, Cases, Flags, Reviews and Notes.
+
+Row 1 of every sheet is the advisory caution; row 2 holds the column headers; both are frozen.
+Numbers are stored as numbers, calendar dates as dates (relative days as integers), and any text
+that starts like a formula is escaped with a leading apostrophe so it is never run.
+"""
+
+from __future__ import annotations
+
+import datetime as dt
+
+from caseview import ADVISORY_NOTICE, __version__
+
+from .deidentify import rewrite_dates
+from .records import case_columns, case_records, contact_day, escape_text, reason_text, review_records
+from .model_summary import NOT_FITTED
+
+_HEADER_FILL = "DDEAF5"   # pale tint of Okabe-Ito blue
+_CAUTION_FILL = "FFF4D6"  # pale tint of Okabe-Ito orange
+
+
+def _put(ws, row: int, column: int, value):
+    from openpyxl.cell.cell import TYPE_STRING
+
+    cell = ws.cell(row=row, column=column)
+    if isinstance(value, str):
+        cell.value = escape_text(value)
+        cell.data_type = TYPE_STRING    # never a formula, whatever the text
+    else:
+        cell.value = value
+    if isinstance(value, dt.date):
+        cell.number_format = "yyyy-mm-dd"
+    elif isinstance(value, float):
+        cell.number_format = "0.000"
+    return cell
+
+
+def _sheet(book, title: str, columns: list, rows: list, widths: dict | None = None):
+    from openpyxl.styles import Alignment, Font, PatternFill
+    from openpyxl.utils import get_column_letter
+
+    ws = book.create_sheet(title)
+    caution = _put(ws, 1, 1, ADVISORY_NOTICE)
+    caution.font = Font(bold=True)
+    caution.fill = PatternFill("solid", fgColor=_CAUTION_FILL)
+    for j, name in enumerate(columns, start=1):
+        cell = _put(ws, 2, j, name)
+        cell.font = Font(bold=True)
+        cell.fill = PatternFill("solid", fgColor=_HEADER_FILL)
+        cell.alignment = Alignment(wrap_text=True, vertical="top")
+    for i, values in enumerate(rows, start=3):
+        for j, value in enumerate(values, start=1):
+            _put(ws, i, j, value)
+    ws.freeze_panes = "B3" if len(columns) > 1 else "A3"
+    for j, name in enumerate(columns, start=1):
+        longest = max([len(str(name))] + [len(str(r[j - 1])) for r in rows[:200] if r[j - 1] is not None])
+        width = (widths or {}).get(name, min(max(10, longest + 2), 60))
+        ws.column_dimensions[get_column_letter(j)].width = width
+    return ws
+
+
+def _summary_rows(data) -> list:
+    rows = [["report", "caseview caseload report"],
+            ["as_of", data.as_of if not data.dates.deidentified else data.dates.report_date_text(data.as_of)],
+            ["dates", data.dates.mode],
+            ["coordinator", data.coordinator or "all"],
+            ["horizon_days", data.horizon_days],
+            ["cases_in_scope", int(data.rows.size)],
+            ["cases_listed", int(data.listed_rows.size)],
+            ["flagged", int(data.flagged_rows.size)],
+            ["reviews_done", data.reviews_done],
+            ["reviews_outstanding", data.reviews_outstanding]]
+    for k, stage in enumerate(data.stages):
+        rows.append([f"most likely stage now: {stage}", int(data.stage_counts[k])])
+    for k, stage in enumerate(data.stages):
+        rows.append([f"expected number now: {stage}", float(data.expected_now[k])])
+    for k, stage in enumerate(data.stages):
+        rows.append([f"expected number at horizon: {stage}", float(data.expected_at_horizon[k])])
+    c = data.changes
+    if c is not None:
+        rows += [["changes_since", c.since if not data.dates.deidentified else
+                  f"{(data.as_of - c.since).days} days before the as-of date"],
+                 ["newly_flagged", "; ".join(c.newly_flagged)],
+                 ["no_longer_flagged", "; ".join(c.no_longer_flagged)],
+                 ["stage_changes", "; ".join(f"{a}: {b} -> {d}" for a, b, d in c.stage_changes)],
+                 ["new_cases", "; ".join(c.new_cases)]]
+    m = data.model
+    rows += [["model", m.name], ["model_version", m.version_id if m.version_id is not None else ""],
+             ["model_fitted", "yes" if m.fitted else f"no ({NOT_FITTED})"]]
+    rows += [[f"fit: {label}", value] for label, value in m.statistics]
+    rows += [["audit_chain_head", data.audit_head], ["made_by", f"caseview {__version__}"]]
+    return rows
+
+
+def _flag_rows(data) -> tuple:
+    a, s, view = data.assessment, data.scores, data.dates
+    columns = ["case_id", "coordinator", "rule", "message", "value", "threshold", "recent_contacts_effect",
+               view.column_name("next_contact_due"), "review_status"]
+    rows = []
+    for r in data.flagged_rows:
+        r = int(r)
+        due = int(a.next_contact_due_day[r])
+        due_value = view.case_value(r, due if due >= 0 else None)
+        status = str(a.review_status[r] or "") or "not reviewed"
+        reasons = list(a.reasons[r]) if getattr(a, "reasons", None) is not None else []
+        if not reasons:
+            rows.append([str(s.case_ids[r]), str(s.coordinators[r] or ""), str(a.flags[r]), reason_text(data, r),
+                         None, None, "", due_value, status])
+        for reason in reasons:
+            value = getattr(reason, "value", None)
+            threshold = getattr(reason, "threshold", None)
+            contacts = "; ".join(
+                f"{view.case_text(r, contact_day(c))}"
+                + (f" ({c.evidence})" if getattr(c, "evidence", "") else "") + f" {c.change:+.2f}"
+                for c in (getattr(reason, "contacts", None) or []))
+            rows.append([str(s.case_ids[r]), str(s.coordinators[r] or ""), str(getattr(reason, "rule", "")),
+                         rewrite_dates(str(getattr(reason, "message", "")), view, r),
+                         float(value) if isinstance(value, (int, float)) else None,
+                         float(threshold) if isinstance(threshold, (int, float)) else None,
+                         contacts, due_value, status])
+    return columns, rows
+
+
+def write_xlsx(data, path) -> int:
+    """Write the workbook; returns the number of case rows on the Cases sheet."""
+    from openpyxl import Workbook
+
+    book = Workbook()
+    book.remove(book.active)
+    _sheet(book, "Summary", ["item", "value"], _summary_rows(data), widths={"item": 38, "value": 48})
+    columns = case_columns(data)
+    records = case_records(data)
+    _sheet(book, "Cases", columns, records, widths={"reasons": 60})
+    _sheet(book, "Flags", *_flag_rows(data), widths={"message": 50, "recent_contacts_effect": 60})
+    _sheet(book, "Reviews", *review_records(data))
+    notes = [["caution", ADVISORY_NOTICE],
+             ["probabilities", "p_<stage>: probability of each stage on the as-of date; _at_horizon: the same "
+                               "after the horizon if nothing new is observed."],
+             ["p_reach_follow_up", "Probability of being in a follow-up stage at least once before the horizon."],
+             ["next_contact_due", "Day the chance of a follow-up stage would reach the rule threshold with no "
+                                  "new contact; blank if not within the limit."]]
+    if data.dates.caveat():
+        notes.append(["dates", data.dates.caveat()])
+    _sheet(book, "Notes", ["topic", "note"], notes, widths={"topic": 22, "note": 100})
+    book.properties.title = "caseview caseload report"
+    book.properties.creator = "caseview"
+    book.save(path)
+    return len(records)

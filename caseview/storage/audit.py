@@ -1,0 +1,141 @@
+"""The tamper-evident audit trail: an append-only, hash-chained table.
+
+Every entry stores its UTC time, actor, action, target, details (JSON), the previous entry's hash
+and its own SHA-256 hash over all of that. Changing, deleting or reordering any entry breaks the
+chain from that entry on (hash chaining after Schneier & Kelsey, "Secure audit logs to support
+computer forensics", 1999). The intent is an audit trail that never obscures earlier entries
+(21 CFR 11.10(e)). SQL triggers refuse UPDATE and DELETE on the table to stop casual edits; the
+evidence of tampering comes from the chain. A chain alone cannot reveal a complete rewrite or the
+removal of the newest entries, which is why every export and report prints the chain head: an
+outside copy of the head later proves that history up to it was not rewritten.
+
+The actor is a name (the operating-system user unless given), i.e. attribution, not
+authentication.
+"""
+
+from __future__ import annotations
+
+import datetime as _dt
+import hashlib
+import json
+from dataclasses import dataclass
+
+GENESIS_HASH = "0" * 64
+
+
+@dataclass(frozen=True)
+class AuditEntry:
+    """One audit-trail entry (``details`` is the decoded JSON object)."""
+
+    id: int
+    at_utc: str
+    actor: str
+    action: str
+    target: str
+    details: dict
+    prev_hash: str
+    entry_hash: str
+
+
+@dataclass(frozen=True)
+class AuditVerification:
+    """Result of recomputing the chain; ``first_bad_id`` names the first entry that fails."""
+
+    ok: bool
+    n_entries: int
+    first_bad_id: int | None
+    problem: str
+    head_hash: str
+
+
+def canonical_json(value) -> str:
+    """Canonical JSON: sorted keys, no insignificant whitespace, UTF-8 characters kept."""
+    return json.dumps(value, sort_keys=True, separators=(",", ":"), ensure_ascii=False, allow_nan=False)
+
+
+def entry_hash(entry_id: int, at_utc: str, actor: str, action: str, target: str, details_json: str,
+               prev_hash: str) -> str:
+    """SHA-256 (hex) over the canonical serialisation of one entry's fields."""
+    payload = canonical_json([int(entry_id), at_utc, actor, action, target, details_json, prev_hash])
+    return hashlib.sha256(payload.encode("utf-8")).hexdigest()
+
+
+def utc_now() -> str:
+    return _dt.datetime.now(_dt.timezone.utc).strftime("%Y-%m-%dT%H:%M:%S.%fZ")
+
+
+def append(connection, actor: str, action: str, target: str, details: dict) -> AuditEntry:
+    """Append one entry; the caller holds a write transaction (BEGIN IMMEDIATE)."""
+    row = connection.execute("SELECT id, entry_hash FROM audit_log ORDER BY id DESC LIMIT 1").fetchone()
+    entry_id, prev = (row[0] + 1, row[1]) if row else (1, GENESIS_HASH)
+    at = utc_now()
+    details_json = canonical_json(details or {})
+    digest = entry_hash(entry_id, at, actor, action, target, details_json, prev)
+    connection.execute(
+        "INSERT INTO audit_log (id, at_utc, actor, action, target, details_json, prev_hash, entry_hash)"
+        " VALUES (?, ?, ?, ?, ?, ?, ?, ?)", (entry_id, at, actor, action, target, details_json, prev, digest))
+    return AuditEntry(entry_id, at, actor, action, target, json.loads(details_json), prev, digest)
+
+
+def head(connection) -> str:
+    row = connection.execute("SELECT entry_hash FROM audit_log ORDER BY id DESC LIMIT 1").fetchone()
+    return row[0] if row else GENESIS_HASH
+
+
+def _entry(row) -> AuditEntry:
+    try:
+        details = json.loads(row[5])
+    except (TypeError, ValueError):
+        details = {"unreadable_details": str(row[5])}
+    return AuditEntry(row[0], row[1], row[2], row[3], row[4], details, row[6], row[7])
+
+
+def entries(connection, case_id: str | None = None, since_utc: str | None = None) -> list[AuditEntry]:
+    """Entries in id order, optionally about one case and/or at or after a UTC date/time.
+
+    An entry is about a case when its target is the case code (or ``case:CODE``), or its details
+    name the case in ``case_id`` or in the list ``case_ids``.
+    """
+    sql = "SELECT id, at_utc, actor, action, target, details_json, prev_hash, entry_hash FROM audit_log"
+    params = []
+    if since_utc:
+        sql += " WHERE at_utc >= ?"
+        params.append(since_utc)
+    sql += " ORDER BY id"
+    out = [_entry(r) for r in connection.execute(sql, params)]
+    if case_id is not None:
+        def about(e: AuditEntry) -> bool:
+            d = e.details if isinstance(e.details, dict) else {}
+            ids = d.get("case_ids")
+            return (e.target in (case_id, f"case:{case_id}") or d.get("case_id") == case_id
+                    or (isinstance(ids, list) and case_id in ids))
+        out = [e for e in out if about(e)]
+    return out
+
+
+def verify(connection) -> AuditVerification:
+    """Recompute the chain from the first entry; stop at the first entry that fails."""
+    prev = GENESIS_HASH
+    expected_id = 1
+    n = 0
+    cursor = connection.execute(
+        "SELECT id, at_utc, actor, action, target, details_json, prev_hash, entry_hash FROM audit_log ORDER BY id")
+    for row in cursor:
+        entry_id, at, actor, action, target, details_json, prev_hash, stored = row
+        n += 1
+        if entry_id != expected_id:
+            return AuditVerification(False, n, entry_id, f"entry {entry_id}: expected entry {expected_id} next; "
+                                     f"entries {expected_id}..{entry_id - 1} are missing (deleted)", prev)
+        if prev_hash != prev:
+            return AuditVerification(False, n, entry_id, f"entry {entry_id}: its previous-entry hash does not match "
+                                     "entry {0} (an entry was deleted, inserted or reordered)".format(entry_id - 1), prev)
+        try:
+            recomputed = entry_hash(entry_id, at, actor, action, target, details_json, prev_hash)
+        except (TypeError, ValueError):
+            recomputed = None
+        if recomputed != stored:
+            return AuditVerification(False, n, entry_id, f"entry {entry_id}: its contents do not match its hash "
+                                     "(the entry was edited)", prev)
+        prev = stored
+        expected_id += 1
+    return AuditVerification(True, n, None, "", prev)

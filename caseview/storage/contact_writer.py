@@ -1,0 +1,213 @@
+"""Write a validated batch of contacts in one transaction: add, skip exact duplicates, replace.
+
+The batch comes from :mod:`caseview.timeline_io` already validated against the current model and
+free of duplicates within itself. Conflicts with stored contacts (same case and day, different
+values) raise :class:`ContactConflicts` unless ``replace`` is set; the caller's transaction then
+rolls back, so nothing is written.
+"""
+
+from __future__ import annotations
+
+import gc
+import hashlib
+from dataclasses import dataclass, field
+
+import numpy as np
+
+from ..errors import WorkspaceError
+from .contacts import field_layout
+from .schema import BLANK_CODE
+
+
+@dataclass(frozen=True)
+class ContactBatch:
+    """Validated contacts to store (all arrays aligned, n rows, unique (case, day)).
+
+    case_codes : ndarray of object (n,)
+    days : ndarray of int64 (n,)           days since 1970-01-01
+    coordinators : ndarray of object (n,)  '' = blank
+    channel_names : tuple of str           the model's channels, in column order of ``channel_values``
+    channel_categories : tuple of tuple    the model's categories per channel
+    channel_values : ndarray of int16 (n, n_channels)   model category index, -1 = blank
+    covariate_names : tuple of str
+    covariates : ndarray of float64 (n, n_covariates)
+    stage_known : ndarray of object (n,)   '' = none, else 'A|B' in model stage order
+    """
+
+    case_codes: np.ndarray
+    days: np.ndarray
+    coordinators: np.ndarray
+    channel_names: tuple
+    channel_categories: tuple
+    channel_values: np.ndarray
+    covariate_names: tuple
+    covariates: np.ndarray
+    stage_known: np.ndarray
+
+    @property
+    def n_rows(self) -> int:
+        return int(self.days.shape[0])
+
+
+@dataclass
+class ContactConflicts(Exception):
+    """Batch rows (indices) that clash with stored contacts of the same case and day."""
+
+    rows: list
+    differing: list = field(default_factory=list)  # per row: names of the differing fields
+
+
+@dataclass(frozen=True)
+class WriteCounts:
+    cases_added: int
+    contacts_added: int
+    duplicates_skipped: int
+    replaced: int
+    replaced_details: list  # [{"case_id", "day", "old_sha256", "new_sha256"}]
+
+
+def _row_digest(obs: bytes, cov: bytes, stage: str | None, coordinator: str) -> str:
+    h = hashlib.sha256()
+    for part in (obs, cov, (stage or "").encode("utf-8"), coordinator.encode("utf-8")):
+        h.update(len(part).to_bytes(8, "little"))
+        h.update(part)
+    return h.hexdigest()
+
+
+def _blobs(array: np.ndarray) -> list:
+    data = np.ascontiguousarray(array).tobytes()
+    width = array.shape[1] * array.dtype.itemsize if array.ndim == 2 else 0
+    if width == 0:
+        return [b""] * array.shape[0]
+    return [data[i:i + width] for i in range(0, len(data), width)]
+
+
+def write_contacts(connection, batch: ContactBatch, replace: bool = False) -> WriteCounts:
+    """Store ``batch``; the caller holds a write transaction."""
+    layout = field_layout(connection)
+    n = batch.n_rows
+    obs = np.full((n, len(layout.channels)), BLANK_CODE, dtype=np.uint8)
+    for j, name in enumerate(batch.channel_names):
+        position = layout.channel_position(name)
+        if position is None:
+            raise WorkspaceError(f"channel {name!r} is not registered in the workspace (model changed during import?)")
+        codes = layout.channels[position][1]
+        lookup = np.array([codes[c] for c in batch.channel_categories[j]] + [BLANK_CODE], dtype=np.uint8)
+        obs[:, position] = lookup[batch.channel_values[:, j]]  # -1 -> last entry = blank
+    covs = np.full((n, len(layout.covariates)), np.nan, dtype="<f8")
+    for k, name in enumerate(batch.covariate_names):
+        position = layout.covariate_position(name)
+        if position is None:
+            raise WorkspaceError(f"covariate {name!r} is not registered in the workspace")
+        covs[:, position] = batch.covariates[:, k]
+
+    import pandas as pd
+
+    # coordinators
+    coord_codes, coord_uniques = pd.factorize(batch.coordinators)
+    distinct_coordinators = sorted(set(coord_uniques.tolist()) - {""})
+    connection.executemany("INSERT OR IGNORE INTO coordinators (code) VALUES (?)",
+                           [(c,) for c in distinct_coordinators])
+    coordinator_id = {"": None}
+    coordinator_code = {None: ""}
+    for cid, code in connection.execute("SELECT id, code FROM coordinators"):
+        coordinator_id[code] = cid
+        coordinator_code[cid] = code
+
+    # cases: existing ids, new ids assigned in code order
+    existing = dict((code, cid) for cid, code in connection.execute("SELECT id, case_code FROM cases"))
+    case_codes_idx, case_uniques = pd.factorize(batch.case_codes)
+    distinct_codes = sorted(case_uniques.tolist())
+    new_codes = [c for c in distinct_codes if c not in existing]
+    next_id = (max(existing.values()) + 1) if existing else 1
+    case_id = dict(existing)
+    for offset, code in enumerate(new_codes):
+        case_id[code] = next_id + offset
+    row_case = np.array([case_id[c] for c in case_uniques.tolist()], dtype=np.int64)[case_codes_idx]
+    row_coordinator = np.array([coordinator_id[c] for c in coord_uniques.tolist()] + [None], dtype=object)[:-1][coord_codes]
+    order = np.lexsort((batch.days, row_case))
+    is_new_case = row_case >= next_id
+
+    # stored contacts of existing cases in the batch
+    touched_existing = sorted({case_id[c] for c in distinct_codes if c in existing})
+    duplicates, updates, conflicts, differing, replaced_details = [], [], [], [], []
+    if touched_existing:
+        connection.execute("CREATE TEMP TABLE IF NOT EXISTS _import_cases (id INTEGER PRIMARY KEY)")
+        connection.execute("DELETE FROM _import_cases")
+        connection.executemany("INSERT INTO _import_cases (id) VALUES (?)", [(i,) for i in touched_existing])
+        stored = {}
+        gc_was_enabled = gc.isenabled()
+        gc.disable()
+        try:
+            for key, o, c, st, co in connection.execute(
+                    "SELECT (c.case_id << 18) + (c.day + 131072), c.observations, c.covariates, c.stage_known,"
+                    " c.coordinator_id FROM contacts c JOIN _import_cases t ON t.id = c.case_id"):
+                stored[key] = (o, c, st, co)
+        finally:
+            if gc_was_enabled:
+                gc.enable()
+        candidates = np.flatnonzero(~is_new_case)
+        obs_blobs = covs_blobs = None
+        if candidates.size:
+            cand_obs, cand_cov = _blobs(obs[candidates]), _blobs(covs[candidates])
+            for k, i in enumerate(candidates.tolist()):
+                old = stored.get((int(row_case[i]) << 18) + int(batch.days[i]) + 131072)
+                if old is None:
+                    continue
+                stage = batch.stage_known[i] or None
+                coord = row_coordinator[i]
+                new = (cand_obs[k], cand_cov[k], stage, coord)
+                if old == new:
+                    duplicates.append(i)
+                    continue
+                names = [label for label, a, b in zip(("values", "covariates", "stage_known", "coordinator"),
+                                                      old, new) if a != b]
+                if replace:
+                    updates.append((i, new))
+                    replaced_details.append({
+                        "case_id": str(batch.case_codes[i]), "day": int(batch.days[i]),
+                        "old_sha256": _row_digest(old[0], old[1], old[2], coordinator_code.get(old[3], "")),
+                        "new_sha256": _row_digest(new[0], new[1], new[2], batch.coordinators[i])})
+                else:
+                    conflicts.append(i)
+                    differing.append(names)
+        del stored
+        if conflicts:
+            raise ContactConflicts(conflicts, differing)
+
+    skip = np.zeros(n, dtype=bool)
+    skip[duplicates] = True
+    skip[[u[0] for u in updates]] = True
+    insert_rows = order[~skip[order]]
+
+    # new cases with their last recorded coordinator (rows sorted by day within case)
+    if new_codes:
+        rows_new = order[is_new_case[order]]
+        rows_new = rows_new[batch.coordinators[rows_new] != ""]
+        # rows are sorted by (case, day): the last row per case wins in the dict
+        last_coordinator = dict(zip(row_case[rows_new].tolist(), batch.coordinators[rows_new].tolist()))
+        connection.executemany("INSERT INTO cases (id, case_code, coordinator) VALUES (?, ?, ?)",
+                               [(case_id[c], c, last_coordinator.get(case_id[c], "")) for c in new_codes])
+
+    if insert_rows.size:
+        obs_blobs = _blobs(obs[insert_rows])
+        covs_blobs = _blobs(covs[insert_rows])
+        stage = [s or None for s in batch.stage_known[insert_rows].tolist()]
+        coords = row_coordinator[insert_rows].tolist()
+        connection.executemany(
+            "INSERT INTO contacts (case_id, day, observations, covariates, stage_known, coordinator_id)"
+            " VALUES (?, ?, ?, ?, ?, ?)",
+            zip(row_case[insert_rows].tolist(), batch.days[insert_rows].tolist(), obs_blobs, covs_blobs, stage, coords))
+    if updates:
+        connection.executemany(
+            "UPDATE contacts SET observations = ?, covariates = ?, stage_known = ?, coordinator_id = ?"
+            " WHERE case_id = ? AND day = ?",
+            [(o, c, s, co, int(row_case[i]), int(batch.days[i])) for i, (o, c, s, co) in updates])
+    if touched_existing:
+        connection.execute(
+            "UPDATE cases SET coordinator = COALESCE((SELECT co.code FROM contacts c JOIN coordinators co"
+            " ON co.id = c.coordinator_id WHERE c.case_id = cases.id ORDER BY c.day DESC LIMIT 1), '')"
+            " WHERE id IN (SELECT id FROM _import_cases)")
+        connection.execute("DELETE FROM _import_cases")
+    return WriteCounts(cases_added=len(new_codes), contacts_added=int(insert_rows.size),
+                       duplicates_skipped=len(duplicates), replaced=len(updates), replaced_details=replaced_details)

@@ -1,0 +1,407 @@
+"""The workspace: one SQLite file holding cases, contacts, model versions and the audit trail.
+
+Storage discipline (SQLite documentation, "PRAGMA" and "Write-Ahead Logging" pages): WAL journal,
+``synchronous=FULL`` (a committed transaction survives power loss), ``foreign_keys=ON``, a
+``busy_timeout`` (default 5000 ms; ``CASEVIEW_BUSY_TIMEOUT_MS`` overrides it), ``application_id``
+so the file identifies itself, ``user_version`` with forward migrations and an automatic online
+backup before any migration. Every multi-row write runs inside :meth:`Workspace.transaction`
+(``BEGIN IMMEDIATE``), so it is all or nothing even when the process is killed.
+
+One SQLite connection per thread (``Workspace.connection``).
+"""
+
+from __future__ import annotations
+
+import datetime as _dt
+import hashlib
+import json
+import os
+import sqlite3
+import threading
+from contextlib import contextmanager
+from dataclasses import dataclass
+from pathlib import Path
+
+from ..errors import InputError, WorkspaceBusy, WorkspaceError
+from . import audit as _audit
+from . import schema as _schema
+from .caseload import Caseload, load_caseload
+from .contacts import register_model_fields
+from .filesystem import network_warning
+
+SQLITE_MAGIC = b"SQLite format 3\x00"
+DEFAULT_BUSY_TIMEOUT_MS = 5000
+
+
+@dataclass(frozen=True)
+class ModelVersion:
+    id: int
+    created_utc: str
+    note: str
+    json_text: str
+    fit_summary: dict | None
+    is_current: bool
+
+
+def _busy_message(path) -> str:
+    return f"workspace busy: another caseview process is writing to {path}; try again when it finishes"
+
+
+def _is_busy(exc: sqlite3.OperationalError) -> bool:
+    text = str(exc).lower()
+    return "locked" in text or "busy" in text
+
+
+class Workspace:
+    """An open workspace. Use :meth:`create` or :meth:`open`; close with :meth:`close` or ``with``."""
+
+    def __init__(self, path, busy_timeout_ms: int | None = None):
+        self.path = Path(path)
+        if busy_timeout_ms is None:
+            busy_timeout_ms = int(os.environ.get("CASEVIEW_BUSY_TIMEOUT_MS", DEFAULT_BUSY_TIMEOUT_MS))
+        self.busy_timeout_ms = int(busy_timeout_ms)
+        self.warnings: list[str] = []
+        self._local = threading.local()
+        self._connections: list[sqlite3.Connection] = []
+        self._lock = threading.Lock()
+        self._model_cache: dict[int, object] = {}
+        self._closed = False
+
+    # ------------------------------------------------------------ connections
+    def _connect(self) -> sqlite3.Connection:
+        try:
+            con = sqlite3.connect(str(self.path), isolation_level=None, check_same_thread=False,
+                                  timeout=self.busy_timeout_ms / 1000.0)
+            con.execute(f"PRAGMA busy_timeout = {self.busy_timeout_ms}")
+            con.execute("PRAGMA foreign_keys = ON")
+            con.execute("PRAGMA synchronous = FULL")
+        except sqlite3.OperationalError as exc:
+            if _is_busy(exc):
+                raise WorkspaceBusy(_busy_message(self.path)) from None
+            raise WorkspaceError(f"{self.path}: cannot open workspace ({exc})") from None
+        except sqlite3.DatabaseError as exc:
+            raise WorkspaceError(f"{self.path}: not a caseview workspace ({exc})") from None
+        return con
+
+    @property
+    def connection(self) -> sqlite3.Connection:
+        """This thread's SQLite connection (created on first use)."""
+        if self._closed:
+            raise WorkspaceError(f"workspace {self.path} is closed")
+        con = getattr(self._local, "connection", None)
+        if con is None:
+            con = self._connect()
+            self._local.connection = con
+            self._local.depth = 0
+            with self._lock:
+                self._connections.append(con)
+        return con
+
+    def close(self) -> None:
+        with self._lock:
+            for con in self._connections:
+                try:
+                    con.close()
+                except sqlite3.Error:
+                    pass
+            self._connections.clear()
+        self._local = threading.local()
+        self._closed = True
+
+    def __enter__(self):
+        return self
+
+    def __exit__(self, *exc):
+        self.close()
+        return False
+
+    # ------------------------------------------------------------ open/create
+    @classmethod
+    def create(cls, path, model_json: str, actor: str, busy_timeout_ms: int | None = None) -> "Workspace":
+        """Create a new workspace at ``path`` with ``model_json`` as its first (current) model."""
+        from ..modelfile import parse_model
+
+        path = Path(path)
+        if path.exists() or path.is_symlink():
+            raise WorkspaceError(f"{path} already exists; choose a new workspace path (nothing was changed)")
+        if not path.parent.exists():
+            raise WorkspaceError(f"{path.parent}: folder does not exist")
+        parse_model(model_json, source="model")  # InputError before any file is made
+        ws = cls(path, busy_timeout_ms)
+        try:
+            con = ws.connection
+            con.execute(f"PRAGMA application_id = {_schema.APPLICATION_ID}")
+            con.execute("PRAGMA journal_mode = WAL")
+            with ws.transaction():
+                ws._apply_migrations(0)
+                _audit.append(con, actor, "workspace.create", str(path.name), {"schema_version": _schema.schema_version()})
+                ws.add_model_version(model_json, "initial model", actor, make_current=True)
+            con.execute("PRAGMA wal_checkpoint(TRUNCATE)")  # the main file now identifies itself on disk
+        except BaseException:
+            ws.close()
+            for suffix in ("", "-wal", "-shm", "-journal"):
+                try:
+                    os.unlink(str(path) + suffix)
+                except OSError:
+                    pass
+            raise
+        ws._check_network()
+        return ws
+
+    @classmethod
+    def open(cls, path, busy_timeout_ms: int | None = None) -> "Workspace":
+        """Open an existing workspace, migrating it forward (after a backup) if it is older."""
+        path = Path(path)
+        if not path.exists():
+            raise WorkspaceError(f"{path}: no such workspace (create one with 'caseview init')")
+        if not path.is_file():
+            raise WorkspaceError(f"{path}: not a file, so not a caseview workspace")
+        try:
+            with open(path, "rb") as fh:
+                head = fh.read(100)
+        except OSError as exc:
+            raise WorkspaceError(f"{path}: cannot read ({exc.strerror})") from None
+        if len(head) < 100 or not head.startswith(SQLITE_MAGIC):
+            raise WorkspaceError(f"{path}: not a caseview workspace (not an SQLite database file)")
+        ws = cls(path, busy_timeout_ms)
+        try:
+            con = ws.connection
+            # read through SQLite: in WAL mode the newest header may still sit in the -wal file
+            if con.execute("PRAGMA application_id").fetchone()[0] != _schema.APPLICATION_ID:
+                raise WorkspaceError(f"{path}: not a caseview workspace (an SQLite file of another program)")
+            version = con.execute("PRAGMA user_version").fetchone()[0]
+            current = _schema.schema_version()
+            if version > current:
+                raise WorkspaceError(f"{path}: workspace was written by a newer caseview (schema version {version}; "
+                                     f"this caseview understands up to {current}); update caseview")
+            if version < current:
+                ws._migrate(version)
+            mode = con.execute("PRAGMA journal_mode").fetchone()[0]
+            if str(mode).lower() != "wal":
+                con.execute("PRAGMA journal_mode = WAL")
+        except sqlite3.DatabaseError as exc:
+            ws.close()
+            if isinstance(exc, sqlite3.OperationalError) and _is_busy(exc):
+                raise WorkspaceBusy(_busy_message(path)) from None
+            raise WorkspaceError(f"{path}: cannot use workspace ({exc})") from None
+        except BaseException:
+            ws.close()
+            raise
+        ws._check_network()
+        return ws
+
+    def _check_network(self) -> None:
+        warning = network_warning(self.path)
+        if warning:
+            self.warnings.append(warning)
+
+    def _apply_migrations(self, from_version: int) -> None:
+        con = self.connection
+        for number, script in enumerate(_schema.MIGRATIONS[from_version:], start=from_version + 1):
+            for statement in _split_sql(script):
+                con.execute(statement)
+            con.execute(f"PRAGMA user_version = {number}")
+
+    def _migrate(self, from_version: int) -> None:
+        stamp = _dt.datetime.now(_dt.timezone.utc).strftime("%Y%m%dT%H%M%SZ")
+        backup_path = self.path.with_name(f"{self.path.name}.v{from_version}-backup-{stamp}")
+        self.backup(backup_path, actor=None)
+        with self.transaction():
+            self._apply_migrations(from_version)
+            _audit.append(self.connection, "caseview", "workspace.migrate", self.path.name,
+                          {"from_version": from_version, "to_version": _schema.schema_version(),
+                           "backup": backup_path.name})
+        self.warnings.append(f"workspace upgraded from schema version {from_version} to "
+                             f"{_schema.schema_version()}; the old file was kept as {backup_path}")
+
+    # ------------------------------------------------------------ transactions
+    @contextmanager
+    def transaction(self):
+        """``BEGIN IMMEDIATE`` ... ``COMMIT`` (``ROLLBACK`` on any exception); nested calls join."""
+        con = self.connection
+        if self._local.depth:
+            self._local.depth += 1
+            try:
+                yield con
+            finally:
+                self._local.depth -= 1
+            return
+        try:
+            con.execute("BEGIN IMMEDIATE")
+        except sqlite3.OperationalError as exc:
+            if _is_busy(exc):
+                raise WorkspaceBusy(_busy_message(self.path)) from None
+            raise WorkspaceError(f"{self.path}: cannot start a write ({exc})") from None
+        self._local.depth = 1
+        try:
+            yield con
+        except BaseException:
+            self._local.depth = 0
+            if con.in_transaction:
+                con.execute("ROLLBACK")
+            raise
+        self._local.depth = 0
+        try:
+            con.execute("COMMIT")
+        except sqlite3.OperationalError as exc:
+            if con.in_transaction:
+                con.execute("ROLLBACK")
+            if _is_busy(exc):
+                raise WorkspaceBusy(_busy_message(self.path)) from None
+            raise WorkspaceError(f"{self.path}: write failed, nothing was changed ({exc})") from None
+
+    # ------------------------------------------------------------ backup
+    def backup(self, destination, actor: str | None = None) -> Path:
+        """Copy the workspace with SQLite's online backup API (consistent while others read)."""
+        destination = Path(destination)
+        if destination.exists():
+            raise WorkspaceError(f"{destination} already exists; choose a new backup path")
+        if actor is not None:
+            self.audit_append(actor, "workspace.backup", self.path.name, {"destination": str(destination)})
+        try:
+            target = sqlite3.connect(str(destination))
+            try:
+                self.connection.backup(target)
+            finally:
+                target.close()
+        except sqlite3.Error as exc:
+            try:
+                destination.unlink()
+            except OSError:
+                pass
+            raise WorkspaceError(f"backup to {destination} failed ({exc})") from None
+        return destination
+
+    # ------------------------------------------------------------ models
+    def _version(self, row) -> ModelVersion:
+        return ModelVersion(id=row[0], created_utc=row[1], note=row[2], json_text=row[3],
+                            fit_summary=json.loads(row[4]) if row[4] else None, is_current=bool(row[5]))
+
+    def model_versions(self) -> list[ModelVersion]:
+        rows = self.connection.execute("SELECT id, created_utc, note, json_text, fit_summary, is_current "
+                                       "FROM model_versions ORDER BY id").fetchall()
+        return [self._version(r) for r in rows]
+
+    def current_model(self):
+        """The current model and its version record: ``(hmm.StageModel, ModelVersion)``."""
+        from ..modelfile import parse_model
+
+        row = self.connection.execute("SELECT id, created_utc, note, json_text, fit_summary, is_current "
+                                      "FROM model_versions WHERE is_current = 1").fetchone()
+        if row is None:
+            raise WorkspaceError(f"{self.path}: workspace has no current model")
+        version = self._version(row)
+        if version.id not in self._model_cache:
+            self._model_cache[version.id] = parse_model(version.json_text, source=f"model version {version.id}")
+        return self._model_cache[version.id], version
+
+    def add_model_version(self, json_text: str, note: str, actor: str, fit_summary: dict | None = None,
+                          make_current: bool = True) -> int:
+        """Store a model version (validated first); audited as ``model.add`` or ``model.fit``."""
+        from ..modelfile import parse_model
+
+        model = parse_model(json_text, source="model")
+        summary = _audit.canonical_json(fit_summary) if fit_summary is not None else None
+        with self.transaction() as con:
+            register_model_fields(con, model)
+            version_id = con.execute(
+                "INSERT INTO model_versions (created_utc, note, json_text, fit_summary, is_current) "
+                "VALUES (?, ?, ?, ?, 0)", (_audit.utc_now(), note or "", json_text, summary)).lastrowid
+            if make_current:
+                con.execute("UPDATE model_versions SET is_current = 0 WHERE is_current = 1")
+                con.execute("UPDATE model_versions SET is_current = 1 WHERE id = ?", (version_id,))
+            details = {"version": version_id, "note": note or "", "name": model.name, "make_current": make_current,
+                       "model_sha256": hashlib.sha256(json_text.encode("utf-8")).hexdigest()}
+            if fit_summary is not None:
+                details["fit_summary"] = fit_summary
+            _audit.append(con, actor, "model.fit" if fit_summary is not None else "model.add",
+                          f"model:{version_id}", details)
+        return version_id
+
+    def set_current_model(self, version_id: int, actor: str) -> None:
+        with self.transaction() as con:
+            row = con.execute("SELECT id FROM model_versions WHERE id = ?", (int(version_id),)).fetchone()
+            if row is None:
+                raise InputError(f"model version {version_id} does not exist "
+                                 f"(versions: {', '.join(str(v.id) for v in self.model_versions())})")
+            old = con.execute("SELECT id FROM model_versions WHERE is_current = 1").fetchone()
+            con.execute("UPDATE model_versions SET is_current = 0 WHERE is_current = 1")
+            con.execute("UPDATE model_versions SET is_current = 1 WHERE id = ?", (int(version_id),))
+            _audit.append(con, actor, "model.current", f"model:{version_id}",
+                          {"version": int(version_id), "previous": old[0] if old else None})
+
+    # ------------------------------------------------------------ contacts
+    def load_caseload(self, model, as_of_day: int | None = None) -> Caseload:
+        return load_caseload(self.connection, model, as_of_day)
+
+    def case_count(self) -> int:
+        return self.connection.execute("SELECT COUNT(*) FROM cases").fetchone()[0]
+
+    def contact_count(self) -> int:
+        return self.connection.execute("SELECT COUNT(*) FROM contacts").fetchone()[0]
+
+    def write_contacts(self, batch, replace: bool = False):
+        """Store a validated :class:`~caseview.storage.contact_writer.ContactBatch` (inside a transaction)."""
+        import gc
+
+        from .contact_writer import write_contacts
+
+        gc_was_enabled = gc.isenabled()
+        gc.disable()  # the write creates millions of short-lived tuples
+        try:
+            with self.transaction() as con:
+                return write_contacts(con, batch, replace)
+        finally:
+            if gc_was_enabled:
+                gc.enable()
+
+    def stored_contacts(self, as_of_day: int | None = None):
+        """All stored contacts as arrays (:class:`~caseview.storage.contacts.StoredContacts`)."""
+        from .contacts import fetch_contacts
+
+        return fetch_contacts(self.connection, as_of_day)
+
+    def integrity_check(self) -> str:
+        return self.connection.execute("PRAGMA integrity_check").fetchone()[0]
+
+    # ------------------------------------------------------------ audit
+    def audit_append(self, actor: str, action: str, target: str, details: dict) -> _audit.AuditEntry:
+        with self.transaction() as con:
+            return _audit.append(con, actor, action, target, details)
+
+    def audit_entries(self, case_id: str | None = None, since_utc: str | None = None) -> list[_audit.AuditEntry]:
+        return _audit.entries(self.connection, case_id, since_utc)
+
+    def audit_verify(self) -> _audit.AuditVerification:
+        return _audit.verify(self.connection)
+
+    def audit_head(self) -> str:
+        return _audit.head(self.connection)
+
+    # ------------------------------------------------------------ settings
+    def get_setting(self, key: str, default=None):
+        row = self.connection.execute("SELECT value FROM settings WHERE key = ?", (key,)).fetchone()
+        return default if row is None else json.loads(row[0])
+
+    def set_setting(self, key: str, value, actor: str) -> None:
+        text = _audit.canonical_json(value)
+        with self.transaction() as con:
+            row = con.execute("SELECT value FROM settings WHERE key = ?", (key,)).fetchone()
+            con.execute("INSERT INTO settings (key, value) VALUES (?, ?) "
+                        "ON CONFLICT(key) DO UPDATE SET value = excluded.value", (key, text))
+            _audit.append(con, actor, "setting.change", f"setting:{key}",
+                          {"key": key, "old": json.loads(row[0]) if row else None, "new": value})
+
+
+def _split_sql(script: str) -> list[str]:
+    """Split a migration script into statements (triggers keep their BEGIN ... END bodies)."""
+    statements, current = [], ""
+    for line in script.splitlines(keepends=True):
+        current += line
+        if sqlite3.complete_statement(current):
+            if current.strip():
+                statements.append(current.strip())
+            current = ""
+    if current.strip():
+        statements.append(current.strip())
+    return statements

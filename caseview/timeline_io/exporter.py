@@ -1,0 +1,135 @@
+"""Export stored timelines in the import layout (CSV or XLSX), so import(export(x)) == x.
+
+Text cells that a spreadsheet would treat as a formula (starting with ``=``, ``+``, ``-``, ``@``,
+tab or carriage return) are written with a leading apostrophe (OWASP "CSV Injection" guidance);
+the importer never accepts such codes, so this only matters for odd model category names.
+"""
+
+from __future__ import annotations
+
+import hashlib
+import os
+from dataclasses import dataclass
+from pathlib import Path
+
+import numpy as np
+
+from ..errors import InputError
+
+_FORMULA_START = ("=", "+", "-", "@", "\t", "\r")
+
+
+@dataclass(frozen=True)
+class ExportResult:
+    file: str
+    rows: int
+    cases: int
+    sha256: str
+    audit_head: str
+
+
+def escape_text(values: np.ndarray) -> np.ndarray:
+    """Prefix formula-like text cells with an apostrophe; shape (n,) object."""
+    out = values.astype(object)
+    if out.size:
+        risky = np.fromiter((isinstance(v, str) and v.startswith(_FORMULA_START) for v in out.tolist()),
+                            dtype=bool, count=out.size)
+        if risky.any():
+            out = out.copy()
+            out[risky] = np.array(["'" + v for v in out[risky].tolist()], dtype=object)
+    return out
+
+
+def _number_text(column: np.ndarray) -> np.ndarray:
+    finite = np.isfinite(column)
+    if finite.all() and np.all(column == np.round(column)) and np.all(np.abs(column) < 2**53):
+        return column.astype(np.int64).astype(str).astype(object)
+    text = column.astype(str).astype(object)
+    text[~finite] = ""
+    return text
+
+
+def timeline_table(ws):
+    """The stored timelines as a pandas DataFrame in the import layout (all text cells)."""
+    import pandas as pd
+
+    model, _ = ws.current_model()
+    stored = ws.stored_contacts()
+    counts = np.diff(stored.offsets)
+    columns = {
+        "case_id": escape_text(np.repeat(stored.case_codes, counts)),
+        "date": np.datetime_as_string(stored.days.astype("datetime64[D]"), unit="D").astype(object),
+        "coordinator": escape_text(stored.coordinators),
+    }
+    for channel in model.channels:
+        position = stored.layout.channel_position(channel.name)
+        text = np.full(256, "", dtype=object)
+        if position is not None:
+            for code, label in enumerate(stored.layout.channels[position][2]):
+                text[code] = label
+            columns[channel.name] = escape_text(text[stored.observations[:, position]])
+        else:
+            columns[channel.name] = np.full(stored.days.shape[0], "", dtype=object)
+    for name in model.covariates:
+        position = stored.layout.covariate_position(name)
+        columns[name] = (_number_text(stored.covariates[:, position]) if position is not None
+                         else np.full(stored.days.shape[0], "", dtype=object))
+    columns["stage_known"] = escape_text(stored.stage_known)
+    table = pd.DataFrame(columns)
+    table.attrs["covariates"] = list(model.covariates)
+    return table, int(counts.size)
+
+
+def export_timelines(ws, out_path, actor: str) -> ExportResult:
+    """Write the timelines to ``out_path`` (.csv or .xlsx), record the export, return the chain head."""
+    out_path = Path(out_path)
+    suffix = out_path.suffix.lower()
+    if suffix not in (".csv", ".xlsx"):
+        raise InputError(f"{out_path}: expected an output file ending in .csv or .xlsx")
+    if not out_path.parent.exists():
+        raise InputError(f"{out_path.parent}: folder does not exist")
+    table, n_cases = timeline_table(ws)
+    temporary = out_path.with_name(f".{out_path.name}.partial-{os.getpid()}")
+    try:
+        if suffix == ".csv":
+            table.to_csv(temporary, index=False, encoding="utf-8", lineterminator="\n")
+        else:
+            _write_xlsx(table, temporary)
+        digest = hashlib.sha256()
+        with open(temporary, "rb") as fh:
+            for block in iter(lambda: fh.read(1 << 20), b""):
+                digest.update(block)
+        entry = ws.audit_append(actor, "export", out_path.name,
+                                {"file": out_path.name, "rows": int(len(table)), "cases": n_cases,
+                                 "sha256": digest.hexdigest()})
+        os.replace(temporary, out_path)
+    except OSError as exc:
+        raise InputError(f"{out_path}: cannot write ({exc.strerror})") from None
+    finally:
+        if temporary.exists():
+            temporary.unlink()
+    return ExportResult(str(out_path), int(len(table)), n_cases, digest.hexdigest(), entry.entry_hash)
+
+
+def _write_xlsx(table, path) -> None:
+    from openpyxl import Workbook
+    from openpyxl.cell import WriteOnlyCell
+
+    book = Workbook(write_only=True)
+    sheet = book.create_sheet("timelines")
+    sheet.append(list(table.columns))
+    numeric = [c in table.attrs.get("covariates", ()) for c in table.columns]
+    for row in table.itertuples(index=False, name=None):
+        cells = []
+        for is_number, value in zip(numeric, row):
+            if value == "":
+                cells.append(None)
+            elif is_number:
+                number = float(value)
+                cells.append(int(number) if number.is_integer() and abs(number) < 2**53 else number)
+            else:
+                cell = WriteOnlyCell(sheet, value=value)
+                cell.data_type = "s"  # text, never a formula
+                cells.append(cell)
+        sheet.append(cells)
+    book.save(path)

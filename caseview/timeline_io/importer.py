@@ -1,0 +1,218 @@
+"""Strict import of timeline files into a workspace: validate everything, then write all or nothing.
+
+Steps: (1) read the bytes once for the SHA-256 and the encoding check; (2) check the header
+(``--map``/``--drop``, unknown and missing columns); (3) validate every chunk (vectorised) and
+keep the encoded rows; (4) find duplicates inside the file; (5) in ONE transaction add the rows,
+skip exact duplicates of stored contacts, replace conflicting ones only when asked, and record the
+import in the audit trail. Any problem raises :class:`caseview.errors.InputError` before step 5 or
+rolls step 5 back, so the workspace is never half-changed.
+
+Rules worth knowing: cells are stripped of surrounding whitespace; fully blank rows are skipped;
+a row with fewer cells than the header reads the missing trailing cells as blank (spreadsheets
+trim trailing empty cells), which is an error for covariates and "not observed" for channels;
+a row with more cells than the header is an error; channel columns absent from the file mean
+"not observed" (a warning says so); covariates are required at every contact (never carried
+forward); dates must be real calendar dates YYYY-MM-DD from 1900-01-01 to 2199-12-31. CSV line
+numbers count the header as line 1 and assume no quoted cell spans several lines.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass, field
+from pathlib import Path
+
+import numpy as np
+
+from ..errors import InputError, WorkspaceError
+from .reader import CHUNK_ROWS, TimelineSource, scan_file
+from .validate import BASE_COLUMNS, ChunkValidator, Problems, Rules
+
+
+@dataclass(frozen=True)
+class ImportResult:
+    file: str
+    sha256: str
+    rows_read: int
+    cases_added: int
+    contacts_added: int
+    duplicates_skipped: int
+    replaced: int
+    warnings: list = field(default_factory=list)
+    audit_id: int | None = None
+
+
+def _parse_header(source: TimelineSource, model, mapping: dict, drop) -> tuple[list, list]:
+    """Target column name per file column (None = dropped) and warnings; InputError on problems."""
+    raw = source.header()
+    names = [str(h).strip() for h in raw]
+    problems = Problems(str(source.facts.path))
+    where = source.where(1)
+    seen = {}
+    for i, name in enumerate(names):
+        if name == "":
+            problems.add(where, None, f"column {i + 1} has no name; name it or delete the column")
+        elif name in seen:
+            problems.add(where, name, f"the column name appears twice (columns {seen[name] + 1} and {i + 1})")
+        seen.setdefault(name, i)
+    for source_name in mapping:
+        if source_name not in seen:
+            problems.add(where, None, f"--map {source_name}=...: no column {source_name!r} in the file "
+                                      f"(columns: {', '.join(names)})")
+    drop = set(drop or ())
+    for name in drop:
+        if name not in seen:
+            problems.add(where, None, f"--drop {name}: no column {name!r} in the file (columns: {', '.join(names)})")
+    channel_names = [c.name for c in model.channels]
+    allowed = ["case_id", "date", "coordinator", *channel_names, *model.covariates, "stage_known"]
+    targets = []
+    for name in names:
+        if name in drop:
+            targets.append(None)
+            continue
+        target = mapping.get(name, name)
+        targets.append(target)
+    counts = {}
+    for i, target in enumerate(targets):
+        if target is None or target == "":
+            continue
+        if target in counts:
+            problems.add(where, names[i], f"maps to {target!r}, which another column already provides")
+        counts[target] = i
+        if target not in allowed:
+            hint = ""
+            try:
+                from .. import privacy
+
+                finding = privacy.screen_column_name(target)
+                if finding is not None:
+                    hint = (f" - the name suggests {finding.description} (identifier rule {finding.rule}); "
+                            "caseview never stores direct identifiers")
+            except ImportError:
+                pass
+            problems.add(where, names[i], f"unknown column{hint}; expected: {', '.join(allowed)} "
+                                          "(rename with --map SOURCE=TARGET or leave out with --drop COLUMN)")
+    for required in ("case_id", "date", *model.covariates):
+        if required not in counts:
+            problems.add(where, None, f"required column {required!r} is missing "
+                                      f"(file columns: {', '.join(n for n in names if n) or 'none'})")
+    problems.raise_if_any()
+    warnings = [f"{source.facts.path}: no column for channel {c!r}; every contact records it as not observed"
+                for c in channel_names if c not in counts]
+    return targets, warnings
+
+
+def _duplicates_in_file(data: dict, problems: Problems, where) -> np.ndarray:
+    """Rows to keep (first of each exact duplicate); conflicting duplicates become problems."""
+    import pandas as pd
+
+    n = data["days"].shape[0]
+    keep = np.ones(n, dtype=bool)
+    if n < 2:
+        return keep
+    case_index, _ = pd.factorize(data["case_codes"])
+    key = case_index.astype(np.int64) * (1 << 18) + (data["days"] + (1 << 17))
+    order = np.argsort(key, kind="stable")
+    sorted_key = key[order]
+    same = np.flatnonzero(sorted_key[1:] == sorted_key[:-1])
+    if same.size == 0:
+        return keep
+    # compare each duplicate row with the first row of its key
+    first_of_key = np.searchsorted(sorted_key, sorted_key[same + 1], side="left")
+    later, first = order[same + 1], order[first_of_key]
+    equal = np.ones(same.size, dtype=bool)
+    for name in ("coordinators", "stage_known"):
+        equal &= data[name][later] == data[name][first]
+    equal &= (data["channel_values"][later] == data["channel_values"][first]).all(axis=1)
+    equal &= (data["covariates"][later] == data["covariates"][first]).all(axis=1)
+    keep[later] = False
+    for a, b in zip(first[~equal].tolist(), later[~equal].tolist()):
+        problems.add(where(int(data["lines"][b])), None,
+                     f"case {data['case_codes'][b]!r} has a second contact on "
+                     f"{np.datetime64(int(data['days'][b]), 'D')} with different values (first at "
+                     f"{where(int(data['lines'][a]))}); keep one row per case and date")
+    return keep
+
+
+def import_timelines(ws, path, actor: str, mapping: dict | None = None, drop=(), replace: bool = False,
+                     chunk_rows: int = CHUNK_ROWS, progress=None) -> ImportResult:
+    """Import a CSV/XLSX timeline file into ``ws`` (all rows or none).
+
+    Parameters
+    ----------
+    ws : caseview.storage.Workspace
+    path : path of the file (.csv or .xlsx)
+    actor : name recorded in the audit trail (attribution, not authentication)
+    mapping : {source column: target column}
+    drop : file columns to leave out
+    replace : replace stored contacts of the same case and date that differ (audited)
+    progress : callable(fraction) or None; raising from it cancels (nothing written)
+    """
+    from ..storage import ContactBatch, ContactConflicts
+
+    report = progress or (lambda fraction: None)
+    report(0.0)
+    facts = scan_file(path)
+    report(0.05)
+    model, version = ws.current_model()
+    source = TimelineSource(facts, chunk_rows)
+    targets, warnings = _parse_header(source, model, dict(mapping or {}), drop)
+    rules = Rules(channels={c.name: tuple(c.categories) for c in model.channels}, covariates=tuple(model.covariates),
+                  stages=tuple(model.stages), present=tuple(targets))
+    problems = Problems(str(facts.path))
+    validator = ChunkValidator(rules, problems, source.where)
+    parts = []
+    rows_read = 0
+    for first_line, frame in source.chunks():
+        rows_read += len(frame)
+        encoded = validator.validate(first_line, frame)
+        if encoded is not None and not problems.count:
+            parts.append(encoded)
+        elif problems.count:
+            parts = []  # keep validating for messages, stop keeping rows
+        expected_rows = max(facts.lines, rows_read, 1)
+        report(0.05 + 0.65 * min(1.0, rows_read / expected_rows))
+    problems.raise_if_any()
+    if not parts:
+        raise InputError(f"{facts.path}: no contact rows after the header; nothing was imported")
+    data = {name: np.concatenate([getattr(p, name) for p in parts]) for name in
+            ("lines", "case_codes", "days", "coordinators", "channel_values", "covariates", "stage_known")}
+    del parts
+    keep = _duplicates_in_file(data, problems, source.where)
+    problems.raise_if_any()
+    in_file_duplicates = int((~keep).sum())
+    if in_file_duplicates:
+        data = {k: v[keep] for k, v in data.items()}
+    batch = ContactBatch(
+        case_codes=data["case_codes"], days=data["days"], coordinators=data["coordinators"],
+        channel_names=tuple(rules.channels), channel_categories=tuple(rules.channels.values()),
+        channel_values=data["channel_values"], covariate_names=rules.covariates, covariates=data["covariates"],
+        stage_known=data["stage_known"])
+    report(0.75)
+    try:
+        with ws.transaction():
+            _, now_version = ws.current_model()
+            if now_version.id != version.id:
+                raise WorkspaceError("the current model changed while the file was being checked; import again")
+            counts = ws.write_contacts(batch, replace=replace)
+            details = {"file": facts.path.name, "sha256": facts.sha256, "bytes": facts.size, "rows_read": rows_read,
+                       "cases_added": counts.cases_added, "contacts_added": counts.contacts_added,
+                       "duplicates_skipped": counts.duplicates_skipped + in_file_duplicates,
+                       "replaced": counts.replaced, "model_version": version.id,
+                       "mapping": dict(mapping or {}), "dropped": sorted(drop or ())}
+            if counts.replaced:
+                details["replaced_contacts"] = counts.replaced_details
+                details["case_ids"] = sorted({d["case_id"] for d in counts.replaced_details})
+            entry = ws.audit_append(actor, "import.replace" if counts.replaced else "import", facts.path.name, details)
+    except ContactConflicts as conflict:
+        for i, names in zip(conflict.rows, conflict.differing):
+            problems.add(source.where(int(data["lines"][i])), None,
+                         f"case {data['case_codes'][i]!r} already has a contact on "
+                         f"{np.datetime64(int(data['days'][i]), 'D')} with different {', '.join(names)}; "
+                         "use --replace to replace stored contacts (audited) or correct the row")
+        problems.raise_if_any("nothing was imported")
+        raise
+    report(1.0)
+    return ImportResult(file=str(facts.path), sha256=facts.sha256, rows_read=rows_read,
+                        cases_added=counts.cases_added, contacts_added=counts.contacts_added,
+                        duplicates_skipped=counts.duplicates_skipped + in_file_duplicates,
+                        replaced=counts.replaced, warnings=warnings, audit_id=entry.id)

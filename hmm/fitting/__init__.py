@@ -1,0 +1,19 @@
+"""Fitting stage models to a caseload: maximum likelihood with analytic gradients and what goes with it.
+
+Main entry points::
+
+    from hmm.fitting import fit_model, likelihood_ratio_test
+    result = fit_model(model, timelines, starts=3, rng=numpy.random.default_rng(1))
+    print(result.format_table())
+"""
+
+from .compare import LikelihoodRatioTest, likelihood_ratio_test
+from .likelihood import log_likelihood_and_gradient
+from .optimise import fit_model
+from .parameters import ParameterSpec, parameter_spec
+from .priors import Prior
+from .result import FitResult
+from .uncertainty import ParameterEstimate
+
+__all__ = ["fit_model", "FitResult", "ParameterEstimate", "ParameterSpec", "parameter_spec",
+           "log_likelihood_and_gradient", "Prior", "likelihood_ratio_test", "LikelihoodRatioTest"]

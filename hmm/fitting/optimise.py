@@ -1,0 +1,206 @@
+"""Maximum-likelihood (or penalised) fit: multi-start L-BFGS-B on the analytic gradient.
+
+Each start is optimised with ``scipy.optimize.minimize(method="L-BFGS-B")`` on the unconstrained
+parameters (:mod:`hmm.fitting.parameters`), the objective being minus the (penalised)
+log-likelihood with its analytic gradient (:mod:`hmm.fitting.likelihood`). Start 0 is the model
+as given; further starts perturb it on the unconstrained scale (normal, sd ``START_SPREAD``)
+with the ``rng`` supplied. The best end point is kept; the observed information there gives the
+standard errors (:mod:`hmm.fitting.uncertainty`).
+
+Convergence: L-BFGS-B stops when the relative decrease of the objective falls below
+``tolerance`` or the largest projected gradient component below ``GRADIENT_TOLERANCE``; a fit that
+stops for any other reason (iteration limit, line-search failure) is reported as not converged.
+"""
+
+from __future__ import annotations
+
+import numpy as np
+import scipy.optimize
+
+from ..model import StageModel
+from ..timelines import Timelines
+from .likelihood import evaluate, prepare
+from .parameters import parameter_spec
+from .priors import Prior
+from .result import FitResult
+from .uncertainty import covariance_from_information, derived_estimates, natural_estimates, observed_information
+
+__all__ = ["fit_model", "START_SPREAD"]
+
+START_SPREAD = 0.5
+GRADIENT_TOLERANCE = 1e-6
+_EXPECTED_ITERATIONS = 80   # for progress reporting only
+
+
+class _Objective:
+    """Minus (penalised) log-likelihood with gradient, counting evaluations and caching the last one."""
+
+    def __init__(self, plan, prior):
+        self.plan, self.prior = plan, prior
+        # minimise -logL / n_contacts so gradients are O(1) whatever the caseload size
+        self.scale = 1.0 / max(plan.timelines.n_contacts, 1)
+        self.evaluations = 0
+        self.last_x = None
+        self.last = None
+
+    def __call__(self, theta):
+        self.evaluations += 1
+        ev = evaluate(self.plan, theta)
+        value, grad = ev.log_likelihood, ev.gradient
+        if self.prior is not None:
+            pv, pg = self.prior.log_density_and_gradient(theta, self.plan.spec)
+            value, grad = value + pv, grad + pg
+        if not np.isfinite(value) or not np.all(np.isfinite(grad)):
+            value, grad = -np.inf, np.zeros_like(theta)
+        self.last_x, self.last = theta.copy(), (value, grad)
+        return -value * self.scale, -grad * self.scale
+
+    def gradient(self, theta):
+        """Gradient of the (penalised) log-likelihood itself (unscaled)."""
+        self(theta)
+        return self.last[1]
+
+
+def fit_model(model: StageModel, timelines: Timelines, *, starts: int = 3, rng: np.random.Generator | None = None,
+              penalised: bool = False, prior: Prior | None = None, callback=None, max_iterations: int = 500,
+              tolerance: float = 1e-10) -> FitResult:
+    """Fit every free parameter of ``model`` to ``timelines``.
+
+    Parameters
+    ----------
+    model : StageModel
+        Structure, fixed values and the first start.
+    timelines : Timelines
+        Coded in the model's stage, category and covariate order.
+    starts : int
+        Number of starts (1 = only the given model).
+    rng : numpy.random.Generator, optional
+        For the perturbed starts (default ``numpy.random.default_rng(0)``).
+    penalised : bool
+        Maximise log-likelihood + log prior (``prior`` or :class:`Prior` defaults).
+    prior : Prior, optional
+        Implies ``penalised=True``.
+    callback : callable(fraction), optional
+        Progress in [0, 1]; raising from it cancels the fit (the exception propagates).
+    max_iterations : int
+        L-BFGS-B iteration limit per start.
+    tolerance : float
+        Relative decrease of the objective at which a start has converged.
+
+    Returns
+    -------
+    FitResult
+    """
+    if starts < 1:
+        raise ValueError("starts must be at least 1")
+    rng = np.random.default_rng(0) if rng is None else rng
+    if prior is not None:
+        penalised = True
+    prior = (prior or Prior()) if penalised else None
+    spec = parameter_spec(model)
+    plan = prepare(model, timelines, spec)
+    objective = _Objective(plan, prior)
+    theta0 = spec.to_vector(model)
+    bounds = list(zip(spec.lower, spec.upper))
+    progress = {"done": 0.0}
+    total_units = starts + 1.0
+
+    def report(value):
+        if callback is not None:
+            progress["done"] = max(progress["done"], min(value, 1.0))
+            callback(progress["done"])
+
+    runs = []
+    for start in range(starts):
+        x0 = theta0 if start == 0 else np.clip(theta0 + rng.normal(0.0, START_SPREAD, theta0.size),
+                                               spec.lower, spec.upper)
+        history = []
+
+        monitor = _monitor(objective, history, lambda n, _s=start: report((_s + min(n / _EXPECTED_ITERATIONS, 0.95))
+                                                                           / total_units))
+
+        if spec.n_free == 0:
+            objective(x0)
+            value = objective.last[0]
+            runs.append((value, x0, history, True, "no free parameters", 0))
+            continue
+        res = scipy.optimize.minimize(objective, x0, jac=True, method="L-BFGS-B", bounds=bounds, callback=monitor,
+                                      options={"maxiter": max_iterations, "ftol": tolerance,
+                                               "gtol": GRADIENT_TOLERANCE, "maxcor": 20})
+        runs.append((-float(res.fun) / objective.scale, res.x, history, bool(res.success), str(res.message), int(res.nit)))
+        report((start + 1) / total_units)
+
+    best = int(np.argmax([r[0] for r in runs]))
+    value, theta, history, converged, message, iterations = runs[best]
+    warnings = []
+    if not converged:
+        warnings.append(f"the fit did not converge ({message}); estimates may not be the maximum")
+    if len(runs) > 1:
+        values = np.array([r[0] for r in runs])
+        if np.sum(values > value - 0.1) < len(runs) and np.ptp(values) > 1.0:
+            warnings.append(f"starts ended at different log-likelihoods ({', '.join(f'{v:.2f}' for v in values)}); "
+                            "the best is reported - the likelihood may have several maxima")
+
+    def unit_callback(fraction):
+        report((starts + fraction) / total_units)
+
+    if spec.n_free:
+        information = observed_information(objective.gradient, theta, callback=unit_callback)
+        covariance, info_warnings = covariance_from_information(information, spec.names)
+        warnings += info_warnings
+    else:
+        covariance = np.zeros((0, 0))
+    warnings += _boundary_warnings(spec, theta)
+    fitted = spec.to_model(theta)
+    final = evaluate(plan, theta, gradient=False)
+    natural = natural_estimates(spec, theta, covariance)
+    hazard, sojourn, next_stage = derived_estimates(spec, theta, covariance)
+    k = spec.n_free
+    log_l = final.log_likelihood
+    report(1.0)
+    return FitResult(
+        model=fitted, log_likelihood=log_l, penalised_log_likelihood=value if penalised else log_l,
+        penalised=penalised, n_parameters=k, n_cases=timelines.n_cases, n_contacts=timelines.n_contacts,
+        aic=-2 * log_l + 2 * k, bic=-2 * log_l + k * np.log(max(timelines.n_cases, 1)),
+        iterations=iterations, n_likelihood_evaluations=objective.evaluations, converged=converged,
+        warnings=warnings, history=history, start_log_likelihoods=[r[0] for r in runs],
+        parameter_names=list(spec.names), parameters=natural, hazard_ratios=hazard, mean_time_in_stage=sojourn,
+        next_stage_probabilities=next_stage, covariance=covariance, free_vector=theta)
+
+
+def _monitor(objective, history, on_iteration):
+    """An L-BFGS-B callback appending (iteration, log-likelihood, gradient norm) to ``history``."""
+
+    def monitor(intermediate_result):
+        x = intermediate_result.x
+        if objective.last_x is not None and np.array_equal(objective.last_x, x):
+            value, grad = objective.last
+        else:
+            objective(x)
+            value, grad = objective.last
+        history.append({"iteration": len(history) + 1, "log_likelihood": float(value),
+                        "gradient_norm": float(np.linalg.norm(grad))})
+        on_iteration(len(history))
+
+    return monitor
+
+
+def _boundary_warnings(spec, theta) -> list:
+    out = []
+    arrays = spec.arrays(theta)
+    for i, slot in enumerate(spec.rate_slots):
+        if slot >= 0 and (theta[slot] <= spec.lower[slot] + 1.0 or arrays.rates[i] < 1e-7):
+            out.append(f"{spec.names[slot]} is estimated at (nearly) zero - on the boundary; its interval is "
+                       "not reliable and the transition may not be supported by the data")
+    m = spec.template
+    for c, rows in enumerate(spec.emission_rows):
+        for r, row in enumerate(rows):
+            if row is None:
+                continue
+            p = arrays.emissions[c][r]
+            if np.any(p[row.support] < 1e-6):
+                out.append(f"channel {m.channels[c].name!r}, stage {m.stages[r]}: an observation probability is "
+                           "estimated at (nearly) 0 or 1 - on the boundary")
+    if spec.initial_row is not None and np.any(arrays.initial[spec.initial_row.support] < 1e-6):
+        out.append("an initial stage probability is estimated at (nearly) zero - on the boundary")
+    return out

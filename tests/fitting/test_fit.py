@@ -1,0 +1,137 @@
+"""Maximum-likelihood fit: recovery, MLE property, fixed values, cancellation, LR test."""
+
+from __future__ import annotations
+
+import dataclasses
+
+import numpy as np
+import pytest
+import scipy.stats
+
+from fitting_helpers import simulate, three_stage_model
+from hmm.fitting import fit_model, likelihood_ratio_test, log_likelihood_and_gradient, parameter_spec
+from hmm.model import Transition
+
+
+@pytest.fixture(scope="module")
+def fitted_caseload():
+    rng = np.random.default_rng(20261202)
+    truth = three_stage_model()
+    sim = simulate(truth, rng, n_cases=500, n_contacts=10)
+    # start away from the truth: every rate doubled, effect 0, blurred observation rows
+    spec = parameter_spec(truth)
+    start = spec.to_model(spec.to_vector() + np.where(np.array(spec.kinds) == "rate", np.log(2.0), 0.3))
+    result = fit_model(start, sim.timelines, starts=2, rng=np.random.default_rng(5))
+    return truth, sim, result
+
+
+def test_parameter_recovery_within_four_standard_errors(fitted_caseload):
+    truth, sim, result = fitted_caseload
+    assert result.converged
+    spec = parameter_spec(truth)
+    true_theta = spec.to_vector(truth)
+    se = np.sqrt(np.diag(result.covariance))
+    assert np.all(np.isfinite(se)) and np.all(se > 0)
+    # asymptotic normality of the MLE: |est - true| / SE ~ N(0, 1); 4 SE leaves ~6e-5 per parameter
+    # for chance failure (common practice, no source)
+    z = np.abs(result.free_vector - true_theta) / se
+    assert np.all(z < 4.0), dict(zip(spec.names, np.round(z, 2)))
+    # the natural-scale intervals cover the true rates for most parameters (not all are required)
+    rates = {p.name: p for p in result.parameters if p.kind == "rate"}
+    assert len(rates) == 3
+
+
+def test_fitted_log_likelihood_is_at_least_the_truth(fitted_caseload):
+    truth, sim, result = fitted_caseload
+    at_truth, _ = log_likelihood_and_gradient(truth, sim.timelines)
+    # the MLE maximises the likelihood, so it cannot be below the value at the true parameters
+    assert result.log_likelihood >= at_truth - 1e-6
+    assert result.aic == pytest.approx(-2 * result.log_likelihood + 2 * result.n_parameters)
+    assert result.bic == pytest.approx(-2 * result.log_likelihood + result.n_parameters * np.log(500))
+    assert result.history and result.history[-1]["log_likelihood"] <= result.log_likelihood + 1e-6
+    assert len(result.start_log_likelihoods) == 2
+
+
+def test_summary_is_json_and_table_readable(fitted_caseload):
+    import json
+    _, _, result = fitted_caseload
+    summary = json.loads(json.dumps(result.to_summary(), allow_nan=False))
+    assert summary["n_parameters"] == result.n_parameters
+    table = result.format_table()
+    for text in ("Mean time in stage", "Hazard ratios", "Observation probabilities", "AIC", "BIC", "converged"):
+        assert text in table
+    sojourn = {p.name: p for p in result.mean_time_in_stage}
+    well = sojourn["mean time in Well (days)"]
+    rate = next(p for p in result.parameters if p.name.startswith("rate Well -> Unwell"))
+    # mean sojourn = -1/q_rr; only one way out of Well, so 1/rate (Norris 1997, Markov Chains, 2.6)
+    assert well.estimate == pytest.approx(1.0 / rate.estimate)
+    assert well.lower == pytest.approx(1.0 / rate.upper) and well.upper == pytest.approx(1.0 / rate.lower)
+    hr = result.hazard_ratios[0]
+    assert hr.lower < hr.estimate < hr.upper
+
+
+def test_fixed_parameters_stay_exactly_fixed(rng):
+    model = three_stage_model()
+    t = model.transitions
+    model = dataclasses.replace(model, transitions=(dataclasses.replace(t[0], fixed_effects=frozenset({"alone"})),
+                                                    dataclasses.replace(t[1], fixed_rate=True), t[2]),
+                                initial_fixed=True)
+    sim = simulate(three_stage_model(), rng, n_cases=150, n_contacts=6)
+    result = fit_model(model, sim.timelines, starts=1)
+    fitted = result.model
+    assert fitted.transitions[1].rate == model.transitions[1].rate
+    assert fitted.transitions[0].effects["alone"] == model.transitions[0].effects["alone"]
+    np.testing.assert_array_equal(fitted.initial, model.initial)
+    np.testing.assert_array_equal(fitted.channels[0].probabilities[2], model.channels[0].probabilities[2])
+    assert fitted.transitions[0].rate != model.transitions[0].rate
+    fixed = {p.name: p.fixed for p in result.parameters}
+    assert fixed["rate Unwell -> Well (per day)"] and not fixed["rate Well -> Unwell (per day)"]
+    assert result.n_parameters == parameter_spec(model).n_free == 3 - 1 + 0 + 6
+
+
+def test_cancelled_fit_raises_and_returns_nothing(rng):
+    from caseview.errors import Cancelled
+
+    sim = simulate(three_stage_model(), rng, n_cases=50, n_contacts=5)
+    calls = []
+
+    def callback(fraction):
+        calls.append(fraction)
+        if len(calls) >= 3:
+            raise Cancelled()
+
+    with pytest.raises(Cancelled):
+        fit_model(three_stage_model(), sim.timelines, starts=2, callback=callback)
+    assert len(calls) == 3 and all(0 <= f <= 1 for f in calls)
+
+
+def test_progress_is_monotone_and_ends_at_one(rng):
+    sim = simulate(three_stage_model(), rng, n_cases=60, n_contacts=5)
+    seen = []
+    fit_model(three_stage_model(), sim.timelines, starts=2, callback=seen.append)
+    assert seen == sorted(seen) and seen[-1] == 1.0
+
+
+def test_same_seed_same_fit(rng):
+    sim = simulate(three_stage_model(), rng, n_cases=80, n_contacts=5)
+    a = fit_model(three_stage_model(), sim.timelines, starts=2, rng=np.random.default_rng(3))
+    b = fit_model(three_stage_model(), sim.timelines, starts=2, rng=np.random.default_rng(3))
+    assert a.log_likelihood == b.log_likelihood
+    np.testing.assert_array_equal(a.free_vector, b.free_vector)
+
+
+def test_likelihood_ratio_test_by_hand(fitted_caseload):
+    truth, sim, general = fitted_caseload
+    t = truth.transitions
+    restricted_model = dataclasses.replace(truth, transitions=(Transition(0, 1, t[0].rate), t[1], t[2]))
+    restricted = fit_model(restricted_model, sim.timelines, starts=1)
+    test = likelihood_ratio_test(restricted, general)
+    statistic = 2 * (general.log_likelihood - restricted.log_likelihood)
+    assert test.df == 1
+    assert test.statistic == pytest.approx(statistic)
+    # chi-squared upper tail, 1 df: P(X > x) = erfc(sqrt(x / 2)) (Abramowitz & Stegun 26.4.4 with 6.5.x)
+    from math import erfc, sqrt
+    assert test.p_value == pytest.approx(erfc(sqrt(statistic / 2)), rel=1e-9, abs=1e-300)
+    assert test.p_value == pytest.approx(scipy.stats.chi2.sf(statistic, 1))
+    with pytest.raises(ValueError):
+        likelihood_ratio_test(general, restricted)

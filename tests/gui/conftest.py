@@ -1,0 +1,65 @@
+"""GUI test fixtures: temp QSettings, the stand-in caseload, and a small real workspace."""
+
+from __future__ import annotations
+
+import csv
+import datetime as dt
+
+import numpy as np
+import pytest
+
+from caseview.scoring import from_day
+
+from .standin import AS_OF, MemorySource, make_caseload
+
+from pathlib import Path
+
+DEMO_MODEL = Path(__file__).resolve().parents[2] / "resources" / "models" / "home_support_demo.json"
+
+
+@pytest.fixture(autouse=True)
+def temp_settings(tmp_path, qapp):
+    from PySide6.QtCore import QSettings
+
+    from caseview.gui.app import _pin_none
+
+    _pin_none()  # pytest-qt made the QApplication, not caseview (see caseview.gui.app._pin_none)
+    QSettings.setDefaultFormat(QSettings.IniFormat)
+    QSettings.setPath(QSettings.IniFormat, QSettings.UserScope, str(tmp_path / "settings"))
+    QSettings().clear()
+    yield
+
+
+@pytest.fixture
+def standin(demo_model, rng):
+    return MemorySource(demo_model, make_caseload(demo_model, 300, rng))
+
+
+def write_timeline_csv(path, model, caseload, n_cases=None):
+    t = caseload.timelines
+    names = [c.name for c in model.channels]
+    with open(path, "w", newline="", encoding="utf-8") as handle:
+        out = csv.writer(handle)
+        out.writerow(["case_id", "date", "coordinator"] + names + list(model.covariates))
+        for i in range(t.n_cases if n_cases is None else n_cases):
+            for r in range(t.offsets[i], t.offsets[i + 1]):
+                if not t.allowed_stages[r].all():
+                    continue  # keep the CSV simple: no known-stage rows
+                out.writerow([caseload.case_ids[i], from_day(int(t.times[r])).isoformat(), caseload.coordinators[i]]
+                             + [caseload.raw_values[n][r] for n in names]
+                             + [f"{v:g}" for v in t.covariates[r]])
+
+
+@pytest.fixture
+def workspace_path(tmp_path, demo_model, rng):
+    """A real workspace (caseview.storage) holding 120 simulated cases."""
+    storage = pytest.importorskip("caseview.storage")
+    timeline_io = pytest.importorskip("caseview.timeline_io")
+    caseload = make_caseload(demo_model, 120, rng)
+    source_csv = tmp_path / "contacts.csv"
+    write_timeline_csv(source_csv, demo_model, caseload)
+    path = tmp_path / "team.cvw"
+    ws = storage.Workspace.create(path, DEMO_MODEL.read_text(encoding="utf-8"), "tester")
+    timeline_io.import_timelines(ws, source_csv, "tester")
+    ws.close()
+    return path

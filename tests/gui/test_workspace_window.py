@@ -1,0 +1,144 @@
+"""Window tests on a real workspace (storage, follow-up, import), and the screenshot command."""
+
+from __future__ import annotations
+
+import os
+import subprocess
+import sys
+
+import pytest
+
+from caseview.gui.main_window import MainWindow
+
+from .standin import AS_OF
+from .test_window import load
+
+pytestmark = pytest.mark.gui
+
+
+@pytest.fixture
+def window(qtbot):
+    w = MainWindow(as_of=AS_OF)
+    w.setProperty("quiet", True)
+    qtbot.addWidget(w)
+    w.resize(1400, 900)
+    w.show()
+    yield w
+    w.close()
+
+
+def open_ws(window, qtbot, path):
+    with qtbot.waitSignal(window.caseload_loaded, timeout=90000):
+        assert window.open_workspace(path)
+    return window.loaded
+
+
+def test_review_flag_writes_audit_entry(window, qtbot, workspace_path):
+    pytest.importorskip("caseview.followup")
+    loaded = open_ws(window, qtbot, workspace_path)
+    queue = window.risk_queue
+    assert loaded.assessment is not None and queue.table.rowCount() > 0
+    queue.table.selectRow(0)
+    case_id = queue.table.item(0, 0).text()
+    assert "why flagged" in queue.reasons.text()
+    assert queue.acknowledge.isEnabled() and not queue.dismiss.isEnabled()  # new -> acknowledged only
+    queue.note.setText("seen at the team meeting")
+    with qtbot.waitSignal(queue.review_recorded, timeout=10000) as blocker:
+        queue.acknowledge.click()
+    assert blocker.args == [case_id, "acknowledged"]
+    # the audit trail (from storage, not the window) holds the review, and the view shows it
+    entries = window.workspace().audit_entries(case_id=case_id)
+    assert entries[-1].action == "review.acknowledged" and entries[-1].details["note"] == "seen at the team meeting"
+    assert any("review.acknowledged" in queue.audit_list.item(i).text() for i in range(queue.audit_list.count()))
+    # the caseload table shows the new status; dismissing now needs a reason
+    row = window.caseload.model.view_row_of_case(case_id)
+    assert window.caseload.model.data(window.caseload.model.index(row, 9)) == "acknowledged"
+    assert queue.dismiss.isEnabled()
+    assert queue.review_selected("dismissed", note="judged unfounded after a phone call")
+    assert window.workspace().audit_entries(case_id=case_id)[-1].action == "review.dismissed"
+    queue.verify_audit()
+    assert "intact" in queue.audit_status.text()
+
+
+def test_import_bad_file_lists_every_error(window, qtbot, workspace_path, tmp_path):
+    pytest.importorskip("caseview.timeline_io")
+    open_ws(window, qtbot, workspace_path)
+    before = window.workspace().contact_count()
+    bad = tmp_path / "bad.csv"
+    bad.write_text("case_id,date,coordinator,mobility,falls,concern,lives_alone,balance_programme\n"
+                   "HS-900001,2026-02-30,C1,normal,none,none,0,0\n"
+                   "HS-900002,2026-03-01,C1,sprinting,none,none,0,0\n"
+                   "HS-900003,2026-03-02,C1,normal,none,none,yes,0\n", encoding="utf-8")
+    from caseview.gui.import_dialog import ImportDialog
+
+    dialog = ImportDialog(window.source, "tester", window)
+    qtbot.addWidget(dialog)
+    dialog.load_file(bad)
+    assert dialog.preview.rowCount() == 3 and dialog.preview.item(1, 3).text() == "sprinting"
+    dialog.check()
+    qtbot.waitUntil(lambda: dialog.check_button.isEnabled() and dialog.problems.count() > 0, timeout=30000)
+    lines = [dialog.problems.item(i).text() for i in range(dialog.problems.count())]
+    assert len(lines) >= 3
+    for line_number, value in ((2, "2026-02-30"), (3, "sprinting"), (4, "yes")):
+        assert any(f"line {line_number}" in text and value in text for text in lines), (line_number, lines)
+    assert not dialog.import_button.isEnabled()
+    assert window.workspace().contact_count() == before  # nothing stored
+
+
+def test_import_good_file_after_check(window, qtbot, workspace_path, tmp_path):
+    pytest.importorskip("caseview.timeline_io")
+    open_ws(window, qtbot, workspace_path)
+    before = window.workspace().contact_count()
+    good = tmp_path / "good.csv"
+    good.write_text("case_id,date,coordinator,mobility,falls,concern,lives_alone,balance_programme\n"
+                    "HS-900001,2026-03-01,C1,normal,none,none,0,0\n", encoding="utf-8")
+    from caseview.gui.import_dialog import ImportDialog
+
+    dialog = ImportDialog(window.source, "tester", window)
+    qtbot.addWidget(dialog)
+    dialog.load_file(good)
+    dialog.check()
+    qtbot.waitUntil(lambda: dialog.import_button.isEnabled(), timeout=30000)
+    assert window.workspace().contact_count() == before  # checking stores nothing
+    dialog.do_import()
+    qtbot.waitUntil(lambda: window.workspace().contact_count() == before + 1, timeout=30000)
+
+
+def test_screenshot_command_writes_png_of_the_right_size(workspace_path, tmp_path):
+    out = tmp_path / "window.png"
+    env = dict(os.environ, QT_QPA_PLATFORM="offscreen")
+    done = subprocess.run([sys.executable, "-m", "caseview", "gui", str(workspace_path), "--as-of", "2026-11-30",
+                           "--screenshot", str(out)], env=env, capture_output=True, text=True, timeout=120)
+    assert done.returncode == 0, done.stderr
+    # PNG signature and IHDR width/height (PNG specification, ISO/IEC 15948, section 11.2.2)
+    data = out.read_bytes()
+    assert data[:8] == b"\x89PNG\r\n\x1a\n"
+    width, height = int.from_bytes(data[16:20], "big"), int.from_bytes(data[20:24], "big")
+    assert (width, height) == (1400, 900)
+
+
+def test_gui_without_display_explains_what_to_do(tmp_path):
+    env = {k: v for k, v in os.environ.items() if k not in ("QT_QPA_PLATFORM", "DISPLAY", "WAYLAND_DISPLAY")}
+    done = subprocess.run([sys.executable, "-m", "caseview", "gui"], env=env, capture_output=True, text=True,
+                          timeout=60)
+    assert done.returncode != 0
+    assert "no display" in done.stderr and "--screenshot" in done.stderr and "caseview score" in done.stderr
+
+
+def test_fit_in_worker_saves_new_model_version(window, qtbot, workspace_path):
+    pytest.importorskip("hmm.fitting")
+    open_ws(window, qtbot, workspace_path)
+    panel = window.model_panel
+    versions_before = len(window.workspace().model_versions())
+    panel.starts.setValue(1)
+    with qtbot.waitSignal(panel.fit_finished, timeout=120000) as blocker:
+        panel.start_fit()
+    result = blocker.args[0]
+    versions = window.workspace().model_versions()
+    assert len(versions) == versions_before + 1
+    current = [v for v in versions if v.is_current][0]
+    assert current.fit_summary["log_likelihood"] == pytest.approx(result.log_likelihood)
+    assert window.workspace().audit_entries()[-1].action.startswith("model.")
+    # the panel now shows fitted mean times in stage with intervals
+    assert "fitted" in panel.heading.text()
+    assert panel.sojourn.rowCount() == len(current.fit_summary["mean_time_in_stage"])
