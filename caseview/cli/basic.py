@@ -93,7 +93,8 @@ def format_probabilities(values):
     """Probabilities as fixed 6-decimal text, vectorised."""
     import numpy as np
 
-    return np.char.mod("%.6f", np.clip(values, 0.0, 1.0)).tolist()
+    values = np.clip(np.asarray(values, dtype=float), 0.0, 1.0).tolist()
+    return ("%.6f\n" * len(values) % tuple(values)).split("\n")[:-1] if values else []
 
 
 def format_days(days):
@@ -121,7 +122,7 @@ def run_score(args) -> int:
         except ModuleNotFoundError:
             scores = score_caseload(ws, as_of, args.horizon)
         else:
-            assessment = assess_caseload(ws, as_of, args.horizon)
+            assessment = assess_caseload(ws, as_of, args.horizon, reopen=False, explain_reasons=False)
             scores, flags = assessment.scores, assessment.flags
     model = scores.model
     n = scores.n_cases

@@ -95,7 +95,7 @@ def _review_arrays(case_ids, is_flagged, latest: dict):
 def assess_scores(scores, rules: RuleSet | None = None, previous_p_follow_up=None,
                   previous_as_of: dt.date | None = None, latest_reviews: dict | None = None,
                   influence_contacts: int = INFLUENCE_CONTACTS,
-                  schedule_limit_days: int = SEARCH_LIMIT_DAYS) -> CaseloadAssessment:
+                  schedule_limit_days: int = SEARCH_LIMIT_DAYS, explain_reasons: bool = True) -> CaseloadAssessment:
     """Flags, reasons and schedule for already computed scores (no database).
 
     Parameters
@@ -116,7 +116,10 @@ def assess_scores(scores, rules: RuleSet | None = None, previous_p_follow_up=Non
     names = np.asarray(rules.names, dtype=object)
     flags = np.array([";".join(names[row]) for row in evaluation.fired], dtype=object) if n else \
         np.zeros(0, dtype=object)
-    reasons, reason_text = explain(scores, rules, evaluation, previous, previous_as_of, influence_contacts)
+    if explain_reasons:
+        reasons, reason_text = explain(scores, rules, evaluation, previous, previous_as_of, influence_contacts)
+    else:  # callers that only need which rules fired (caseview score) skip the leave-one-out work
+        reasons, reason_text = [[] for _ in range(n)], np.full(n, "", dtype=object)
     due = next_contact_due_day(scores.model, scores.p_now, scores.last_covariates,
                                rules[SCHEDULE_RULE].threshold, scores.as_of_day, schedule_limit_days)
     status, by, at = _review_arrays(scores.case_ids, is_flagged, latest_reviews or {})
@@ -127,7 +130,7 @@ def assess_scores(scores, rules: RuleSet | None = None, previous_p_follow_up=Non
 
 def assess_caseload(ws, as_of: dt.date, horizon_days: float = 90.0, rules: RuleSet | None = None,
                     callback=None, save_snapshot: bool = False, reopen: bool = True,
-                    actor: str | None = None) -> CaseloadAssessment:
+                    actor: str | None = None, explain_reasons: bool = True) -> CaseloadAssessment:
     """Score the workspace's caseload as of ``as_of`` and assess it.
 
     Parameters
@@ -146,6 +149,8 @@ def assess_caseload(ws, as_of: dt.date, horizon_days: float = 90.0, rules: RuleS
         Re-open dismissed flags whose risk rose materially (see :mod:`caseview.followup.reviews`).
     actor : str, optional
         Recorded with a saved snapshot (default: the OS user).
+    explain_reasons : bool
+        Work out each flag's reasons and contact influence (False: only which rules fired).
     """
     from caseview.scoring import score_caseload
     from caseview.storage import followup_store as store
@@ -165,7 +170,7 @@ def assess_caseload(ws, as_of: dt.date, horizon_days: float = 90.0, rules: RuleS
         previous_as_of = dt.date.fromisoformat(previous_text)
         previous = np.array([values.get(str(code), np.nan) for code in scores.case_ids], dtype=float)
     latest = store.latest_reviews(ws.connection)
-    assessment = assess_scores(scores, rules, previous, previous_as_of, latest)
+    assessment = assess_scores(scores, rules, previous, previous_as_of, latest, explain_reasons=explain_reasons)
     if callback:
         callback(0.9)
     reopened = []
