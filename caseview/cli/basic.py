@@ -195,15 +195,11 @@ def run_history(args) -> int:
 
 
 # ---------------------------------------------------------------- demo
-def run_demo(args) -> int:
-    from caseview.errors import InputError
+def create_demo_workspace(path: Path, actor: str):
+    """Create a workspace at ``path`` holding the invented demo model and caseload; returns the import result."""
     from caseview.storage import Workspace
     from caseview.timeline_io import import_timelines
 
-    path = Path(args.path)
-    if path.exists():
-        raise InputError(f"{path}: already exists; choose a new path for the demo workspace")
-    actor = actor_name(args)
     ws = Workspace.create(path, DEMO_MODEL.read_text(encoding="utf-8"), actor)
     try:
         report = import_timelines(ws, DEMO_TIMELINES, actor=actor)
@@ -212,9 +208,18 @@ def run_demo(args) -> int:
         path.unlink(missing_ok=True)
         raise
     ws.close()
+    return report
+
+
+def run_demo(args) -> int:
+    from caseview.errors import InputError
+
+    path = Path(args.path)
+    if path.exists():
+        raise InputError(f"{path}: already exists; choose a new path for the demo workspace")
+    report = create_demo_workspace(path, actor_name(args))
     print(f"created demo workspace {path}: {report.cases_added} invented cases, {report.contacts_added} contacts")
     print("The demo caseload and model are invented (no real people or data). " + ADVISORY_NOTICE)
     today = dt.date.today().isoformat()
-    print(f"next: caseview score {path} --as-of 2026-11-30 --out scores.csv   (or: caseview gui {path}; "
-          f"today is {today})")
+    print(f"next: caseview score {path} --as-of {today} --out scores.csv   (or: caseview gui {path})")
     return 0

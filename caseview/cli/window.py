@@ -9,6 +9,8 @@ def register(subparsers) -> None:
     p = subparsers.add_parser("gui", help="open the desktop window (or render it to a PNG with --screenshot)",
                               description="Open the caseview window. Everything it shows is advisory.")
     p.add_argument("workspace", nargs="?", metavar="WS", help="workspace file to open")
+    p.add_argument("--demo", action="store_true",
+                   help="open the invented demo caseload (created on first use in your user data folder)")
     p.add_argument("--case", metavar="ID", help="select this case")
     p.add_argument("--as-of", metavar="DATE", help="as-of date YYYY-MM-DD (default today)")
     p.add_argument("--screenshot", metavar="PNG", help="render the window offscreen to this PNG and exit")
@@ -29,15 +31,36 @@ def run(args) -> int:
         raise InputError(f"--size: expected WIDTHxHEIGHT such as 1400x900, got {args.size!r}") from None
     if width < 1400 or height < 900:
         raise InputError(f"--size: the window needs at least 1400x900, got {args.size}")
+    if args.demo:
+        if args.workspace:
+            raise InputError("give either a workspace or --demo, not both")
+        args.workspace = str(_demo_workspace(args))
     if args.screenshot is None:
         from caseview.gui.app import has_display
 
         if not has_display():
-            print("caseview: no display found. Render the window to a file with "
-                  "'caseview gui WS --screenshot out.png', or use the command line: "
-                  "'caseview score WS --as-of YYYY-MM-DD --out scores.csv'.", file=sys.stderr)
+            ws = args.workspace or "WS"
+            print(f"caseview: no display found, so the window cannot open here. Render it to a file with "
+                  f"'caseview gui {ws} --screenshot out.png', or use the command line: "
+                  f"'caseview score {ws} --as-of YYYY-MM-DD --out scores.csv'.", file=sys.stderr)
             return 2
     from caseview.gui.launch import run_window
 
     return run_window(args.workspace, case_id=args.case, as_of=as_of, screenshot=args.screenshot,
                       size=(width, height), panel=("caseload", "queue", "model").index(args.panel))
+
+
+def _demo_workspace(args):
+    """The demo workspace in the user's data folder, created from demo_cases/ on first use."""
+    import os
+    from pathlib import Path
+
+    from .basic import actor_name, create_demo_workspace
+
+    base = Path(os.environ.get("XDG_DATA_HOME") or Path.home() / ".local" / "share") / "caseview"
+    path = base / "demo.cvw"
+    if not path.exists():
+        base.mkdir(parents=True, exist_ok=True)
+        create_demo_workspace(path, actor_name(args))
+        print(f"created the invented demo workspace at {path}", file=sys.stderr)
+    return path
