@@ -66,7 +66,7 @@ def contact_likelihoods(model: StageModel, timelines: Timelines) -> np.ndarray:
     # One table over joint codes of all channels (a missing value is its own code, probability 1),
     # so each contact needs a single lookup; per-channel lookups if that table would be large.
     sizes = [t.shape[1] + 1 for t in tables]
-    likelihood = timelines.allowed_stages.astype(float)
+    likelihood = effective_allowed_stages(model, timelines.allowed_stages).astype(float)
     if tables and np.prod(sizes, dtype=float) <= 4096:
         joint = np.ones((1, model.n_stages))
         code = np.zeros(observations.shape[0], dtype=np.int64)
@@ -148,6 +148,27 @@ def _covariate_groups(covariates: np.ndarray) -> tuple:
     return covariates[first], index
 
 
+def effective_allowed_stages(model: StageModel, allowed: np.ndarray) -> np.ndarray:
+    """Allowed stages once the exact-entry convention is applied, shape (n_contacts, n_stages).
+
+    An entry into an exact-entry stage is always recorded (and ends the ordinary contacts), so a
+    contact that is not a record of a single stage cannot be in an exact-entry stage. The fitting
+    likelihood (:mod:`hmm.fitting.likelihood`) applies the same convention.
+    """
+    if not model.exact_entry_stages:
+        return allowed
+    exact_mask = np.zeros(model.n_stages, dtype=bool)
+    for name in model.exact_entry_stages:
+        exact_mask[model.stage_index(name)] = True
+    single = allowed.sum(axis=1) == 1
+    drop = ~single & (allowed & ~exact_mask).any(axis=1)
+    if not drop.any():
+        return allowed
+    allowed = allowed.copy()
+    allowed[np.ix_(drop, exact_mask)] = False
+    return allowed
+
+
 def _exact_entry_contacts(model: StageModel, allowed: np.ndarray) -> np.ndarray:
     """Boolean (n_contacts,): the contact records the exact date of entry into its one allowed stage."""
     if not model.exact_entry_stages:
@@ -182,7 +203,11 @@ def _prepare(model: StageModel, timelines: Timelines, method: str = "auto") -> _
         gaps = timelines.times[into_rows] - timelines.times[into_rows - 1]
         generators = model.generators(distinct)
         matrices, index = distinct_transition_matrices(generators, gaps, group, method)
-        exact_rows = _exact_entry_contacts(model, timelines.allowed_stages)[into_rows]
+        exact_all = _exact_entry_contacts(model, timelines.allowed_stages)
+        # an entry is a record of the stage not already recorded at the contact before (a second
+        # record of an absorbing stage is a step within it, probability 1, not a new entry)
+        exact_rows = exact_all[into_rows] & ~(exact_all[into_rows - 1] & (
+            timelines.allowed_stages[into_rows] == timelines.allowed_stages[into_rows - 1]).all(axis=1))
         if exact_rows.any():
             # Second copy of every needed pair with exact-entry columns replaced by the density
             # sum_{r != s} P(prev -> r) Q[r, s]; Q[s, s] = 0 for an absorbing s, so it is (P Q)[:, s].

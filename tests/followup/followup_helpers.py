@@ -94,6 +94,9 @@ def reference_p_now(model, times, codes, allowed, covariates, as_of):
 
     def likelihood(j):
         value = np.asarray(allowed[j], dtype=float).copy()
+        if value.sum() > 1:  # an entry into an exact-entry stage is always recorded, so not here
+            for name in model.exact_entry_stages:
+                value[model.stage_index(name)] = 0.0
         for table, code in zip(tables, codes[j]):
             if code >= 0:
                 value *= table[:, code]

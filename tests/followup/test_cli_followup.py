@@ -114,19 +114,19 @@ def test_rules_show_set_export_load(ws_path, tmp_path, capsys):
     code, out, err = run(capsys, "rules", ws_path)
     assert code == 0 and "in_follow_up_now" in out and "sharp_rise" in out
     exported = tmp_path / "rules.json"
-    code, out, err = run(capsys, "rules", ws_path, "--set", "in_follow_up_now.threshold=0.9",
+    code, out, err = run(capsys, "rules", ws_path, "--set", "in_follow_up_now.threshold=0.999",
                          "--set", "likely_to_reach_follow_up.enabled=false", "--export", exported, "--by", "lead")
     assert code == 0, err
     data = json.loads(exported.read_text())
     assert data["format"] == "caseview.follow-up-rules" and data["format_version"] == 1
     by_name = {r["name"]: r for r in data["rules"]}
-    assert by_name["in_follow_up_now"]["threshold"] == 0.9 and not by_name["likely_to_reach_follow_up"]["enabled"]
+    assert by_name["in_follow_up_now"]["threshold"] == 0.999 and not by_name["likely_to_reach_follow_up"]["enabled"]
     with Workspace.open(ws_path) as ws:
         entry = ws.audit_entries()[-1]
         assert entry.action == "setting.change" and entry.actor == "lead"
     out_csv = tmp_path / "flags.csv"
     run(capsys, "flags", ws_path, "--as-of", "2026-11-30", "--out", out_csv)
-    assert len(pd.read_csv(out_csv)) < 2  # a 0.9 threshold flags fewer of the two risky cases
+    assert len(pd.read_csv(out_csv)) < 2  # a 0.999 threshold flags fewer of the two risky cases
     bad = tmp_path / "bad.json"
     for text, words in (
             ('{"format": "caseview.follow-up-rules", "format_version": 1, "rules": [{"name": "sharp_rise", '
@@ -142,7 +142,7 @@ def test_rules_show_set_export_load(ws_path, tmp_path, capsys):
         code, out, err = run(capsys, "rules", ws_path, "--load", bad)
         assert code == 2 and words in err, err
     with Workspace.open(ws_path) as ws:  # refused files changed nothing
-        assert ws.get_setting("follow_up_rules")["rules"][0]["threshold"] == 0.9
+        assert ws.get_setting("follow_up_rules")["rules"][0]["threshold"] == 0.999
     code, out, err = run(capsys, "rules", ws_path, "--set", "in_follow_up_now.limit=3")
     assert code == 2 and "has no setting 'limit'" in err
     # Loading the exported file back is a no-op; loading defaults restores 0.5.

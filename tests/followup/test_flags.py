@@ -79,14 +79,13 @@ def test_reason_names_the_contact_that_drove_the_flag(demo_model, demo_scores):
         assert "concern=serious" in top.evidence and "mobility=unable" in top.evidence
         assert top.change > 0.1 and all(top.change >= c.change for c in reason.contacts)
         assert driver in a.reason_text[case]
-        # Leaving a later contact's evidence out equals deleting that contact when covariates do
-        # not change there (Chapman-Kolmogorov: P(s)P(t) = P(s + t)), so the reference deletes the
-        # row; the first contact carries the initial distribution, so there it blanks the evidence.
+        # Leaving a contact out blanks its evidence; the contact still says the case had not yet
+        # entered an exact-entry stage (that entry is always recorded), so the reference blanks too.
         start, stop = demo_scores.timelines.offsets[case], demo_scores.timelines.offsets[case + 1]
         case_days = demo_scores.timelines.times[start:stop].astype(int).tolist()
         for c in reason.contacts:
             position = case_days.index(c.day)
-            how = {"blank": 0} if position == 0 else {"drop": position}
+            how = {"blank": position}
             without = reference_for_case(demo_model, demo_scores.timelines, case, as_of, **how)[mask].sum()
             assert c.change == pytest.approx(demo_scores.p_follow_up_now[case] - without, abs=1e-9)
     # Only the three most recent contacts of the five-contact case are tested.
