@@ -54,9 +54,13 @@ DEFAULT_SEED = 20261202
 
 
 # ---------------------------------------------------------------- models
-def demo_model_json(covariates: bool = True) -> dict:
-    """The demo model file as a dict; without covariates (and effects) if ``covariates`` is False."""
+def demo_model_json(covariates: bool = True, exact_entry: bool = True) -> dict:
+    """The demo model file as a dict; without covariates (and effects) if ``covariates`` is False,
+    without exact-entry stages if ``exact_entry`` is False (the equal-gap layout records no entries,
+    so cases go on being seen in the absorbing stage, as a discrete-time library assumes)."""
     data = json.loads(DEMO_MODEL.read_text(encoding="utf-8"))
+    if not exact_entry:
+        data.pop("exact_entry_stages", None)
     if not covariates:
         data["covariates"] = []
         for t in data["transitions"]:
@@ -65,13 +69,13 @@ def demo_model_json(covariates: bool = True) -> dict:
     return data
 
 
-def start_model_json(covariates: bool = False) -> dict:
+def start_model_json(covariates: bool = False, exact_entry: bool = False) -> dict:
     """Starting values for the fit comparison: the demo model, deliberately off.
 
     Every rate times 1.8, every emission row mixed 60/40 with the uniform row, the initial
     distribution mixed 50/50 with uniform over the stages it allows. Effects (if kept) set to 0.
     """
-    data = demo_model_json(covariates)
+    data = demo_model_json(covariates, exact_entry)
     for t in data["transitions"]:
         t["rate"] = round(t["rate"] * 1.8, 8)
         if "effects" in t:
@@ -114,7 +118,7 @@ def simulate(n_cases: int, layout: str, seed: int, covariates: str = "constant")
     """
     rng = np.random.default_rng(seed)
     with_covariates = not (layout == "equal" and covariates == "zero")
-    model = parse_model(json.dumps(demo_model_json(with_covariates)), "demo model")
+    model = parse_model(json.dumps(demo_model_json(with_covariates, layout == "irregular")), "demo model")
     if layout == "irregular":
         days, cov = _irregular_schedule(n_cases, rng)
         contact_times = list(days.astype(float))
@@ -227,9 +231,11 @@ def main(argv=None) -> int:
     summary = generate(args.cases, args.layout, args.out, args.seed, args.covariates)
     with_covariates = bool(summary["covariates"])
     if args.model_out:
-        args.model_out.write_text(json.dumps(demo_model_json(with_covariates), indent=2), encoding="utf-8")
+        args.model_out.write_text(json.dumps(demo_model_json(with_covariates, args.layout == "irregular"), indent=2),
+                                  encoding="utf-8")
     if args.start_model_out:
-        args.start_model_out.write_text(json.dumps(start_model_json(with_covariates), indent=2), encoding="utf-8")
+        args.start_model_out.write_text(json.dumps(start_model_json(with_covariates, args.layout == "irregular"),
+                                                   indent=2), encoding="utf-8")
     print(json.dumps(summary))
     return 0
 
