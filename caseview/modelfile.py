@@ -17,6 +17,7 @@ import numpy as np
 from hmm.model import Channel, ModelError, StageModel, Transition
 
 from .errors import InputError
+from .textfiles import read_utf8_text
 
 FORMAT = "caseview.stage-model"
 FORMAT_VERSION = 1
@@ -30,14 +31,7 @@ _TOP_KEYS = {
 def load_model(path) -> StageModel:
     """Load and validate a model file."""
     path = Path(path)
-    try:
-        text = path.read_text(encoding="utf-8-sig")
-    except FileNotFoundError:
-        raise InputError(f"{path}: model file not found") from None
-    except UnicodeDecodeError as exc:
-        raise InputError(f"{path}: not UTF-8 text (byte {exc.start}); save the model file as UTF-8") from None
-    except OSError as exc:
-        raise InputError(f"{path}: cannot read model file ({exc.strerror})") from None
+    text = read_utf8_text(path, "model file")
     return parse_model(text, source=str(path))
 
 

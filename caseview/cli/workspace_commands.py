@@ -88,15 +88,10 @@ def run_init(args) -> int:
     from caseview.errors import InputError
     from caseview.storage import Workspace
 
+    from caseview.textfiles import read_utf8_text
+
     path = Path(args.model)
-    try:
-        text = path.read_text(encoding="utf-8-sig")
-    except FileNotFoundError:
-        raise InputError(f"{path}: model file not found") from None
-    except UnicodeDecodeError as exc:
-        raise InputError(f"{path}: not UTF-8 text (byte {exc.start}); save the model file as UTF-8") from None
-    except OSError as exc:
-        raise InputError(f"{path}: cannot read model file ({exc.strerror})") from None
+    text = read_utf8_text(path, "model file")
     from caseview.modelfile import parse_model
 
     parse_model(text, source=str(path))  # names the model file in any message

@@ -254,14 +254,9 @@ def rules_from_json(text: str, source: str = "rules") -> RuleSet:
 def load_rule_file(path) -> RuleSet:
     """Read and validate a rule file (UTF-8 JSON)."""
     path = Path(path)
-    try:
-        text = path.read_text(encoding="utf-8-sig")
-    except FileNotFoundError:
-        raise InputError(f"{path}: rule file not found") from None
-    except UnicodeDecodeError as exc:
-        raise InputError(f"{path}: not UTF-8 text (byte {exc.start}); save the rule file as UTF-8") from None
-    except OSError as exc:
-        raise InputError(f"{path}: cannot read rule file ({exc.strerror})") from None
+    from caseview.textfiles import read_utf8_text
+
+    text = read_utf8_text(path, "rule file")
     return rules_from_json(text, source=str(path))
 
 
