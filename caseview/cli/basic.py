@@ -44,15 +44,9 @@ def register(sub) -> None:
 # ---------------------------------------------------------------- helpers
 def actor_name(args) -> str:
     """The name recorded in the audit trail: ``--by`` or the operating-system user (attribution only)."""
-    import getpass
+    from caseview.attribution import os_user
 
-    by = getattr(args, "by", None)
-    if by:
-        return by
-    try:
-        return getpass.getuser()
-    except Exception:  # no user database entry (containers)
-        return "unknown-user"
+    return getattr(args, "by", None) or os_user()
 
 
 def open_workspace(path):

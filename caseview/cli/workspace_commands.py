@@ -10,24 +10,8 @@ from __future__ import annotations
 import sys
 
 
-def _actor(args) -> str:
-    if getattr(args, "by", None):
-        return args.by
-    import getpass
-
-    try:
-        return getpass.getuser()
-    except Exception:  # no user name in the environment
-        return "unknown"
-
-
-def _open(path):
-    from caseview.storage import Workspace
-
-    ws = Workspace.open(path)
-    for warning in ws.warnings:
-        print(f"caseview: warning: {warning}", file=sys.stderr)
-    return ws
+from .basic import actor_name as _actor
+from .basic import open_workspace as _open
 
 
 def _add_by(parser) -> None:

@@ -199,12 +199,9 @@ def _replace(assessment, **changes):
 
 
 def _os_user() -> str:
-    import getpass
+    from caseview.attribution import os_user
 
-    try:
-        return getpass.getuser()
-    except Exception:
-        return "unknown-user"
+    return os_user()
 
 
 def save_run(ws, assessment: CaseloadAssessment, actor: str) -> int:

@@ -3,7 +3,6 @@
 from __future__ import annotations
 
 import datetime as dt
-import getpass
 from pathlib import Path
 
 from PySide6.QtCore import QDate, QEventLoop, QSettings, Qt, QTimer, Signal
@@ -23,10 +22,9 @@ MAX_RECENT = 8
 
 
 def current_actor() -> str:
-    try:
-        return getpass.getuser() or "unknown"
-    except Exception:
-        return "unknown"
+    from caseview.attribution import os_user
+
+    return os_user()
 
 
 class MainWindow(QMainWindow):

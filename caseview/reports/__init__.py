@@ -13,7 +13,6 @@ Sharing outside the team: ``dates="relative"`` (days since each case's first con
 from __future__ import annotations
 
 import datetime as dt
-import getpass
 import hashlib
 import os
 import tempfile
@@ -76,10 +75,9 @@ def _as_date(value, what: str) -> dt.date | None:
 
 
 def _default_actor() -> str:
-    try:
-        return getpass.getuser()
-    except Exception:  # no user name available (some containers)
-        return "unknown"
+    from caseview.attribution import os_user
+
+    return os_user()
 
 
 def build_report(ws, as_of, out_path, *, horizon_days: float = 90, coordinator: str | None = None,
