@@ -38,6 +38,9 @@ def register(subparsers) -> None:
     p.add_argument("--drop", action="append", default=[], metavar="COLUMN", help="leave out a file column (repeatable)")
     p.add_argument("--replace", action="store_true",
                    help="replace stored contacts of the same case and date that differ (audited)")
+    p.add_argument("--check", action="store_true",
+                   help="check the whole file (and clashes with stored contacts) and say what an import would do; "
+                        "store nothing")
     _add_by(p)
     p.set_defaults(run=run_import)
 
@@ -105,14 +108,21 @@ def run_import(args) -> int:
 
     mapping = _mapping(args.map)
     with _open(args.workspace) as ws:
-        result = import_timelines(ws, args.file, _actor(args), mapping=mapping, drop=args.drop, replace=args.replace)
+        result = import_timelines(ws, args.file, _actor(args), mapping=mapping, drop=args.drop, replace=args.replace,
+                                  check_only=args.check)
         for warning in result.warnings:
             print(f"caseview: warning: {warning}", file=sys.stderr)
-        print(f"imported {result.file} (sha256 {result.sha256}, {result.rows_read} rows read)")
-        print(f"cases added: {result.cases_added}")
-        print(f"contacts added: {result.contacts_added}")
-        print(f"exact duplicates skipped: {result.duplicates_skipped}")
-        print(f"replaced: {result.replaced}")
+        if result.check_only:
+            print(f"checked {result.file} (sha256 {result.sha256}, {result.rows_read} rows read): every row is valid; "
+                  "nothing was stored")
+            verb = "would be "
+        else:
+            print(f"imported {result.file} (sha256 {result.sha256}, {result.rows_read} rows read)")
+            verb = ""
+        print(f"cases {verb}added: {result.cases_added}")
+        print(f"contacts {verb}added: {result.contacts_added}")
+        print(f"exact duplicates {verb}skipped: {result.duplicates_skipped}")
+        print(f"{verb}replaced: {result.replaced}")
     return 0
 
 

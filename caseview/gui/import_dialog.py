@@ -1,8 +1,9 @@
 """Import contacts: preview the file, map its columns, check everything, then import (all or nothing).
 
-Checking runs the workspace importer (``caseview.timeline_io.import_timelines``) and stops it just
-before it writes (its progress callback raises once validation reached the write step), so
-nothing is stored until the user presses Import and the whole file passed.
+Checking runs the workspace importer (``caseview.timeline_io.import_timelines``) with
+``check_only=True``: every row is validated and compared with the stored contacts inside a write
+transaction that is then rolled back, so the user sees what an import would add, skip or clash with,
+and nothing is stored until they press Import and the whole file passed.
 """
 
 from __future__ import annotations
@@ -18,12 +19,6 @@ from .workers import JobRunner
 
 PREVIEW_ROWS = 8
 LEAVE_OUT = "(leave out)"
-WRITE_STEP = 0.75  # the importer reports 0.75 right before its write transaction
-
-
-class _StopBeforeWriting(Exception):
-    pass
-
 
 def read_preview(path, rows: int = PREVIEW_ROWS) -> tuple:
     """Header and first rows of a CSV or XLSX file (text only, for showing)."""
@@ -157,15 +152,9 @@ class ImportDialog(QDialog):
         mapping, drop = self.mapping_arguments()
 
         def job(callback):
-            def progress(fraction):
-                callback(fraction)
-                if validate_only and fraction >= WRITE_STEP:
-                    raise _StopBeforeWriting()
             with Workspace.open(ws_path) as ws:
-                try:
-                    return import_timelines(ws, path, actor, mapping=mapping, drop=drop, progress=progress)
-                except _StopBeforeWriting:
-                    return "valid"
+                return import_timelines(ws, path, actor, mapping=mapping, drop=drop, progress=callback,
+                                        check_only=validate_only)
         return job
 
     def check(self) -> None:
@@ -177,13 +166,18 @@ class ImportDialog(QDialog):
         self.jobs.start("import", self._run(True), on_finished=self._checked, on_failed=self._failed,
                         on_progress=lambda f: self.progress.setValue(int(100 * f)))
 
-    def _checked(self, _result) -> None:
+    def _checked(self, result) -> None:
         self.check_button.setEnabled(True)
         self.progress.setValue(100)
         self.checked_ok = True
         self.import_button.setEnabled(True)
-        self.summary.setText("The whole file is valid. Press Import to store it (one transaction, audited). "
-                             "Contacts that clash with stored ones are reported then, and nothing is stored.")
+        self.problems.clear()
+        for w in getattr(result, "warnings", []) or []:
+            self.problems.addItem(f"warning: {w}")
+        self.summary.setText(f"The whole file is valid: importing it would add {result.contacts_added:,} contacts "
+                             f"({result.cases_added:,} new cases) and skip {result.duplicates_skipped:,} exact "
+                             "duplicates. Nothing is stored yet: press Import to store it (one transaction, "
+                             "audited).")
 
     def _failed(self, message: str) -> None:
         self.check_button.setEnabled(True)

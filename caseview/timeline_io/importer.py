@@ -4,7 +4,8 @@ Steps: (1) read the bytes once for the SHA-256 and the encoding check; (2) check
 (``--map``/``--drop``, unknown and missing columns); (3) validate every chunk (vectorised) and
 keep the encoded rows; (4) find duplicates inside the file; (5) in ONE transaction add the rows,
 skip exact duplicates of stored contacts, replace conflicting ones only when asked, and record the
-import in the audit trail. Any problem raises :class:`caseview.errors.InputError` before step 5 or
+import in the audit trail (a check-only import rolls step 5 back and reports what it would have done).
+Any problem raises :class:`caseview.errors.InputError` before step 5 or
 rolls step 5 back, so the workspace is never half-changed.
 
 Rules worth knowing: cells are stripped of surrounding whitespace; fully blank rows are skipped;
@@ -39,6 +40,11 @@ class ImportResult:
     replaced: int
     warnings: list = field(default_factory=list)
     audit_id: int | None = None
+    check_only: bool = False
+
+
+class _RollBack(Exception):
+    """Raised inside the write transaction of a check-only import so that it rolls back."""
 
 
 def _parse_header(source: TimelineSource, model, mapping: dict, drop) -> tuple[list, list]:
@@ -134,7 +140,7 @@ def _duplicates_in_file(data: dict, problems: Problems, where) -> np.ndarray:
 
 
 def import_timelines(ws, path, actor: str, mapping: dict | None = None, drop=(), replace: bool = False,
-                     chunk_rows: int = CHUNK_ROWS, progress=None) -> ImportResult:
+                     chunk_rows: int = CHUNK_ROWS, progress=None, check_only: bool = False) -> ImportResult:
     """Import a CSV/XLSX timeline file into ``ws`` (all rows or none).
 
     Parameters
@@ -146,6 +152,8 @@ def import_timelines(ws, path, actor: str, mapping: dict | None = None, drop=(),
     drop : file columns to leave out
     replace : replace stored contacts of the same case and date that differ (audited)
     progress : callable(fraction) or None; raising from it cancels (nothing written)
+    check_only : run every check, including the comparison with stored contacts, and report what an
+        import would add, skip and replace, but roll the write back: nothing is stored or audited
     """
     from ..storage import ContactBatch, ContactConflicts
 
@@ -202,7 +210,11 @@ def import_timelines(ws, path, actor: str, mapping: dict | None = None, drop=(),
             if counts.replaced:
                 details["replaced_contacts"] = counts.replaced_details
                 details["case_ids"] = sorted({d["case_id"] for d in counts.replaced_details})
+            if check_only:
+                raise _RollBack()
             entry = ws.audit_append(actor, "import.replace" if counts.replaced else "import", facts.path.name, details)
+    except _RollBack:
+        entry = None
     except ContactConflicts as conflict:
         for i, names in zip(conflict.rows, conflict.differing):
             problems.add(source.where(int(data["lines"][i])), None,
@@ -215,4 +227,5 @@ def import_timelines(ws, path, actor: str, mapping: dict | None = None, drop=(),
     return ImportResult(file=str(facts.path), sha256=facts.sha256, rows_read=rows_read,
                         cases_added=counts.cases_added, contacts_added=counts.contacts_added,
                         duplicates_skipped=counts.duplicates_skipped + in_file_duplicates,
-                        replaced=counts.replaced, warnings=warnings, audit_id=entry.id)
+                        replaced=counts.replaced, warnings=warnings, audit_id=entry.id if entry else None,
+                        check_only=check_only)

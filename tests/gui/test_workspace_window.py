@@ -100,6 +100,7 @@ def test_import_good_file_after_check(window, qtbot, workspace_path, tmp_path):
     dialog.check()
     qtbot.waitUntil(lambda: dialog.import_button.isEnabled(), timeout=30000)
     assert window.workspace().contact_count() == before  # checking stores nothing
+    assert "would add 1 contacts (1 new cases)" in dialog.summary.text()
     dialog.do_import()
     qtbot.waitUntil(lambda: window.workspace().contact_count() == before + 1, timeout=30000)
 

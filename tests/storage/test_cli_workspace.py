@@ -25,6 +25,8 @@ def test_init_import_export_backup(tmp_path):
     again = _cv("init", ws, "--model", DEMO_MODEL_PATH, check=False)
     assert again.returncode != 0 and "already exists" in again.stderr and len(again.stderr.splitlines()) == 1
     source = write_csv(tmp_path / "in.csv", ROWS, header=["ref"] + HEADER[1:] + ["notes"])
+    check = _cv("import", ws, source, "--map", "ref=case_id", "--drop", "notes", "--check")
+    assert "nothing was stored" in check.stdout and "contacts would be added: 5" in check.stdout
     run = _cv("import", ws, source, "--map", "ref=case_id", "--drop", "notes", "--by", "coordinator-a")
     for line in ("cases added: 3", "contacts added: 5", "exact duplicates skipped: 0", "replaced: 0"):
         assert line in run.stdout

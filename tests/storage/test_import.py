@@ -221,3 +221,23 @@ def test_export_escapes_formula_like_text(ws, tmp_path, model_text):
     out = tmp_path / "odd-export.csv"
     export_timelines(ws, out, "tester")
     assert "'=unable" in out.read_text() and "\n=unable" not in out.read_text() and ",=unable" not in out.read_text()
+
+
+def test_check_only_reports_what_an_import_would_do_and_stores_nothing(ws, small_csv, tmp_path):
+    before, audit_before = _state(ws), len(ws.audit_entries())
+    checked = import_timelines(ws, small_csv, "tester", check_only=True)
+    assert checked.check_only and checked.audit_id is None
+    assert _state(ws) == before and len(ws.audit_entries()) == audit_before
+    done = import_timelines(ws, small_csv, "tester")
+    assert (checked.cases_added, checked.contacts_added, checked.duplicates_skipped) == \
+        (done.cases_added, done.contacts_added, done.duplicates_skipped) == (3, 5, 0)
+    # a clash with stored contacts is found by the check too, and still nothing changes
+    rows = [list(r) for r in ROWS]
+    rows[1][HEADER.index("concern")] = "serious"
+    changed = write_csv(tmp_path / "changed.csv", rows)
+    stored, audit_stored = _state(ws), len(ws.audit_entries())
+    with pytest.raises(InputError, match="already has a contact on 2025-01-05"):
+        import_timelines(ws, changed, "tester", check_only=True)
+    would = import_timelines(ws, changed, "tester", check_only=True, replace=True)
+    assert would.replaced == 1
+    assert _state(ws) == stored and len(ws.audit_entries()) == audit_stored
