@@ -232,7 +232,9 @@ def main(argv=None) -> int:
                     rows.append(Row(label, fitted.seconds, ref["seconds"], target, fitted.peak_mb, reference.peak_mb,
                                     ratio_limit=0.5 if target.startswith("ratio") else None,
                                     cpu_seconds=fitted.cpu_seconds, reference_cpu_seconds=ref.get("cpu_seconds")))
-                    tail = " | ".join(fitted.stdout.strip().splitlines()[-3:])
+                    wanted = ("log-likelihood", "iterations", "converged")
+                    tail = " | ".join([line.strip() for line in fitted.stdout.splitlines()
+                                       if line.strip().startswith(wanted)] or fitted.stdout.strip().splitlines()[-3:])
                     notes.append(f"{ref_note}; caseview fit said: {tail}")
                 else:
                     rows.append(Row(label + " (caseview fit NOT MEASURED)", None, ref["seconds"], target, None,
