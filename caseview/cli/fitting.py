@@ -33,6 +33,10 @@ def register(sub) -> None:
     p.add_argument("--by", metavar="NAME")
     p.set_defaults(run=run_models)
 
+    from .staff_estimates_commands import register as register_staff_estimates
+
+    register_staff_estimates(sub)   # model-from-estimates
+
 
 def run_fit(args) -> int:
     import numpy as np
