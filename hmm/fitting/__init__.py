@@ -8,6 +8,8 @@ Main entry points::
 """
 
 from .compare import LikelihoodRatioTest, likelihood_ratio_test
+from .goodness import GoodnessOfFit, goodness_of_fit
+from .goodness_occupancy import OccupancyOverTime, occupancy_over_calendar_time, one_step_predictions
 from .likelihood import log_likelihood_and_gradient
 from .optimise import fit_model
 from .parameters import ParameterSpec, parameter_spec
@@ -16,4 +18,6 @@ from .result import FitResult
 from .uncertainty import ParameterEstimate
 
 __all__ = ["fit_model", "FitResult", "ParameterEstimate", "ParameterSpec", "parameter_spec",
-           "log_likelihood_and_gradient", "Prior", "likelihood_ratio_test", "LikelihoodRatioTest"]
+           "log_likelihood_and_gradient", "Prior", "likelihood_ratio_test", "LikelihoodRatioTest",
+           "goodness_of_fit", "GoodnessOfFit", "occupancy_over_calendar_time", "OccupancyOverTime",
+           "one_step_predictions"]
