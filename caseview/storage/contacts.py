@@ -107,78 +107,170 @@ class StoredContacts:
     layout: FieldLayout
 
 
-def fetch_contacts(connection, as_of_day: int | None = None) -> StoredContacts:
-    """Read every contact (optionally only days <= ``as_of_day``) into numpy arrays."""
-    layout = field_layout(connection)
-    n_channels, n_covariates = len(layout.channels), len(layout.covariates)
-    # one packed key per row (case id and day) and one concatenated blob keep the number of Python
-    # objects per row small; CAST(... AS BLOB) keeps the bytes exactly as stored
-    sql = ("SELECT (case_id << 18) + (day + 131072), CAST(observations || covariates AS BLOB), stage_known,"
-           " coordinator_id FROM contacts")
+#: Key packing of (case_id, day) into one int64: 18 bits of day (offset so that days before 1970 stay
+#: positive), the case id above them.
+_DAY_BITS = 18
+_DAY_OFFSET = 131072
+
+
+#: Cases per aggregated read (keeps each aggregated value far below SQLite's 1 GB string limit).
+_CASES_PER_READ = 25_000
+
+
+def _contact_columns_by_case(connection, as_of_day: int | None):
+    """Fast read: the contacts of a range of cases aggregated into a few values (SQLite ``group_concat``).
+
+    Reading 1.2 million rows one by one costs ~2 s of Python objects (a tuple, two ints, a blob and
+    more per contact); aggregating in SQL returns one row per range of ``_CASES_PER_READ`` case ids
+    whose text numpy parses in one call. All aggregates of one query see the rows in the same
+    order, so the columns stay aligned whatever that order is (the caller sorts). This is the only
+    SQLite-specific read: a PostgreSQL backend would use ``string_agg`` here (or
+    :func:`_contact_columns_by_row`).
+
+    Returns
+    -------
+    case_ids, days, coordinator_ids : ndarray of int64, shape (n,)
+    values : bytes
+        The stored observation and covariate bytes of every contact, concatenated in row order.
+    """
+    sql = ("SELECT COUNT(*), group_concat(case_id), group_concat(day),"
+           " CAST(group_concat(observations || covariates, '') AS BLOB), group_concat(COALESCE(coordinator_id, -1))"
+           " FROM contacts WHERE case_id > ? AND case_id <= ?")
+    if as_of_day is not None:
+        sql += " AND day <= ?"
+    ids = [row[0] for row in connection.execute("SELECT id FROM cases ORDER BY id")]
+    # ranges (low, high] of at most _CASES_PER_READ cases each
+    bounds = [ids[0] - 1] + ids[_CASES_PER_READ - 1::_CASES_PER_READ] if ids else []
+    if ids and bounds[-1] != ids[-1]:
+        bounds.append(ids[-1])
+    parts = []
+    for low, high in zip(bounds[:-1], bounds[1:]):
+        params = (low, high) + (() if as_of_day is None else (int(as_of_day),))
+        count, cases, days, values, coordinators = connection.execute(sql, params).fetchone()
+        if count:
+            parts.append((count, cases, days, values, coordinators))
+    n = sum(p[0] for p in parts)
+    if not n:
+        empty = np.zeros(0, dtype=np.int64)
+        return empty, empty, empty, b""
+    return (_parse_integers(",".join(p[1] for p in parts), n, "case"),
+            _parse_integers(",".join(p[2] for p in parts), n, "day"),
+            _parse_integers(",".join(p[4] for p in parts), n, "coordinator"),
+            b"".join(p[3] for p in parts))
+
+
+def _parse_integers(text: str, n: int, what: str) -> np.ndarray:
+    values = np.fromstring(text, dtype=np.int64, sep=",") if n else np.zeros(0, dtype=np.int64)
+    if values.size != n:
+        raise WorkspaceError(f"stored contacts: could not read every {what} ({values.size} of {n}); "
+                             "the workspace is damaged - restore a backup")
+    return values
+
+
+def _contact_columns_by_row(connection, as_of_day: int | None):
+    """Portable read, one row per contact (plain SQL); same result as :func:`_contact_columns_by_case`."""
+    sql = ("SELECT case_id, day, CAST(observations || covariates AS BLOB), COALESCE(coordinator_id, -1)"
+           " FROM contacts")
     params = ()
     if as_of_day is not None:
         sql += " WHERE day <= ?"
         params = (int(as_of_day),)
+    rows = connection.execute(sql, params).fetchall()
+    n = len(rows)
+    if not n:
+        empty = np.zeros(0, dtype=np.int64)
+        return empty, empty, empty, b""
+    case_col, day_col, value_col, coordinator_col = zip(*rows)
+    del rows
+    return (np.fromiter(case_col, dtype=np.int64, count=n), np.fromiter(day_col, dtype=np.int64, count=n),
+            np.fromiter(coordinator_col, dtype=np.int64, count=n), b"".join(value_col))
+
+
+def _known_stages(connection, as_of_day: int | None):
+    """(case_id, day, stage_known) of the few contacts that record a known stage."""
+    sql = "SELECT case_id, day, stage_known FROM contacts WHERE stage_known IS NOT NULL AND stage_known <> ''"
+    params = ()
+    if as_of_day is not None:
+        sql += " AND day <= ?"
+        params = (int(as_of_day),)
+    return connection.execute(sql, params).fetchall()
+
+
+def fetch_contacts(connection, as_of_day: int | None = None, row_by_row: bool = False) -> StoredContacts:
+    """Read every contact (optionally only days <= ``as_of_day``) into numpy arrays.
+
+    ``row_by_row`` uses the portable one-row-per-contact read instead of the per-case aggregate
+    (same result, slower; kept as the reference and for other backends).
+    """
+    layout = field_layout(connection)
+    n_channels, n_covariates = len(layout.channels), len(layout.covariates)
+    read = _contact_columns_by_row if row_by_row else _contact_columns_by_case
     gc_was_enabled = gc.isenabled()
-    gc.disable()  # millions of short-lived tuples would otherwise trigger many useless collections
+    gc.disable()  # hundreds of thousands of short-lived tuples would otherwise trigger useless collections
     try:
-        rows = connection.execute(sql, params).fetchall()
-        n = len(rows)
-        if n:
-            key_col, value_col, stage_col, coord_col = zip(*rows)
-        else:
-            key_col = value_col = stage_col = coord_col = ()
-        del rows
+        case_ids, days, coordinator_ids, value_bytes = read(connection, as_of_day)
+        known = _known_stages(connection, as_of_day)
     finally:
         if gc_was_enabled:
             gc.enable()
-    keys = np.fromiter(key_col, dtype=np.int64, count=n)
-    case_ids = keys >> 18
-    days = (keys & ((1 << 18) - 1)) - 131072
+    n = case_ids.size
     width = n_channels + 8 * n_covariates
-    value_bytes = b"".join(value_col)
-    del key_col, value_col
     if len(value_bytes) != n * width:
         raise WorkspaceError("stored contacts do not match the workspace's channel/covariate registry; "
                              "the workspace is damaged - restore a backup")
     packed = np.frombuffer(value_bytes, dtype=np.uint8).reshape(n, width)
-    observations = packed[:, :n_channels]
-    covariates = np.ascontiguousarray(packed[:, n_channels:]).view(_NATIVE).astype(np.float64).reshape(n, n_covariates)
-    stage_known = np.array(stage_col, dtype=object) if n else np.zeros(0, dtype=object)
-    stage_known[np.equal(stage_known, None)] = ""
-    coordinator_ids = np.array(coord_col, dtype=object) if n else np.zeros(0, dtype=object)
-    coordinator_ids[np.equal(coordinator_ids, None)] = -1
-    coordinator_ids = coordinator_ids.astype(np.int64)
+    keys = (case_ids << _DAY_BITS) + (days + _DAY_OFFSET)
+    stage_known = np.full(n, "", dtype=object)
+    if known:
+        known_case, known_day, known_text = zip(*known)
+        known_keys = (np.array(known_case, dtype=np.int64) << _DAY_BITS) + (np.array(known_day, dtype=np.int64)
+                                                                            + _DAY_OFFSET)
+        by_key = np.argsort(keys, kind="stable")
+        stage_known[by_key[np.searchsorted(keys, known_keys, sorter=by_key)]] = np.array(known_text, dtype=object)
 
     coordinator_codes = dict(connection.execute("SELECT id, code FROM coordinators").fetchall())
     code_table = np.array([""] * (max(coordinator_codes, default=0) + 2), dtype=object)
     for k, v in coordinator_codes.items():
         code_table[k] = v
-    coordinators = code_table[coordinator_ids]  # -1 -> last entry, ''
 
     cases = connection.execute("SELECT id, case_code FROM cases").fetchall()
     id_to_code = np.array([""] * (max((c[0] for c in cases), default=0) + 1), dtype=object)
     for k, v in cases:
         id_to_code[k] = v
-    present = np.unique(case_ids)
+    if n and case_ids.min() >= 0 and case_ids.max() < max(4 * n, 1024):  # ids are dense: table lookups
+        present = np.flatnonzero(np.bincount(case_ids))
+        dense = True
+    else:
+        present, dense = np.unique(case_ids), False
     present_codes = id_to_code[present]
     rank_of_present = np.empty(present.size, dtype=np.int64)
     code_order = np.argsort(present_codes.astype(str), kind="stable")
     rank_of_present[code_order] = np.arange(present.size)
-    rank = rank_of_present[np.searchsorted(present, case_ids)]
-    order = np.lexsort((days, rank))
-    rank = rank[order]
+    if dense:
+        rank_of_id = np.zeros(int(case_ids.max()) + 1 if n else 1, dtype=np.int64)
+        rank_of_id[present] = rank_of_present
+        rank = rank_of_id[case_ids]
+    else:
+        rank = rank_of_present[np.searchsorted(present, case_ids)]
+    # sort by case code, then day: one int64 key (days are unique within a case)
+    sort_key = (rank << _DAY_BITS) + (days + _DAY_OFFSET)
+    if n > 1 and not np.all(sort_key[1:] > sort_key[:-1]):
+        order = np.argsort(sort_key, kind="stable")
+        rank, days, packed = rank[order], days[order], packed[order]
+        stage_known, coordinator_ids = stage_known[order], coordinator_ids[order]
     counts = np.bincount(rank, minlength=present.size)
     offsets = np.concatenate([[0], np.cumsum(counts)]).astype(np.int64)
-    coordinators = coordinators[order]
+    observations = packed[:, :n_channels]
+    covariates = np.ascontiguousarray(packed[:, n_channels:]).view(_NATIVE).astype(np.float64).reshape(n, n_covariates)
+    coordinators = code_table[coordinator_ids]  # -1 (none recorded) -> the last entry, ''
     # last non-blank coordinator within each case
-    row_index = np.where(coordinators != "", np.arange(n), -1)
+    row_index = np.where(coordinator_ids >= 0, np.arange(n), -1)
     last = np.maximum.reduceat(row_index, offsets[:-1]) if n else np.zeros(0, dtype=np.int64)
     case_coordinator = np.where(last >= 0, coordinators[np.maximum(last, 0)] if n else last, "").astype(object)
     return StoredContacts(
         case_codes=present_codes[code_order], case_coordinator=case_coordinator, offsets=offsets,
-        days=days[order], observations=observations[order], covariates=covariates[order],
-        stage_known=stage_known[order], coordinators=coordinators, layout=layout)
+        days=days, observations=observations, covariates=covariates,
+        stage_known=stage_known, coordinators=coordinators, layout=layout)
 
 
 def observation_codes_for_model(stored: StoredContacts, model: StageModel) -> tuple[np.ndarray, dict]:
@@ -235,15 +327,16 @@ def allowed_stages_for_model(stage_known: np.ndarray, model: StageModel) -> np.n
     allowed = np.ones((n, len(model.stages)), dtype=bool)
     if n == 0:
         return allowed
-    values, inverse = np.unique(stage_known.astype(str), return_inverse=True)
-    masks = np.ones((values.size, len(model.stages)), dtype=bool)
+    known = np.flatnonzero(stage_known != "")  # few contacts record a stage; skip the rest cheaply
+    if not known.size:
+        return allowed
+    values, inverse = np.unique(stage_known[known].astype(str), return_inverse=True)
+    masks = np.zeros((values.size, len(model.stages)), dtype=bool)
     for i, value in enumerate(values):
-        if value == "":
-            continue
-        masks[i] = False
         for name in value.split("|"):
             if name not in model.stages:
                 raise WorkspaceError(f"stored known stage {name!r} is not a stage of the model "
                                      f"({', '.join(model.stages)})")
             masks[i, model.stages.index(name)] = True
-    return masks[inverse]
+    allowed[known] = masks[inverse.reshape(-1)]
+    return allowed
