@@ -71,21 +71,44 @@ def days_until_threshold(model, probabilities, covariates, threshold: float,
         generators, np.tile(steps, distinct.shape[0]), np.repeat(np.arange(distinct.shape[0]), block))
     table = matrices[index].reshape(distinct.shape[0], block, model.n_stages, model.n_stages)
     follow_up_table = table[..., mask].sum(axis=-1)  # (G, B, S): P(in follow-up after d days | stage)
-    current = probabilities[open_cases]
+    if distinct.shape[0] <= _GROUPS_FOR_MATRIX_PRODUCTS:
+        # one distinct covariate row at a time: each block step is two plain matrix products
+        for g in range(distinct.shape[0]):
+            mine = open_cases[group[open_cases] == g]
+            _search(result, mine, probabilities[mine], follow_up_table[g].T[None], table[g, -1][None],
+                    np.zeros(mine.size, dtype=np.int64), threshold, limit_days, block)
+    else:
+        _search(result, open_cases, probabilities[open_cases], np.swapaxes(follow_up_table, 1, 2), table[:, -1],
+                group[open_cases], threshold, limit_days, block)
+    return result
+
+
+#: Up to this many distinct covariate rows, the search runs per row with matrix products (no gather).
+_GROUPS_FOR_MATRIX_PRODUCTS = 64
+
+
+def _search(result, cases, current, levels, last_step, group, threshold, limit_days, block):
+    """Block-by-block search for ``cases`` (writes ``result``).
+
+    ``levels[g]`` (S, B): P(follow-up after day 1..B | stage); ``last_step[g]`` (S, S): P(B days);
+    ``group`` (n,): index into both for each case (all 0 when there is one group).
+    """
+    single = levels.shape[0] == 1
     start = 0
-    while open_cases.size and start < limit_days:
-        g = group[open_cases]
-        level = np.einsum("ns,nbs->nb", current, follow_up_table[g])  # (n_open, B)
+    while cases.size and start < limit_days:
+        if single:
+            level = current @ levels[0]  # (n_open, B)
+        else:
+            level = np.einsum("ns,nsb->nb", current, levels[group])
         days = start + np.arange(1, block + 1)
         level[:, days > limit_days] = -np.inf
         crossed = level >= threshold
         hit = crossed.any(axis=1)
-        result[open_cases[hit]] = start + 1 + crossed[hit].argmax(axis=1)
+        result[cases[hit]] = start + 1 + crossed[hit].argmax(axis=1)
         keep = ~hit
-        open_cases = open_cases[keep]
-        current = np.einsum("ns,nst->nt", current[keep], table[g[keep], -1])
+        cases, current, group = cases[keep], current[keep], group[keep]
+        current = current @ last_step[0] if single else np.einsum("ns,nst->nt", current, last_step[group])
         start += block
-    return result
 
 
 def next_contact_due_day(model, probabilities, covariates, threshold: float, as_of_day: int,

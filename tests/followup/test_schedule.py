@@ -28,8 +28,10 @@ def brute_force(model, probabilities, covariates, threshold, limit):
     return out
 
 
+@pytest.mark.parametrize("groups_for_matrix_products", [64, 0])  # per covariate row / all rows gathered
 @pytest.mark.parametrize("block_days", [1, 30, 400])
-def test_matches_brute_force_on_demo_model(demo_model, rng, block_days):
+def test_matches_brute_force_on_demo_model(demo_model, rng, block_days, groups_for_matrix_products, monkeypatch):
+    monkeypatch.setattr("caseview.followup.schedule._GROUPS_FOR_MATRIX_PRODUCTS", groups_for_matrix_products)
     n, limit = 12, 400
     probabilities = rng.dirichlet(np.ones(demo_model.n_stages) * 0.7, size=n)
     probabilities[:, demo_model.follow_up_mask] *= 0.5  # most start under the threshold
