@@ -37,6 +37,10 @@ def register(sub) -> None:
 
     register_staff_estimates(sub)   # model-from-estimates
 
+    from .fit_check_commands import register as register_fit_check
+
+    register_fit_check(sub)   # check-fit
+
 
 def run_fit(args) -> int:
     import numpy as np

@@ -166,7 +166,7 @@ def _time_bin_edges(times: np.ndarray, time_bins) -> np.ndarray:
     return edges
 
 
-def occupancy_over_calendar_time(model: StageModel, timelines: Timelines, time_bins=12, *,
+def occupancy_over_calendar_time(model: StageModel, timelines: Timelines, time_bins=12, *, channels=None,
                                  predictions: OneStepPredictions | None = None) -> OccupancyOverTime:
     """Observed versus expected occupancy of each recorded category over calendar time.
 
@@ -177,6 +177,8 @@ def occupancy_over_calendar_time(model: StageModel, timelines: Timelines, time_b
     time_bins : int or array_like
         Number of equal-width bins between the first and last contact day, or the bin edges (days).
         Contacts outside the edges are left out.
+    channels : sequence of int, optional
+        Indices of the channels to include (default all).
     predictions : OneStepPredictions, optional
         From :func:`one_step_predictions` on the same inputs.
 
@@ -191,8 +193,9 @@ def occupancy_over_calendar_time(model: StageModel, timelines: Timelines, time_b
     which = np.searchsorted(edges, timelines.times, side="right") - 1
     which[timelines.times == edges[-1]] = n_bins - 1
     inside = (which >= 0) & (which < n_bins) & predictions.usable
-    channels, categories, observed, expected, error, counts = [], [], [], [], [], []
-    for c, spec in enumerate(model.channels):
+    series_channel, categories, observed, expected, error, counts = [], [], [], [], [], []
+    for c in (range(len(model.channels)) if channels is None else channels):
+        spec = model.channels[c]
         codes = timelines.observations[:, c]
         rows = np.flatnonzero(inside & (codes >= 0))
         bins = which[rows]
@@ -205,9 +208,9 @@ def occupancy_over_calendar_time(model: StageModel, timelines: Timelines, time_b
                 expected.append(np.bincount(bins, weights=p, minlength=n_bins) / n)
                 error.append(np.sqrt(np.bincount(bins, weights=p * (1 - p), minlength=n_bins)) / n)
             counts.append(n)
-            channels.append(spec.name)
+            series_channel.append(spec.name)
             categories.append(str(name))
-    shape = (len(channels), n_bins)
+    shape = (len(series_channel), n_bins)
     as_array = lambda values, dtype=float: np.array(values, dtype=dtype).reshape(shape)  # noqa: E731
-    return OccupancyOverTime(edges, channels, categories, as_array(observed), as_array(expected), as_array(error),
+    return OccupancyOverTime(edges, series_channel, categories, as_array(observed), as_array(expected), as_array(error),
                              as_array(counts, np.int64))

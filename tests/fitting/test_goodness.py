@@ -297,3 +297,43 @@ def test_occupancy_first_contacts_follow_the_initial_distribution():
     np.testing.assert_allclose(occupancy.observed[check, 0], [2 / 3, 1 / 3])
     assert occupancy.n_contacts[check[0]].tolist() == [3, 2]
     np.testing.assert_allclose(occupancy.bin_middles, [10.0, 50.0])
+
+
+# ------------------------------------------------------------------ the command
+def test_check_fit_command_prints_writes_and_changes_nothing_but_the_audit_trail(tmp_path):
+    import csv
+    import subprocess
+    import sys
+
+    from caseview.storage import Workspace
+
+    def run(*args):
+        return subprocess.run([sys.executable, "-m", "caseview", *map(str, args)], capture_output=True, text=True,
+                              timeout=300)
+
+    ws = tmp_path / "demo.cvw"
+    assert run("demo", ws).returncode == 0
+    with Workspace.open(ws) as w:
+        versions_before = [(v.id, v.is_current) for v in w.model_versions()]
+        contacts_before = w.contact_count()
+    table, occupancy = tmp_path / "table.csv", tmp_path / "occupancy.csv"
+    proc = run("check-fit", ws, "--bootstrap", 9, "--seed", 3, "--out", table, "--occupancy-out", occupancy)
+    assert proc.returncode == 0, proc.stderr
+    assert "Pearson-type statistic" in proc.stdout and "bootstrap p-value" in proc.stdout
+    assert "Advisory only" in proc.stdout and "Occupancy over calendar time" in proc.stdout
+    rows = list(csv.DictReader(open(table, encoding="utf-8")))
+    assert {r["channel"] for r in rows} == {"mobility", "falls", "concern"}
+    assert sum(float(r["observed"]) for r in rows) == pytest.approx(sum(float(r["expected"]) for r in rows), rel=1e-6)
+    shares = list(csv.DictReader(open(occupancy, encoding="utf-8")))
+    assert len(shares) == 9 * 12 and shares[0]["bin_start"][:2] == "20"
+    with Workspace.open(ws) as w:
+        assert [(v.id, v.is_current) for v in w.model_versions()] == versions_before
+        assert w.contact_count() == contacts_before
+        last = w.audit_entries()[-1]
+        assert last.action == "model.fit_check" and last.details["bootstrap"] == 9
+
+    bad = run("check-fit", ws, "--channel", "nope")
+    assert bad.returncode == 2 and "no channel 'nope'" in bad.stderr and "Traceback" not in bad.stderr
+    assert len(bad.stderr.strip().splitlines()) == 1
+    bad = run("check-fit", ws, "--gap-bands", 0)
+    assert bad.returncode == 2 and "--gap-bands" in bad.stderr and "Traceback" not in bad.stderr
