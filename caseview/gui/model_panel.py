@@ -89,7 +89,8 @@ class ModelPanel(QWidget):
         self.details.addTab(self.sojourn, "Time in stage")
         self.details.addTab(self.hazards, "Hazard ratios")
         self.details.addTab(self.emissions, "Observation probabilities")
-        self.details.addTab(fit_tab, "Goodness of fit")
+        self.details.addTab(fit_tab, "Fit statistics")
+        self._add_fit_check()
         self.details.addTab(versions_tab, "Versions")
         self.details.addTab(self.editor, "Edit model")
 
@@ -172,6 +173,7 @@ class ModelPanel(QWidget):
         self._fill_hazards(summary)
         self._fill_emissions()
         self._draw_fit_history(summary)
+        self.fit_check.model_changed()
         from caseview.modelfile import dump_model
 
         self.editor.set_text(self.version.json_text if self.version is not None else dump_model(self.model))
@@ -343,5 +345,27 @@ class ModelPanel(QWidget):
         self.editor.message.setText("Staff estimates: give typical days until each move as rates (1 / days) in "
                                     "the editor, then save.")
 
+    # ------------------------------------------------------------------ fit check (goodness of fit)
+    def _add_fit_check(self) -> None:
+        from .fit_check_chart import FitCheckArea
+
+        def inputs():
+            loaded = self.window.loaded
+            return None if loaded is None or self.model is None else (self.model, loaded.scores.timelines)
+
+        self.fit_check = FitCheckArea(inputs)
+        self.fit_check.finished.connect(self._fit_checked)
+        self.details.addTab(self.fit_check, "Fit check")
+
+    def _fit_checked(self, result) -> None:
+        ws = self.window.workspace()
+        if ws is not None and self.version is not None:
+            ws.audit_append(self.window.actor, "model.fit_check", f"model:{self.version.id}",
+                            {"statistic": round(result.statistic, 6), "bootstrap": result.n_bootstrap,
+                             "p_value": round(result.p_value, 6) if result.n_bootstrap else None,
+                             "refit": result.refit, "cells": len(result.observed), "pairs": result.n_pairs,
+                             "from": "window"})
+
     def shutdown(self) -> None:
+        self.fit_check.shutdown()
         self.jobs.shutdown()
