@@ -160,6 +160,53 @@ def _check_row(problems, where, stage, check, result) -> None:
                                 f"{total:.6g}; expected 1"))
 
 
+def _rates_out(problems, r, stage, stages, index, typical_stay_days, next_stage, rates, leaves) -> None:
+    """Check one stage's typical stay and next-stage shares; fill row ``r`` of ``rates``."""
+    if stage not in typical_stay_days:
+        problems.append(Problem(("typical_stay_days", stage), f"stage {stage!r}: no typical stay given (days, "
+                                "or 'never leaves')"))
+        return
+    stay = typical_stay_days[stage]
+    shares = next_stage.get(stage) or {}
+    if _never_leaves(stay):
+        moving = {t: v for t, v in shares.items() if not (_is_number(v) and v == 0)}
+        if moving:
+            problems.append(Problem(("next_stage", stage), f"stage {stage!r} is marked 'never leaves' but has "
+                                    f"shares of moves to {', '.join(map(str, moving))}; remove them or give "
+                                    "a typical stay"))
+        return
+    if not _is_number(stay) or stay <= 0:
+        problems.append(Problem(("typical_stay_days", stage), f"stage {stage!r}: the typical stay must be a "
+                                f"positive number of days (or 'never leaves'), got {stay!r}"))
+        return
+    leaves[r] = True
+    row_ok = True
+    for target, share in shares.items():
+        if target not in index:
+            problems.append(Problem(("next_stage", stage, target), f"stage {stage!r}: unknown next stage "
+                                    f"{target!r} (stages: {', '.join(stages)})"))
+            row_ok = False
+        elif target == stage:
+            problems.append(Problem(("next_stage", stage, target), f"stage {stage!r}: a move to itself is not "
+                                    "a move; leave it out (the typical stay covers staying)"))
+            row_ok = False
+        elif not _is_number(share) or share < 0 or share > 1:
+            problems.append(Problem(("next_stage", stage, target), f"stage {stage!r}: the share of moves to "
+                                    f"{target!r} must be between 0 and 1, got {share!r}"))
+            row_ok = False
+    if not row_ok:
+        return
+    total = float(sum(shares.values()))
+    if abs(total - 1.0) > SUM_TOLERANCE:
+        problems.append(Problem(("next_stage", stage), f"stage {stage!r}: the shares of where people go next "
+                                f"add up to {total:.6g}; expected 1 (every move out of a stage goes "
+                                "somewhere)" + ("" if shares else "; give at least one next stage")))
+        return
+    for target, share in shares.items():
+        # q_rs = pi_rs / m_r (jump chain; Norris 1997, section 2.6), shares rescaled to add up to exactly 1
+        rates[r, index[target]] = (share / total) / float(stay)
+
+
 def _build(stages, typical_stay_days, next_stage, initial, checks, covariates, hazard_ratios, follow_up_stages,
            exact_entry_stages, name):
     """Validate everything; return (StageModel or None, list of Problem)."""
@@ -190,49 +237,12 @@ def _build(stages, typical_stay_days, next_stage, initial, checks, covariates, h
     # ---- typical stays and where people go next -> rates
     rates = np.zeros((n, n))
     leaves = np.zeros(n, dtype=bool)
+    unsettled = set()           # stages whose stay or shares have a problem
     for r, stage in enumerate(stages):
-        if stage not in typical_stay_days:
-            problems.append(Problem(("typical_stay_days", stage), f"stage {stage!r}: no typical stay given (days, "
-                                    "or 'never leaves')"))
-            continue
-        stay = typical_stay_days[stage]
-        shares = next_stage.get(stage) or {}
-        if _never_leaves(stay):
-            moving = {t: v for t, v in shares.items() if not (_is_number(v) and v == 0)}
-            if moving:
-                problems.append(Problem(("next_stage", stage), f"stage {stage!r} is marked 'never leaves' but has "
-                                        f"shares of moves to {', '.join(map(str, moving))}; remove them or give "
-                                        "a typical stay"))
-            continue
-        if not _is_number(stay) or stay <= 0:
-            problems.append(Problem(("typical_stay_days", stage), f"stage {stage!r}: the typical stay must be a "
-                                    f"positive number of days (or 'never leaves'), got {stay!r}"))
-            continue
-        leaves[r] = True
-        row_ok = True
-        for target, share in shares.items():
-            if target not in index:
-                unknown_stage(("next_stage", stage, target), target, "next stage")
-                row_ok = False
-            elif target == stage:
-                problems.append(Problem(("next_stage", stage, target), f"stage {stage!r}: a move to itself is not "
-                                        "a move; leave it out (the typical stay covers staying)"))
-                row_ok = False
-            elif not _is_number(share) or share < 0 or share > 1:
-                problems.append(Problem(("next_stage", stage, target), f"stage {stage!r}: the share of moves to "
-                                        f"{target!r} must be between 0 and 1, got {share!r}"))
-                row_ok = False
-        if not row_ok:
-            continue
-        total = float(sum(shares.values()))
-        if abs(total - 1.0) > SUM_TOLERANCE:
-            problems.append(Problem(("next_stage", stage), f"stage {stage!r}: the shares of where people go next "
-                                    f"add up to {total:.6g}; expected 1 (every move out of a stage goes "
-                                    "somewhere)" + ("" if shares else "; give at least one next stage")))
-            continue
-        for target, share in shares.items():
-            # q_rs = pi_rs / m_r (jump chain; Norris 1997, section 2.6), shares rescaled to add up to exactly 1
-            rates[r, index[target]] = (share / total) / float(stay)
+        before = len(problems)
+        _rates_out(problems, r, stage, stages, index, typical_stay_days, next_stage, rates, leaves)
+        if len(problems) > before:
+            unsettled.add(stage)
 
     # ---- initial distribution
     init = np.zeros(n)
@@ -265,6 +275,8 @@ def _build(stages, typical_stay_days, next_stage, initial, checks, covariates, h
             unknown_stage(("hazard_ratios", key), target if source in index else source)
             continue
         if rates[index[source], index[target]] == 0:
+            if source in unsettled:
+                continue            # its stay or shares are already reported
             why = (f"no share of moves out of {source!r} goes to {target!r}" if leaves[index[source]]
                    else f"{source!r} has no valid typical stay or is never left")
             problems.append(Problem(("hazard_ratios", key), f"hazard ratios for {source} -> {target}, but {why}"))
