@@ -155,7 +155,7 @@ def _tabulate(model: StageModel, timelines: Timelines, layout: _Layout):
         group = layout.covariate_group(timelines.covariates[rows - 1])
         _, n_from, n_bands, n_groups, n_to = layout.shape
         row_cell = ((from_group * n_bands + band) * n_groups + group) * n_to
-        probabilities = predictions.category_probabilities(model, channel)[rows]
+        probabilities = predictions.category_probabilities(model, channel, rows)
         k = probabilities.shape[1]
         observed[position] = np.bincount(row_cell + codes[rows], minlength=flat_size).reshape(layout.shape[1:])
         cells = (row_cell[:, None] + np.arange(k)[None, :]).reshape(-1)

@@ -59,9 +59,10 @@ class OneStepPredictions:
     usable: np.ndarray
     n_impossible: int
 
-    def category_probabilities(self, model: StageModel, channel: int) -> np.ndarray:
-        """Predicted probability of each category of one channel, shape (n_contacts, n_categories)."""
-        return self.predicted @ model.emission_matrices()[channel]
+    def category_probabilities(self, model: StageModel, channel: int, rows=None) -> np.ndarray:
+        """Predicted probability of each category of one channel, shape (n_contacts or len(rows), n_categories)."""
+        predicted = self.predicted if rows is None else self.predicted[rows]
+        return np.einsum("ns,sk->nk", predicted, model.emission_matrices()[channel])
 
 
 def one_step_predictions(model: StageModel, timelines: Timelines,
@@ -200,7 +201,7 @@ def occupancy_over_calendar_time(model: StageModel, timelines: Timelines, time_b
         rows = np.flatnonzero(inside & (codes >= 0))
         bins = which[rows]
         n = np.bincount(bins, minlength=n_bins)
-        probabilities = predictions.category_probabilities(model, c)[rows]
+        probabilities = predictions.category_probabilities(model, c, rows)
         for k, name in enumerate(spec.categories):
             p = probabilities[:, k]
             with np.errstate(invalid="ignore", divide="ignore"):
