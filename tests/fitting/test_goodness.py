@@ -220,6 +220,34 @@ def test_replicates_keep_the_contact_schedule_and_recording_pattern(rng, seed):
     np.testing.assert_array_equal(copy.observations[mine] < 0, schedule["missing"][theirs])
 
 
+def test_recorded_stages_and_continuous_covariates(rng, seed):
+    import dataclasses
+
+    from hmm.fitting.goodness import _replicate, _schedule
+
+    model = three_stage_model()
+    sim = simulate(model, rng, n_cases=60, n_contacts=6)
+    t = sim.timelines
+    # a stage recorded directly at some ordinary contacts (the true one), and a covariate with many values
+    known = (~sim.exact_entry_contact) & (rng.random(t.n_contacts) < 0.2)
+    allowed = t.allowed_stages.copy()
+    allowed[known] = False
+    allowed[known, sim.true_stages[known]] = True
+    age = np.round(rng.uniform(60, 95, t.n_cases))[t.case_of_contact][:, None]
+    t = dataclasses.replace(t, allowed_stages=allowed, covariates=np.hstack([t.covariates[:, :0], age]))
+    model = dataclasses.replace(model, covariates=("age",), transitions=tuple(
+        dataclasses.replace(tr, effects={"age": 0.01} if tr.effects else {}) for tr in model.transitions))
+    result = goodness_of_fit(model, t, bootstrap=3, rng=np.random.default_rng(seed))
+    median = np.median(age)
+    # a covariate with more than two values is split at its median (common practice, no source)
+    assert set(result.covariate_group) == {f"age<={median:g}", f"age>{median:g}"}
+    copy = _replicate(model, _schedule(model, t), np.random.default_rng(seed))
+    recorded = ~copy.allowed_stages.all(axis=1) & (copy.observations >= 0).any(axis=1)
+    assert recorded.any() and np.all(copy.allowed_stages[recorded].sum(axis=1) == 1)
+    many = goodness_of_fit(model, t, max_covariate_groups=1, bootstrap=0)
+    assert set(many.covariate_group) == {"all"}
+
+
 # ------------------------------------------------------------------ the bootstrap test does its job
 def test_bootstrap_p_value_not_small_for_the_true_model_and_small_for_a_wrong_one(seed):
     truth = three_stage_model()
