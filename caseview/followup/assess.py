@@ -4,7 +4,9 @@
 set, the previous saved score run (for ``sharp_rise``), the reviews, the automatic re-open of
 dismissed flags, and optionally saves this run as a snapshot. It is cheap enough to run inside
 ``caseview score``: rules are vectorised and the leave-one-out reasons are computed for flagged
-cases only.
+cases only. With ``explain_reasons=False`` the reasons are left for later: the window shows the
+table at once and fills reasons in with :meth:`CaseloadAssessment.explain_cases` (the selected
+case first, then the risk queue, then the rest, in a background job).
 """
 
 from __future__ import annotations
@@ -14,7 +16,7 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from .flags import INFLUENCE_CONTACTS, evaluate_rules, explain
+from .flags import INFLUENCE_CONTACTS, RuleEvaluation, evaluate_rules, explain, explain_cases
 from .rules import SCHEDULE_RULE, RuleSet, default_rules, workspace_rules
 from .schedule import SEARCH_LIMIT_DAYS, next_contact_due_day
 
@@ -31,8 +33,9 @@ class CaseloadAssessment:
         Names of the rules that fired joined by ';' ('' when none).
     is_flagged : ndarray of bool, shape (n_cases,)
     reasons : list[list[FlagReason]], length n_cases
+        Empty for a flagged case whose reasons are not worked out yet (see ``explained``).
     reason_text : ndarray of object, shape (n_cases,)
-        One readable line per case ('' when not flagged).
+        One readable line per case ('' when not flagged or not worked out yet).
     next_contact_due_day : ndarray of int64, shape (n_cases,)
         Day (since 1970-01-01) the follow-up probability would reach the ``in_follow_up_now``
         threshold if nothing new is observed; the as-of day when already over; -1 if not within
@@ -52,6 +55,13 @@ class CaseloadAssessment:
     reopened : list[str]
         Case IDs whose dismissed flag this assessment re-opened.
     saved_run_id : int or None
+    evaluation : RuleEvaluation or None
+        Which rules fired and their values (kept to explain flags later).
+    explained : ndarray of bool, shape (n_cases,) or None
+        True where ``reasons``/``reason_text`` are final: every unflagged case, and the flagged
+        cases whose reasons were worked out (all of them unless ``explain_reasons=False``).
+    influence_contacts : int
+        Recent contacts tested by leaving them out.
     """
 
     scores: object
@@ -69,6 +79,48 @@ class CaseloadAssessment:
     previous_p_follow_up: np.ndarray | None = None
     reopened: tuple = ()
     saved_run_id: int | None = None
+    evaluation: RuleEvaluation | None = None
+    explained: np.ndarray | None = None
+    influence_contacts: int = INFLUENCE_CONTACTS
+
+    @property
+    def reasons_pending(self) -> np.ndarray:
+        """Flagged cases (rows) whose reasons are not worked out yet, shape (m,)."""
+        if self.explained is None:
+            return np.zeros(0, dtype=np.int64)
+        return np.flatnonzero(~self.explained)
+
+    def has_reasons(self, case: int) -> bool:
+        """True when case row ``case`` needs no more work for its reasons."""
+        return self.explained is None or bool(self.explained[case])
+
+    def explain_cases(self, cases) -> np.ndarray:
+        """Work out the reasons of the flagged, not yet explained cases among ``cases`` (rows).
+
+        Fills ``reasons``, ``reason_text`` and ``explained`` in place; the text of a case is
+        written before it is marked explained, so a reader that sees ``explained`` sees the text.
+        Safe to call from a worker thread while the window reads (each case is written whole).
+
+        Returns
+        -------
+        ndarray of int64
+            The rows newly explained.
+        """
+        cases = np.asarray(cases, dtype=np.int64).reshape(-1)
+        if self.explained is None or self.evaluation is None or not cases.size:
+            return np.zeros(0, dtype=np.int64)
+        todo = cases[~self.explained[cases]]
+        if not todo.size:
+            return todo
+        todo = todo[np.sort(np.unique(todo, return_index=True)[1])]  # drop repeats, keep the order
+        flagged, reasons, text = explain_cases(self.scores, self.rules, self.evaluation, todo,
+                                               self.previous_p_follow_up, self.previous_as_of,
+                                               self.influence_contacts)
+        for case, case_reasons, line in zip(flagged, reasons, text):
+            self.reasons[case] = case_reasons
+            self.reason_text[case] = line
+        self.explained[todo] = True
+        return todo
 
     @property
     def order(self) -> np.ndarray:
@@ -118,14 +170,17 @@ def assess_scores(scores, rules: RuleSet | None = None, previous_p_follow_up=Non
         np.zeros(0, dtype=object)
     if explain_reasons:
         reasons, reason_text = explain(scores, rules, evaluation, previous, previous_as_of, influence_contacts)
-    else:  # callers that only need which rules fired (caseview score) skip the leave-one-out work
+        explained = np.ones(n, dtype=bool)
+    else:  # only which rules fired (caseview score), or reasons later (the window: explain_cases)
         reasons, reason_text = [[] for _ in range(n)], np.full(n, "", dtype=object)
+        explained = ~is_flagged
     due = next_contact_due_day(scores.model, scores.p_now, scores.last_covariates,
                                rules[SCHEDULE_RULE].threshold, scores.as_of_day, schedule_limit_days)
     status, by, at = _review_arrays(scores.case_ids, is_flagged, latest_reviews or {})
     priority = is_flagged.astype(float) + 0.5 * (scores.p_follow_up_now + scores.p_reach_follow_up)
     return CaseloadAssessment(scores, rules, flags, is_flagged, reasons, reason_text, due, status, by, at,
-                              priority, previous_as_of, previous)
+                              priority, previous_as_of, previous, evaluation=evaluation, explained=explained,
+                              influence_contacts=influence_contacts)
 
 
 def assess_caseload(ws, as_of: dt.date, horizon_days: float = 90.0, rules: RuleSet | None = None,
@@ -150,7 +205,8 @@ def assess_caseload(ws, as_of: dt.date, horizon_days: float = 90.0, rules: RuleS
     actor : str, optional
         Recorded with a saved snapshot (default: the OS user).
     explain_reasons : bool
-        Work out each flag's reasons and contact influence (False: only which rules fired).
+        Work out each flag's reasons and contact influence now (False: only which rules fired;
+        reasons can be worked out later, case by case, with :meth:`CaseloadAssessment.explain_cases`).
     """
     from caseview.scoring import score_caseload
     from caseview.storage import followup_store as store

@@ -237,8 +237,32 @@ def explain(scores, rules: RuleSet, evaluation: RuleEvaluation, previous_p_follo
     reasons = [[] for _ in range(n)]
     text = np.full(n, "", dtype=object)
     flagged = np.flatnonzero(evaluation.fired.any(axis=1))
+    for case, case_reasons, line in zip(*explain_cases(scores, rules, evaluation, flagged, previous_p_follow_up,
+                                                       previous_as_of, positions)):
+        reasons[case] = case_reasons
+        text[case] = line
+    return reasons, text
+
+
+def explain_cases(scores, rules: RuleSet, evaluation: RuleEvaluation, cases, previous_p_follow_up=None,
+                  previous_as_of: dt.date | None = None, positions: int = INFLUENCE_CONTACTS):
+    """Reasons for the flagged cases among ``cases`` (row indices), all at once.
+
+    Lets a caller work reasons out for a few cases at a time (the window: the selected case first,
+    then the risk queue, then the rest); the result for a case does not depend on which other
+    cases are explained with it.
+
+    Returns
+    -------
+    flagged : ndarray of int64, shape (m,)
+        The rows of ``cases`` that are flagged (in the order given).
+    reasons : list[list[FlagReason]], length m
+    reason_text : list[str], length m
+    """
+    cases = np.asarray(cases, dtype=np.int64).reshape(-1)
+    flagged = cases[evaluation.fired[cases].any(axis=1)] if cases.size else cases
     if not flagged.size:
-        return reasons, text
+        return flagged, [], []
     days, change_now, change_reach, evidence = contact_influence(
         scores.model, scores.timelines, scores.as_of_day, flagged, scores.horizon_days,
         scores.p_follow_up_now[flagged], scores.p_reach_follow_up[flagged], positions)
@@ -247,8 +271,9 @@ def explain(scores, rules: RuleSet, evaluation: RuleEvaluation, previous_p_follo
     certainty = scores.most_likely_probability
     since = f" (run as of {previous_as_of.isoformat()})" if previous_as_of else ""
     horizon = f"{scores.horizon_days:g}"
+    all_reasons, all_text = [], []
     for i, case in enumerate(flagged):
-        line = []
+        line, reasons = [], []
         for j, rule in enumerate(rules):
             if not evaluation.fired[case, j]:
                 continue
@@ -271,7 +296,7 @@ def explain(scores, rules: RuleSet, evaluation: RuleEvaluation, previous_p_follo
             order = present[np.argsort(-changes[present], kind="stable")]
             contacts = [ContactInfluence(_EPOCH + dt.timedelta(days=int(days[i, k])), float(changes[k]),
                                          int(days[i, k]), evidence[i][k]) for k in order]
-            reasons[case].append(FlagReason(rule.name, message, value, threshold, contacts))
+            reasons.append(FlagReason(rule.name, message, value, threshold, contacts))
             line.append(f"{rule.name}: {message}")
         influence = sorted((ContactInfluence(_EPOCH + dt.timedelta(days=int(days[i, k])), float(change_now[i, k]),
                                              int(days[i, k]), evidence[i][k]) for k in np.flatnonzero(days[i] >= 0)),
@@ -279,5 +304,6 @@ def explain(scores, rules: RuleSet, evaluation: RuleEvaluation, previous_p_follo
         if influence:
             line.append("effect of recent contacts on P(follow-up now) (with minus without): "
                         + "; ".join(c.describe() for c in influence))
-        text[case] = " | ".join(line)
-    return reasons, text
+        all_reasons.append(reasons)
+        all_text.append(" | ".join(line))
+    return flagged, all_reasons, all_text

@@ -134,8 +134,8 @@ class CaseloadTableModel(QAbstractTableModel):
         if role == CASE_ROW_ROLE:
             return row
         if role == Qt.ToolTipRole:
-            if column == FLAGS and self.reason_text[row]:
-                return str(self.reason_text[row])
+            if column == FLAGS and self.is_flagged[row]:
+                return self.reasons_of(row) or None
             if column in PROBABILITY_COLUMNS:
                 return "Advisory estimate from the stage model, not a diagnosis."
             return None
@@ -144,6 +144,14 @@ class CaseloadTableModel(QAbstractTableModel):
                 return int(Qt.AlignRight | Qt.AlignVCenter)
             return int(Qt.AlignLeft | Qt.AlignVCenter)
         return None
+
+    def reasons_of(self, row: int) -> str:
+        """Reason line of scores row ``row``; worked out on the spot (one case, a few milliseconds)
+        if the window's background job has not reached it yet."""
+        a = self.assessment
+        if a is not None and hasattr(a, "has_reasons") and not a.has_reasons(row):
+            a.explain_cases([row])
+        return str(self.reason_text[row])
 
     def probability_at(self, view_row: int, column: int):
         """Raw probability (0..1) behind a bar cell, or None (same as PROBABILITY_ROLE)."""

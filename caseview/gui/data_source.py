@@ -3,7 +3,7 @@
 The window talks to a *source* with this small interface (tests use an in-memory one):
 
 ``label`` (str), ``load(as_of, horizon_days, callback) -> LoadedCaseload`` (runs in a worker
-thread), ``workspace()`` (a main-thread :class:`caseview.storage.Workspace`, or None),
+thread; flags without their reasons, which the window works out afterwards), ``workspace()`` (a main-thread :class:`caseview.storage.Workspace`, or None),
 ``current_model()`` (StageModel), ``close()``.
 """
 
@@ -65,7 +65,10 @@ class WorkspaceSource:
         with Workspace.open(self.path) as ws:
             followup = followup_module()
             if followup is not None:
-                assessment = followup.assess_caseload(ws, as_of, horizon_days, callback=callback)
+                # flags now, reasons later: the window explains flagged cases in a second job
+                # (risk queue first) and on the spot for a case the user selects
+                assessment = followup.assess_caseload(ws, as_of, horizon_days, callback=callback,
+                                                      explain_reasons=False)
                 return LoadedCaseload(assessment.scores, assessment, notes)
             from caseview.scoring import score_caseload
 

@@ -5,6 +5,7 @@ from __future__ import annotations
 import datetime as dt
 from pathlib import Path
 
+import numpy as np
 from PySide6.QtCore import QDate, QEventLoop, QSettings, Qt, QTimer, Signal
 from PySide6.QtGui import QAction, QKeySequence
 from PySide6.QtWidgets import (QDateEdit, QFileDialog, QLabel, QMainWindow, QMessageBox, QProgressBar,
@@ -28,10 +29,13 @@ def current_actor() -> str:
 
 
 class MainWindow(QMainWindow):
-    """caseview's window. ``caseload_loaded`` fires after every finished scoring run."""
+    """caseview's window. ``caseload_loaded`` fires after every finished scoring run (the table
+    shows data); ``reasons_ready`` once every flagged case's reasons have been worked out."""
 
     caseload_loaded = Signal(object)
     load_failed = Signal(str)
+    reasons_arrived = Signal(object)  # ndarray of case rows whose reasons were just worked out
+    reasons_ready = Signal(object)    # the LoadedCaseload, once every flagged case has its reasons
 
     def __init__(self, as_of: dt.date | None = None, parent=None):
         super().__init__(parent)
@@ -149,6 +153,10 @@ class MainWindow(QMainWindow):
         self.cancel_button.setAccessibleName("Cancel the background job")
         self.cancel_button.hide()
         self.cancel_button.clicked.connect(lambda: self.jobs.cancel("score"))
+        self.reasons_status = QLabel("")
+        self.reasons_status.setAccessibleName("Progress of working out why cases are flagged")
+        self.reasons_status.hide()
+        status.addPermanentWidget(self.reasons_status)
         status.addPermanentWidget(self.progress)
         status.addPermanentWidget(self.cancel_button)
         status.showMessage("Open a workspace (Ctrl+O) or create one from a model file (Ctrl+N).")
@@ -281,6 +289,7 @@ class MainWindow(QMainWindow):
         """Show a caseload source (a workspace or, in tests, an in-memory stand-in)."""
         if self.source is not None and self.source is not source:
             self.jobs.cancel("score")
+            self.jobs.cancel("reasons")
             self.source.close()
         self.source = source
         self._pending_case = case_id
@@ -298,6 +307,8 @@ class MainWindow(QMainWindow):
         self.progress.show()
         self.cancel_button.show()
         self.statusBar().showMessage(f"Scoring as of {as_of.isoformat()}…")
+        self.jobs.cancel("reasons")
+        self.reasons_status.hide()
         self.jobs.start("score", lambda callback: source.load(as_of, horizon, callback),
                         on_finished=self._scored, on_failed=self._score_failed,
                         on_progress=lambda f: self.progress.setValue(int(100 * f)),
@@ -322,6 +333,64 @@ class MainWindow(QMainWindow):
         self.statusBar().showMessage(f"Scored {loaded.scores.n_cases:,} cases as of {self.as_of.isoformat()}, "
                                      f"horizon {self.horizon_days:g} days. {notes}")
         self.caseload_loaded.emit(loaded)
+        self._start_reasons(loaded)
+
+    # ------------------------------------------------------------------ reasons, after the table
+    #: Flagged cases explained per step of the reasons job (~0.1 s each at 100,000 cases).
+    REASONS_PER_STEP = 2000
+
+    def _start_reasons(self, loaded) -> None:
+        """Work out why cases are flagged in the background: the risk queue first, then the rest.
+
+        The table is already on screen; a case the user looks at before its turn is explained on
+        the spot (one case takes a few milliseconds), see :meth:`RiskQueue.reasons_arrived`.
+        """
+        a = loaded.assessment
+        if a is None or not hasattr(a, "explain_cases"):
+            return
+        pending = a.reasons_pending
+        if not pending.size:
+            return
+        first = self.risk_queue.rows[~a.explained[self.risk_queue.rows]] if self.risk_queue.loaded is loaded \
+            else pending[:0]
+        rest = pending[np.argsort(-np.asarray(a.priority)[pending], kind="stable")]
+        order = np.concatenate([first, rest[~np.isin(rest, first)]])
+        total = int(order.size)
+        steps = [order[:first.size]] if first.size else []
+        steps += [order[i:i + self.REASONS_PER_STEP] for i in range(first.size, total, self.REASONS_PER_STEP)]
+
+        def work(callback, publish):
+            done = 0
+            for rows in steps:
+                callback(done / total)  # raises Cancelled once cancelled
+                a.explain_cases(rows)
+                done += rows.size
+                publish((loaded, rows, done, total))
+            return loaded
+
+        self.reasons_status.setText(f"Working out reasons: 0 of {total:,} flagged cases")
+        self.reasons_status.show()
+        self.jobs.start("reasons", work, on_partial=self._reasons_arrived,
+                        on_finished=self._reasons_finished, on_failed=self._reasons_failed,
+                        on_cancelled=lambda: self.reasons_status.hide())
+
+    def _reasons_arrived(self, payload) -> None:
+        loaded, rows, done, total = payload
+        if loaded is not self.loaded:
+            return
+        self.reasons_status.setText(f"Working out reasons: {done:,} of {total:,} flagged cases")
+        self.risk_queue.reasons_arrived(rows)
+        self.reasons_arrived.emit(rows)
+
+    def _reasons_finished(self, loaded) -> None:
+        self.reasons_status.hide()
+        if loaded is self.loaded:
+            self.reasons_ready.emit(loaded)
+
+    def _reasons_failed(self, message: str) -> None:
+        self.reasons_status.hide()
+        self.statusBar().showMessage(f"Could not work out every reason: {message}. Selecting a case still "
+                                     "shows its reasons.")
 
     def _score_failed(self, message: str) -> None:
         self._job_ended()

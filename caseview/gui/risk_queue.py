@@ -142,8 +142,30 @@ class RiskQueue(QWidget):
         for j, v in enumerate(values):
             item = QTableWidgetItem(str(v))
             if j == len(values) - 1:
-                item.setToolTip(str(a.reason_text[r]))
+                item.setToolTip(self._reason_tip(r))
             self.table.setItem(i, j, item)
+
+    def _reason_tip(self, r: int) -> str:
+        a = self.loaded.assessment
+        if _has_reasons(a, r):
+            return str(a.reason_text[r])
+        return "Working out why this case is flagged… select it to see the reasons now."
+
+    def _update_tips(self, case_rows) -> None:
+        last = len(COLUMNS) - 1
+        for i in np.flatnonzero(np.isin(self.rows, case_rows)):
+            item = self.table.item(int(i), last)
+            if item is not None:
+                item.setToolTip(self._reason_tip(int(self.rows[i])))
+
+    def reasons_arrived(self, case_rows) -> None:
+        """Reasons for ``case_rows`` were just worked out (by the window's background job)."""
+        if self.loaded is None or self.loaded.assessment is None or not self.rows.size:
+            return
+        self._update_tips(case_rows)
+        selected = self.selected_row()
+        if selected >= 0 and selected in set(np.asarray(case_rows).tolist()):
+            self._selection_changed()
 
     def _fill_supervisor(self) -> None:
         a, s = self.loaded.assessment, self.loaded.scores
@@ -174,6 +196,9 @@ class RiskQueue(QWidget):
         if r < 0 or self.loaded is None or self.loaded.assessment is None:
             return
         a = self.loaded.assessment
+        if not _has_reasons(a, r):
+            a.explain_cases([r])  # one case: a few milliseconds; the background job may not have got here yet
+            self._update_tips([r])
         lines = [f"<b>{self.loaded.scores.case_ids[r]}</b> — why flagged:"]
         contacts, seen_dates = [], set()
         for reason in a.reasons[r]:
@@ -261,3 +286,9 @@ class RiskQueue(QWidget):
         r = int(self.rows[index.row()])
         self.window.tabs.setCurrentIndex(0)
         self.window.caseload.select_case(str(self.loaded.scores.case_ids[r]))
+
+
+def _has_reasons(assessment, r: int) -> bool:
+    """True when the reasons of case row ``r`` are worked out (always, for assessments without lazy reasons)."""
+    has = getattr(assessment, "has_reasons", None)
+    return True if has is None else has(r)

@@ -70,11 +70,35 @@ def measure_table(loaded) -> dict:
     return result
 
 
+def measure_reasons(loaded) -> dict:
+    """Seconds the window's background job needs for the reasons, after the table is on screen.
+
+    ``reasons_risk_queue``: the risk queue's rows (its first step); ``reasons_all_flagged``: every
+    other flagged case. Empty when the assessment explains everything up front.
+    """
+    import numpy as np
+
+    from .risk_queue import QUEUE_LIMIT
+
+    a = loaded.assessment
+    if a is None or not hasattr(a, "explain_cases"):
+        return {}
+    pending = a.reasons_pending
+    order = pending[np.argsort(-np.asarray(a.priority)[pending], kind="stable")]
+    t = time.perf_counter()
+    a.explain_cases(order[:QUEUE_LIMIT])
+    queue = time.perf_counter() - t
+    t = time.perf_counter()
+    a.explain_cases(order)
+    return {"reasons_risk_queue": queue, "reasons_all_flagged": time.perf_counter() - t,
+            "n_flagged": int(np.count_nonzero(a.is_flagged))}
+
+
 def measure_open_sort_filter(ws_path, as_of: dt.date | None = None, horizon_days: float = 90.0) -> dict:
     """Open the workspace at ``ws_path``, score it, and time the table (see :func:`measure_table`).
 
     Extra keys: ``open_workspace`` (open file + read model), ``score`` (load + score + flags, the
-    worker's job in the window).
+    worker's job in the window), and :func:`measure_reasons` (the reasons job that follows).
     """
     _application()
     from .data_source import WorkspaceSource
@@ -88,5 +112,6 @@ def measure_open_sort_filter(ws_path, as_of: dt.date | None = None, horizon_days
     scored = time.perf_counter() - t
     result = measure_table(loaded)
     result.update(open_workspace=opened, score=scored)
+    result.update(measure_reasons(loaded))
     source.close()
     return result

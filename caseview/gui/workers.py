@@ -2,6 +2,8 @@
 
 A job runs ``function(callback)``; ``callback(fraction)`` reports progress and raises
 :class:`caseview.errors.Cancelled` once the job was cancelled, so the engine stops cleanly.
+A job started with ``on_partial`` runs ``function(callback, publish)`` and may hand partial
+results to the window while it works (``publish(value)``, for example reasons for a few more cases).
 Results and errors reach the window as signals (queued to the GUI thread). Starting a new job in
 the same slot (for example "score") cancels the old one; closing the window cancels and waits.
 """
@@ -17,9 +19,10 @@ from caseview.errors import Cancelled, CaseviewError
 
 
 class JobSignals(QObject):
-    """Signals of one job: progress(fraction), finished(result), failed(message), cancelled()."""
+    """Signals of one job: progress(fraction), partial(value), finished(result), failed(message), cancelled()."""
 
     progress = Signal(float)
+    partial = Signal(object)
     finished = Signal(object)
     failed = Signal(str)
     cancelled = Signal()
@@ -35,13 +38,16 @@ class Job(QRunnable):
         Runs in a worker thread; must not touch widgets.
     name : str
         Slot name; a new job with the same name cancels this one.
+    publishes : bool
+        Call ``function(callback, publish)`` so it can emit partial results.
     """
 
-    def __init__(self, function, name: str = "job"):
+    def __init__(self, function, name: str = "job", publishes: bool = False):
         super().__init__()
         self.setAutoDelete(False)
         self.function = function
         self.name = name
+        self.publishes = publishes
         self.signals = JobSignals()
         self._cancel = threading.Event()
         self._finished = threading.Event()
@@ -63,9 +69,14 @@ class Job(QRunnable):
             raise Cancelled("cancelled by the user")
         self.signals.progress.emit(float(fraction))
 
+    def publish(self, value) -> None:
+        """Hand a partial result to the window (dropped once the job was cancelled)."""
+        if not self._cancel.is_set():
+            self.signals.partial.emit(value)
+
     def run(self) -> None:  # worker thread
         try:
-            result = self.function(self.callback)
+            result = self.function(self.callback, self.publish) if self.publishes else self.function(self.callback)
         except Cancelled:
             self.signals.cancelled.emit()
         except CaseviewError as exc:
@@ -96,14 +107,19 @@ class JobRunner(QObject):
         self.jobs: dict[str, Job] = {}
 
     def start(self, name: str, function, on_finished=None, on_failed=None, on_progress=None,
-              on_cancelled=None) -> Job:
-        """Cancel any job named ``name`` and start ``function(callback)`` in the pool."""
+              on_cancelled=None, on_partial=None) -> Job:
+        """Cancel any job named ``name`` and start ``function(callback)`` in the pool.
+
+        With ``on_partial`` the job runs ``function(callback, publish)``; each ``publish(value)``
+        reaches ``on_partial(value)`` in the GUI thread.
+        """
         old = self.jobs.get(name)
         if old is not None and not old.is_done:
             old.cancel()
-        job = Job(function, name)
+        job = Job(function, name, publishes=on_partial is not None)
         for signal, slot in ((job.signals.finished, on_finished), (job.signals.failed, on_failed),
-                             (job.signals.progress, on_progress), (job.signals.cancelled, on_cancelled)):
+                             (job.signals.progress, on_progress), (job.signals.cancelled, on_cancelled),
+                             (job.signals.partial, on_partial)):
             if slot is not None:  # only the current job of a slot reaches the window
                 signal.connect(self._only_if_current(name, job, slot), Qt.QueuedConnection)
         self.jobs[name] = job

@@ -162,3 +162,30 @@ def test_reach_rule_on_toy_chain_closed_form(toy_model):
     assessment = assess_scores(scores, default_rules())
     assert fired(assessment, "likely_to_reach_follow_up").tolist() == [True, False, False]
     assert not fired(assessment, "in_follow_up_now").any()  # nobody is in Bad now
+
+
+@pytest.mark.parametrize("chunks", [[[5], [0, 1, 2, 3, 4]], [[3, 3, 0], [2, 5, 1, 4]], [list(range(6))]])
+def test_reasons_worked_out_later_equal_reasons_worked_out_at_once(demo_scores, chunks):
+    # The window shows flags first and explains cases later, a few at a time, in its own order
+    # (selected case, risk queue, the rest): the reasons must be those of the eager assessment.
+    p = demo_scores.p_follow_up_now
+    previous = p - np.array([0.30, 0.05, 0.19, np.nan, 0.0, 0.21])  # sharp_rise fires too
+    eager = assess_scores(demo_scores, default_rules(), previous_p_follow_up=previous)
+    later = assess_scores(demo_scores, default_rules(), previous_p_follow_up=previous, explain_reasons=False)
+    np.testing.assert_array_equal(later.flags, eager.flags)
+    np.testing.assert_array_equal(later.next_contact_due_day, eager.next_contact_due_day)
+    assert eager.reasons_pending.size == 0
+    np.testing.assert_array_equal(later.reasons_pending, np.flatnonzero(eager.is_flagged))
+    assert all(later.reason_text[c] == "" for c in later.reasons_pending)
+    for chunk in chunks:
+        newly = later.explain_cases(chunk)
+        assert all(later.has_reasons(c) for c in chunk)
+        assert set(newly.tolist()) <= set(chunk)
+    assert later.reasons_pending.size == 0 and later.explain_cases(range(6)).size == 0  # nothing twice
+    assert list(later.reason_text) == list(eager.reason_text)
+    for case in range(demo_scores.n_cases):
+        assert [(r.rule, r.message) for r in later.reasons[case]] == [(r.rule, r.message) for r in eager.reasons[case]]
+        for mine, theirs in zip(later.reasons[case], eager.reasons[case]):
+            assert [(c.day, c.evidence) for c in mine.contacts] == [(c.day, c.evidence) for c in theirs.contacts]
+            np.testing.assert_allclose([c.change for c in mine.contacts], [c.change for c in theirs.contacts],
+                                       atol=1e-12)

@@ -1,0 +1,81 @@
+"""The table appears before the reasons; reasons then arrive in the background, risk queue first,
+and a case the user looks at is explained on the spot."""
+
+from __future__ import annotations
+
+import numpy as np
+import pytest
+
+from caseview.gui.main_window import MainWindow
+
+from .standin import AS_OF
+
+pytestmark = pytest.mark.gui
+
+
+@pytest.fixture
+def window(qtbot):
+    w = MainWindow(as_of=AS_OF)
+    w.setProperty("quiet", True)
+    qtbot.addWidget(w)
+    w.resize(1400, 900)
+    w.show()
+    yield w
+    w.close()
+
+
+def test_reasons_arrive_after_the_table_and_match_the_cli(window, qtbot, workspace_path):
+    followup = pytest.importorskip("caseview.followup")
+    from caseview.storage import Workspace
+
+    window.REASONS_PER_STEP = 7  # several background steps even on a small workspace
+    arrived = []
+    window.reasons_arrived.connect(lambda rows: arrived.append(np.asarray(rows).copy()))
+    with qtbot.waitSignal(window.reasons_ready, timeout=90000):
+        with qtbot.waitSignal(window.caseload_loaded, timeout=90000):
+            assert window.open_workspace(workspace_path)
+    a = window.loaded.assessment
+    assert a.reasons_pending.size == 0
+    queue_rows = set(window.risk_queue.rows.tolist())
+    if arrived:  # the first step is the risk queue (what a supervisor looks at first)
+        assert set(arrived[0].tolist()) <= queue_rows
+    # every flagged case has the reasons an eager assessment gives (caseview flags / reports)
+    with Workspace.open(workspace_path) as ws:
+        eager = followup.assess_caseload(ws, AS_OF, window.horizon_days, reopen=False)
+    assert list(a.reason_text) == list(eager.reason_text)
+    flagged = np.flatnonzero(a.is_flagged)
+    assert flagged.size and all(a.reason_text[r] for r in flagged)
+    # the risk queue's tooltips and the table's tooltip show them
+    last = window.risk_queue.table.columnCount() - 1
+    assert window.risk_queue.table.item(0, last).toolTip() == a.reason_text[window.risk_queue.rows[0]]
+    model = window.caseload.model
+    from caseview.gui.caseload_model import FLAGS
+    from PySide6.QtCore import Qt
+
+    view_row = model.view_row_of_case(str(a.scores.case_ids[flagged[0]]))
+    assert model.data(model.index(view_row, FLAGS), Qt.ToolTipRole) == a.reason_text[flagged[0]]
+
+
+def test_selected_case_is_explained_on_the_spot(window, qtbot, workspace_path):
+    pytest.importorskip("caseview.followup")
+    window._start_reasons = lambda loaded: None  # no background job: only what the user looks at
+    with qtbot.waitSignal(window.caseload_loaded, timeout=90000):
+        assert window.open_workspace(workspace_path)
+    a = window.loaded.assessment
+    queue = window.risk_queue
+    assert queue.table.rowCount() > 1
+    second = int(queue.rows[1])
+    assert not a.has_reasons(second)
+    last = queue.table.columnCount() - 1
+    assert "select it" in queue.table.item(1, last).toolTip()
+    queue.table.selectRow(1)
+    assert a.has_reasons(second) and "why flagged" in queue.reasons.text()
+    assert a.reasons[second] and a.reasons[second][0].message in queue.reasons.text()
+    # the caseload table's tooltip works it out too
+    from caseview.gui.caseload_model import FLAGS
+    from PySide6.QtCore import Qt
+
+    model = window.caseload.model
+    third = int(queue.rows[2]) if queue.rows.size > 2 else second
+    text = model.data(model.index(model.view_row_of_case(str(a.scores.case_ids[third])), FLAGS), Qt.ToolTipRole)
+    assert text and text == a.reason_text[third] and a.has_reasons(third)
