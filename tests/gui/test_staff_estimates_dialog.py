@@ -34,7 +34,7 @@ def test_opens_with_the_models_own_numbers_and_gives_the_model_back(dialog, demo
     np.testing.assert_allclose(dialog.model().baseline_rate_matrix(), demo_model.baseline_rate_matrix(), rtol=1e-12)
     stable = demo_model.stage_index("Stable")
     # mean sojourn = -1/q_rr (Norris 1997, Markov Chains, section 2.6): Stable's only way out is rate 0.003
-    assert dialog.stage_table.item(stable, dialog.col_stay).text() == "333.3"
+    assert dialog.stage_table.item(stable, dialog.stage_table.col_stay).text() == "333.3"
     assert "333.3 days on average" in dialog.preview.toPlainText()
 
 
@@ -52,7 +52,7 @@ def test_shares_that_do_not_add_up_are_highlighted_with_a_plain_message(qtbot, d
     assert "stage 'Slipping': the shares of where people go next add up to" in first
     assert "Fix the highlighted cells" in dialog.preview.toPlainText()
     # going to the problem selects the cell
-    dialog._go_to_problem(dialog.problem_list.item(0))
+    dialog.go_to_problem(dialog.problem_list.item(0))
     assert dialog.stage_table.currentRow() == slipping
     cell.setText("40%")        # a percentage is read as a share
     qtbot.waitUntil(lambda: ok_button(dialog).isEnabled(), timeout=2000)
@@ -63,7 +63,7 @@ def test_shares_that_do_not_add_up_are_highlighted_with_a_plain_message(qtbot, d
 
 
 def test_usual_result_and_how_often_wrong_fill_the_row_evenly(dialog, qtbot):
-    check, table = dialog.check_tables[0]
+    table = dialog.check_tables[0]
     stable = dialog.stages.index("Stable")
     table.cellWidget(stable, 0).setCurrentText("slow")
     table.item(stable, 1).setText("0.3")
@@ -84,11 +84,11 @@ def test_usual_result_and_how_often_wrong_fill_the_row_evenly(dialog, qtbot):
 
 def test_never_leaves_makes_a_stage_absorbing(dialog, qtbot):
     crisis = dialog.stages.index("Crisis")
-    dialog.stage_table.item(crisis, dialog.col_never).setCheckState(Qt.Checked)
+    dialog.stage_table.item(crisis, dialog.stage_table.col_never).setCheckState(Qt.Checked)
     qtbot.waitUntil(lambda: dialog.model() is not None and crisis in dialog.model().absorbing_stages, timeout=2000)
-    assert dialog.stage_table.item(crisis, dialog.col_stay).text() == "never"
-    assert not dialog.stage_table.item(crisis, dialog.col_stay).flags() & Qt.ItemIsEditable
-    hidden = [dialog.hazard_table.isRowHidden(i) for i, (a, _) in enumerate(dialog.pairs) if a == "Crisis"]
+    assert dialog.stage_table.item(crisis, dialog.stage_table.col_stay).text() == "never"
+    assert not dialog.stage_table.item(crisis, dialog.stage_table.col_stay).flags() & Qt.ItemIsEditable
+    hidden = [dialog.hazard_table.isRowHidden(i) for i, (a, _) in enumerate(dialog.hazard_table.pairs) if a == "Crisis"]
     assert all(hidden)
 
 
@@ -96,7 +96,7 @@ def test_starts_from_a_staff_estimate_file_and_ok_emits_the_model(qtbot, demo_mo
     d = StaffEstimatesDialog(demo_model, estimates=load_staff_estimates(EXAMPLE))
     qtbot.addWidget(d)
     exit_row = d.stages.index("Moved to residential care")
-    assert d.check_tables[0][1].cellWidget(exit_row, 0).currentText() == NOT_CHECKED
+    assert d.check_tables[0].cellWidget(exit_row, 0).currentText() == NOT_CHECKED
     with qtbot.waitSignal(d.model_ready, timeout=2000) as signal:
         ok_button(d).click()
     model = parse_model(signal.args[0])
