@@ -139,9 +139,10 @@ def _pairs(timelines: Timelines, usable: np.ndarray, channel: int) -> np.ndarray
     return rows[(codes[rows - 1] >= 0) & usable[rows - 1]]
 
 
-def _tabulate(model: StageModel, timelines: Timelines, layout: _Layout):
+def _tabulate(model: StageModel, timelines: Timelines, layout: _Layout, predictions=None):
     """Observed and expected counts in every cell, shape ``layout.shape``, and contacts left out."""
-    predictions = one_step_predictions(model, timelines, forward(model, timelines))
+    if predictions is None:
+        predictions = one_step_predictions(model, timelines, forward(model, timelines))
     observed, expected = np.zeros(layout.shape), np.zeros(layout.shape)
     flat_size = int(np.prod(layout.shape[1:]))
     for position, channel in enumerate(layout.channels):
@@ -276,7 +277,7 @@ def goodness_of_fit(model: StageModel, timelines: Timelines, *, channel=None, gr
     layout = _Layout(channels, group_by, from_labels, to_labels, gap_edges, gap_labels, columns, keys,
                      covariate_labels)
 
-    observed, expected, impossible = _tabulate(model, timelines, layout)
+    observed, expected, impossible = _tabulate(model, timelines, layout, predictions)
     if impossible:
         warnings.append(f"{impossible} contact(s) left out: the model gives their earlier evidence probability zero")
     statistic = _pearson(observed, expected)
