@@ -4,7 +4,7 @@ Defaults (``Prior()``), chosen to be weak relative to a few hundred cases yet to
 off the boundaries where the likelihood is flat:
 
 * log baseline rate per day ~ Normal(log(1/365), sd 2): a typical stay of a year, with 95% of the
-  prior mass between about 7 days and 55 years;
+  prior mass between about 7 days and 50 years (365 * exp(-/+ 1.96 * 2) days);
 * log hazard ratio ~ Normal(0, sd 2): hazard ratios between about 1/50 and 50;
 * each observation-probability row and the initial distribution ~ Dirichlet with every
   concentration 1.5 (a mild pull away from 0 and 1; 1 would be flat).

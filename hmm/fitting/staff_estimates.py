@@ -168,6 +168,10 @@ def _rates_out(problems, r, stage, stages, index, typical_stay_days, next_stage,
         return
     stay = typical_stay_days[stage]
     shares = next_stage.get(stage) or {}
+    if not isinstance(shares, dict):
+        problems.append(Problem(("next_stage", stage), f"stage {stage!r}: expected the share of moves to each "
+                                f"other stage, e.g. {{'Stable': 0.4, 'Struggling': 0.6}}, got {shares!r}"))
+        return
     if _never_leaves(stay):
         moving = {t: v for t, v in shares.items() if not (_is_number(v) and v == 0)}
         if moving:

@@ -160,3 +160,15 @@ def test_with_much_data_penalised_and_plain_estimates_agree():
     assert np.all(shift < 0.2), dict(zip(names, shift.round(3)))
     predicted = plain.covariance @ Prior().log_density_and_gradient(plain.free_vector, parameter_spec(model))[1]
     np.testing.assert_allclose(penalised.free_vector - plain.free_vector, predicted, atol=0.05 * se.min())
+
+
+def test_documented_meaning_of_the_default_prior():
+    # README and hmm/fitting/priors.py: a typical stay of a year, 95% of the prior between about 7 days and
+    # 50 years; hazard ratios between about 1/50 and 50 (normal 97.5% point 1.96, scipy.stats.norm.ppf)
+    prior = Prior()
+    z = scipy.stats.norm.ppf(0.975)
+    stays = 1 / np.exp(prior.log_rate_mean + np.array([z, -z]) * prior.log_rate_sd)
+    assert stays[0] == pytest.approx(7.2, abs=0.1) and stays[1] / 365.25 == pytest.approx(50.3, abs=0.2)
+    assert np.exp(z * prior.effect_sd) == pytest.approx(50.4, abs=0.1)
+    assert 1 / np.exp(prior.log_rate_mean) == pytest.approx(365.0)
+    assert prior.concentration == 1.5
