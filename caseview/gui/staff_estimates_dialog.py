@@ -43,7 +43,8 @@ class StaffEstimatesDialog(QDialog):
     parent : QWidget, optional
     estimates : dict, optional
         Keyword arguments of :func:`hmm.fitting.staff_estimates.model_from_staff_estimates` to start from;
-        their stages must be the model's.
+        their stages must be the model's (ValueError otherwise). Everything else (checks, covariates,
+        follow-up and exact-entry stages) then comes from ``estimates``.
 
     Signals
     -------
@@ -62,6 +63,9 @@ class StaffEstimatesDialog(QDialog):
         self.template = model
         start = estimates or staff_estimates_from_model(model)
         self.stages = tuple(model.stages)
+        if tuple(start["stages"]) != self.stages:
+            raise ValueError(f"the estimates are for stages {', '.join(start['stages'])}, but the model has "
+                             f"{', '.join(self.stages)}")
         self._model = None
         self._problems = []
 
@@ -88,6 +92,8 @@ class StaffEstimatesDialog(QDialog):
                                    f"type the share of each result directly. '{NOT_CHECKED}' is for stages where "
                                    "nobody is checked."), f"Check: {check.name}")
         self.covariates = tuple(start.get("covariates", ()))
+        self.follow_up_stages = tuple(start.get("follow_up_stages", model.follow_up_stages))
+        self.exact_entry_stages = tuple(start.get("exact_entry_stages", model.exact_entry_stages))
         self.hazard_table = None
         if self.covariates:
             self.hazard_table = HazardTable(self.stages, self.covariates, start.get("hazard_ratios") or {})
@@ -146,11 +152,10 @@ class StaffEstimatesDialog(QDialog):
     # ------------------------------------------------------------ public API
     def estimates(self) -> dict:
         """The numbers in the tables as keyword arguments of ``model_from_staff_estimates`` (may be invalid)."""
-        m = self.template
         return dict(stages=self.stages, **self.stage_table.estimates(),
                     checks=tuple(t.estimate() for t in self.check_tables), covariates=self.covariates,
                     hazard_ratios=self.hazard_table.estimates() if self.hazard_table else {},
-                    follow_up_stages=tuple(m.follow_up_stages), exact_entry_stages=tuple(m.exact_entry_stages),
+                    follow_up_stages=self.follow_up_stages, exact_entry_stages=self.exact_entry_stages,
                     name=self.name_edit.text().strip() or "model from staff estimates")
 
     def problems(self) -> list:

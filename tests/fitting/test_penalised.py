@@ -172,3 +172,19 @@ def test_documented_meaning_of_the_default_prior():
     assert np.exp(z * prior.effect_sd) == pytest.approx(50.4, abs=0.1)
     assert 1 / np.exp(prior.log_rate_mean) == pytest.approx(365.0)
     assert prior.concentration == 1.5
+
+
+def test_a_move_nobody_makes_is_warned_at_zero_and_kept_small_but_positive_by_the_prior(rng):
+    truth = three_stage_model()
+    t = truth.transitions
+    # nobody ever moves Unwell -> Gone, and Gone's entry would be recorded exactly: the likelihood grows
+    # as that rate falls to 0, the lower bound
+    never = dataclasses.replace(truth, transitions=(t[0], t[1], dataclasses.replace(t[2], rate=1e-12)))
+    sim = simulate(never, rng, n_cases=40, n_contacts=5)
+    plain = fit_model(truth, sim.timelines, starts=1)
+    assert any(w.startswith("rate Unwell -> Gone is estimated at (nearly) zero") for w in plain.warnings)
+    penalised = fit_model(truth, sim.timelines, starts=1, penalised=True)
+    rate = next(p for p in penalised.parameters if p.name.startswith("rate Unwell -> Gone"))
+    assert not any("Unwell -> Gone" in w for w in penalised.warnings), penalised.warnings
+    # the prior's pull (typical stay a year, sd 2 on the log scale) keeps the rate finite and small
+    assert 1e-6 < rate.estimate < 1e-2 and rate.lower is not None and rate.lower > 0

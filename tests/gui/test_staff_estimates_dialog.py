@@ -110,3 +110,10 @@ def test_screenshot_renders(dialog, tmp_path):
     dialog.show()
     path = tmp_path / "staff_estimates.png"
     assert dialog.grab().save(str(path)) and path.stat().st_size > 10_000
+
+
+def test_estimates_for_other_stages_are_refused(qtbot, demo_model):
+    estimates = load_staff_estimates(EXAMPLE)
+    estimates["stages"] = ("A", "B")
+    with pytest.raises(ValueError, match="the estimates are for stages A, B"):
+        StaffEstimatesDialog(demo_model, estimates=estimates)
