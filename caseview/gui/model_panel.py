@@ -336,14 +336,22 @@ class ModelPanel(QWidget):
         self.window.rescore()
 
     def _staff_estimates(self) -> None:
-        try:
-            from hmm.fitting import staff_estimates  # noqa: F401
-        except ImportError:
-            self.editor.message.setText("Starting from staff estimates is not available yet in this build; edit "
-                                        "the rates (per day = 1 / typical days until the move) directly.")
+        """Open the staff-estimates dialog on the current stages; its model lands in the editor, unsaved."""
+        from .staff_estimates_dialog import StaffEstimatesDialog
+
+        model = self.editor.model or self.model
+        if model is None:
+            self.window.show_error("Open a workspace first: the staff estimates start from its model's stages.")
             return
-        self.editor.message.setText("Staff estimates: give typical days until each move as rates (1 / days) in "
-                                    "the editor, then save.")
+        self.staff_dialog = StaffEstimatesDialog(model, parent=self)
+        self.staff_dialog.model_ready.connect(self._staff_model_ready)
+        self.staff_dialog.open()
+
+    def _staff_model_ready(self, text: str) -> None:
+        self.editor.set_text(text)
+        self.details.setCurrentWidget(self.editor)
+        self.editor.message.setText(self.editor.message.text() + " Built from staff estimates; check it, then "
+                                    "save it as a new model version (and fit it when there are enough cases).")
 
     # ------------------------------------------------------------------ fit check (goodness of fit)
     def _add_fit_check(self) -> None:

@@ -15,9 +15,10 @@ from .optimise import fit_model
 from .parameters import ParameterSpec, parameter_spec
 from .priors import Prior
 from .result import FitResult
+from .staff_estimates import UsualResult, model_from_staff_estimates, staff_estimates_from_model
 from .uncertainty import ParameterEstimate
 
 __all__ = ["fit_model", "FitResult", "ParameterEstimate", "ParameterSpec", "parameter_spec",
            "log_likelihood_and_gradient", "Prior", "likelihood_ratio_test", "LikelihoodRatioTest",
            "goodness_of_fit", "GoodnessOfFit", "occupancy_over_calendar_time", "OccupancyOverTime",
-           "one_step_predictions"]
+           "one_step_predictions", "model_from_staff_estimates", "staff_estimates_from_model", "UsualResult"]

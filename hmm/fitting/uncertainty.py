@@ -104,9 +104,10 @@ def _links(values: np.ndarray, links: np.ndarray) -> np.ndarray:
 def _unlink(values: np.ndarray, links: np.ndarray) -> np.ndarray:
     out = values.copy()
     log = links == "log"
-    out[log] = np.exp(values[log])
     logit = links == "logit"
-    out[logit] = 1.0 / (1.0 + np.exp(-values[logit]))
+    with np.errstate(over="ignore"):  # an unidentified parameter's interval may reach infinity: reported as such
+        out[log] = np.exp(values[log])
+        out[logit] = 1.0 / (1.0 + np.exp(-values[logit]))
     return out
 
 

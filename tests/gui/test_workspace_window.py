@@ -143,3 +143,28 @@ def test_fit_in_worker_saves_new_model_version(window, qtbot, workspace_path):
     # the panel now shows fitted mean times in stage with intervals
     assert "fitted" in panel.heading.text()
     assert panel.sojourn.rowCount() == len(current.fit_summary["mean_time_in_stage"])
+
+
+def test_staff_estimates_from_the_model_panel_land_in_the_editor_unsaved(window, qtbot, workspace_path):
+    from PySide6.QtWidgets import QDialogButtonBox
+
+    from caseview.modelfile import parse_model
+
+    open_ws(window, qtbot, workspace_path)
+    panel = window.model_panel
+    versions_before = len(window.workspace().model_versions())
+    panel.editor.staff.click()
+    dialog = panel.staff_dialog
+    qtbot.waitUntil(dialog.isVisible, timeout=5000)
+    stable = dialog.stages.index("Stable")
+    dialog.stage_table.item(stable, dialog.stage_table.col_stay).setText("500")   # staff say: about 500 days
+    qtbot.waitUntil(lambda: dialog.buttons.button(QDialogButtonBox.Ok).isEnabled(), timeout=5000)
+    dialog.buttons.button(QDialogButtonBox.Ok).click()
+    qtbot.waitUntil(lambda: panel.details.currentWidget() is panel.editor, timeout=5000)
+    edited = parse_model(panel.editor.text.toPlainText(), source="editor")
+    # mean sojourn = -1/q_rr (Norris 1997, Markov Chains, section 2.6)
+    rates = edited.baseline_rate_matrix()
+    exit_rate = rates[stable].sum() - rates[stable, stable]
+    assert 1.0 / exit_rate == pytest.approx(500.0)
+    assert "staff estimates" in panel.editor.message.text()
+    assert len(window.workspace().model_versions()) == versions_before   # nothing saved until the user saves
