@@ -126,8 +126,8 @@ class CaseView(QWidget):
         self.title.setText(
             f"<b>{d.case_id}</b> · coordinator {s.coordinators[r] or '-'} · last contact "
             f"{from_day(s.last_contact_day[r]).isoformat()} ({int(s.days_since_contact[r])} days ago) · "
-            f"most likely now: <b>{stage}</b> ({s.p_now[r].max() * 100:.0f}%) · chance of reaching a follow-up "
-            f"stage within {s.horizon_days:g} days: <b>{s.p_reach_follow_up[r] * 100:.0f}%</b>")
+            f"most likely now: <b>{stage}</b> ({s.p_now[r].max() * 100:.0f}%) · reaches a follow-up stage "
+            f"within {s.horizon_days:g} days: <b>{s.p_reach_follow_up[r] * 100:.0f}%</b>")
         if d.whatif is not None:
             changes = ", ".join(f"{k.replace('_', ' ')} = {v:g}" for k, v in d.whatif_changes.items())
             self.whatif_summary.setText(
