@@ -66,7 +66,7 @@ def contact_likelihoods(model: StageModel, timelines: Timelines) -> np.ndarray:
     # One table over joint codes of all channels (a missing value is its own code, probability 1),
     # so each contact needs a single lookup; per-channel lookups if that table would be large.
     sizes = [t.shape[1] + 1 for t in tables]
-    likelihood = effective_allowed_stages(model, timelines.allowed_stages).astype(float)
+    allowed = effective_allowed_stages(model, timelines.allowed_stages)
     if tables and np.prod(sizes, dtype=float) <= 4096:
         joint = np.ones((1, model.n_stages))
         code = np.zeros(observations.shape[0], dtype=np.int64)
@@ -74,8 +74,10 @@ def contact_likelihoods(model: StageModel, timelines: Timelines) -> np.ndarray:
             with_missing = np.vstack([table.T, np.ones((1, model.n_stages))])     # (C + 1, S), row C = missing
             joint = (joint[:, None, :] * with_missing[None, :, :]).reshape(-1, model.n_stages)
             code = code * size + np.where(observations[:, c] < 0, size - 1, observations[:, c])
-        likelihood *= joint[code]
+        likelihood = joint[code]
+        likelihood *= allowed  # times 0/1: the same numbers as 0/1 times the lookup
     else:
+        likelihood = allowed.astype(float)
         for c, table in enumerate(tables):
             # Row -1 (the appended ones) is what a MISSING (-1) code picks.
             likelihood *= np.vstack([table.T, np.ones((1, model.n_stages))])[observations[:, c]]
@@ -99,6 +101,7 @@ class _Plan:
     base: np.ndarray              # (max_contacts,) position-major start of position k
     step_matrices: np.ndarray     # (m, S, S)
     step_index: np.ndarray        # (n_contacts,) position-major; matrix for the step INTO each contact
+    _row_positions: np.ndarray | None = None  # (n_contacts,) position-major row of each timelines row
 
     def current(self, k: int) -> slice:
         return slice(self.base[k], self.base[k] + self.active_counts[k])
@@ -111,9 +114,10 @@ class _Plan:
 
     def to_rows(self, values: np.ndarray) -> np.ndarray:
         """Position-major array back to the timelines' row order."""
-        out = np.empty_like(values)
-        out[self.layout] = values
-        return out
+        if self._row_positions is None:  # inverse of ``layout``: gathering is faster than scattering
+            self._row_positions = np.empty_like(self.layout)
+            self._row_positions[self.layout] = np.arange(self.layout.size)
+        return np.take(values, self._row_positions, axis=0)
 
 
 def _covariate_groups(covariates: np.ndarray) -> tuple:
@@ -229,7 +233,8 @@ def _prepare(model: StageModel, timelines: Timelines, method: str = "auto") -> _
     layout = np.concatenate([starts[:c] + k for k, c in enumerate(active_counts)]) if n else \
         np.zeros(0, dtype=np.int64)
     base = np.concatenate([[0], np.cumsum(active_counts)[:-1]]).astype(np.int64)
-    return _Plan(layout, likelihood[layout], active_counts, base, matrices, step_index[layout])
+    return _Plan(layout, np.take(likelihood, layout, axis=0), active_counts, base, matrices,
+                 np.take(step_index, layout))
 
 
 # --------------------------------------------------------------------------- forward-backward
@@ -410,6 +415,31 @@ def _propagate(model: StageModel, probabilities: np.ndarray, covariates: np.ndar
     return np.einsum("ns,nst->nt", probabilities, matrices[index])
 
 
+def _propagate_variants(model: StageModel, probabilities: np.ndarray, covariates: np.ndarray, gaps: np.ndarray,
+                        zeroed: list) -> list:
+    """:func:`_propagate` for several choices of zeroed generator rows, with one matrix computation.
+
+    ``zeroed[v]`` is None or the rows of Q zeroed in variant ``v``. Every variant's matrices come
+    from one call of :func:`distinct_transition_matrices` (one ``scipy.linalg.expm`` for all the
+    generators that need it instead of one per variant); each matrix is the same as in a separate call.
+    """
+    n = probabilities.shape[0]
+    distinct, group = _covariate_groups(np.asarray(covariates, dtype=float).reshape(n, -1))
+    base = model.generators(distinct)
+    stacked = []
+    for rows in zeroed:
+        generators = base.copy()
+        if rows is not None:
+            generators[:, rows, :] = 0.0
+        stacked.append(generators)
+    n_groups = base.shape[0]
+    generator_index = (np.arange(len(zeroed))[:, None] * n_groups + group[None, :]).reshape(-1)
+    matrices, index = distinct_transition_matrices(np.concatenate(stacked), np.tile(gaps, len(zeroed)),
+                                                   generator_index)
+    index = index.reshape(len(zeroed), n)
+    return [np.einsum("ns,nst->nt", probabilities, matrices[index[v]]) for v in range(len(zeroed))]
+
+
 def stage_probabilities_now(model: StageModel, timelines: Timelines, as_of, filtered: np.ndarray | None = None):
     """Stage probabilities of each case on a given day, from the evidence up to that day.
 
@@ -488,10 +518,13 @@ def forecast(model: StageModel, probabilities, covariates, horizon: float) -> Fo
     horizon = _check_horizon(horizon)
     n = probabilities.shape[0]
     gaps = np.full(n, horizon)
-    at_horizon = _propagate(model, probabilities, covariates, gaps)
+    # occupancy, then one variant per stage made absorbing; all matrices in one computation
+    ahead = _propagate_variants(model, probabilities, covariates, gaps,
+                                [None] + [np.array([s]) for s in range(model.n_stages)])
+    at_horizon = ahead[0]
     reach = np.empty_like(probabilities)
-    for s in range(model.n_stages):  # loop over stages, each batched over the caseload
-        reach[:, s] = _propagate(model, probabilities, covariates, gaps, np.array([s]))[:, s]
+    for s in range(model.n_stages):
+        reach[:, s] = ahead[1 + s][:, s]
     return Forecast(at_horizon, np.clip(reach, 0.0, 1.0), horizon)
 
 

@@ -137,6 +137,8 @@ class Timelines:
             Indices (into this object's cases) of the cases kept, in order.
         """
         keep_row = self.times <= time
+        if keep_row.all() and (self.n_cases == 0 or bool((np.diff(self.offsets) > 0).all())):
+            return self, np.arange(self.n_cases, dtype=np.int64)  # nothing to cut (the usual case)
         kept_counts = np.add.reduceat(keep_row.astype(np.int64), self.offsets[:-1]) if self.n_contacts else \
             np.zeros(0, dtype=np.int64)
         kept_cases = np.flatnonzero(kept_counts > 0)

@@ -144,6 +144,17 @@ def _review_arrays(case_ids, is_flagged, latest: dict):
     return status, by, at
 
 
+def _flag_names(fired: np.ndarray, names: np.ndarray) -> np.ndarray:
+    """Names of the rules that fired joined by ';', per case; one join per distinct pattern."""
+    n = fired.shape[0]
+    if not n or not fired.shape[1]:
+        return np.full(n, "", dtype=object)
+    patterns, which = np.unique(np.packbits(fired, axis=1), axis=0, return_inverse=True)
+    unpacked = np.unpackbits(patterns, axis=1, count=fired.shape[1]).astype(bool)
+    text = np.array([";".join(names[row]) for row in unpacked] + [""], dtype=object)[:-1]
+    return text[which.reshape(-1)]
+
+
 def assess_scores(scores, rules: RuleSet | None = None, previous_p_follow_up=None,
                   previous_as_of: dt.date | None = None, latest_reviews: dict | None = None,
                   influence_contacts: int = INFLUENCE_CONTACTS,
@@ -166,8 +177,7 @@ def assess_scores(scores, rules: RuleSet | None = None, previous_p_follow_up=Non
     evaluation = evaluate_rules(scores, rules, previous)
     is_flagged = evaluation.fired.any(axis=1)
     names = np.asarray(rules.names, dtype=object)
-    flags = np.array([";".join(names[row]) for row in evaluation.fired], dtype=object) if n else \
-        np.zeros(0, dtype=object)
+    flags = _flag_names(evaluation.fired, names)
     if explain_reasons:
         reasons, reason_text = explain(scores, rules, evaluation, previous, previous_as_of, influence_contacts)
         explained = np.ones(n, dtype=bool)

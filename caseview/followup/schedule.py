@@ -7,14 +7,17 @@ equation). The next contact is due on the first whole day ``t >= 0`` with
 and "never" (-1) when it does not get there within the search limit.
 
 The search is exact on whole days and batched over the caseload: for each distinct covariate row
-the matrices ``P(1) ... P(B)`` of one block of ``B`` days are computed once; each block step is one
-``einsum`` over every still-open case, and the block's last day starts the next block.
+the matrices ``P(1) ... P(B)`` of one block of ``B`` days are computed once; each block step is a
+matrix product over every still-open case, and the block's last day starts the next block. Cases
+that cannot reach the threshold within the limit (their chance of *reaching* a follow-up stage by
+then is already under it) are answered without the search.
 """
 
 from __future__ import annotations
 
 import numpy as np
 
+from hmm.inference import reach_probability
 from hmm.transition import distinct_transition_matrices
 
 #: How far ahead the schedule looks, in days (two years).
@@ -64,6 +67,13 @@ def days_until_threshold(model, probabilities, covariates, threshold: float,
     open_cases = np.flatnonzero(~already)
     if not open_cases.size or limit_days < 1:
         return result
+    # Exact pruning: being in a follow-up stage on day d means having reached one by day d, so a
+    # case whose chance of reaching follow-up within the whole limit is under the threshold never
+    # gets there (the 1e-9 margin keeps rounding from pruning a case that would).
+    reach = reach_probability(model, probabilities[open_cases], covariates[open_cases], float(limit_days), mask)
+    open_cases = open_cases[reach >= threshold - 1e-9]
+    if not open_cases.size:
+        return result
     block = int(max(1, min(block_days, limit_days)))
     generators = model.generators(distinct)
     steps = np.arange(1, block + 1, dtype=float)
@@ -72,10 +82,11 @@ def days_until_threshold(model, probabilities, covariates, threshold: float,
     table = matrices[index].reshape(distinct.shape[0], block, model.n_stages, model.n_stages)
     follow_up_table = table[..., mask].sum(axis=-1)  # (G, B, S): P(in follow-up after d days | stage)
     if distinct.shape[0] <= _GROUPS_FOR_MATRIX_PRODUCTS:
-        # one distinct covariate row at a time: each block step is two plain matrix products
+        # one distinct covariate row at a time: each block step is two plain products, no per-case gather
         for g in range(distinct.shape[0]):
             mine = open_cases[group[open_cases] == g]
-            _search(result, mine, probabilities[mine], follow_up_table[g].T[None], table[g, -1][None],
+            levels = np.ascontiguousarray(follow_up_table[g].T)[None]
+            _search(result, mine, probabilities[mine], levels, table[g, -1][None],
                     np.zeros(mine.size, dtype=np.int64), threshold, limit_days, block)
     else:
         _search(result, open_cases, probabilities[open_cases], np.swapaxes(follow_up_table, 1, 2), table[:, -1],
@@ -97,7 +108,8 @@ def _search(result, cases, current, levels, last_step, group, threshold, limit_d
     start = 0
     while cases.size and start < limit_days:
         if single:
-            level = current @ levels[0]  # (n_open, B)
+            # einsum, not @: a multi-threaded BLAS call per block waits for a second core on a busy machine
+            level = np.einsum("ns,sb->nb", current, levels[0])  # (n_open, B)
         else:
             level = np.einsum("ns,nsb->nb", current, levels[group])
         days = start + np.arange(1, block + 1)

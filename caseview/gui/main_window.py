@@ -5,7 +5,6 @@ from __future__ import annotations
 import datetime as dt
 from pathlib import Path
 
-import numpy as np
 from PySide6.QtCore import QDate, QEventLoop, QSettings, Qt, QTimer, Signal
 from PySide6.QtGui import QAction, QKeySequence
 from PySide6.QtWidgets import (QDateEdit, QFileDialog, QLabel, QMainWindow, QMessageBox, QProgressBar,
@@ -336,8 +335,8 @@ class MainWindow(QMainWindow):
         self._start_reasons(loaded)
 
     # ------------------------------------------------------------------ reasons, after the table
-    #: Flagged cases explained per step of the reasons job (~0.1 s each at 100,000 cases).
-    REASONS_PER_STEP = 2000
+    #: Flagged cases explained per step of the reasons job (see ``data_source.reason_steps``).
+    REASONS_PER_STEP = None
 
     def _start_reasons(self, loaded) -> None:
         """Work out why cases are flagged in the background: the risk queue first, then the rest.
@@ -348,16 +347,13 @@ class MainWindow(QMainWindow):
         a = loaded.assessment
         if a is None or not hasattr(a, "explain_cases"):
             return
-        pending = a.reasons_pending
-        if not pending.size:
+        from .data_source import REASONS_PER_STEP, reason_steps
+
+        first = self.risk_queue.rows if self.risk_queue.loaded is loaded else []
+        steps = reason_steps(a, first, self.REASONS_PER_STEP or REASONS_PER_STEP)
+        if not steps:
             return
-        first = self.risk_queue.rows[~a.explained[self.risk_queue.rows]] if self.risk_queue.loaded is loaded \
-            else pending[:0]
-        rest = pending[np.argsort(-np.asarray(a.priority)[pending], kind="stable")]
-        order = np.concatenate([first, rest[~np.isin(rest, first)]])
-        total = int(order.size)
-        steps = [order[:first.size]] if first.size else []
-        steps += [order[i:i + self.REASONS_PER_STEP] for i in range(first.size, total, self.REASONS_PER_STEP)]
+        total = int(sum(rows.size for rows in steps))
 
         def work(callback, publish):
             done = 0
