@@ -58,10 +58,18 @@ def open_workspace(path):
     return ws
 
 
-def write_table(out: str, header: list, columns: list) -> None:
-    """Write columns (equal-length sequences of already formatted text) as CSV to a path or '-'."""
-    import csv
+def write_table(out: str, header: list, columns: list, advisory: bool = True) -> None:
+    """Write columns (equal-length sequences of already formatted text) as CSV to a path or '-'.
 
+    With ``advisory`` (the default) a last column ``advisory`` repeats the advisory notice on every
+    row, so the caution travels with any row copied out of the file.
+    """
+    import csv
+    import itertools
+
+    if advisory and columns:
+        header = [*header, "advisory"]
+        columns = [*columns, itertools.repeat(ADVISORY_NOTICE, len(columns[0]))]
     rows = zip(*columns) if columns else iter(())
     if out == "-":
         writer = csv.writer(sys.stdout, lineterminator="\n")

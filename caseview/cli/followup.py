@@ -1,7 +1,8 @@
 """``caseview flags``, ``review``, ``reviews``, ``forecast``, ``whatif`` and ``rules``.
 
 Every output about flags or forecasts ends with the advisory notice (``caseview.ADVISORY_NOTICE``);
-CSV files carry it in an ``advisory`` column so that they stay readable by any CSV reader.
+CSV files carry it in an ``advisory`` column (added by ``write_table``) so that they stay readable by any
+CSV reader.
 """
 
 from __future__ import annotations
@@ -105,14 +106,13 @@ def run_flags(args) -> int:
     due_text = [d if day >= 0 else "" for d, day in zip(format_days(np.maximum(due, 0)), due)]
     header = ["case_id", "coordinator", "flags", "reason", "p_follow_up_now", "p_reach_follow_up",
               "next_contact_due", "review_status", "reviewed_by", "reviewed_at", "most_likely_stage",
-              "days_since_contact", "priority", "advisory"]
+              "days_since_contact", "priority"]
     n = rows.size
     columns = [safe_text(s.case_ids[rows]), safe_text(s.coordinators[rows]), list(a.flags[rows]),
                safe_text(a.reason_text[rows]), format_probabilities(s.p_follow_up_now[rows]),
                format_probabilities(s.p_reach_follow_up[rows]), due_text, list(a.review_status[rows]),
                safe_text(a.reviewed_by[rows]), list(a.reviewed_at[rows]), list(s.most_likely_stage_names[rows]),
-               s.days_since_contact[rows].astype(str).tolist(), [f"{v:.4f}" for v in a.priority[rows]],
-               [ADVISORY_NOTICE] * n]
+               s.days_since_contact[rows].astype(str).tolist(), [f"{v:.4f}" for v in a.priority[rows]]]
     write_table(args.out, header, columns)
     out = sys.stderr if args.out == "-" else sys.stdout
     print(f"{n} of {s.n_cases} cases flagged as of {as_of.isoformat()} (horizon {s.horizon_days:g} days)"
@@ -194,8 +194,8 @@ def run_forecast(args) -> int:
     if changes:
         header += ["p_at_horizon_changed", "p_reach_changed"]
         columns += [format_probabilities(w.changed.p_at_horizon), format_probabilities(w.changed.p_reach)]
-    header += ["follow_up_stage", "advisory"]
-    columns += [["yes" if m else "no" for m in mask], [ADVISORY_NOTICE] * len(w.stages)]
+    header += ["follow_up_stage"]
+    columns += [["yes" if m else "no" for m in mask]]
     write_table(args.out, header, columns)
     out = sys.stderr if args.out == "-" else sys.stdout
     print(f"case {w.case_id} as of {w.as_of.isoformat()}, horizon {w.horizon_days:g} days"
