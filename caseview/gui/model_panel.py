@@ -42,7 +42,11 @@ def _interval(item: dict, fmt="{:,.1f}") -> str:
     if item.get("fixed"):
         return "fixed"
     lo, hi = item.get("lower"), item.get("upper")
-    return f"{fmt.format(lo)} – {fmt.format(hi)}" if lo is not None and hi is not None else "–"
+    if lo is None or hi is None:
+        return "–"
+    if not item.get("informative", True):
+        return "too wide to use (data say little)"
+    return f"{fmt.format(lo)} – {fmt.format(hi)}"
 
 
 class ModelPanel(QWidget):

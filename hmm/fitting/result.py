@@ -115,6 +115,8 @@ class FitResult:
                     interval = "(fixed)"
                 elif p.lower is None:
                     interval = "(no interval)"
+                elif not p.interval_is_informative:
+                    interval = "(no useful interval: the data hardly inform this value)"
                 else:
                     interval = f"[{fmt(p.lower)}, {fmt(p.upper)}]"
                 lines.append(f"  {p.name:<{width}}  {fmt(p.estimate):>10}  {interval}")

@@ -13,6 +13,7 @@
 
 from __future__ import annotations
 
+import math
 from dataclasses import dataclass
 
 import numpy as np
@@ -24,6 +25,8 @@ __all__ = ["ParameterEstimate", "observed_information", "covariance_from_informa
 
 Z_95 = 1.959963984540054          # 97.5% point of the standard normal (scipy.stats.norm.ppf(0.975))
 FLAT_TOLERANCE = 1e-8
+# An interval whose ends differ by more than this factor says nothing a reader can use (common practice, no source).
+UNINFORMATIVE_RATIO = 1e4
 
 
 @dataclass(frozen=True)
@@ -38,8 +41,27 @@ class ParameterEstimate:
     upper: float | None
     fixed: bool
 
+    @property
+    def interval_is_informative(self) -> bool:
+        """False when the interval is missing, unbounded or so wide that its ends would only mislead.
+
+        For rates, hazard ratios and mean times "so wide" means upper / lower above
+        :data:`UNINFORMATIVE_RATIO` (four orders of magnitude; for a log hazard ratio, a width above
+        its log). Probability intervals are bounded and always reported.
+        """
+        lower, upper = self.lower, self.upper
+        if lower is None or upper is None or not (math.isfinite(lower) and math.isfinite(upper)):
+            return False
+        if self.kind == "log_hazard_ratio":
+            return upper - lower <= math.log(UNINFORMATIVE_RATIO)
+        if self.kind in ("rate", "hazard_ratio", "mean_time_in_stage"):
+            return lower > 0 and upper / lower <= UNINFORMATIVE_RATIO
+        return True
+
     def to_dict(self) -> dict:
-        return {k: getattr(self, k) for k in ("name", "kind", "estimate", "standard_error", "lower", "upper", "fixed")}
+        out = {k: getattr(self, k) for k in ("name", "kind", "estimate", "standard_error", "lower", "upper", "fixed")}
+        out["informative"] = self.interval_is_informative
+        return out
 
 
 def observed_information(gradient_function, theta: np.ndarray, step: float = 1e-4, callback=None) -> np.ndarray:

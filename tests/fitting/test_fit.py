@@ -135,3 +135,21 @@ def test_likelihood_ratio_test_by_hand(fitted_caseload):
     assert test.p_value == pytest.approx(scipy.stats.chi2.sf(statistic, 1))
     with pytest.raises(ValueError):
         likelihood_ratio_test(general, restricted)
+
+
+@pytest.mark.parametrize("kind,lower,upper,informative", [
+    ("hazard_ratio", 0.0, 2.5e53, False),        # an effect the data cannot pin down
+    ("hazard_ratio", 0.85, 2.0, True),
+    ("rate", 1e-7, 0.01, False),
+    ("mean_time_in_stage", 69.2, 184.0, True),
+    ("log_hazard_ratio", -40.0, 30.0, False),
+    ("log_hazard_ratio", -0.2, 0.7, True),
+    ("observation", 0.001, 0.35, True),           # probabilities are bounded: always shown
+    ("rate", None, None, False),
+])
+def test_uninformative_intervals_are_named_not_printed(kind, lower, upper, informative):
+    from hmm.fitting.uncertainty import ParameterEstimate
+
+    estimate = ParameterEstimate("x", kind, 0.5, 1.0, lower, upper, False)
+    assert estimate.interval_is_informative is informative
+    assert estimate.to_dict()["informative"] is informative
