@@ -296,7 +296,7 @@ def goodness_of_fit(model: StageModel, timelines: Timelines, *, channel=None, gr
                     if callback is not None:
                         callback((_b + 0.95 * fraction) / bootstrap)
 
-                fitted = fit_model(model, sample, starts=1, rng=rng, callback=within)
+                fitted = fit_model(model, sample, starts=1, rng=rng, callback=within, standard_errors=False)
                 scoring_model, not_converged = fitted.model, not_converged + (not fitted.converged)
             replicates[b] = _pearson(*_tabulate(scoring_model, sample, layout)[:2])
             if callback is not None:

@@ -63,7 +63,7 @@ class _Objective:
 
 def fit_model(model: StageModel, timelines: Timelines, *, starts: int = 3, rng: np.random.Generator | None = None,
               penalised: bool = False, prior: Prior | None = None, callback=None, max_iterations: int = 500,
-              tolerance: float = 1e-10) -> FitResult:
+              tolerance: float = 1e-10, standard_errors: bool = True) -> FitResult:
     """Fit every free parameter of ``model`` to ``timelines``.
 
     Parameters
@@ -86,6 +86,11 @@ def fit_model(model: StageModel, timelines: Timelines, *, starts: int = 3, rng: 
         L-BFGS-B iteration limit per start.
     tolerance : float
         Relative decrease of the objective at which a start has converged.
+    standard_errors : bool
+        Compute the observed information (about two gradient evaluations per free parameter) for
+        standard errors and intervals. False skips it (for example when refitting bootstrap
+        replicates): every interval is then reported as not available and the flat-direction
+        warnings are not checked.
 
     Returns
     -------
@@ -144,7 +149,9 @@ def fit_model(model: StageModel, timelines: Timelines, *, starts: int = 3, rng: 
     def unit_callback(fraction):
         report((starts + fraction) / total_units)
 
-    if spec.n_free:
+    if spec.n_free and not standard_errors:
+        covariance = np.full((spec.n_free, spec.n_free), np.nan)
+    elif spec.n_free:
         information = observed_information(objective.gradient, theta, callback=unit_callback)
         covariance, info_warnings = covariance_from_information(information, spec.names)
         warnings += info_warnings

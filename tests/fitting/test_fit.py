@@ -153,3 +153,14 @@ def test_uninformative_intervals_are_named_not_printed(kind, lower, upper, infor
     estimate = ParameterEstimate("x", kind, 0.5, 1.0, lower, upper, False)
     assert estimate.interval_is_informative is informative
     assert estimate.to_dict()["informative"] is informative
+
+
+def test_fit_without_standard_errors_gives_the_same_estimate_and_no_intervals(rng):
+    model = three_stage_model()
+    timelines = simulate(model, rng, n_cases=150).timelines
+    with_se = fit_model(model, timelines, starts=1)
+    without = fit_model(model, timelines, starts=1, standard_errors=False)
+    np.testing.assert_array_equal(with_se.free_vector, without.free_vector)   # same optimiser path
+    assert without.n_likelihood_evaluations < with_se.n_likelihood_evaluations
+    assert all(p.lower is None for p in without.parameters if not p.fixed)
+    assert any(p.lower is not None for p in with_se.parameters if not p.fixed)
