@@ -23,11 +23,27 @@ PROBABILITY_ROLE = Qt.UserRole + 1
 CASE_ROW_ROLE = Qt.UserRole + 2
 REVIEW_STATUSES = ("", "new", "acknowledged", "actioned", "dismissed")
 
+# Roles as plain ints, looked up once: data() runs for ~7 roles of every visible cell on each
+# repaint, and reading Qt enum attributes there costs more than the answer.
+_DISPLAY, _ACCESSIBLE_TEXT, _TOOLTIP, _ALIGNMENT = (int(r.value) for r in (
+    Qt.DisplayRole, Qt.AccessibleTextRole, Qt.ToolTipRole, Qt.TextAlignmentRole))
+_PROBABILITY, _CASE_ROW = int(PROBABILITY_ROLE), int(CASE_ROW_ROLE)
+_HANDLED_ROLES = frozenset({_DISPLAY, _ACCESSIBLE_TEXT, _TOOLTIP, _ALIGNMENT, _PROBABILITY, _CASE_ROW})
+_RIGHT = int((Qt.AlignRight | Qt.AlignVCenter).value)
+_LEFT = int((Qt.AlignLeft | Qt.AlignVCenter).value)
+
 
 def _ranks(values: np.ndarray) -> np.ndarray:
     """Integer rank of each text value (equal texts share a rank), shape (n,)."""
     if values.size == 0:
         return np.zeros(0, dtype=np.int64)
+    if values.dtype == object and values.size > 1 and bool(np.all(values[1:] > values[:-1])):
+        return np.arange(values.size, dtype=np.int64)  # distinct and already in order (case IDs usually are)
+    texts = list(map(str, values.tolist()))
+    distinct = set(texts)
+    if len(distinct) <= 4096:  # few distinct texts (coordinators, flags, review): a dictionary is faster
+        code = {text: rank for rank, text in enumerate(sorted(distinct))}
+        return np.fromiter(map(code.__getitem__, texts), dtype=np.int64, count=len(texts))
     _, inverse = np.unique(values.astype(str), return_inverse=True)
     return inverse.astype(np.int64)
 
@@ -117,13 +133,16 @@ class CaseloadTableModel(QAbstractTableModel):
         return None
 
     def data(self, index, role=Qt.DisplayRole):
-        if not index.isValid() or self.scores is None:
+        role = role if type(role) is int else int(role)
+        if role not in _HANDLED_ROLES or self.scores is None or not index.isValid():
             return None
-        row = int(self.order[index.row()])
         column = index.column()
-        if role == Qt.DisplayRole or role == Qt.AccessibleTextRole:
+        if role == _ALIGNMENT:
+            return _RIGHT if column in (DAYS_SINCE, P_NOW, P_REACH) else _LEFT
+        row = int(self.order[index.row()])
+        if role == _DISPLAY or role == _ACCESSIBLE_TEXT:
             return self._text(row, column)
-        if role == PROBABILITY_ROLE:
+        if role == _PROBABILITY:
             if column == P_NOW:
                 return float(self.scores.p_follow_up_now[row])
             if column == P_REACH:
@@ -131,18 +150,13 @@ class CaseloadTableModel(QAbstractTableModel):
             if column == STAGE:
                 return float(self.most_likely_p[row])
             return None
-        if role == CASE_ROW_ROLE:
+        if role == _CASE_ROW:
             return row
-        if role == Qt.ToolTipRole:
+        if role == _TOOLTIP:
             if column == FLAGS and self.is_flagged[row]:
                 return self.reasons_of(row) or None
             if column in PROBABILITY_COLUMNS:
                 return "Advisory estimate from the stage model, not a diagnosis."
-            return None
-        if role == Qt.TextAlignmentRole:
-            if column in (DAYS_SINCE, P_NOW, P_REACH):
-                return int(Qt.AlignRight | Qt.AlignVCenter)
-            return int(Qt.AlignLeft | Qt.AlignVCenter)
         return None
 
     def reasons_of(self, row: int) -> str:
