@@ -17,7 +17,7 @@ import numpy as np
 from hmm.model import Channel, ModelError, StageModel, Transition
 
 from .errors import InputError
-from .textfiles import read_utf8_text
+from .textfiles import decode_json, read_utf8_text
 
 FORMAT = "caseview.stage-model"
 FORMAT_VERSION = 1
@@ -37,10 +37,7 @@ def load_model(path) -> StageModel:
 
 def parse_model(text: str, source: str = "model") -> StageModel:
     """Parse model JSON text; ``source`` names it in messages."""
-    try:
-        data = json.loads(text)
-    except json.JSONDecodeError as exc:
-        raise InputError(f"{source}: line {exc.lineno}, column {exc.colno}: not valid JSON ({exc.msg})") from None
+    data = decode_json(text, source)
     return model_from_dict(data, source)
 
 

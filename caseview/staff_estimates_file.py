@@ -21,9 +21,8 @@ from typing import Any
 from hmm.fitting.staff_estimates import CheckEstimate, UsualResult, staff_estimate_problems
 from hmm.model import StageModel
 
-from .errors import InputError
 from .modelfile import _list, _no_duplicates, _number, _Path, _string_list
-from .textfiles import read_utf8_text
+from .textfiles import decode_json, read_utf8_text
 
 FORMAT = "caseview.staff-estimates"
 FORMAT_VERSION = 1
@@ -42,10 +41,7 @@ def load_staff_estimates(path) -> dict:
 
 def parse_staff_estimates(text: str, source: str = "staff estimates") -> dict:
     """Parse staff-estimate JSON text; ``source`` names it in messages."""
-    try:
-        data = json.loads(text)
-    except json.JSONDecodeError as exc:
-        raise InputError(f"{source}: line {exc.lineno}, column {exc.colno}: not valid JSON ({exc.msg})") from None
+    data = decode_json(text, source)
     return estimates_from_dict(data, source)
 
 

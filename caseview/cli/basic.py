@@ -58,6 +58,19 @@ def open_workspace(path):
     return ws
 
 
+def stderr_progress(label: str):
+    """A ``callback(fraction)`` that shows ``label: NN%`` on stderr when it is a terminal (else silent)."""
+    shown = {"last": -1}
+
+    def progress(fraction):
+        percent = int(100 * fraction)
+        if percent != shown["last"] and sys.stderr.isatty():
+            print(f"\r{label}: {percent:3d}%", end="", file=sys.stderr, flush=True)
+        shown["last"] = percent
+
+    return progress
+
+
 def write_table(out: str, header: list, columns: list, advisory: bool = True) -> None:
     """Write columns (equal-length sequences of already formatted text) as CSV to a path or '-'.
 

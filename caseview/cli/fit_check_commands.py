@@ -55,7 +55,7 @@ def run_check_fit(args) -> int:
     from caseview.errors import Cancelled, InputError
     from hmm.fitting import goodness_of_fit
 
-    from .basic import actor_name, format_days, open_workspace, write_table
+    from .basic import actor_name, format_days, open_workspace, stderr_progress, write_table
 
     _check_options(args)
     actor = actor_name(args)
@@ -71,13 +71,7 @@ def run_check_fit(args) -> int:
         if not version.fit_summary:
             print(f"caseview: note: model version {version.id} was entered, not fitted; the check compares the "
                   "caseload with the values as entered", file=sys.stderr)
-        shown = {"last": -1}
-
-        def progress(fraction):
-            percent = int(100 * fraction)
-            if percent != shown["last"] and sys.stderr.isatty():
-                print(f"\rchecking fit: {percent:3d}%", end="", file=sys.stderr, flush=True)
-            shown["last"] = percent
+        progress = stderr_progress("checking fit")
 
         try:
             result = goodness_of_fit(model, caseload.timelines, channel=args.channel, group_by=args.group_by,

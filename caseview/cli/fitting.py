@@ -49,7 +49,7 @@ def run_fit(args) -> int:
     from caseview.modelfile import dump_model, save_model
     from hmm.fitting import fit_model
 
-    from .basic import actor_name, open_workspace
+    from .basic import actor_name, open_workspace, stderr_progress
 
     if args.starts < 1:
         raise InputError(f"--starts: expected a whole number >= 1, got {args.starts}")
@@ -59,13 +59,7 @@ def run_fit(args) -> int:
         caseload = ws.load_caseload(model)
         if caseload.timelines.n_cases == 0:
             raise InputError(f"{args.workspace}: no contacts to fit; import timelines first")
-        shown = {"last": -1}
-
-        def progress(fraction):
-            percent = int(100 * fraction)
-            if percent != shown["last"] and sys.stderr.isatty():
-                print(f"\rfitting: {percent:3d}%", end="", file=sys.stderr, flush=True)
-            shown["last"] = percent
+        progress = stderr_progress("fitting")
 
         try:
             result = fit_model(model, caseload.timelines, starts=args.starts, rng=np.random.default_rng(args.seed),

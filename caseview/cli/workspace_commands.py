@@ -72,9 +72,7 @@ def register(subparsers) -> None:
 def run_init(args) -> int:
     from pathlib import Path
 
-    from caseview.errors import InputError
     from caseview.storage import Workspace
-
     from caseview.textfiles import read_utf8_text
 
     path = Path(args.model)

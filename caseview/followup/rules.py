@@ -50,6 +50,7 @@ from dataclasses import dataclass, field, replace
 from pathlib import Path
 
 from caseview.errors import InputError
+from caseview.textfiles import decode_json
 
 FORMAT = "caseview.follow-up-rules"
 FORMAT_VERSION = 1
@@ -244,10 +245,7 @@ def rules_from_dict(data, source: str = "rules") -> RuleSet:
 
 
 def rules_from_json(text: str, source: str = "rules") -> RuleSet:
-    try:
-        data = json.loads(text)
-    except json.JSONDecodeError as exc:
-        raise InputError(f"{source}: line {exc.lineno}, column {exc.colno}: not valid JSON ({exc.msg})") from None
+    data = decode_json(text, source)
     return rules_from_dict(data, source)
 
 
