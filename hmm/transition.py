@@ -14,7 +14,6 @@ to one; a gap of zero gives the identity exactly.
 from __future__ import annotations
 
 import numpy as np
-import scipy.linalg
 
 __all__ = [
     "transition_matrix",
@@ -221,6 +220,8 @@ def distinct_transition_matrices(generators, gaps, generator_index, method: str 
         rows = todo[~use_eigen[pair_generator[todo]]]
         if rows.size:
             stacked = generators[pair_generator[rows]] * pair_gap[rows, None, None]
+            import scipy.linalg  # only here: importing it costs ~0.2 s of every command's start-up
+
             result[rows] = _clean(scipy.linalg.expm(stacked))
     return result, inverse
 

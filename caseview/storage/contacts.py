@@ -133,7 +133,8 @@ def _contact_columns_by_case(connection, as_of_day: int | None):
     values : bytes
         The stored observation and covariate bytes of every contact, concatenated in row order.
     """
-    sql = ("SELECT COUNT(*), group_concat(case_id), group_concat(day),"
+    # (case id, day) packed into one number per contact: one text conversion instead of two
+    sql = (f"SELECT COUNT(*), group_concat((case_id << {_DAY_BITS}) + (day + {_DAY_OFFSET})),"
            " CAST(group_concat(observations || covariates, '') AS BLOB), group_concat(COALESCE(coordinator_id, -1))"
            " FROM contacts WHERE case_id > ? AND case_id <= ?")
     if as_of_day is not None:
@@ -146,17 +147,17 @@ def _contact_columns_by_case(connection, as_of_day: int | None):
     parts = []
     for low, high in zip(bounds[:-1], bounds[1:]):
         params = (low, high) + (() if as_of_day is None else (int(as_of_day),))
-        count, cases, days, values, coordinators = connection.execute(sql, params).fetchone()
+        count, keys, values, coordinators = connection.execute(sql, params).fetchone()
         if count:
-            parts.append((count, cases, days, values, coordinators))
+            parts.append((count, keys, values, coordinators))
     n = sum(p[0] for p in parts)
     if not n:
         empty = np.zeros(0, dtype=np.int64)
         return empty, empty, empty, b""
-    return (_parse_integers(",".join(p[1] for p in parts), n, "case"),
-            _parse_integers(",".join(p[2] for p in parts), n, "day"),
-            _parse_integers(",".join(p[4] for p in parts), n, "coordinator"),
-            b"".join(p[3] for p in parts))
+    keys = _parse_integers(",".join(p[1] for p in parts), n, "case and day")
+    return (keys >> _DAY_BITS, (keys & ((1 << _DAY_BITS) - 1)) - _DAY_OFFSET,
+            _parse_integers(",".join(p[3] for p in parts), n, "coordinator"),
+            b"".join(p[2] for p in parts))
 
 
 def _parse_integers(text: str, n: int, what: str) -> np.ndarray:
