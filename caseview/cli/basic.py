@@ -137,15 +137,16 @@ def _csv_body(columns):
         if any(mark in joined for mark in _NEEDS_QUOTES):
             buffer = io.StringIO()
             writer = csv.writer(buffer, lineterminator="\n")
-            quoted = []
-            for value in column:
+            written = {}
+            for value in set(column):  # each distinct text once (the advisory column is one text)
                 if any(mark in value for mark in _NEEDS_QUOTES):
                     buffer.seek(0)
                     buffer.truncate()
                     writer.writerow([value])
-                    value = buffer.getvalue()[:-1]
-                quoted.append(value)
-            column = quoted
+                    written[value] = buffer.getvalue()[:-1]
+                else:
+                    written[value] = value
+            column = list(map(written.__getitem__, column))
         cells.append(column)
     if len({len(c) for c in cells}) != 1:
         return None
