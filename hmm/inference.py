@@ -39,17 +39,20 @@ __all__ = [
 
 
 # --------------------------------------------------------------------------- observation hook
-def contact_likelihoods(model: StageModel, timelines: Timelines) -> np.ndarray:
+def contact_likelihoods(model: StageModel, timelines: Timelines, rows: np.ndarray | None = None) -> np.ndarray:
     """Probability of each contact's recorded evidence given each stage.
 
     Parameters
     ----------
     model : StageModel
     timelines : Timelines
+    rows : ndarray of int, shape (m,), optional
+        Return the contacts in this order (``result[i]`` is contact ``rows[i]``); all contacts
+        in their own order when None.
 
     Returns
     -------
-    ndarray, shape (n_contacts, n_stages)
+    ndarray, shape (n_contacts, n_stages) or (m, n_stages)
         Product over channels of the emission probability of the recorded category (a missing
         value contributes 1), times 0/1 for the contact's ``allowed_stages``.
     """
@@ -67,6 +70,9 @@ def contact_likelihoods(model: StageModel, timelines: Timelines) -> np.ndarray:
     # so each contact needs a single lookup; per-channel lookups if that table would be large.
     sizes = [t.shape[1] + 1 for t in tables]
     allowed = effective_allowed_stages(model, timelines.allowed_stages)
+    if rows is not None:
+        rows = np.asarray(rows, dtype=np.int64)
+        observations, allowed = np.take(observations, rows, axis=0), np.take(allowed, rows, axis=0)
     if tables and np.prod(sizes, dtype=float) <= 4096:
         joint = np.ones((1, model.n_stages))
         code = np.zeros(observations.shape[0], dtype=np.int64)
@@ -74,7 +80,7 @@ def contact_likelihoods(model: StageModel, timelines: Timelines) -> np.ndarray:
             with_missing = np.vstack([table.T, np.ones((1, model.n_stages))])     # (C + 1, S), row C = missing
             joint = (joint[:, None, :] * with_missing[None, :, :]).reshape(-1, model.n_stages)
             code = code * size + np.where(observations[:, c] < 0, size - 1, observations[:, c])
-        likelihood = joint[code]
+        likelihood = np.take(joint, code, axis=0)
         likelihood *= allowed  # times 0/1: the same numbers as 0/1 times the lookup
     else:
         likelihood = allowed.astype(float)
@@ -191,7 +197,6 @@ def _prepare(model: StageModel, timelines: Timelines, method: str = "auto") -> _
     n_stages = model.n_stages
     if timelines.allowed_stages.shape[1] != n_stages:
         raise ValueError(f"timelines allow {timelines.allowed_stages.shape[1]} stages, model has {n_stages}")
-    likelihood = contact_likelihoods(model, timelines)
     counts = timelines.n_contacts_per_case
     order = np.argsort(-counts, kind="stable")
     max_contacts = int(counts.max()) if counts.size else 0
@@ -233,7 +238,8 @@ def _prepare(model: StageModel, timelines: Timelines, method: str = "auto") -> _
     layout = np.concatenate([starts[:c] + k for k, c in enumerate(active_counts)]) if n else \
         np.zeros(0, dtype=np.int64)
     base = np.concatenate([[0], np.cumsum(active_counts)[:-1]]).astype(np.int64)
-    return _Plan(layout, np.take(likelihood, layout, axis=0), active_counts, base, matrices,
+    # the likelihoods are computed straight in position-major order (no second copy to reorder)
+    return _Plan(layout, contact_likelihoods(model, timelines, layout), active_counts, base, matrices,
                  np.take(step_index, layout))
 
 
