@@ -117,7 +117,7 @@ _DAY_OFFSET = 131072
 _CASES_PER_READ = 25_000
 
 
-def _contact_columns_by_case(connection, as_of_day: int | None):
+def _contact_columns_by_case(connection, as_of_day: int | None, ids: list):
     """Fast read: the contacts of a range of cases aggregated into a few values (SQLite ``group_concat``).
 
     Reading 1.2 million rows one by one costs ~2 s of Python objects (a tuple, two ints, a blob and
@@ -126,6 +126,8 @@ def _contact_columns_by_case(connection, as_of_day: int | None):
     order, so the columns stay aligned whatever that order is (the caller sorts). This is the only
     SQLite-specific read: a PostgreSQL backend would use ``string_agg`` here (or
     :func:`_contact_columns_by_row`).
+
+    ``ids`` are the workspace's case ids in increasing order.
 
     Returns
     -------
@@ -139,7 +141,6 @@ def _contact_columns_by_case(connection, as_of_day: int | None):
            " FROM contacts WHERE case_id > ? AND case_id <= ?")
     if as_of_day is not None:
         sql += " AND day <= ?"
-    ids = [row[0] for row in connection.execute("SELECT id FROM cases ORDER BY id")]
     # ranges (low, high] of at most _CASES_PER_READ cases each
     bounds = [ids[0] - 1] + ids[_CASES_PER_READ - 1::_CASES_PER_READ] if ids else []
     if ids and bounds[-1] != ids[-1]:
@@ -168,7 +169,7 @@ def _parse_integers(text: str, n: int, what: str) -> np.ndarray:
     return values
 
 
-def _contact_columns_by_row(connection, as_of_day: int | None):
+def _contact_columns_by_row(connection, as_of_day: int | None, ids: list):
     """Portable read, one row per contact (plain SQL); same result as :func:`_contact_columns_by_case`."""
     sql = ("SELECT case_id, day, CAST(observations || covariates AS BLOB), COALESCE(coordinator_id, -1)"
            " FROM contacts")
@@ -209,7 +210,8 @@ def fetch_contacts(connection, as_of_day: int | None = None, row_by_row: bool = 
     gc_was_enabled = gc.isenabled()
     gc.disable()  # hundreds of thousands of short-lived tuples would otherwise trigger useless collections
     try:
-        case_ids, days, coordinator_ids, value_bytes = read(connection, as_of_day)
+        cases = connection.execute("SELECT id, case_code FROM cases ORDER BY id").fetchall()
+        case_ids, days, coordinator_ids, value_bytes = read(connection, as_of_day, [c[0] for c in cases])
         known = _known_stages(connection, as_of_day)
     finally:
         if gc_was_enabled:
@@ -226,15 +228,18 @@ def fetch_contacts(connection, as_of_day: int | None = None, row_by_row: bool = 
         known_case, known_day, known_text = zip(*known)
         known_keys = (np.array(known_case, dtype=np.int64) << _DAY_BITS) + (np.array(known_day, dtype=np.int64)
                                                                             + _DAY_OFFSET)
-        by_key = np.argsort(keys, kind="stable")
-        stage_known[by_key[np.searchsorted(keys, known_keys, sorter=by_key)]] = np.array(known_text, dtype=object)
+        if n > 1 and not np.all(keys[1:] > keys[:-1]):
+            by_key = np.argsort(keys, kind="stable")
+            rows = by_key[np.searchsorted(keys, known_keys, sorter=by_key)]
+        else:  # read in (case, day) order already, the usual case
+            rows = np.searchsorted(keys, known_keys)
+        stage_known[rows] = np.array(known_text, dtype=object)
 
     coordinator_codes = dict(connection.execute("SELECT id, code FROM coordinators").fetchall())
     code_table = np.array([""] * (max(coordinator_codes, default=0) + 2), dtype=object)
     for k, v in coordinator_codes.items():
         code_table[k] = v
 
-    cases = connection.execute("SELECT id, case_code FROM cases").fetchall()
     id_to_code = np.array([""] * (max((c[0] for c in cases), default=0) + 1), dtype=object)
     for k, v in cases:
         id_to_code[k] = v
@@ -245,7 +250,10 @@ def fetch_contacts(connection, as_of_day: int | None = None, row_by_row: bool = 
         present, dense = np.unique(case_ids), False
     present_codes = id_to_code[present]
     rank_of_present = np.empty(present.size, dtype=np.int64)
-    code_order = np.argsort(present_codes.astype(str), kind="stable")
+    if present.size > 1 and bool(np.all(present_codes[1:] > present_codes[:-1])):
+        code_order = np.arange(present.size)  # ids were given in case-code order (the usual import)
+    else:
+        code_order = np.argsort(present_codes.astype(str), kind="stable")
     rank_of_present[code_order] = np.arange(present.size)
     if dense:
         rank_of_id = np.zeros(int(case_ids.max()) + 1 if n else 1, dtype=np.int64)
