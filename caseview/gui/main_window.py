@@ -347,7 +347,7 @@ class MainWindow(QMainWindow):
         a = loaded.assessment
         if a is None or not hasattr(a, "explain_cases"):
             return
-        from .data_source import REASONS_PER_STEP, reason_steps
+        from .data_source import REASONS_PER_STEP, full_collections_postponed, reason_steps
 
         first = self.risk_queue.rows if self.risk_queue.loaded is loaded else []
         steps = reason_steps(a, first, self.REASONS_PER_STEP or REASONS_PER_STEP)
@@ -355,13 +355,18 @@ class MainWindow(QMainWindow):
             return
         total = int(sum(rows.size for rows in steps))
 
+        import time
+
         def work(callback, publish):
-            done = 0
-            for rows in steps:
-                callback(done / total)  # raises Cancelled once cancelled
-                a.explain_cases(rows)
-                done += rows.size
-                publish((loaded, rows, done, total))
+            # the reasons are ~10 small objects per case: no full collections while they pile up
+            with full_collections_postponed():
+                done = 0
+                for rows in steps:
+                    callback(done / total)  # raises Cancelled once cancelled
+                    a.explain_cases(rows)
+                    done += rows.size
+                    publish((loaded, rows, done, total))
+                    time.sleep(0.002)  # let the window's thread take the interpreter lock between steps
             return loaded
 
         self.reasons_status.setText(f"Working out reasons: 0 of {total:,} flagged cases")
