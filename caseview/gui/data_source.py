@@ -11,6 +11,7 @@ from __future__ import annotations
 
 import datetime as dt
 import gc
+import threading
 from contextlib import contextmanager
 from dataclasses import dataclass, field
 from pathlib import Path
@@ -42,12 +43,23 @@ def full_collections_postponed():
     worker it freezes the window for 0.05-0.2 s at 100,000 cases, again and again as the worker
     adds objects. Young collections go on; the usual thresholds come back at the end.
     """
-    thresholds = gc.get_threshold()
-    gc.set_threshold(thresholds[0], thresholds[1], max(thresholds[2], 1_000_000))
+    with _POSTPONED_LOCK:  # jobs may overlap: the first one in raises the threshold, the last one out restores it
+        if not _POSTPONED:
+            _POSTPONED.append(gc.get_threshold())
+            first, second, third = _POSTPONED[0]
+            gc.set_threshold(first, second, max(third, 1_000_000))
+        _POSTPONED.append(None)
     try:
         yield
     finally:
-        gc.set_threshold(*thresholds)
+        with _POSTPONED_LOCK:
+            _POSTPONED.pop()
+            if len(_POSTPONED) == 1:
+                gc.set_threshold(*_POSTPONED.pop())
+
+
+_POSTPONED_LOCK = threading.Lock()
+_POSTPONED: list = []  # [saved thresholds, one None per job inside]
 
 
 #: Flagged cases explained per step of the window's reasons job (~0.06 s each at 100,000 cases;

@@ -79,3 +79,20 @@ def test_selected_case_is_explained_on_the_spot(window, qtbot, workspace_path):
     third = int(queue.rows[2]) if queue.rows.size > 2 else second
     text = model.data(model.index(model.view_row_of_case(str(a.scores.case_ids[third])), FLAGS), Qt.ToolTipRole)
     assert text and text == a.reason_text[third] and a.has_reasons(third)
+
+
+def test_closing_while_reasons_are_worked_out_stops_the_job(qtbot, workspace_path):
+    pytest.importorskip("caseview.followup")
+    import gc
+
+    thresholds = gc.get_threshold()
+    w = MainWindow(as_of=AS_OF)
+    w.setProperty("quiet", True)
+    qtbot.addWidget(w)
+    w.show()
+    w.REASONS_PER_STEP = 1  # many small steps: the job is still running when the window closes
+    with qtbot.waitSignal(w.caseload_loaded, timeout=90000):
+        assert w.open_workspace(workspace_path)
+    w.close()  # cancels and waits (closeEvent)
+    assert not w.jobs.busy()
+    assert gc.get_threshold() == thresholds  # full collections are back to normal
