@@ -110,7 +110,7 @@ def main(argv=None) -> int:
         parser.add_argument(f"--skip-{part}", action="store_true")
     parser.add_argument("--workdir", type=Path, help="where data and workspaces go (default: a temporary directory)")
     parser.add_argument("--keep", action="store_true", help="keep the work directory")
-    parser.add_argument("--results", type=Path, default=HERE / "results.md",
+    parser.add_argument("--results", type=lambda text: Path(text) if text else None, default=HERE / "results.md",
                         help="markdown file for the table (default benchmarks/results.md; '' for none)")
     args = parser.parse_args(argv)
     if args.quick:
@@ -257,7 +257,7 @@ def main(argv=None) -> int:
     context = (f"{dt.datetime.now().strftime('%Y-%m-%d %H:%M')}, {platform.node()}, {os.cpu_count()} cores, "
                f"Python {platform.python_version()}, load average before the run "
                f"{load_before[0]:.2f}/{load_before[1]:.2f}/{load_before[2]:.2f}{quick}")
-    if str(args.results):
+    if args.results is not None:
         args.results.write_text(render_results(table, notes, missing, command_line, context), encoding="utf-8")
         print(f"\nwrote {args.results}")
     return 0 if all(r.passed() is not False for r in rows) and not missing else 1
