@@ -18,7 +18,7 @@ from __future__ import annotations
 import numpy as np
 
 from hmm.inference import reach_probability
-from hmm.transition import distinct_transition_matrices
+from hmm.transition import distinct_transition_matrices, factorise
 
 #: How far ahead the schedule looks, in days (two years).
 SEARCH_LIMIT_DAYS = 730
@@ -58,8 +58,7 @@ def days_until_threshold(model, probabilities, covariates, threshold: float,
         return result
     covariates = np.asarray(covariates, dtype=float).reshape(n, -1)
     if covariates.shape[1]:
-        distinct, group = np.unique(covariates, axis=0, return_inverse=True)
-        group = group.reshape(-1)
+        distinct, group = _distinct_rows(covariates)
     else:
         distinct, group = np.zeros((1, 0)), np.zeros(n, dtype=np.int64)
     already = probabilities[:, mask].sum(axis=1) >= threshold
@@ -92,6 +91,22 @@ def days_until_threshold(model, probabilities, covariates, threshold: float,
         _search(result, open_cases, probabilities[open_cases], np.swapaxes(follow_up_table, 1, 2), table[:, -1],
                 group[open_cases], threshold, limit_days, block)
     return result
+
+
+def _distinct_rows(covariates: np.ndarray) -> tuple:
+    """Distinct covariate rows (sorted) and the index of each row; ``np.unique(axis=0)`` without
+    its row-wise sort: each column is coded on its own (fast 1-D) and the codes combined."""
+    key = np.zeros(covariates.shape[0], dtype=np.int64)
+    for column in covariates.T:
+        values, codes = factorise(column)
+        if key.max(initial=0) >= 2**62 // max(values.size, 1):
+            distinct, group = np.unique(covariates, axis=0, return_inverse=True)
+            return distinct, group.reshape(-1)
+        key = key * values.size + codes
+    keys, group = factorise(key)
+    first = np.zeros(keys.size, dtype=np.int64)
+    first[group[::-1]] = np.arange(group.size - 1, -1, -1)  # a row holding each distinct key
+    return covariates[first], group
 
 
 #: Up to this many distinct covariate rows, the search runs per row with matrix products (no gather).
