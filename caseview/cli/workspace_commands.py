@@ -22,9 +22,14 @@ def _add_by(parser) -> None:
 def register(subparsers) -> None:
     p = subparsers.add_parser("init", help="create a new workspace file with a stage model",
                               description="Create a new workspace (one SQLite file at any path) with MODEL.json "
-                                          "as its first model. Refuses an existing file.")
+                                          "as its first model, or a model built from a staff-estimate file. "
+                                          "Refuses an existing file.")
     p.add_argument("workspace", metavar="WS")
-    p.add_argument("--model", required=True, metavar="MODEL.json")
+    first = p.add_mutually_exclusive_group(required=True)
+    first.add_argument("--model", metavar="MODEL.json", help="a stage-model file")
+    first.add_argument("--estimates", metavar="ESTIMATES.json",
+                       help="a staff-estimate file (typical stays, next stages, how often checks are wrong); "
+                            "see 'caseview model-from-estimates'")
     _add_by(p)
     p.set_defaults(run=run_init)
 
@@ -75,11 +80,18 @@ def run_init(args) -> int:
     from caseview.storage import Workspace
     from caseview.textfiles import read_utf8_text
 
-    path = Path(args.model)
-    text = read_utf8_text(path, "model file")
-    from caseview.modelfile import parse_model
+    if args.estimates:
+        from caseview.modelfile import dump_model
+        from caseview.staff_estimates_file import model_from_estimates_file
 
-    parse_model(text, source=str(path))  # names the model file in any message
+        model = model_from_estimates_file(args.estimates)  # names the estimate file in any message
+        text = dump_model(model, extra={"note": f"built from staff estimates in {Path(args.estimates).name}"})
+    else:
+        from caseview.modelfile import parse_model
+
+        path = Path(args.model)
+        text = read_utf8_text(path, "model file")
+        parse_model(text, source=str(path))  # names the model file in any message
     with Workspace.create(args.workspace, text, _actor(args)) as ws:
         for warning in ws.warnings:
             print(f"caseview: warning: {warning}", file=sys.stderr)

@@ -123,3 +123,23 @@ def test_cli_errors_are_one_line(tmp_path, example):
     assert not (tmp_path / "m.json").exists()
     missing = run("model-from-estimates", tmp_path / "nope.json")
     assert missing.returncode == 2 and "staff-estimate file not found" in missing.stderr
+
+
+def test_init_starts_a_workspace_straight_from_staff_estimates(tmp_path, example):
+    ws = tmp_path / "small team.cvw"
+    proc = run("init", ws, "--estimates", EXAMPLE, "--by", "lead")
+    assert proc.returncode == 0 and "created workspace" in proc.stdout, proc.stderr
+    from caseview.storage import Workspace
+
+    with Workspace.open(ws) as w:
+        model, _ = w.current_model()
+    # mean sojourn = 1 / total exit rate (Norris 1997, Markov Chains, section 2.6)
+    assert 1 / model.baseline_rate_matrix()[0].sum() == pytest.approx(330.0, rel=1e-12)
+    bad = tmp_path / "bad.json"
+    bad.write_text(json.dumps(_mutated(example, lambda d: d["next_stage"]["Crisis"].update(Struggling=0.5))),
+                   encoding="utf-8")
+    refused = run("init", tmp_path / "other.cvw", "--estimates", bad)
+    assert refused.returncode == 2 and "next_stage.Crisis" in refused.stderr and "Traceback" not in refused.stderr
+    assert not (tmp_path / "other.cvw").exists()
+    neither = run("init", tmp_path / "third.cvw")
+    assert neither.returncode == 2 and "--model" in neither.stderr and "--estimates" in neither.stderr
