@@ -104,6 +104,8 @@ def _fitted_sojourn(model, summary: dict) -> list | None:
             interval = _pick(item, ("interval", "ci", "confidence_interval"))
             if lower is None and isinstance(interval, (list, tuple)) and len(interval) == 2:
                 lower, upper = _number(interval[0]), _number(interval[1])
+            if item.get("informative") is False:   # too wide to mean anything (hmm.fitting.ParameterEstimate)
+                lower = upper = None
         elif isinstance(item, (list, tuple)) and item:
             values = [_number(v) for v in item] + [None, None]
             mean, lower, upper = values[0], values[1], values[2]
