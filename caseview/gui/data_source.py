@@ -3,8 +3,9 @@
 The window talks to a *source* with this small interface (tests use an in-memory one):
 
 ``label`` (str), ``load(as_of, horizon_days, callback) -> LoadedCaseload`` (runs in a worker
-thread; flags without their reasons, which the window works out afterwards), ``workspace()`` (a main-thread :class:`caseview.storage.Workspace`, or None),
-``current_model()`` (StageModel), ``close()``.
+thread; flags without their reasons, which the window works out afterwards), ``workspace()``
+(a main-thread :class:`caseview.storage.Workspace`, or None), ``current_model()`` (StageModel),
+``close()``.
 """
 
 from __future__ import annotations
