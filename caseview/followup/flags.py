@@ -22,6 +22,8 @@ from .rules import RuleSet
 
 #: How many of the most recent contacts are tested by leaving them out.
 INFLUENCE_CONTACTS = 3
+#: Flagged cases explained together (the result of a case does not depend on the batch).
+EXPLAIN_BATCH = 5000
 
 _EPOCH = dt.date(1970, 1, 1)
 
@@ -237,10 +239,12 @@ def explain(scores, rules: RuleSet, evaluation: RuleEvaluation, previous_p_follo
     reasons = [[] for _ in range(n)]
     text = np.full(n, "", dtype=object)
     flagged = np.flatnonzero(evaluation.fired.any(axis=1))
-    for case, case_reasons, line in zip(*explain_cases(scores, rules, evaluation, flagged, previous_p_follow_up,
-                                                       previous_as_of, positions)):
-        reasons[case] = case_reasons
-        text[case] = line
+    for start in range(0, flagged.size, EXPLAIN_BATCH):  # batches bound the leave-one-out copies in memory
+        for case, case_reasons, line in zip(*explain_cases(scores, rules, evaluation,
+                                                           flagged[start:start + EXPLAIN_BATCH],
+                                                           previous_p_follow_up, previous_as_of, positions)):
+            reasons[case] = case_reasons
+            text[case] = line
     return reasons, text
 
 
