@@ -13,7 +13,8 @@ from dataclasses import dataclass
 import numpy as np
 
 from hmm import StageModel, Timelines
-from hmm.inference import forecast, forward, reach_probability, stage_probabilities_now
+from hmm.forecasting import forecast, reach_probability, stage_probabilities_now
+from hmm.inference import forward
 
 EPOCH = dt.date(1970, 1, 1)
 

@@ -5,9 +5,8 @@ Pure numpy/scipy; no files, databases, Qt or plotting. Usable from a notebook::
     from hmm import StageModel, Timelines, forward, smoothed_probabilities
 """
 
-from .inference import (Forecast, ForwardResult, backward, contact_likelihoods, forecast, forward,
-                        most_likely_path, occupancy_over_time, reach_probability, smoothed_probabilities,
-                        stage_probabilities_now)
+from .forecasting import Forecast, forecast, occupancy_over_time, reach_probability, stage_probabilities_now
+from .inference import ForwardResult, backward, contact_likelihoods, forward, most_likely_path, smoothed_probabilities
 from .model import Channel, ModelError, StageModel, Transition
 from .simulate import SimulatedCaseload, regular_contacts, simulate_caseload, simulate_path
 from .timelines import MISSING, Timelines

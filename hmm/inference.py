@@ -1,10 +1,11 @@
-"""Forward-backward, Viterbi and stage probabilities for a whole caseload at once.
+"""Forward-backward, smoothing and Viterbi for a whole caseload at once.
 
 Every function works on all cases together. Cases are put in order of decreasing number of
 contacts, so the cases that have a ``k``-th contact form a prefix of that order; the only Python
 loop is over the contact position ``k``, each step being one numpy operation over all those cases.
 Transition matrices are computed once per distinct (covariate row, gap) pair
-(:func:`hmm.transition.distinct_transition_matrices`).
+(:func:`hmm.transition.distinct_transition_matrices`). Stage probabilities on a given day and
+forecasts from them are in :mod:`hmm.forecasting`.
 
 Model conventions
 -----------------
@@ -29,12 +30,11 @@ import numpy as np
 
 from .model import StageModel
 from .timelines import Timelines
-from .transition import distinct_transition_matrices, factorise
+from .transition import covariate_groups, distinct_transition_matrices
 
 __all__ = [
-    "ForwardResult", "Forecast", "contact_likelihoods", "forward", "backward",
-    "smoothed_probabilities", "most_likely_path", "stage_probabilities_now", "forecast",
-    "reach_probability", "occupancy_over_time",
+    "ForwardResult", "contact_likelihoods", "forward", "backward",
+    "smoothed_probabilities", "most_likely_path",
 ]
 
 
@@ -126,38 +126,6 @@ class _Plan:
         return np.take(values, self._row_positions, axis=0)
 
 
-def _covariate_groups(covariates: np.ndarray) -> tuple:
-    """Distinct covariate rows and the index of each row.
-
-    Parameters
-    ----------
-    covariates : ndarray, shape (n, K)
-
-    Returns
-    -------
-    distinct : ndarray, shape (g, K)
-    index : ndarray of int64, shape (n,)
-        ``distinct[index] == covariates``.
-    """
-    n, n_columns = covariates.shape
-    if n_columns == 0 or n == 0:
-        return np.zeros((1, n_columns)), np.zeros(n, dtype=np.int64)
-    # Factorise column by column (fast 1-D sorts) and combine the codes into one integer key.
-    key = np.zeros(n, dtype=np.int64)
-    radix = 1
-    for c in range(n_columns):
-        values, codes = factorise(covariates[:, c])
-        radix *= values.size
-        if radix >= 2**62:
-            distinct, index = np.unique(covariates, axis=0, return_inverse=True)
-            return distinct, index.reshape(-1)
-        key = key * values.size + codes.reshape(-1)
-    keys, index = factorise(key)
-    first = np.zeros(keys.size, dtype=np.int64)
-    first[index[::-1]] = np.arange(n - 1, -1, -1)  # a row holding each distinct key
-    return covariates[first], index
-
-
 def effective_allowed_stages(model: StageModel, allowed: np.ndarray) -> np.ndarray:
     """Allowed stages once the exact-entry convention is applied, shape (n_contacts, n_stages).
 
@@ -208,7 +176,7 @@ def _prepare(model: StageModel, timelines: Timelines, method: str = "auto") -> _
     into[timelines.first_index] = False
     into_rows = np.flatnonzero(into)
     if into_rows.size:
-        distinct, group = _covariate_groups(timelines.covariates[into_rows - 1])
+        distinct, group = covariate_groups(timelines.covariates[into_rows - 1])
         gaps = timelines.times[into_rows] - timelines.times[into_rows - 1]
         generators = model.generators(distinct)
         matrices, index = distinct_transition_matrices(generators, gaps, group, method)
@@ -406,189 +374,3 @@ def most_likely_path(model: StageModel, timelines: Timelines, method: str = "aut
             later = slice(plan.base[k + 1], plan.base[k + 1] + following)
             path[rows.start:rows.start + following] = pointer[later][np.arange(following), path[later]]
     return plan.to_rows(path)
-
-
-# --------------------------------------------------------------------------- now and ahead
-def _propagate(model: StageModel, probabilities: np.ndarray, covariates: np.ndarray, gaps: np.ndarray,
-               rate_rows_zeroed: np.ndarray | None = None) -> np.ndarray:
-    """``p_i P_i(gap_i)`` with P from each row's covariates, optionally with some rows of Q zeroed."""
-    distinct, group = _covariate_groups(np.asarray(covariates, dtype=float).reshape(probabilities.shape[0], -1))
-    generators = model.generators(distinct)
-    if rate_rows_zeroed is not None:
-        generators = generators.copy()
-        generators[:, rate_rows_zeroed, :] = 0.0
-    matrices, index = distinct_transition_matrices(generators, gaps, group)
-    return np.einsum("ns,nst->nt", probabilities, matrices[index])
-
-
-def _propagate_variants(model: StageModel, probabilities: np.ndarray, covariates: np.ndarray, gaps: np.ndarray,
-                        zeroed: list) -> list:
-    """:func:`_propagate` for several choices of zeroed generator rows, with one matrix computation.
-
-    ``zeroed[v]`` is None or the rows of Q zeroed in variant ``v``. Every variant's matrices come
-    from one call of :func:`distinct_transition_matrices` (one ``scipy.linalg.expm`` for all the
-    generators that need it instead of one per variant); each matrix is the same as in a separate call.
-    """
-    n = probabilities.shape[0]
-    distinct, group = _covariate_groups(np.asarray(covariates, dtype=float).reshape(n, -1))
-    base = model.generators(distinct)
-    stacked = []
-    for rows in zeroed:
-        generators = base.copy()
-        if rows is not None:
-            generators[:, rows, :] = 0.0
-        stacked.append(generators)
-    n_groups = base.shape[0]
-    generator_index = (np.arange(len(zeroed))[:, None] * n_groups + group[None, :]).reshape(-1)
-    matrices, index = distinct_transition_matrices(np.concatenate(stacked), np.tile(gaps, len(zeroed)),
-                                                   generator_index)
-    index = index.reshape(len(zeroed), n)
-    return [np.einsum("ns,nst->nt", probabilities, matrices[index[v]]) for v in range(len(zeroed))]
-
-
-def stage_probabilities_now(model: StageModel, timelines: Timelines, as_of, filtered: np.ndarray | None = None):
-    """Stage probabilities of each case on a given day, from the evidence up to that day.
-
-    Parameters
-    ----------
-    model : StageModel
-    timelines : Timelines
-        Already cut to contacts on or before ``as_of`` (:meth:`Timelines.until`).
-    as_of : float or ndarray, shape (n_cases,)
-        Day (same origin as ``timelines.times``), not before any case's last contact.
-    filtered : ndarray, shape (n_contacts, n_stages), optional
-        ``forward(model, timelines).filtered`` if already computed.
-
-    Returns
-    -------
-    ndarray, shape (n_cases, n_stages)
-        Filtered distribution at the last contact, propagated to ``as_of`` with the generator of
-        the last contact's covariates.
-    """
-    if filtered is None:
-        filtered = forward(model, timelines).filtered
-    last = timelines.last_index
-    gaps = np.broadcast_to(np.asarray(as_of, dtype=float), last.shape) - timelines.times[last]
-    if np.any(gaps < 0):
-        case = int(np.flatnonzero(gaps < 0)[0])
-        raise ValueError(f"as_of is before the last contact of case {case} "
-                         f"(day {timelines.times[last][case]:g}); cut the timelines with Timelines.until first")
-    return _propagate(model, filtered[last], timelines.covariates[last], gaps)
-
-
-@dataclass
-class Forecast:
-    """Where cases will be after a horizon.
-
-    Attributes
-    ----------
-    at_horizon : ndarray, shape (n_cases, n_stages)
-        P(stage at the horizon).
-    reach : ndarray, shape (n_cases, n_stages)
-        P(in that stage at least once within [0, horizon]); at least the current probability.
-    horizon : float
-    """
-
-    at_horizon: np.ndarray
-    reach: np.ndarray
-    horizon: float
-
-
-def _check_horizon(horizon) -> float:
-    horizon = float(horizon)
-    if not np.isfinite(horizon) or horizon < 0:
-        raise ValueError(f"horizon must be a number of days >= 0, got {horizon!r}")
-    return horizon
-
-
-def forecast(model: StageModel, probabilities, covariates, horizon: float) -> Forecast:
-    """Stage occupancy at a horizon and probability of reaching each stage within it.
-
-    Parameters
-    ----------
-    model : StageModel
-    probabilities : ndarray, shape (n_cases, n_stages)
-        Current stage probabilities (for example :func:`stage_probabilities_now`).
-    covariates : ndarray, shape (n_cases, n_covariates)
-        Covariates assumed to hold over the horizon.
-    horizon : float
-        Days ahead, >= 0.
-
-    Returns
-    -------
-    Forecast
-        ``reach[:, s]`` makes stage ``s`` absorbing (its row of Q set to zero), propagates, and
-        reads column ``s``: the first-passage probability into ``s`` by the horizon.
-    """
-    probabilities = np.atleast_2d(np.asarray(probabilities, dtype=float))
-    horizon = _check_horizon(horizon)
-    n = probabilities.shape[0]
-    gaps = np.full(n, horizon)
-    # occupancy, then one variant per stage made absorbing; all matrices in one computation
-    ahead = _propagate_variants(model, probabilities, covariates, gaps,
-                                [None] + [np.array([s]) for s in range(model.n_stages)])
-    at_horizon = ahead[0]
-    reach = np.empty_like(probabilities)
-    for s in range(model.n_stages):
-        reach[:, s] = ahead[1 + s][:, s]
-    return Forecast(at_horizon, np.clip(reach, 0.0, 1.0), horizon)
-
-
-def reach_probability(model: StageModel, probabilities, covariates, horizon: float, target_mask) -> np.ndarray:
-    """Probability of being in any of a set of stages at least once within a horizon.
-
-    Parameters
-    ----------
-    model : StageModel
-    probabilities : ndarray, shape (n_cases, n_stages)
-    covariates : ndarray, shape (n_cases, n_covariates)
-    horizon : float
-        Days, >= 0.
-    target_mask : ndarray of bool, shape (n_stages,)
-        The set of stages (for example ``model.follow_up_mask``); all made absorbing together.
-
-    Returns
-    -------
-    ndarray, shape (n_cases,)
-    """
-    probabilities = np.atleast_2d(np.asarray(probabilities, dtype=float))
-    target = np.asarray(target_mask, dtype=bool)
-    if target.shape != (model.n_stages,):
-        raise ValueError(f"target_mask must have {model.n_stages} entries, got {target.shape}")
-    gaps = np.full(probabilities.shape[0], _check_horizon(horizon))
-    ahead = _propagate(model, probabilities, covariates, gaps, np.flatnonzero(target))
-    return np.clip(ahead[:, target].sum(axis=1), 0.0, 1.0)
-
-
-def occupancy_over_time(model: StageModel, probabilities, covariates, days) -> np.ndarray:
-    """Stage probabilities on several future days (for charts).
-
-    Parameters
-    ----------
-    model : StageModel
-    probabilities : ndarray, shape (n_cases, n_stages)
-    covariates : ndarray, shape (n_cases, n_covariates)
-    days : ndarray, shape (T,)
-        Offsets from now in days, >= 0.
-
-    Returns
-    -------
-    ndarray, shape (n_cases, T, n_stages)
-    """
-    probabilities = np.atleast_2d(np.asarray(probabilities, dtype=float))
-    days = np.asarray(days, dtype=float).reshape(-1)
-    if days.size and (not np.all(np.isfinite(days)) or days.min() < 0):
-        raise ValueError("days must be offsets >= 0")
-    n = probabilities.shape[0]
-    distinct, group = _covariate_groups(np.asarray(covariates, dtype=float).reshape(n, -1))
-    generators = model.generators(distinct)
-    all_groups = np.repeat(np.arange(distinct.shape[0]), days.size)
-    all_days = np.tile(days, distinct.shape[0])
-    matrices = distinct_transition_matrices(generators, all_days, all_groups)
-    table = matrices[0][matrices[1]].reshape(distinct.shape[0], days.size, model.n_stages, model.n_stages)
-    result = np.empty((n, days.size, model.n_stages))
-    chunk = max(1, 2_000_000 // max(1, days.size * model.n_stages ** 2))  # bounds the gathered memory
-    for start in range(0, n, chunk):
-        part = slice(start, start + chunk)
-        result[part] = np.einsum("ns,ntsu->ntu", probabilities[part], table[group[part]])
-    return result

@@ -11,9 +11,9 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from .inference import _covariate_groups
 from .model import StageModel
 from .timelines import MISSING, Timelines
+from .transition import covariate_groups
 
 __all__ = ["simulate_path", "simulate_caseload", "regular_contacts", "SimulatedCaseload"]
 
@@ -134,7 +134,7 @@ def simulate_caseload(model: StageModel, contact_times, covariates, rng: np.rand
     if n_flat > 1 and np.any((np.diff(times) < 0) & (case_of[1:] == case_of[:-1])):
         raise ValueError("contact times must be sorted within each case")
 
-    distinct, group = _covariate_groups(cov)
+    distinct, group = covariate_groups(cov)
     generators = model.generators(distinct)
     leave_rate = -np.einsum("gss->gs", generators)                      # (G, S)
     jumps = np.clip(generators, 0.0, None)

@@ -9,6 +9,9 @@ rates, whose generator is defective - so such generators fall back to ``scipy.li
 
 Results are cleaned: real part, tiny negative entries clipped to zero, rows renormalised to sum
 to one; a gap of zero gives the identity exactly.
+
+:func:`covariate_groups` finds the distinct covariate rows of a caseload, so that each generator
+is built (and decomposed) once per distinct row.
 """
 
 from __future__ import annotations
@@ -21,6 +24,7 @@ __all__ = [
     "distinct_transition_matrices",
     "eigen_path_is_safe",
     "factorise",
+    "covariate_groups",
     "EIGEN_CONDITION_LIMIT",
     "EIGEN_SEPARATION_TOLERANCE",
 ]
@@ -134,6 +138,38 @@ def factorise(values: np.ndarray) -> tuple:
             return distinct, codes
     distinct = np.unique(values)  # hash-based in numpy >= 2.3 when no inverse is asked for
     return distinct, np.searchsorted(distinct, values).astype(np.int64, copy=False)
+
+
+def covariate_groups(covariates: np.ndarray) -> tuple:
+    """Distinct covariate rows and the index of each row, so each generator is built once.
+
+    Parameters
+    ----------
+    covariates : ndarray, shape (n, K)
+
+    Returns
+    -------
+    distinct : ndarray, shape (g, K)
+    index : ndarray of int64, shape (n,)
+        ``distinct[index] == covariates``.
+    """
+    n, n_columns = covariates.shape
+    if n_columns == 0 or n == 0:
+        return np.zeros((1, n_columns)), np.zeros(n, dtype=np.int64)
+    # Factorise column by column (fast 1-D sorts) and combine the codes into one integer key.
+    key = np.zeros(n, dtype=np.int64)
+    radix = 1
+    for c in range(n_columns):
+        values, codes = factorise(covariates[:, c])
+        radix *= values.size
+        if radix >= 2**62:
+            distinct, index = np.unique(covariates, axis=0, return_inverse=True)
+            return distinct, index.reshape(-1)
+        key = key * values.size + codes.reshape(-1)
+    keys, index = factorise(key)
+    first = np.zeros(keys.size, dtype=np.int64)
+    first[index[::-1]] = np.arange(n - 1, -1, -1)  # a row holding each distinct key
+    return covariates[first], index
 
 
 def _distinct_pairs(gaps: np.ndarray, generator_index: np.ndarray) -> tuple:

@@ -16,7 +16,8 @@ from dataclasses import dataclass, field
 import numpy as np
 
 from hmm import MISSING, Timelines
-from hmm.inference import forward, reach_probability, stage_probabilities_now
+from hmm.forecasting import reach_probability, stage_probabilities_now
+from hmm.inference import forward
 
 from .rules import RuleSet
 

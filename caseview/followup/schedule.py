@@ -17,7 +17,7 @@ from __future__ import annotations
 
 import numpy as np
 
-from hmm.inference import reach_probability
+from hmm.forecasting import reach_probability
 from hmm.transition import distinct_transition_matrices, factorise
 
 #: How far ahead the schedule looks, in days (two years).

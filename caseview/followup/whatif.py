@@ -14,7 +14,7 @@ from dataclasses import dataclass
 import numpy as np
 
 from caseview.errors import InputError
-from hmm.inference import forecast, reach_probability
+from hmm.forecasting import forecast, reach_probability
 
 from .rules import RuleSet, default_rules
 

@@ -73,7 +73,8 @@ def _entropy(p: np.ndarray) -> np.ndarray:
 
 def case_chart_data(scores, row: int, changes: dict | None = None, n_points: int = 40) -> CaseChartData:
     """Chart arrays for scores row ``row``; ``changes`` = {covariate name: value} for the what-if."""
-    from hmm.inference import forward, most_likely_path, occupancy_over_time, smoothed_probabilities
+    from hmm.forecasting import occupancy_over_time
+    from hmm.inference import forward, most_likely_path, smoothed_probabilities
 
     model = scores.model
     one = scores.timelines.subset(np.array([row]))

@@ -226,10 +226,11 @@ def caseload_occupancy(scores, rows: np.ndarray, past_days: int = PAST_WINDOW_DA
 
     A past day ``d`` uses each case's filtered distribution at its last contact on or before ``d``,
     propagated to ``d`` - what would have been estimated on that day (the same rule as
-    :func:`hmm.inference.stage_probabilities_now`). One forward pass serves every day.
-    The forecast uses :func:`hmm.inference.occupancy_over_time` from ``p_now``.
+    :func:`hmm.forecasting.stage_probabilities_now`). One forward pass serves every day.
+    The forecast uses :func:`hmm.forecasting.occupancy_over_time` from ``p_now``.
     """
-    from hmm.inference import forward, occupancy_over_time
+    from hmm.forecasting import occupancy_over_time
+    from hmm.inference import forward
     from hmm.transition import transition_matrices
 
     model = scores.model
@@ -280,7 +281,8 @@ def case_history(scores, rows: np.ndarray, n_points: int = 60) -> list:
     list of dict, one per case: ``contact_days`` (k,), ``smoothed`` (k, S), ``projection_days`` (P,),
     ``projection`` (P, S) from the last contact to the horizon (no new evidence).
     """
-    from hmm.inference import occupancy_over_time, smoothed_probabilities
+    from hmm.forecasting import occupancy_over_time
+    from hmm.inference import smoothed_probabilities
 
     if len(rows) == 0:
         return []
