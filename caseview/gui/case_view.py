@@ -2,6 +2,8 @@
 
 from __future__ import annotations
 
+import functools
+
 import numpy as np
 from PySide6.QtCore import Qt, Signal
 from PySide6.QtWidgets import (QCheckBox, QDoubleSpinBox, QFormLayout, QGroupBox, QHBoxLayout, QLabel,
@@ -12,6 +14,15 @@ from caseview.scoring import from_day
 
 from . import theme
 from .case_chart import case_chart_data
+
+
+@functools.lru_cache(maxsize=1)
+def _uncertainty_shade():
+    """Colour map for the uncertainty shade: grey whose opacity grows from 0.04 to 0.26."""
+    from matplotlib.colors import LinearSegmentedColormap
+
+    grey = 0x88 / 255
+    return LinearSegmentedColormap.from_list("uncertainty_shade", [(grey, grey, grey, 0.04), (grey, grey, grey, 0.26)])
 
 
 class CaseView(QWidget):
@@ -183,9 +194,9 @@ class CaseView(QWidget):
             for side in axis.spines.values():
                 side.set_color("#777777")
         # uncertainty grows after the last contact: shade darker where the estimate says less
-        top.fill_between(spread_days, 0, 1, color="#888888", alpha=0.0, step=None)
-        for a, b, h in zip(spread_days[:-1], spread_days[1:], d.spread[:-1]):
-            top.axvspan(a, b, color="#888888", alpha=0.04 + 0.22 * float(h), lw=0)
+        # one mesh, one artist: each band between two days gets alpha 0.04 + 0.22 * spread
+        top.pcolormesh(spread_days, [0.0, 1.0], np.asarray(d.spread[:-1], dtype=float)[None, :],
+                       cmap=_uncertainty_shade(), vmin=0.0, vmax=1.0, shading="flat", zorder=0)
         for s, name in enumerate(d.stages):
             top.plot(x_contacts, d.smoothed[:, s], "-o", color=colours[s], lw=1.8, ms=4, label=name)
             top.plot(d.now_days, d.now[:, s], "--", color=colours[s], lw=1.6)
