@@ -144,7 +144,13 @@ class JobRunner(QObject):
         return any(not j.is_done for j in self.jobs.values())
 
     def shutdown(self, timeout_ms: int = 10000) -> bool:
-        """Cancel every job and wait for the pool; True if all stopped in time."""
+        """Cancel every job and wait for the pool; True if all stopped in time.
+
+        Afterwards no job is current, so results and progress still queued in the event loop are
+        dropped instead of reaching a window that is closing (and its closed workspace).
+        """
         for job in self.jobs.values():
             job.cancel()
-        return self.pool.waitForDone(timeout_ms)
+        stopped = self.pool.waitForDone(timeout_ms)
+        self.jobs.clear()
+        return stopped
