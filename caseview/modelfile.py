@@ -41,19 +41,24 @@ def parse_model(text: str, source: str = "model") -> StageModel:
     return model_from_dict(data, source)
 
 
+def _check_format(p, data: Any, name: str, version: int) -> None:
+    """The decoded file is a JSON object whose ``format`` is ``name`` and ``format_version`` ``version``."""
+    if not isinstance(data, dict):
+        p.fail("", "expected a JSON object at the top level")
+    if data.get("format") != name:
+        p.fail("format", f'expected "{name}", got {data.get("format")!r}')
+    found = data.get("format_version")
+    if found != version:
+        if isinstance(found, int) and not isinstance(found, bool) and found > version:
+            p.fail("format_version", f"version {found} is newer than this caseview understands "
+                                     f"({version}); update caseview")
+        p.fail("format_version", f"expected {version}, got {found!r}")
+
+
 def model_from_dict(data: Any, source: str = "model") -> StageModel:
     """Build a :class:`StageModel` from the decoded JSON object, validating every value."""
     p = _Path(source)
-    if not isinstance(data, dict):
-        p.fail("", "expected a JSON object at the top level")
-    if data.get("format") != FORMAT:
-        p.fail("format", f'expected "{FORMAT}", got {data.get("format")!r}')
-    version = data.get("format_version")
-    if version != FORMAT_VERSION:
-        if isinstance(version, int) and version > FORMAT_VERSION:
-            p.fail("format_version", f"version {version} is newer than this caseview understands "
-                                     f"({FORMAT_VERSION}); update caseview")
-        p.fail("format_version", f"expected {FORMAT_VERSION}, got {version!r}")
+    _check_format(p, data, FORMAT, FORMAT_VERSION)
     unit = data.get("time_unit", "day")
     if unit != "day":
         p.fail("time_unit", f'only "day" is supported, got {unit!r}')

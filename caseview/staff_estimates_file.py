@@ -21,7 +21,7 @@ from typing import Any
 from hmm.fitting.staff_estimates import CheckEstimate, UsualResult, staff_estimate_problems
 from hmm.model import StageModel
 
-from .modelfile import _list, _no_duplicates, _number, _Path, _string_list
+from .modelfile import _check_format, _list, _no_duplicates, _number, _Path, _string_list
 from .textfiles import decode_json, read_utf8_text
 
 FORMAT = "caseview.staff-estimates"
@@ -55,16 +55,7 @@ def model_from_estimates_file(path) -> StageModel:
 def estimates_from_dict(data: Any, source: str = "staff estimates") -> dict:
     """Validate the decoded JSON object; return the keyword arguments for ``model_from_staff_estimates``."""
     p = _Path(source)
-    if not isinstance(data, dict):
-        p.fail("", "expected a JSON object at the top level")
-    if data.get("format") != FORMAT:
-        p.fail("format", f'expected "{FORMAT}", got {data.get("format")!r}')
-    version = data.get("format_version")
-    if version != FORMAT_VERSION:
-        if isinstance(version, int) and not isinstance(version, bool) and version > FORMAT_VERSION:
-            p.fail("format_version", f"version {version} is newer than this caseview understands "
-                                     f"({FORMAT_VERSION}); update caseview")
-        p.fail("format_version", f"expected {FORMAT_VERSION}, got {version!r}")
+    _check_format(p, data, FORMAT, FORMAT_VERSION)
     unknown = set(data) - _TOP_KEYS
     if unknown:
         p.fail(sorted(unknown)[0], f"unknown key (expected one of: {', '.join(sorted(_TOP_KEYS))})")

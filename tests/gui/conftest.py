@@ -3,16 +3,13 @@
 from __future__ import annotations
 
 import csv
-import datetime as dt
+from pathlib import Path
 
-import numpy as np
 import pytest
 
 from caseview.scoring import from_day
 
 from .standin import AS_OF, MemorySource, make_caseload
-
-from pathlib import Path
 
 DEMO_MODEL = Path(__file__).resolve().parents[2] / "resources" / "models" / "home_support_demo.json"
 
@@ -28,6 +25,27 @@ def temp_settings(tmp_path, qapp):
     QSettings.setPath(QSettings.IniFormat, QSettings.UserScope, str(tmp_path / "settings"))
     QSettings().clear()
     yield
+
+
+@pytest.fixture
+def window(qtbot):
+    """The main window, 1400x900, shown offscreen; closed (workers cancelled and waited for) after."""
+    from caseview.gui.main_window import MainWindow
+
+    w = MainWindow(as_of=AS_OF)
+    w.setProperty("quiet", True)
+    qtbot.addWidget(w)
+    w.resize(1400, 900)
+    w.show()
+    yield w
+    w.close()
+
+
+def open_ws(window, qtbot, path):
+    """Open a workspace file in ``window`` and wait until its caseload is shown."""
+    with qtbot.waitSignal(window.caseload_loaded, timeout=90000):
+        assert window.open_workspace(path)
+    return window.loaded
 
 
 @pytest.fixture

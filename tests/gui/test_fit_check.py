@@ -4,28 +4,9 @@ from __future__ import annotations
 
 import pytest
 
-from caseview.gui.main_window import MainWindow
-
-from .standin import AS_OF
+from .conftest import open_ws
 
 pytestmark = pytest.mark.gui
-
-
-@pytest.fixture
-def window(qtbot):
-    w = MainWindow(as_of=AS_OF)
-    w.setProperty("quiet", True)
-    qtbot.addWidget(w)
-    w.resize(1400, 900)
-    w.show()
-    yield w
-    w.close()
-
-
-def open_ws(window, qtbot, path):
-    with qtbot.waitSignal(window.caseload_loaded, timeout=90000):
-        assert window.open_workspace(path)
-    return window.loaded
 
 
 def test_fit_check_runs_in_worker_draws_and_audits(window, qtbot, workspace_path):

@@ -13,17 +13,6 @@ from .standin import AS_OF
 pytestmark = pytest.mark.gui
 
 
-@pytest.fixture
-def window(qtbot):
-    w = MainWindow(as_of=AS_OF)
-    w.setProperty("quiet", True)
-    qtbot.addWidget(w)
-    w.resize(1400, 900)
-    w.show()
-    yield w
-    w.close()
-
-
 def test_reasons_arrive_after_the_table_and_match_the_cli(window, qtbot, workspace_path):
     followup = pytest.importorskip("caseview.followup")
     from caseview.storage import Workspace

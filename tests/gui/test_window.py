@@ -14,17 +14,6 @@ from .standin import AS_OF
 pytestmark = pytest.mark.gui
 
 
-@pytest.fixture
-def window(qtbot):
-    w = MainWindow(as_of=AS_OF)
-    w.setProperty("quiet", True)
-    qtbot.addWidget(w)
-    w.resize(1400, 900)
-    w.show()
-    yield w
-    w.close()
-
-
 def load(window, qtbot, source):
     with qtbot.waitSignal(window.caseload_loaded, timeout=60000):
         window.set_source(source)

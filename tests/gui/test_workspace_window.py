@@ -8,29 +8,10 @@ import sys
 
 import pytest
 
-from caseview.gui.main_window import MainWindow
-
+from .conftest import open_ws
 from .standin import AS_OF
-from .test_window import load
 
 pytestmark = pytest.mark.gui
-
-
-@pytest.fixture
-def window(qtbot):
-    w = MainWindow(as_of=AS_OF)
-    w.setProperty("quiet", True)
-    qtbot.addWidget(w)
-    w.resize(1400, 900)
-    w.show()
-    yield w
-    w.close()
-
-
-def open_ws(window, qtbot, path):
-    with qtbot.waitSignal(window.caseload_loaded, timeout=90000):
-        assert window.open_workspace(path)
-    return window.loaded
 
 
 def test_review_flag_writes_audit_entry(window, qtbot, workspace_path):
@@ -168,3 +149,12 @@ def test_staff_estimates_from_the_model_panel_land_in_the_editor_unsaved(window,
     assert 1.0 / exit_rate == pytest.approx(500.0)
     assert "staff estimates" in panel.editor.message.text()
     assert len(window.workspace().model_versions()) == versions_before   # nothing saved until the user saves
+
+
+def test_benchmark_window_measure_runs_on_a_small_workspace(workspace_path):
+    # keeps benchmarks/gui_timing.py --part window from rotting; the figures themselves are the benchmark's
+    from caseview.gui.timing import measure_window
+
+    figures = measure_window(workspace_path, AS_OF, 90.0)
+    assert 0 < figures["window_shown"] <= figures["reasons_done"]
+    assert figures["longest_stall"] >= 0 and figures["stalls_over_100ms"] >= 0
