@@ -21,6 +21,10 @@ from .records import short_reasons
 
 #: Most flagged cases drawn as small timelines (the rest are named as left out).
 MAX_TIMELINES = 24
+#: Most flagged cases listed in the PDF's table, most urgent first; a regional caseload can flag tens of
+#: thousands, which no meeting reads on paper. The report says how many are left out and where every one
+#: is listed (the XLSX or CSV report, or a report narrowed with --coordinator).
+MAX_LISTED_FLAGGED = 250
 TIMELINES_PER_PAGE = 6
 _LIST_LIMIT = 40
 
@@ -97,6 +101,9 @@ def _cover(data) -> Page:
     page.paragraph(f"{data.flagged_rows.size} flagged case(s): {data.reviews_done} reviewed by a supervisor "
                    f"(acknowledged, actioned or dismissed), {data.reviews_outstanding} outstanding. "
                    f"Scored {s.n_cases} case(s) in the workspace in total.")
+    if data.flagged_rows.size > MAX_LISTED_FLAGGED:
+        page.caution_box(f"This PDF lists the {MAX_LISTED_FLAGGED:,} most urgent flagged cases. "
+                         + _left_out_note(int(data.flagged_rows.size) - MAX_LISTED_FLAGGED))
     return page
 
 
@@ -127,7 +134,7 @@ def _occupancy_page(data) -> Page:
 def _flag_rows(data) -> list:
     a, s, view = data.assessment, data.scores, data.dates
     rows = []
-    for r in data.flagged_rows:
+    for r in data.flagged_rows[:MAX_LISTED_FLAGGED]:
         r = int(r)
         k = int(s.most_likely_stage[r])
         due = int(a.next_contact_due_day[r])
@@ -145,20 +152,30 @@ def _flag_rows(data) -> list:
     return rows
 
 
+def _left_out_note(left_out: int) -> str:
+    return (f"{left_out:,} more flagged case(s) are not listed in this PDF. Every flagged case is in the spreadsheet "
+            "or CSV report (caseview report ... --out FILE.xlsx), or list one coordinator's cases with "
+            "--coordinator. Do not take a case's absence here to mean it needs no follow-up.")
+
+
 def _flag_pages(data) -> list:
-    columns = [Column("case", 0.66), Column("coord.", 0.46), Column("most likely stage now", 1.12),
+    columns = [Column("case", 0.82), Column("coord.", 0.46), Column("most likely stage now", 1.12),
                Column("chance in follow-up now", 0.64, "right"),
                Column(f"chance to reach it in {data.horizon_days:g} days", 0.68, "right"),
-               Column("reasons", 2.42), Column("next contact due", 0.66), Column("review", 0.53)]
+               Column("reasons", 2.26), Column("next contact due", 0.66), Column("review", 0.53)]
     rows = _flag_rows(data)
+    left_out = int(data.flagged_rows.size) - len(rows)
     pages = []
     while True:
         page = Page("flagged cases")
-        title = "Flagged cases" + (" (continued)" if pages else f" ({len(rows)}, contact sooner first)")
+        count = f"{len(rows)}" if not left_out else f"the {len(rows):,} most urgent of {data.flagged_rows.size:,}"
+        title = "Flagged cases" + (" (continued)" if pages else f" ({count}, contact sooner first)")
         page.heading(title, gap_before=0.0)
         if not pages:
             page.paragraph("Next contact due: the day the chance of a follow-up stage would reach the rule's "
                            "threshold if nothing new is observed.", size=style.BODY_SIZE - 1, colour=style.MUTED)
+            if left_out:
+                page.caution_box(_left_out_note(left_out))
         if not rows:
             page.paragraph("No case is flagged on this date.")
             return [page]

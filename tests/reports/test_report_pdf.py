@@ -97,3 +97,24 @@ def test_timeline_cap_says_how_many_were_left_out(report_workspace, tmp_path, mo
         result = build_report(ws, AS_OF, tmp_path / "capped.pdf", flagged_only=True, actor="t")
     flat = squash(" ".join(pdf_page_texts(result.path)))
     assert f"first 2 flagged cases by priority; {n_flagged - 2} more left out" in flat
+
+
+def test_flag_table_cap_lists_the_most_urgent_and_says_where_the_rest_are(report_workspace, tmp_path, monkeypatch,
+                                                                          assessment):
+    from caseview.reports import build_report, pdf
+    from caseview.storage import Workspace
+
+    monkeypatch.setattr(pdf, "MAX_LISTED_FLAGGED", 3)
+    flagged = np.flatnonzero(assessment.is_flagged)
+    assert flagged.size > 3
+    urgent_first = flagged[np.argsort(-assessment.priority[flagged], kind="stable")]
+    with Workspace.open(report_workspace) as ws:
+        result = build_report(ws, AS_OF, tmp_path / "capped.pdf", actor="t")
+    texts = pdf_page_texts(result.path)
+    flat = squash(" ".join(texts))
+    assert f"the 3 most urgent of {flagged.size:,}" in flat
+    assert f"{flagged.size - 3:,} more flagged case(s) are not listed in this PDF" in flat
+    assert "Do not take a case's absence here to mean it needs no follow-up" in flat
+    table = squash(" ".join(t for t in texts if "Flagged cases" in t))
+    for r in urgent_first[:3]:
+        assert str(assessment.scores.case_ids[r]) in table
