@@ -221,6 +221,10 @@ def compare(now, previous, rows: np.ndarray, since: dt.date) -> Changes:
     return Changes(since, sorted(newly), sorted(gone), sorted(moved), sorted(new_cases))
 
 
+#: Cases per block in :func:`caseload_occupancy` (about 40 MB of transition matrices per block).
+OCCUPANCY_BLOCK_CASES = 10_000
+
+
 def caseload_occupancy(scores, rows: np.ndarray, past_days: int = PAST_WINDOW_DAYS, n_points: int = 40) -> Occupancy:
     """Mean stage probabilities of the selected cases before the as-of date and forecast to the horizon.
 
@@ -246,17 +250,22 @@ def caseload_occupancy(scores, rows: np.ndarray, past_days: int = PAST_WINDOW_DA
     origin = float(timelines.times.min() - past_days - 5)
     keys = case_of * span + (timelines.times - origin)
     n, t = timelines.n_cases, days.size
-    wanted = (np.arange(n)[:, None] * span + (days[None, :] - origin)).ravel()
-    last_row = np.searchsorted(keys, wanted, side="right") - 1
-    case_rep = np.repeat(np.arange(n), t)
-    started = (last_row >= timelines.offsets[:-1][case_rep])
-    last_row = np.where(started, last_row, 0)
-    gaps = np.where(started, np.tile(days, n) - timelines.times[last_row], 0.0)
     distinct, group = np.unique(timelines.covariates, axis=0, return_inverse=True)
-    steps = transition_matrices(model.generators(distinct), gaps, group.reshape(-1)[last_row])
-    p_past = np.einsum("ms,mst->mt", filtered[last_row], steps) * started[:, None]
-    counts = started.reshape(n, t).sum(axis=0)
-    sums = p_past.reshape(n, t, model.n_stages).sum(axis=0)
+    generators, group = model.generators(distinct), group.reshape(-1)
+    counts = np.zeros(t, dtype=np.int64)
+    sums = np.zeros((t, model.n_stages))
+    # cases in blocks, so the (case, day) transition matrices never all exist at once (memory stays flat)
+    for first in range(0, n, OCCUPANCY_BLOCK_CASES):
+        cases = np.arange(first, min(n, first + OCCUPANCY_BLOCK_CASES))
+        wanted = (cases[:, None] * span + (days[None, :] - origin)).ravel()
+        last_row = np.searchsorted(keys, wanted, side="right") - 1
+        started = last_row >= timelines.offsets[:-1][np.repeat(cases, t)]
+        last_row = np.where(started, last_row, 0)
+        gaps = np.where(started, np.tile(days, cases.size) - timelines.times[last_row], 0.0)
+        steps = transition_matrices(generators, gaps, group[last_row])
+        p_past = np.einsum("ms,mst->mt", filtered[last_row], steps) * started[:, None]
+        counts += started.reshape(cases.size, t).sum(axis=0)
+        sums += p_past.reshape(cases.size, t, model.n_stages).sum(axis=0)
     mean_past = sums / np.maximum(counts, 1)[:, None]
     future = occupancy_over_time(model, scores.p_now[rows], scores.last_covariates[rows], ahead.astype(float))
     mean_future = future.mean(axis=0)

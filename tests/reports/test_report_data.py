@@ -35,6 +35,18 @@ def test_past_occupancy_matches_scoring_on_that_day(report_workspace, data):
             np.testing.assert_allclose(occupancy.mean_probabilities[i], then.p_now.mean(axis=0), atol=1e-10)
 
 
+def test_occupancy_in_small_blocks_is_the_same(data, monkeypatch):
+    """Blocks of cases only bound the memory: the chart is the same with blocks of 7 cases."""
+    from caseview.reports import data as report_data
+
+    rows = np.arange(data.scores.n_cases)
+    whole = report_data.caseload_occupancy(data.scores, rows)
+    monkeypatch.setattr(report_data, "OCCUPANCY_BLOCK_CASES", 7)
+    blocked = report_data.caseload_occupancy(data.scores, rows)
+    np.testing.assert_allclose(blocked.mean_probabilities, whole.mean_probabilities, rtol=0, atol=1e-12)
+    np.testing.assert_array_equal(blocked.n_cases, whole.n_cases)
+
+
 def test_occupancy_at_as_of_and_horizon_match_scores(data):
     o, s = data.occupancy, data.scores
     now = int(np.flatnonzero(o.days_from_as_of == 0)[0])
