@@ -1,19 +1,16 @@
-"""The main window: top bar (workspace, as-of date, horizon), advisory banner, and the panels."""
+"""The main window: advisory banner and the panels (the toolbar, menus and status bar: ``window_chrome``)."""
 
 from __future__ import annotations
 
 import datetime as dt
 from pathlib import Path
 
-from PySide6.QtCore import QDate, QEventLoop, QSettings, Qt, QTimer, Signal
-from PySide6.QtGui import QAction, QKeySequence
-from PySide6.QtWidgets import (QDateEdit, QFileDialog, QLabel, QMainWindow, QMessageBox, QProgressBar,
-                               QPushButton, QSpinBox, QSplitter, QTabWidget, QToolBar, QToolButton,
-                               QVBoxLayout, QWidget, QMenu)
+from PySide6.QtCore import QEventLoop, QSettings, Qt, QTimer, Signal
+from PySide6.QtWidgets import QFileDialog, QLabel, QMainWindow, QMessageBox, QSplitter, QTabWidget, QVBoxLayout, QWidget
 
 from caseview import ADVISORY_NOTICE
 
-from . import theme
+from . import theme, window_chrome
 from .case_view import CaseView
 from .caseload_panel import CaseloadPanel
 from .workers import JobRunner
@@ -45,68 +42,13 @@ class MainWindow(QMainWindow):
         self.actor = current_actor()
         self.jobs = JobRunner(self)
         self._pending_case = None
-        self._build_top_bar(as_of or dt.date.today())
+        window_chrome.build_top_bar(self, as_of or dt.date.today())
         self._build_body()
-        self._build_status_bar()
-        self._build_menus()
+        window_chrome.build_status_bar(self)
+        window_chrome.build_menus(self)
         self._restore_state()
 
     # ------------------------------------------------------------------ building
-    def _build_top_bar(self, as_of: dt.date) -> None:
-        bar = QToolBar("Workspace")
-        bar.setObjectName("topBar")
-        bar.setMovable(False)
-        bar.setToolButtonStyle(Qt.ToolButtonTextBesideIcon)
-        self.addToolBar(Qt.TopToolBarArea, bar)
-        self.action_new = QAction(theme.icon("new"), "New…", self, shortcut=QKeySequence.New,
-                                  triggered=self.create_workspace_dialog)
-        self.action_new.setToolTip("Create a workspace from a model file (Ctrl+N)")
-        self.action_open = QAction(theme.icon("open"), "Open…", self, shortcut=QKeySequence.Open,
-                                   triggered=self.open_workspace_dialog)
-        self.action_open.setToolTip("Open a workspace (Ctrl+O)")
-        self.recent_menu = QMenu("Recent workspaces", self)
-        self.recent_menu.aboutToShow.connect(self._fill_recent_menu)
-        self.action_import = QAction(theme.icon("import"), "Import contacts…", self, shortcut="Ctrl+I",
-                                     triggered=self.import_dialog)
-        self.action_report = QAction(theme.icon("report"), "Report…", self, shortcut="Ctrl+R",
-                                     triggered=self.report_dialog)
-        self.action_rescore = QAction(theme.icon("rescore"), "Rescore", self, shortcut=QKeySequence("F5"),
-                                      triggered=self.rescore)
-        self.action_rescore.setToolTip("Score every case again as of the chosen date (F5)")
-        bar.addAction(self.action_new)
-        bar.addAction(self.action_open)
-        recent_button = QToolButton()
-        recent_button.setText("Recent")
-        recent_button.setAccessibleName("Recent workspaces")
-        recent_button.setMenu(self.recent_menu)
-        recent_button.setPopupMode(QToolButton.InstantPopup)
-        bar.addWidget(recent_button)
-        bar.addSeparator()
-        bar.addAction(self.action_import)
-        bar.addAction(self.action_report)
-        bar.addSeparator()
-        bar.addWidget(QLabel(" As of "))
-        self.as_of_edit = QDateEdit(QDate(as_of.year, as_of.month, as_of.day))
-        self.as_of_edit.setCalendarPopup(True)
-        self.as_of_edit.setDisplayFormat("yyyy-MM-dd")
-        self.as_of_edit.setAccessibleName("As-of date")
-        self.as_of_edit.setToolTip("Estimates use contacts on or before this date")
-        bar.addWidget(self.as_of_edit)
-        bar.addWidget(QLabel("  Horizon "))
-        self.horizon_spin = QSpinBox()
-        self.horizon_spin.setRange(1, 3650)
-        self.horizon_spin.setValue(90)
-        self.horizon_spin.setSuffix(" days")
-        self.horizon_spin.setAccessibleName("Forecast horizon in days")
-        bar.addWidget(self.horizon_spin)
-        bar.addAction(self.action_rescore)
-        self.workspace_label = QLabel("  No workspace open")
-        self.workspace_label.setAccessibleName("Open workspace")
-        bar.addWidget(self.workspace_label)
-        self._rescore_timer = QTimer(self, singleShot=True, interval=400, timeout=self.rescore)
-        self.as_of_edit.dateChanged.connect(lambda _: self._rescore_timer.start())
-        self.horizon_spin.valueChanged.connect(lambda _: self._rescore_timer.start())
-
     def _build_body(self) -> None:
         self.banner = QLabel(ADVISORY_NOTICE)
         self.banner.setObjectName("advisoryBanner")
@@ -141,44 +83,6 @@ class MainWindow(QMainWindow):
         layout.addWidget(self.tabs, 1)
         self.setCentralWidget(central)
 
-    def _build_status_bar(self) -> None:
-        status = self.statusBar()
-        self.progress = QProgressBar()
-        self.progress.setRange(0, 100)
-        self.progress.setMaximumWidth(220)
-        self.progress.setAccessibleName("Progress of the background job")
-        self.progress.hide()
-        self.cancel_button = QPushButton("Cancel")
-        self.cancel_button.setAccessibleName("Cancel the background job")
-        self.cancel_button.hide()
-        self.cancel_button.clicked.connect(lambda: self.jobs.cancel("score"))
-        self.reasons_status = QLabel("")
-        self.reasons_status.setAccessibleName("Progress of working out why cases are flagged")
-        self.reasons_status.hide()
-        status.addPermanentWidget(self.reasons_status)
-        status.addPermanentWidget(self.progress)
-        status.addPermanentWidget(self.cancel_button)
-        status.showMessage("Open a workspace (Ctrl+O) or create one from a model file (Ctrl+N).")
-
-    def _build_menus(self) -> None:
-        menu = self.menuBar().addMenu("&Workspace")
-        menu.addAction(self.action_new)
-        menu.addAction(self.action_open)
-        menu.addMenu(self.recent_menu)
-        menu.addSeparator()
-        menu.addAction(self.action_import)
-        menu.addAction(self.action_report)
-        menu.addSeparator()
-        menu.addAction(QAction("Close window", self, shortcut=QKeySequence.Quit, triggered=self.close))
-        view = self.menuBar().addMenu("&View")
-        view.addAction(self.action_rescore)
-        view.addAction(QAction("Find case", self, shortcut=QKeySequence.Find, triggered=self.caseload.focus_search))
-        view.addAction(QAction("Sort by priority", self, shortcut="Ctrl+Shift+P",
-                               triggered=self.caseload.sort_by_priority))
-        for i, name in enumerate(("Caseload", "Risk queue", "Model")):
-            view.addAction(QAction(name, self, shortcut=f"Ctrl+{i + 1}",
-                                   triggered=lambda _=False, i=i: self.tabs.setCurrentIndex(i)))
-
     # ------------------------------------------------------------------ settings
     def _restore_state(self) -> None:
         # check contains() first: a missing value comes back as None, which PySide6 6.12 on
@@ -210,7 +114,7 @@ class MainWindow(QMainWindow):
         recent = [str(path)] + [p for p in self.recent_workspaces() if p != str(path)]
         QSettings().setValue("recent/workspaces", recent[:MAX_RECENT])
 
-    def _fill_recent_menu(self) -> None:
+    def fill_recent_menu(self) -> None:
         self.recent_menu.clear()
         recent = self.recent_workspaces()
         if not recent:
