@@ -209,7 +209,8 @@ class RiskQueue(QWidget):
                 seen_dates.add(getattr(c, "date", None))
                 contacts.append(c.describe() if hasattr(c, "describe") else str(c))
         if contacts:
-            lines.append("Contacts that moved the estimate most (change in P(follow-up)): " + "; ".join(contacts[:4]))
+            lines.append("Effect of each of the last contacts, largest first (chance of follow-up with that contact "
+                         "minus without it): " + "; ".join(contacts[:4]))
         self.reasons.setText("<br>".join(lines))
         self._update_buttons(a.review_status[r] or "new")
         self._fill_audit(str(self.loaded.scores.case_ids[r]))
