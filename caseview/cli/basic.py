@@ -37,11 +37,17 @@ def register(sub) -> None:
                        description="Create a workspace at PATH with the invented home-support demo model and "
                                    "caseload (no real people or data).")
     p.add_argument("path", metavar="PATH")
-    p.add_argument("--by", metavar="NAME", help="who is recorded in the audit trail (default: OS user)")
+    add_actor_option(p)
     p.set_defaults(run=run_demo)
 
 
 # ---------------------------------------------------------------- helpers
+def add_actor_option(parser, what: str = "who is recorded in the audit trail") -> None:
+    """The ``--by NAME`` option every audited command takes (read back by :func:`actor_name`)."""
+    parser.add_argument("--by", metavar="NAME", help=f"{what} (default: the operating-system user; "
+                                                      "attribution, not authentication)")
+
+
 def actor_name(args) -> str:
     """The name recorded in the audit trail: ``--by`` or the operating-system user (attribution only)."""
     from caseview.attribution import os_user

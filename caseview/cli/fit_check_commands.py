@@ -6,6 +6,8 @@ import sys
 
 from caseview import ADVISORY_NOTICE
 
+from .basic import add_actor_option
+
 
 def register(sub) -> None:
     p = sub.add_parser("check-fit", help="goodness of fit: observed versus expected changes between contacts",
@@ -34,7 +36,7 @@ def register(sub) -> None:
     p.add_argument("--out", metavar="TABLE.csv", help="write the observed/expected table ('-' for standard output)")
     p.add_argument("--occupancy-out", metavar="OCC.csv",
                    help="write observed versus expected occupancy of each category over calendar time")
-    p.add_argument("--by", metavar="NAME", help="who is recorded in the audit trail (default: OS user)")
+    add_actor_option(p)
     p.set_defaults(run=run_check_fit)
 
 

@@ -7,6 +7,8 @@ from types import SimpleNamespace
 
 from caseview import ADVISORY_NOTICE
 
+from .basic import add_actor_option
+
 
 def register(sub) -> None:
     p = sub.add_parser("fit", help="fit the stage model to the whole caseload (maximum likelihood)",
@@ -20,7 +22,7 @@ def register(sub) -> None:
     p.add_argument("--penalised", action="store_true",
                    help="weakly informative priors for small caseloads (see README)")
     p.add_argument("--max-iterations", type=int, default=500, metavar="N")
-    p.add_argument("--by", metavar="NAME", help="who is recorded in the audit trail (default: OS user)")
+    add_actor_option(p)
     p.set_defaults(run=run_fit)
 
     p = sub.add_parser("models", help="list model versions; compare two; choose the current one",
@@ -30,7 +32,7 @@ def register(sub) -> None:
     p.add_argument("workspace", metavar="WS")
     p.add_argument("--compare", nargs=2, type=int, metavar=("A", "B"))
     p.add_argument("--use", type=int, metavar="ID")
-    p.add_argument("--by", metavar="NAME")
+    add_actor_option(p)
     p.set_defaults(run=run_models)
 
     from .staff_estimates_commands import register as register_staff_estimates

@@ -11,7 +11,8 @@ import sys
 
 from caseview import ADVISORY_NOTICE
 
-from .basic import actor_name, format_days, format_probabilities, open_workspace, safe_text, write_table
+from .basic import (actor_name, add_actor_option, format_days, format_probabilities, open_workspace, safe_text,
+                    write_table)
 
 STATUS_CHOICES = ("acknowledged", "actioned", "dismissed")
 
@@ -27,7 +28,7 @@ def register(sub) -> None:
     p.add_argument("--out", required=True, metavar="FLAGS.csv", help="output CSV ('-' for standard output)")
     p.add_argument("--save", action="store_true",
                    help="store this run as a snapshot (the sharp_rise rule compares with the latest earlier one)")
-    p.add_argument("--by", metavar="NAME", help="who is recorded in the audit trail (default: OS user)")
+    add_actor_option(p)
     p.set_defaults(run=run_flags)
 
     p = sub.add_parser("review", help="record a supervisor review of a case's flag",
@@ -39,7 +40,7 @@ def register(sub) -> None:
     p.add_argument("case_id", metavar="CASE_ID")
     p.add_argument("--status", required=True, choices=STATUS_CHOICES)
     p.add_argument("--note", required=True, metavar="TEXT")
-    p.add_argument("--by", metavar="NAME", help="who made the change (default: OS user)")
+    add_actor_option(p, "who made the change")
     p.add_argument("--as-of", metavar="YYYY-MM-DD",
                    help="date whose P(follow-up now) is recorded with the review (default: today, UTC)")
     p.set_defaults(run=run_review)
@@ -86,7 +87,7 @@ def register(sub) -> None:
     p.add_argument("--set", action="append", default=[], metavar="NAME.KEY=VALUE", dest="assignments")
     p.add_argument("--load", metavar="FILE.json")
     p.add_argument("--export", metavar="FILE.json")
-    p.add_argument("--by", metavar="NAME", help="who is recorded in the audit trail (default: OS user)")
+    add_actor_option(p)
     p.set_defaults(run=run_rules)
 
 

@@ -5,6 +5,8 @@ Heavy libraries (matplotlib, openpyxl, the engine) are imported inside :func:`ru
 
 from __future__ import annotations
 
+from .basic import add_actor_option
+
 
 def register(subparsers) -> None:
     parser = subparsers.add_parser(
@@ -24,7 +26,7 @@ def register(subparsers) -> None:
                         help="calendar (default); relative = days since each case's first contact (safer for "
                              "sharing); shifted = a random offset per case (NOT Safe Harbor de-identification)")
     parser.add_argument("--seed", type=int, metavar="N", help="seed for --dates shifted (default: random)")
-    parser.add_argument("--by", metavar="NAME", help="who is making the report (audit trail; default login name)")
+    add_actor_option(parser, "who is making the report, recorded in the audit trail")
     parser.set_defaults(run=run_report)
 
 

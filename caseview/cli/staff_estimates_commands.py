@@ -4,6 +4,8 @@ from __future__ import annotations
 
 from caseview import ADVISORY_NOTICE
 
+from .basic import add_actor_option
+
 
 def register(sub) -> None:
     p = sub.add_parser("model-from-estimates", help="build a stage model from staff estimates (typical stays, "
@@ -17,7 +19,7 @@ def register(sub) -> None:
     p.add_argument("estimates", metavar="ESTIMATES.json")
     p.add_argument("--out", metavar="MODEL.json", help="write the model file here")
     p.add_argument("--workspace", metavar="WS", help="add the model to this workspace as a new current version")
-    p.add_argument("--by", metavar="NAME", help="who is recorded in the audit trail (default: OS user)")
+    add_actor_option(p)
     p.set_defaults(run=run_model_from_estimates)
 
 

@@ -11,12 +11,8 @@ import sys
 
 
 from .basic import actor_name as _actor
+from .basic import add_actor_option
 from .basic import open_workspace as _open
-
-
-def _add_by(parser) -> None:
-    parser.add_argument("--by", metavar="NAME", help="name recorded in the audit trail (default: the "
-                        "operating-system user; attribution, not authentication)")
 
 
 def register(subparsers) -> None:
@@ -30,7 +26,7 @@ def register(subparsers) -> None:
     first.add_argument("--estimates", metavar="ESTIMATES.json",
                        help="a staff-estimate file (typical stays, next stages, how often checks are wrong); "
                             "see 'caseview model-from-estimates'")
-    _add_by(p)
+    add_actor_option(p)
     p.set_defaults(run=run_init)
 
     p = subparsers.add_parser("import", help="import case timelines from CSV or XLSX (all rows or none)",
@@ -46,19 +42,19 @@ def register(subparsers) -> None:
     p.add_argument("--check", action="store_true",
                    help="check the whole file (and clashes with stored contacts) and say what an import would do; "
                         "store nothing")
-    _add_by(p)
+    add_actor_option(p)
     p.set_defaults(run=run_import)
 
     p = subparsers.add_parser("export", help="export the timelines in the import layout (CSV or XLSX)")
     p.add_argument("workspace", metavar="WS")
     p.add_argument("--out", required=True, metavar="FILE.csv|FILE.xlsx")
-    _add_by(p)
+    add_actor_option(p)
     p.set_defaults(run=run_export)
 
     p = subparsers.add_parser("backup", help="copy the workspace safely (SQLite online backup)")
     p.add_argument("workspace", metavar="WS")
     p.add_argument("destination", metavar="DEST")
-    _add_by(p)
+    add_actor_option(p)
     p.set_defaults(run=run_backup)
 
     p = subparsers.add_parser("audit", help="check or show the tamper-evident audit trail")
