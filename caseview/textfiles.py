@@ -27,3 +27,44 @@ def decode_json(text: str, source: str):
         return json.loads(text)
     except json.JSONDecodeError as exc:
         raise InputError(f"{source}: line {exc.lineno}, column {exc.colno}: not valid JSON ({exc.msg})") from None
+
+
+_LINE_BREAKING = {"\u2028", "\u2029", "\u0085"}
+
+
+def _control(c: str) -> bool:
+    import unicodedata
+
+    return c in _LINE_BREAKING or unicodedata.category(c) in ("Cc", "Cf")
+
+
+def check_one_line(value, what: str) -> str:
+    """``value`` if it is one line of visible text; InputError naming ``what`` otherwise.
+
+    Refused: line breaks, tabs and every other control or invisible formatting character (Unicode
+    categories Cc and Cf, and the line and paragraph separators), which could make a listing such
+    as ``caseview audit show`` print a line that looks like another entry.
+    """
+    text = "" if value is None else str(value)
+    if text.isascii() and text.isprintable():
+        return text
+    bad = next((c for c in text if _control(c)), None)
+    if bad is not None:
+        raise InputError(f"{what}: contains a control character (U+{ord(bad):04X}, at position "
+                         f"{text.index(bad) + 1}); expected one line of plain text without tabs or line breaks")
+    return text
+
+
+def printable(value) -> str:
+    """Text for a one-line listing: control and invisible characters shown as escapes (``\\n``, ``\\t``,
+    ``\\u202e``), so stored text can never forge another line or column of the listing."""
+    text = "" if value is None else str(value)
+    if text.isascii() and text.isprintable():
+        return text
+    out = []
+    for c in text:
+        if _control(c):
+            out.append({"\n": "\\n", "\t": "\\t", "\r": "\\r"}.get(c, f"\\u{ord(c):04x}"))
+        else:
+            out.append(c)
+    return "".join(out)
