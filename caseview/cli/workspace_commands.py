@@ -42,6 +42,11 @@ def register(subparsers) -> None:
     p.add_argument("--check", action="store_true",
                    help="check the whole file (and clashes with stored contacts) and say what an import would do; "
                         "store nothing")
+    p.add_argument("--date-format", metavar="FORMAT",
+                   help="how the date column is written, as a strptime format, e.g. %%d/%%m/%%Y "
+                        "(default YYYY-MM-DD; date cells of a workbook are always read as dates)")
+    p.add_argument("--header-row", type=int, default=1, metavar="N",
+                   help="the row holding the column names (default 1); rows above it are ignored")
     add_actor_option(p)
     p.set_defaults(run=run_import)
 
@@ -110,20 +115,24 @@ def _mapping(pairs) -> dict:
 
 
 def run_import(args) -> int:
+    from pathlib import Path
+
     from caseview.timeline_io import import_timelines
 
     mapping = _mapping(args.map)
     with _open(args.workspace) as ws:
         result = import_timelines(ws, args.file, _actor(args), mapping=mapping, drop=args.drop, replace=args.replace,
-                                  check_only=args.check)
+                                  check_only=args.check, date_format=args.date_format, header_row=args.header_row)
         for warning in result.warnings:
             print(f"caseview: warning: {warning}", file=sys.stderr)
+        for note in result.notes:
+            print(f"caseview: note: {note}", file=sys.stderr)
         if result.check_only:
-            print(f"checked {result.file} (sha256 {result.sha256}, {result.rows_read} rows read): every row is valid; "
+            print(f"checked {Path(result.file).name} (sha256 {result.sha256}, {result.rows_read} rows read): every row is valid; "
                   "nothing was stored")
             verb = "would be "
         else:
-            print(f"imported {result.file} (sha256 {result.sha256}, {result.rows_read} rows read)")
+            print(f"imported {Path(result.file).name} (sha256 {result.sha256}, {result.rows_read} rows read)")
             verb = ""
         print(f"cases {verb}added: {result.cases_added}")
         print(f"contacts {verb}added: {result.contacts_added}")

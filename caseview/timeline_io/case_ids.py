@@ -33,6 +33,7 @@ of IDs (a dictionary of each ID's "skeleton" and of the skeleton with one letter
 from __future__ import annotations
 
 import re
+import string
 import unicodedata
 
 from .reader import NUMBER_CELL_MARK
@@ -44,6 +45,9 @@ _SPACES = re.compile(r"\s+")
 _NOT_ALNUM = re.compile(r"[\W_]+")
 _LEADING_ZEROS = re.compile(r"(?<![0-9])0+(?=[0-9])")
 _LOOK_ALIKE = str.maketrans({"o": "0", "i": "1", "l": "1"})
+_DROP_DIGITS = str.maketrans({c: None for c in string.digits})
+_ASCII_SKELETON = str.maketrans({**{c: None for c in string.punctuation + string.whitespace},
+                                 "o": "0", "i": "1", "l": "1"})
 
 
 def normalise_case_id(text: str) -> tuple[str, str | None]:
@@ -83,15 +87,18 @@ def normalise_case_id(text: str) -> tuple[str, str | None]:
 
 def _skeleton(key: str) -> str:
     """Letters and digits only, look-alikes unified, leading zeros of numbers dropped (key is casefolded)."""
-    return _LEADING_ZEROS.sub("", _NOT_ALNUM.sub("", key).translate(_LOOK_ALIKE))
+    if key.isascii():
+        text = key.translate(_ASCII_SKELETON)
+    else:
+        text = _NOT_ALNUM.sub("", key).translate(_LOOK_ALIKE)
+    return _LEADING_ZEROS.sub("", text) if "0" in text else text
 
 
 def _letter_deletions(skeleton: str) -> set:
     """The skeleton with one letter deleted, for skeletons of at least three letters."""
-    letters = [i for i, c in enumerate(skeleton) if not c.isdigit()]
-    if len(letters) < 3:
+    if len(skeleton.translate(_DROP_DIGITS)) < 3:
         return set()
-    return {skeleton[:i] + skeleton[i + 1:] for i in letters}
+    return {skeleton[:i] + skeleton[i + 1:] for i, c in enumerate(skeleton) if not c.isdigit()}
 
 
 def _how_near(a: str, b: str) -> str:
@@ -119,7 +126,6 @@ class CaseIdBook:
         self.stored: set = set()          # casefolded stored IDs
         self._skeletons: dict = {}        # skeleton -> spelling
         self._deletions: dict = {}        # skeleton with one letter deleted -> spelling
-        self._zero_free: dict = {}        # casefolded ID without leading zeros -> spelling
         self.respelled: dict = {}         # (as read, kept) -> rows
         self.normalised = 0               # rows whose ID changed under rules 2-5
         self.near: list = []              # (new, existing, how, line)
@@ -134,7 +140,6 @@ class CaseIdBook:
 
     def _index(self, value: str, key: str, check: bool, line: int) -> None:
         skeleton = _skeleton(key)
-        self._zero_free.setdefault(_LEADING_ZEROS.sub("", key), value)
         deletions = _letter_deletions(skeleton)
         if check:
             other = self._skeletons.get(skeleton)
@@ -178,8 +183,15 @@ class CaseIdBook:
     def number_cell_problems(self) -> list:
         """(line, message) for workbook number cells that may have lost leading zeros of another ID."""
         out = []
+        if not self.number_cells:
+            return out
+        zero_free = {}
+        for key, spelling in self.spelling.items():
+            zero_free.setdefault(_LEADING_ZEROS.sub("", key), []).append(spelling)
         for value, line in self.number_cells.items():
-            other = self._zero_free.get(_LEADING_ZEROS.sub("", value.casefold()))
+            others = [o for o in zero_free.get(_LEADING_ZEROS.sub("", value.casefold()), ())
+                      if o.casefold() != value.casefold()]
+            other = others[0] if others else None
             if other is not None and other.casefold() != value.casefold():
                 out.append((line, f"a number cell {value!r} where case {other!r} is the same number with leading "
                                   "zeros: the spreadsheet may have dropped them; format the case_id column as Text "

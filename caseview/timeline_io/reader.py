@@ -173,14 +173,17 @@ class TimelineSource:
         row = rows[0] if rows else None
         if not row or not any(cell.strip() for cell in row):
             raise self._no_header()
-        if len(rows) > 1 and len(rows[1]) > len(row) and any(c.strip() for c in rows[1][len(row):]):
+        if len(rows) > 1 and len(rows[1]) > len(row):
             from .validate import shown
 
-            column = len(row) + next(i for i, c in enumerate(rows[1][len(row):]) if c.strip()) + 1
+            extra = rows[1][len(row):]
+            filled = [i for i, c in enumerate(extra) if c.strip()]
+            column = len(row) + (filled[0] if filled else 0) + 1
+            value = shown(extra[filled[0]].strip(), "other", "") if filled else "blank"
             raise InputError(f"{self.facts.label}: line {self.header_row + 1}, column {column}: the row has "
-                             f"{len(rows[1])} cells but the header has {len(row)} columns (extra value "
-                             f"{shown(rows[1][column - 1].strip(), 'other', '')}); check for extra separators "
-                             "(a comma inside a value needs quotes) or a missing column name")
+                             f"{len(rows[1])} cells but the header has {len(row)} columns (extra cell: {value}); "
+                             "check for extra separators (a comma inside a value needs quotes) or a missing "
+                             "column name")
         return row
 
     def chunks(self):
