@@ -184,10 +184,13 @@ def run_audit_show(args) -> int:
     with _open(args.workspace) as ws:
         entries = ws.audit_entries(case_id=args.case, since_utc=since)
         head = ws.audit_head()
+    from caseview.textfiles import printable
+
     for e in entries:
         details = json.dumps(e.details, sort_keys=True, ensure_ascii=False)
         if len(details) > 300:
             details = details[:297] + "..."
-        print(f"{e.id}\t{e.at_utc}\t{e.actor}\t{e.action}\t{e.target}\t{details}")
+        fields = (e.id, e.at_utc, e.actor, e.action, e.target, details)
+        print("\t".join(printable(f) for f in fields))
     print(f"{len(entries)} entries shown; chain head {head}")
     return 0

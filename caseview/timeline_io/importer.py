@@ -62,8 +62,13 @@ def _parse_header(source: TimelineSource, model, mapping: dict, drop) -> tuple[l
     A row none of whose cells (after ``mapping``) is a column caseview knows is probably data, not
     a header: its cells are never repeated in the message (they may be a person's details).
     """
+    from ..cell_text import neutralise
+
     raw = source.header()
     names = [str(h).strip() for h in raw]
+    known = {neutralise(n): n for n in ("case_id", "date", "coordinator", *(c.name for c in model.channels),
+                                        *model.covariates, "stage_known")}
+    names = [known.get(n, n) if n.startswith("'") else n for n in names]   # headers of caseview's own exports
     problems = Problems(source.facts.label)
     where = source.where(source.header_row)
     channel_names = [c.name for c in model.channels]

@@ -293,7 +293,10 @@ class ChunkValidator:
 
     def _categories(self, name: str, cats: tuple, codes: np.ndarray, uniques: np.ndarray) -> np.ndarray:
         """Category index per distinct text (-1 blank, -2 unknown), matched ignoring letter case."""
+        from ..cell_text import neutralise
+
         index = {c: k for k, c in enumerate(cats)}
+        index.update({neutralise(c): k for k, c in enumerate(cats) if neutralise(c) not in index})  # exports
         folded = {c.strip().casefold(): k for k, c in enumerate(cats)}
         index[""] = -1
         coded_u = np.array([index.get(u, folded.get(u.casefold(), -2)) for u in uniques.tolist()], dtype=np.int16)
@@ -315,11 +318,15 @@ class ChunkValidator:
     def _stage_text(self, value: str) -> tuple[str, str | None]:
         if value == "":
             return "", None
+        from ..cell_text import neutralise
+
+        if value.startswith("'") and neutralise(value[1:]) == value:   # caseview's own export
+            value = value[1:]
         names = [part.strip() for part in value.split("|")]
         unknown = [p for p in names if p not in self.rules.stages]
         if unknown or not names:
-            part = shown(unknown[0], "stage_known", "stage_known") if unknown[0] != value else "it"
-            return "", (f"unknown stage ({part}); expected a stage ({', '.join(self.rules.stages)}) "
+            part = f" {shown(unknown[0], 'stage_known', 'stage_known')}" if unknown[0] != value else ""
+            return "", (f"unknown stage{part}; expected a stage ({', '.join(self.rules.stages)}) "
                         "or several joined with '|', or blank")
         chosen = set(names)
         return "|".join(s for s in self.rules.stages if s in chosen), None
