@@ -236,6 +236,7 @@ class ImportDialog(QDialog):
         self.check_button.setEnabled(True)
         self.checked_ok = False
         self.import_button.setEnabled(False)
+        self.progress.setValue(0)
         lines = split_problems(message)
         self.summary.setText(lines[0] if lines else message)
         self.problems.clear()
@@ -243,7 +244,7 @@ class ImportDialog(QDialog):
         suggestion = suggested_date_format(lines)
         if suggestion is not None:
             self.use_suggestion.setProperty("format", suggestion)
-            self.use_suggestion.setText(f"Use {suggestion}")
+            self.use_suggestion.setText(f"Use date format {suggestion}")
             self.use_suggestion.setToolTip(f"Set the date format to {suggestion} and check again")
         self.use_suggestion.setVisible(suggestion is not None)
 

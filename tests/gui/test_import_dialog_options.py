@@ -43,7 +43,7 @@ def test_title_rows_day_first_dates_and_notes(window, qtbot, workspace_path, tmp
     dialog.check()
     qtbot.waitUntil(lambda: dialog.check_button.isEnabled() and dialog.problems.count() > 0, timeout=30000)
     assert any("line 3" in t and "try --date-format %d/%m/%Y" in t for t in _items(dialog))
-    assert not dialog.use_suggestion.isHidden() and dialog.use_suggestion.text() == "Use %d/%m/%Y"
+    assert not dialog.use_suggestion.isHidden() and dialog.use_suggestion.text() == "Use date format %d/%m/%Y"
     dialog.use_suggestion.click()
     qtbot.waitUntil(lambda: dialog.import_button.isEnabled(), timeout=30000)
     assert dialog.import_options() == {"date_format": "%d/%m/%Y", "header_row": 2}
