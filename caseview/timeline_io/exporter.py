@@ -98,8 +98,11 @@ def export_timelines(ws, out_path, actor: str) -> ExportResult:
         with open(temporary, "rb") as fh:
             for block in iter(lambda: fh.read(1 << 20), b""):
                 digest.update(block)
-        entry = ws.audit_append(actor, "export", out_path.name,
-                                {"file": out_path.name, "rows": int(len(table)), "cases": n_cases,
+        from .importer import audited_file_name
+
+        name = audited_file_name(out_path.name, digest.hexdigest())
+        entry = ws.audit_append(actor, "export", name,
+                                {"file": name, "rows": int(len(table)), "cases": n_cases,
                                  "sha256": digest.hexdigest()})
         os.replace(temporary, out_path)
     except OSError as exc:

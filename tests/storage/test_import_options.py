@@ -143,6 +143,12 @@ def test_identifier_in_the_file_name_is_not_written_to_the_audit_trail(ws, tmp_p
     plain = write_csv(tmp_path / "march visits.csv", ROWS[:1])
     import_timelines(ws, plain, "tester")
     assert ws.audit_entries()[-1].target == "march visits.csv"
+    from caseview.timeline_io import export_timelines
+
+    exported = export_timelines(ws, tmp_path / "for Mrs Jones.csv", "tester")
+    entry = ws.audit_entries()[-1]
+    assert entry.action == "export" and "Jones" not in f"{entry.target} {entry.details}"
+    assert entry.target == f"file {exported.sha256[:12]}.csv (name withheld)"
 
 
 def test_messages_name_the_file_not_its_folder(ws, tmp_path):
