@@ -4,8 +4,9 @@ A spreadsheet program runs a cell that starts with ``=``, ``+``, ``-`` or ``@`` 
 (OWASP "CSV Injection"; tab and carriage return are included as OWASP recommends). Every CSV and
 XLSX writer of caseview passes its text cells, headers included, through :func:`neutralise`,
 which puts an apostrophe in front of such text so the program shows it instead of running it.
-A cell that is a plain number (``-0.5``, ``+3``, ``-1e-05``) is a number, not a formula, and is
-left alone, so negative covariates stay numbers.
+Writers whose numbers arrive already formatted as text (the command line's CSV tables) pass
+``keep_numbers=True``: a cell that is a plain number (``-0.5``, ``+3``, ``-1e-05``) is a number,
+not a formula, and stays as it is, so negative covariates stay numbers.
 """
 
 from __future__ import annotations
@@ -17,12 +18,13 @@ _NUMBER = re.compile(r"[+-]?(?:\d+\.?\d*|\.\d+)(?:[eE][+-]?\d+)?")
 _RISKY_IN_JOINED = re.compile(r"(?:^|\x00)[=+\-@\t\r]")
 
 
-def neutralise(value):
+def neutralise(value, keep_numbers: bool = False):
     """``value`` with an apostrophe in front when it is text a spreadsheet would run as a formula.
 
-    Non-text values pass through unchanged (numbers stay numbers).
+    Non-text values pass through unchanged (numbers stay numbers); with ``keep_numbers`` so does
+    text that is a plain number.
     """
-    if isinstance(value, str) and value.startswith(FORMULA_START) and not _NUMBER.fullmatch(value):
+    if isinstance(value, str) and value.startswith(FORMULA_START) and not (keep_numbers and _NUMBER.fullmatch(value)):
         return "'" + value
     return value
 
@@ -32,13 +34,13 @@ def risky_joined(joined: str) -> bool:
     return _RISKY_IN_JOINED.search(joined) is not None
 
 
-def neutralise_all(values) -> list:
+def neutralise_all(values, keep_numbers: bool = False) -> list:
     """:func:`neutralise` over a sequence of text cells (one pass over the joined text when clean)."""
     values = values if isinstance(values, list) else list(values)
     try:
         joined = "\x00".join(values)
     except TypeError:
-        return [neutralise(v) for v in values]
+        return [neutralise(v, keep_numbers) for v in values]
     if not _RISKY_IN_JOINED.search(joined):
         return values
-    return [neutralise(v) for v in values]
+    return [neutralise(v, keep_numbers) for v in values]

@@ -103,7 +103,8 @@ def model_name_problems(stages, channels, covariates) -> list:
         out.append((paths[b], f"{columns[b]!r} and {columns[a]!r} differ only in letter case or a spreadsheet "
                               "escape, so they would be one column of the timeline file"))
     for i, (name, categories) in enumerate(channels):
-        for key, how in ((lambda c: c.strip().casefold(), "letter case"), (neutralise, "a spreadsheet's formula escape")):
+        rules = ((lambda c: c.strip().casefold(), "letter case"), (neutralise, "a spreadsheet's formula escape"))
+        for key, how in rules:
             clash = _clashes(list(categories), key)
             if clash:
                 a, b = clash

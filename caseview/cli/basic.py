@@ -96,7 +96,7 @@ def write_table(out: str, header: list, columns: list, advisory: bool = True) ->
         header = [*header, "advisory"]
         columns = [*columns, itertools.repeat(ADVISORY_NOTICE, len(columns[0]))]
     columns = [list(column) for column in columns]  # read once, whichever way they are written
-    header = [neutralise(str(name)) for name in header]
+    header = [neutralise(str(name)) for name in header]   # a header is never a number
     body = _csv_body(columns)
 
     def write(handle):
@@ -105,7 +105,8 @@ def write_table(out: str, header: list, columns: list, advisory: bool = True) ->
         if body is not None:
             handle.write(body)
         else:
-            writer.writerows(([neutralise(v) for v in row] for row in zip(*columns)) if columns else iter(()))
+            rows = zip(*columns) if columns else iter(())
+            writer.writerows([neutralise(v, keep_numbers=True) for v in row] for row in rows)
 
     if out == "-":
         write(sys.stdout)
@@ -150,7 +151,7 @@ def _csv_body(columns):
         if joined.count("\x00") != max(len(column) - 1, 0):
             return None
         if risky_joined(joined):
-            column = neutralise_all(column)
+            column = neutralise_all(column, keep_numbers=True)
             joined = "\x00".join(column)
         if any(mark in joined for mark in _NEEDS_QUOTES):
             buffer = io.StringIO()

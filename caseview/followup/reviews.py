@@ -15,9 +15,9 @@ control characters: they would let a listing print a forged line), and a note go
 identifier screen (:mod:`caseview.privacy`) like every imported value: a note that looks like it
 holds a direct identifier (a name with a title, a phone number, an address, a full date, ...) is
 refused, not masked, because a masked note would no longer say what its author meant; the
-message says what it looks like without repeating it. Each change is stored in ONE transaction with its audit entry (action
-``review.<status>``, target the case ID; details: previous status, note, flags, P(follow-up now),
-as-of date). The actor is the operating-system user unless ``--by`` names someone: attribution,
+message says what it looks like without repeating it. Each change is stored in ONE transaction
+with its audit entry (action ``review.<status>``, target the case ID; details: previous status,
+note, flags, P(follow-up now), as-of date). The actor is the operating-system user unless ``--by`` names someone: attribution,
 not authentication.
 
 Re-opening: a dismissed case whose P(follow-up stage now) at a later assessment (as-of date on or

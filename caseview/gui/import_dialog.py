@@ -145,7 +145,8 @@ class ImportDialog(QDialog):
             header, rows = read_preview(path, header_row=self.header_row.value())
         except (InputError, OSError, ValueError) as exc:
             self.preview.setRowCount(0)
-            self.summary.setText(f"Cannot read {self.path.name}: {exc}" if not isinstance(exc, InputError) else str(exc))
+            text = str(exc) if isinstance(exc, InputError) else f"Cannot read {self.path.name}: {exc}"
+            self.summary.setText(text)
             return
         self.preview.setColumnCount(len(header))
         self.preview.setHorizontalHeaderLabels(header)

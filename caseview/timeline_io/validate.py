@@ -312,7 +312,8 @@ class ChunkValidator:
         """``read 'Slow' as 'slow' 12 times`` lines for the import summary, one per channel."""
         by_channel: dict = {}
         for (name, written, category), n in self.category_reads.items():
-            by_channel.setdefault(name, []).append(f"read {written!r} as {category!r} {n:,} time{'s' if n != 1 else ''}")
+            times = f"{n:,} time{'s' if n != 1 else ''}"
+            by_channel.setdefault(name, []).append(f"read {written!r} as {category!r} {times}")
         return [f"{label}: column {name!r}: {'; '.join(parts)}" for name, parts in by_channel.items()]
 
     def _stage_text(self, value: str) -> tuple[str, str | None]:

@@ -74,6 +74,7 @@ def test_reviews_listing_escapes_stored_control_characters(ws, tmp_path, capsys)
 def test_cli_note_with_a_phone_number_is_a_one_line_error(ws, capsys):
     path = str(ws.path)
     ws.close()
-    code = main(["review", path, "HS-0001", "--status", "acknowledged", "--note", "ring 07700 900123", "--as-of", "2026-09-05"])
+    code = main(["review", path, "HS-0001", "--status", "acknowledged", "--note", "ring 07700 900123",
+                 "--as-of", "2026-09-05"])
     err = capsys.readouterr().err
     assert code == 2 and "07700" not in err and len(err.strip().splitlines()) == 1
