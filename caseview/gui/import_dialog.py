@@ -26,7 +26,7 @@ from .workers import JobRunner
 PREVIEW_ROWS = 8
 LEAVE_OUT = "(leave out)"
 
-_SUGGESTED_FORMAT = re.compile(r"try --date-format (\S+)")
+_SUGGESTED_FORMAT = re.compile(r"try --date-format ('[^']+'|\S+)")
 
 
 def read_preview(path, rows: int = PREVIEW_ROWS, header_row: int = 1) -> tuple:
@@ -41,7 +41,7 @@ def suggested_date_format(messages) -> str | None:
     for text in messages:
         found = _SUGGESTED_FORMAT.search(str(text))
         if found:
-            return found.group(1)
+            return found.group(1).strip("'")
     return None
 
 

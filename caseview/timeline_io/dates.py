@@ -86,6 +86,12 @@ def date_format_hint(value: str, date_format: str | None) -> str:
     m = _YEAR_MONTH_DAY.match(text)
     if m and f"%Y{m.group(2)}%m{m.group(2)}%d" != date_format:
         return f"; try --date-format %Y{m.group(2)}%m{m.group(2)}%d"
+    if re.fullmatch(r"\d{4}-\d{2}-\d{2}[T ]\d{2}:\d{2}(:\d{2})?", text):
+        seconds = ":%S" if text.count(":") == 2 else ""
+        return f"; the date has a time of day: try --date-format '%Y-%m-%d{text[10]}%H:%M{seconds}'"
+    if re.fullmatch(r"[1-9]\d{4}(\.0+)?", text) and 1 <= float(text) <= 2_958_465:
+        return ("; it looks like an Excel serial day number: import the .xlsx workbook itself (its day numbers "
+                "are read as dates) or format the column as dates before saving as CSV")
     if date_format is not None and re.match(_DATE_SHAPE, text):
         return "; the other dates use --date-format, this one is YYYY-MM-DD: write all dates one way"
     if date_format is None:

@@ -49,6 +49,26 @@ def test_date_format_is_strict_and_checked(ws, tmp_path):
     assert ws.contact_count() == 0
 
 
+@pytest.mark.parametrize("value,hint", [
+    ("31/12/2025", "try --date-format %d/%m/%Y"), ("12/31/2025", "try --date-format %m/%d/%Y"),
+    ("2025/01/05", "try --date-format %Y/%m/%d"), ("05.01.25", "%d.%m.%y (day first) or %m.%d.%y (month first)"),
+    ("2025-01-05 10:30", "try --date-format '%Y-%m-%d %H:%M'"), ("45292", "Excel serial day number"),
+])
+def test_date_hints_name_the_option_that_reads_the_value(ws, tmp_path, value, hint):
+    from caseview.gui.import_dialog import suggested_date_format
+
+    rows = [list(r) for r in ROWS]
+    rows[0][1] = value
+    with pytest.raises(InputError) as info:
+        import_timelines(ws, write_csv(tmp_path / "d.csv", rows), "tester")
+    assert hint in str(info.value)
+    if "try --date-format" in hint:   # the window's button offers the same format, and it reads the value
+        fmt = suggested_date_format(str(info.value).splitlines())
+        rows = [list(r) for r in ROWS[:1]]
+        rows[0][1] = value
+        assert import_timelines(ws, write_csv(tmp_path / "e.csv", rows), "tester", date_format=fmt).contacts_added == 1
+
+
 def test_header_row_option_skips_title_rows(ws, tmp_path):
     path = tmp_path / "titled.csv"
     text = "Home visits export,,,\nprepared for the team meeting,,,\n" + ",".join(HEADER) + "\n"
