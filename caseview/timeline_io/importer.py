@@ -167,16 +167,20 @@ def _duplicates_in_file(data: dict, problems: Problems, where) -> np.ndarray:
 
 
 def audited_file_name(name: str, sha256: str) -> str:
-    """The file name as the audit trail keeps it: the name itself, or ``file <sha256 prefix><suffix>``
-    when the name looks like it holds an identifier (the trail is append-only: it can never be removed)."""
+    """The file name as the audit trail keeps it: the name itself, or ``file <sha256 prefix><suffix>
+    (name withheld)`` when the name may hold an identifier (the trail is append-only: nothing written
+    there can be removed). Withheld: anything the identifier screen flags in the name, two capitalised
+    words in a row (``Mary Smith visits.csv``; a harmless false alarm for ``Team Export.csv``), and
+    control characters. The SHA-256 in the entry still identifies the file exactly."""
+    import re
     from pathlib import PurePath
 
     from .. import privacy
 
     stem, suffix = PurePath(name).stem, PurePath(name).suffix
-    words = stem.replace("_", " ").replace(".", " ")
+    words = re.sub(r"[_.]+", " ", stem)
     flagged = (privacy.screen_value(stem, "other") or privacy.screen_value(words, "other")
-               or privacy.screen_column_name(stem) is not None and privacy.screen_value(words, "coordinator"))
+               or re.search(r"\b[A-Z][a-z]+[\s_.-]+[A-Z][a-z]+\b", stem))
     if flagged or not name.isprintable():
         return f"file {sha256[:12]}{suffix if suffix.isascii() and suffix.isprintable() else ''} (name withheld)"
     return name

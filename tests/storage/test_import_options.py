@@ -160,6 +160,9 @@ def test_identifier_in_the_file_name_is_not_written_to_the_audit_trail(ws, tmp_p
     text = f"{entry.target} {entry.details}"
     assert "jane.doe" not in text and "1948" not in text
     assert entry.target == f"file {result.sha256[:12]}.csv (name withheld)"
+    named = write_csv(tmp_path / "Mary Smith visits.csv", ROWS[:2])
+    import_timelines(ws, named, "tester")
+    assert "Smith" not in ws.audit_entries()[-1].target
     plain = write_csv(tmp_path / "march visits.csv", ROWS[:1])
     import_timelines(ws, plain, "tester")
     assert ws.audit_entries()[-1].target == "march visits.csv"
