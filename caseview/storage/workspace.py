@@ -29,7 +29,6 @@ from .caseload import Caseload, load_caseload
 from .contacts import register_model_fields
 from .filesystem import network_warning
 
-SQLITE_MAGIC = b"SQLite format 3\x00"
 DEFAULT_BUSY_TIMEOUT_MS = 5000
 
 
@@ -156,18 +155,20 @@ class Workspace:
             raise WorkspaceError(f"{path}: no such workspace (create one with 'caseview init')")
         if not path.is_file():
             raise WorkspaceError(f"{path}: not a file, so not a caseview workspace")
-        try:
-            with open(path, "rb") as fh:
-                head = fh.read(100)
-        except OSError as exc:
-            raise WorkspaceError(f"{path}: cannot read ({exc.strerror})") from None
-        if len(head) < 100 or not head.startswith(SQLITE_MAGIC):
-            raise WorkspaceError(f"{path}: not a caseview workspace (not an SQLite database file)")
+        # The header is read through SQLite, never with a plain open(): closing any descriptor of the
+        # file drops every POSIX lock this process holds on it, so another process would think it
+        # is the last user and delete the WAL under our other connections (SQLite, "How To Corrupt
+        # An SQLite Database File", section 2.2). In WAL mode the newest header may also sit in the -wal.
         ws = cls(path, busy_timeout_ms)
         try:
             con = ws.connection
-            # read through SQLite: in WAL mode the newest header may still sit in the -wal file
-            if con.execute("PRAGMA application_id").fetchone()[0] != _schema.APPLICATION_ID:
+            try:
+                application_id = con.execute("PRAGMA application_id").fetchone()[0]
+            except sqlite3.DatabaseError as exc:
+                if "not a database" in str(exc) or "file is encrypted" in str(exc):
+                    raise WorkspaceError(f"{path}: not a caseview workspace (not an SQLite database file)") from None
+                raise
+            if application_id != _schema.APPLICATION_ID:
                 raise WorkspaceError(f"{path}: not a caseview workspace (an SQLite file of another program)")
             version = con.execute("PRAGMA user_version").fetchone()[0]
             current = _schema.schema_version()
@@ -189,6 +190,16 @@ class Workspace:
             raise
         ws._check_network()
         return ws
+
+    def is_own_file(self, path) -> bool:
+        """True when ``path`` is this workspace's file or its -wal/-shm/-journal (compared with stat, never opened)."""
+        for suffix in ("", "-wal", "-shm", "-journal"):
+            try:
+                if os.path.samefile(path, str(self.path) + suffix):
+                    return True
+            except OSError:
+                continue
+        return False
 
     def _check_network(self) -> None:
         warning = network_warning(self.path)
@@ -235,10 +246,15 @@ class Workspace:
         self._local.depth = 1
         try:
             yield con
+        except sqlite3.DatabaseError as exc:  # never a silent or raw SQLite error for the user
+            self._local.depth = 0
+            self._rollback(con)
+            if isinstance(exc, sqlite3.OperationalError) and _is_busy(exc):
+                raise WorkspaceBusy(_busy_message(self.path)) from None
+            raise WorkspaceError(f"{self.path}: write failed, nothing was changed ({exc})") from None
         except BaseException:
             self._local.depth = 0
-            if con.in_transaction:
-                con.execute("ROLLBACK")
+            self._rollback(con)
             raise
         self._local.depth = 0
         try:
@@ -249,6 +265,14 @@ class Workspace:
             if _is_busy(exc):
                 raise WorkspaceBusy(_busy_message(self.path)) from None
             raise WorkspaceError(f"{self.path}: write failed, nothing was changed ({exc})") from None
+
+    @staticmethod
+    def _rollback(con) -> None:
+        if con.in_transaction:
+            try:
+                con.execute("ROLLBACK")
+            except sqlite3.Error:  # SQLite already rolled back (e.g. after a disk error)
+                pass
 
     # ------------------------------------------------------------ backup
     def backup(self, destination, actor: str | None = None) -> Path:

@@ -159,6 +159,8 @@ def import_timelines(ws, path, actor: str, mapping: dict | None = None, drop=(),
 
     report = progress or (lambda fraction: None)
     report(0.0)
+    if ws.is_own_file(path):  # reading it with open() would drop this process's SQLite locks on it
+        raise InputError(f"{path}: this is the workspace file itself, not a timeline file; nothing was imported")
     facts = scan_file(path)
     report(0.05)
     model, version = ws.current_model()

@@ -1,0 +1,34 @@
+"""A write that fails in the window is never silent (issue 12, item 1: an Acknowledge click did nothing)."""
+
+from __future__ import annotations
+
+import sqlite3
+
+import pytest
+
+from .conftest import open_ws
+
+pytestmark = pytest.mark.gui
+
+
+def test_failing_review_write_is_shown_and_stores_nothing(window, qtbot, workspace_path, monkeypatch):
+    pytest.importorskip("caseview.followup")
+    open_ws(window, qtbot, workspace_path)
+    queue = window.risk_queue
+    queue.table.selectRow(0)
+    case_id = queue.table.item(0, 0).text()
+    before = len(window.workspace().audit_entries())
+
+    def damaged(*args, **kwargs):  # what SQLite raised in the reported session
+        raise sqlite3.DatabaseError("database disk image is malformed")
+
+    from caseview.storage import followup_store
+
+    monkeypatch.setattr(followup_store, "insert_review", damaged)
+    shown = []
+    monkeypatch.setattr(window, "show_error", shown.append)
+    assert queue.review_selected("acknowledged", note="seen") is False
+    assert shown and "malformed" in shown[0] and "nothing was changed" in shown[0]
+    assert len(window.workspace().audit_entries()) == before  # the audit entry rolled back with the review
+    assert window.caseload.model.data(window.caseload.model.index(
+        window.caseload.model.view_row_of_case(case_id), 9)) != "acknowledged"
