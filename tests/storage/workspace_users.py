@@ -114,9 +114,11 @@ class Tally:
     integrity: str
     failures: list
     missing: list
+    by_kind: dict
 
     def line(self) -> str:
-        return (f"attempted {self.attempted}, reported success {self.reported_ok}, found {self.found}, "
+        kinds = ", ".join(f"{kind} {n}" for kind, n in sorted(self.by_kind.items()))
+        return (f"attempted {self.attempted} ({kinds}), reported success {self.reported_ok}, found {self.found}, "
                 f"audited {self.audited}, integrity {self.integrity}, failures {len(self.failures)}")
 
 
@@ -155,7 +157,10 @@ def tally(path: str, results: list, review_cases: int = 0) -> Tally:
         missing.append(("review", f"{n_review_ok} reported, {n_reviews} stored, {review_entries} audited"))
         found -= n_review_ok - min(n_reviews, n_review_ok)
         audited -= n_review_ok - min(review_entries, n_review_ok)
-    return Tally(len(results), len(ok), found, audited, integrity, failures, missing)
+    by_kind = {}
+    for kind, _, _ in results:
+        by_kind[kind] = by_kind.get(kind, 0) + 1
+    return Tally(len(results), len(ok), found, audited, integrity, failures, missing, by_kind)
 
 
 def soak(folder, model_text: str, seconds: float = 180.0, importers: int = 3, reviewers: int = 2) -> Tally:
