@@ -28,6 +28,7 @@ from . import schema as _schema
 from .caseload import Caseload, load_caseload
 from .contacts import register_model_fields
 from .filesystem import network_warning
+from .row_digests import LAYOUT_TABLES, RowChanges
 
 DEFAULT_BUSY_TIMEOUT_MS = 5000
 
@@ -214,6 +215,7 @@ class Workspace:
             con.execute(f"PRAGMA user_version = {number}")
 
     def _migrate(self, from_version: int) -> None:
+        digests_from = _schema.MIGRATIONS.index(_schema.ROW_DIGESTS) + 1
         stamp = _dt.datetime.now(_dt.timezone.utc).strftime("%Y%m%dT%H%M%SZ")
         backup_path = self.path.with_name(f"{self.path.name}.v{from_version}-backup-{stamp}")
         self.backup(backup_path, actor=None)
@@ -222,6 +224,9 @@ class Workspace:
             _audit.append(self.connection, "caseview", "workspace.migrate", self.path.name,
                           {"from_version": from_version, "to_version": _schema.schema_version(),
                            "backup": backup_path.name})
+            if from_version < digests_from:  # records made before row digests: the trail takes them as they are
+                _audit.append(self.connection, "caseview", "audit.baseline", self.path.name,
+                              {"note": "baseline digest of existing rows"}, changes=RowChanges.everything())
         self.warnings.append(f"workspace upgraded from schema version {from_version} to "
                              f"{_schema.schema_version()}; the old file was kept as {backup_path}")
 
@@ -327,7 +332,11 @@ class Workspace:
         model = parse_model(json_text, source="model")
         summary = _audit.canonical_json(fit_summary) if fit_summary is not None else None
         with self.transaction() as con:
+            width = con.execute("SELECT (SELECT COUNT(*) FROM channels), (SELECT COUNT(*) FROM covariates)").fetchone()
             register_model_fields(con, model)
+            widened = width != con.execute("SELECT (SELECT COUNT(*) FROM channels), "
+                                           "(SELECT COUNT(*) FROM covariates)").fetchone()
+            old = con.execute("SELECT id FROM model_versions WHERE is_current = 1").fetchone()
             version_id = con.execute(
                 "INSERT INTO model_versions (created_utc, note, json_text, fit_summary, is_current) "
                 "VALUES (?, ?, ?, ?, 0)", (_audit.utc_now(), note or "", json_text, summary)).lastrowid
@@ -338,8 +347,10 @@ class Workspace:
                        "model_sha256": hashlib.sha256(json_text.encode("utf-8")).hexdigest()}
             if fit_summary is not None:
                 details["fit_summary"] = fit_summary
+            changes = RowChanges(rows={"model_versions": [version_id] + ([old[0]] if old else [])},
+                                 all_rows=LAYOUT_TABLES, all_cases=widened)  # new fields widen every contact
             _audit.append(con, actor, "model.fit" if fit_summary is not None else "model.add",
-                          f"model:{version_id}", details)
+                          f"model:{version_id}", details, changes=changes)
         return version_id
 
     def set_current_model(self, version_id: int, actor: str) -> None:
@@ -352,7 +363,8 @@ class Workspace:
             con.execute("UPDATE model_versions SET is_current = 0 WHERE is_current = 1")
             con.execute("UPDATE model_versions SET is_current = 1 WHERE id = ?", (int(version_id),))
             _audit.append(con, actor, "model.current", f"model:{version_id}",
-                          {"version": int(version_id), "previous": old[0] if old else None})
+                          {"version": int(version_id), "previous": old[0] if old else None},
+                          changes=RowChanges(rows={"model_versions": [int(version_id)] + ([old[0]] if old else [])}))
 
     # ------------------------------------------------------------ contacts
     def load_caseload(self, model, as_of_day: int | None = None) -> Caseload:
@@ -389,15 +401,34 @@ class Workspace:
         return self.connection.execute("PRAGMA integrity_check").fetchone()[0]
 
     # ------------------------------------------------------------ audit
-    def audit_append(self, actor: str, action: str, target: str, details: dict) -> _audit.AuditEntry:
+    def audit_append(self, actor: str, action: str, target: str, details: dict, changes: RowChanges | None = None,
+                     at_utc: str | None = None) -> _audit.AuditEntry:
+        """Append an audit entry; ``changes`` names the protected rows this write changed (see
+        :class:`caseview.storage.row_digests.RowChanges`; call after writing them, same transaction)."""
         with self.transaction() as con:
-            return _audit.append(con, actor, action, target, details)
+            return _audit.append(con, actor, action, target, details, changes=changes, at_utc=at_utc)
+
+    def next_audit_entry_id(self) -> int:
+        """Id the next audit entry will get (stable inside a write transaction)."""
+        return _audit.next_entry_id(self.connection)
 
     def audit_entries(self, case_id: str | None = None, since_utc: str | None = None) -> list[_audit.AuditEntry]:
         return _audit.entries(self.connection, case_id, since_utc)
 
-    def audit_verify(self) -> _audit.AuditVerification:
-        return _audit.verify(self.connection)
+    def audit_verify(self, rows: bool = True) -> _audit.AuditVerification:
+        """The chain and (with ``rows``) every protected record against the trail, in one read snapshot."""
+        con = self.connection
+        if con.in_transaction:
+            return _audit.verify(con, rows)
+        con.execute("BEGIN")  # one consistent snapshot while others write
+        try:
+            return _audit.verify(con, rows)
+        finally:
+            con.execute("COMMIT")
+
+    def audit_position(self, entry_hash: str) -> tuple[int | None, int]:
+        """(id of the entry with ``entry_hash`` or None, id of the newest entry)."""
+        return _audit.position_of(self.connection, entry_hash)
 
     def audit_head(self) -> str:
         return _audit.head(self.connection)
@@ -414,7 +445,8 @@ class Workspace:
             con.execute("INSERT INTO settings (key, value) VALUES (?, ?) "
                         "ON CONFLICT(key) DO UPDATE SET value = excluded.value", (key, text))
             _audit.append(con, actor, "setting.change", f"setting:{key}",
-                          {"key": key, "old": json.loads(row[0]) if row else None, "new": value})
+                          {"key": key, "old": json.loads(row[0]) if row else None, "new": value},
+                          changes=RowChanges(rows={"settings": [key]}))
 
 
 def _split_sql(script: str) -> list[str]:

@@ -214,7 +214,8 @@ def import_timelines(ws, path, actor: str, mapping: dict | None = None, drop=(),
                 details["case_ids"] = sorted({d["case_id"] for d in counts.replaced_details})
             if check_only:
                 raise _RollBack()
-            entry = ws.audit_append(actor, "import.replace" if counts.replaced else "import", facts.path.name, details)
+            entry = ws.audit_append(actor, "import.replace" if counts.replaced else "import", facts.path.name, details,
+                                    changes=counts.row_changes)
     except _RollBack:
         entry = None
     except ContactConflicts as conflict:
