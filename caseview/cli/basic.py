@@ -55,10 +55,11 @@ def actor_name(args) -> str:
     return getattr(args, "by", None) or os_user()
 
 
-def open_workspace(path):
+def open_workspace(path, read_only: bool | None = None):
+    """Open a workspace for a command; read-only when asked, or when the file or folder cannot be written."""
     from caseview.storage import Workspace
 
-    ws = Workspace.open(path)
+    ws = Workspace.open(path, read_only=read_only)
     for warning in ws.warnings:
         print(f"caseview: warning: {warning}", file=sys.stderr)
     return ws

@@ -55,8 +55,10 @@ def _is_busy(exc: sqlite3.OperationalError) -> bool:
 class Workspace:
     """An open workspace. Use :meth:`create` or :meth:`open`; close with :meth:`close` or ``with``."""
 
-    def __init__(self, path, busy_timeout_ms: int | None = None):
+    def __init__(self, path, busy_timeout_ms: int | None = None, read_only: bool = False):
         self.path = Path(path)
+        self.read_only = bool(read_only)
+        self._immutable = False
         if busy_timeout_ms is None:
             busy_timeout_ms = int(os.environ.get("CASEVIEW_BUSY_TIMEOUT_MS", DEFAULT_BUSY_TIMEOUT_MS))
         self.busy_timeout_ms = int(busy_timeout_ms)
@@ -70,8 +72,11 @@ class Workspace:
     # ------------------------------------------------------------ connections
     def _connect(self) -> sqlite3.Connection:
         try:
-            con = sqlite3.connect(str(self.path), isolation_level=None, check_same_thread=False,
-                                  timeout=self.busy_timeout_ms / 1000.0)
+            if self.read_only:
+                con = self._connect_read_only()
+            else:
+                con = sqlite3.connect(str(self.path), isolation_level=None, check_same_thread=False,
+                                      timeout=self.busy_timeout_ms / 1000.0)
             con.execute(f"PRAGMA busy_timeout = {self.busy_timeout_ms}")
             con.execute("PRAGMA foreign_keys = ON")
             con.execute("PRAGMA synchronous = FULL")
@@ -82,6 +87,25 @@ class Workspace:
         except sqlite3.DatabaseError as exc:
             raise WorkspaceError(f"{self.path}: not a caseview workspace ({exc})") from None
         return con
+
+    def _connect_read_only(self) -> sqlite3.Connection:
+        """``mode=ro``; when SQLite cannot even make the shared-memory file (a read-only folder with no
+        -shm beside the file), ``immutable=1``: nothing can change a file nobody can write."""
+        from urllib.parse import quote
+
+        base = "file:" + quote(str(self.path.absolute()))
+        for query in (("?mode=ro&immutable=1",) if self._immutable else ("?mode=ro", "?mode=ro&immutable=1")):
+            con = sqlite3.connect(base + query, uri=True, isolation_level=None, check_same_thread=False,
+                                  timeout=self.busy_timeout_ms / 1000.0)
+            try:
+                con.execute("SELECT COUNT(*) FROM sqlite_master").fetchone()
+                self._immutable = "immutable" in query
+                return con
+            except sqlite3.OperationalError as exc:
+                con.close()
+                if "immutable" in query or "unable to open" not in str(exc):
+                    raise
+        raise AssertionError("unreachable")
 
     @property
     def connection(self) -> sqlite3.Connection:
@@ -127,6 +151,9 @@ class Workspace:
         if not path.parent.exists():
             raise WorkspaceError(f"{path.parent}: folder does not exist")
         parse_model(model_json, source="model")  # InputError before any file is made
+        from ..private_files import create_private_file
+
+        create_private_file(path)  # 0600 from the start; SQLite gives -wal/-shm the same mode
         ws = cls(path, busy_timeout_ms)
         try:
             con = ws.connection
@@ -149,18 +176,25 @@ class Workspace:
         return ws
 
     @classmethod
-    def open(cls, path, busy_timeout_ms: int | None = None) -> "Workspace":
-        """Open an existing workspace, migrating it forward (after a backup) if it is older."""
+    def open(cls, path, busy_timeout_ms: int | None = None, read_only: bool | None = None) -> "Workspace":
+        """Open an existing workspace, migrating it forward (after a backup) if it is older.
+
+        ``read_only``: True opens it for reading only (SQLite ``mode=ro``; writes are refused); None
+        (default) does so when the file or its folder cannot be written (a read-only file system or
+        permissions), False never.
+        """
         path = Path(path)
         if not path.exists():
             raise WorkspaceError(f"{path}: no such workspace (create one with 'caseview init')")
         if not path.is_file():
             raise WorkspaceError(f"{path}: not a file, so not a caseview workspace")
+        if read_only is None:
+            read_only = not (os.access(path, os.W_OK) and os.access(path.absolute().parent, os.W_OK))
         # The header is read through SQLite, never with a plain open(): closing any descriptor of the
         # file drops every POSIX lock this process holds on it, so another process would think it
         # is the last user and delete the WAL under our other connections (SQLite, "How To Corrupt
         # An SQLite Database File", section 2.2). In WAL mode the newest header may also sit in the -wal.
-        ws = cls(path, busy_timeout_ms)
+        ws = cls(path, busy_timeout_ms, read_only=read_only)
         try:
             con = ws.connection
             try:
@@ -176,10 +210,13 @@ class Workspace:
             if version > current:
                 raise WorkspaceError(f"{path}: workspace was written by a newer caseview (schema version {version}; "
                                      f"this caseview understands up to {current}); update caseview")
+            if version < current and read_only:
+                raise WorkspaceError(f"{path}: this workspace must be upgraded (schema version {version} to {current}) "
+                                     "and it is read-only here; open it once with write access (nothing was changed)")
             if version < current:
                 ws._migrate(version)
             mode = con.execute("PRAGMA journal_mode").fetchone()[0]
-            if str(mode).lower() != "wal":
+            if str(mode).lower() != "wal" and not read_only:
                 con.execute("PRAGMA journal_mode = WAL")
         except sqlite3.DatabaseError as exc:
             ws.close()
@@ -235,6 +272,9 @@ class Workspace:
     def transaction(self):
         """``BEGIN IMMEDIATE`` ... ``COMMIT`` (``ROLLBACK`` on any exception); nested calls join."""
         con = self.connection
+        if self.read_only:
+            raise WorkspaceError(f"{self.path}: the workspace is open read-only (the file or its folder cannot be "
+                                 "written); nothing was changed")
         if self._local.depth:
             self._local.depth += 1
             try:
@@ -281,24 +321,55 @@ class Workspace:
 
     # ------------------------------------------------------------ backup
     def backup(self, destination, actor: str | None = None) -> Path:
-        """Copy the workspace with SQLite's online backup API (consistent while others read)."""
+        """Copy the workspace with SQLite's online backup API (consistent while others read).
+
+        The copy is written to a 0600 partial file, checked with ``PRAGMA integrity_check`` and only
+        then moved to ``destination``; the audit entry (with ``actor``) is written after that, so a
+        failed or interrupted backup leaves neither a file nor an entry.
+        """
+        from ..private_files import create_private_file, describe_os_error, partial_path
+
         destination = Path(destination)
-        if destination.exists():
+        if destination.exists() or destination.is_symlink():
             raise WorkspaceError(f"{destination} already exists; choose a new backup path")
-        if actor is not None:
-            self.audit_append(actor, "workspace.backup", self.path.name, {"destination": str(destination)})
+        if not destination.parent.is_dir():
+            raise WorkspaceError(f"{destination.parent}: folder does not exist")
+        if actor is not None and self.read_only:
+            raise WorkspaceError(f"{self.path}: the workspace is open read-only, so a backup cannot be recorded in "
+                                 "its audit trail; nothing was changed")
+        temporary = partial_path(destination)
+        placed = done = False
         try:
-            target = sqlite3.connect(str(destination))
+            temporary.unlink(missing_ok=True)
+            create_private_file(temporary)
+            target = sqlite3.connect(str(temporary))
             try:
                 self.connection.backup(target)
+                check = target.execute("PRAGMA integrity_check").fetchall()
             finally:
                 target.close()
+            if check != [("ok",)]:
+                raise WorkspaceError(f"backup to {destination} failed: the copy did not pass SQLite's integrity "
+                                     f"check ({check[0][0]}); nothing was kept")
+            os.replace(temporary, destination)
+            placed = True
+            if actor is not None:
+                self.audit_append(actor, "workspace.backup", self.path.name,
+                                  {"destination": str(destination), "integrity_check": "ok"})
+            done = True
         except sqlite3.Error as exc:
-            try:
-                destination.unlink()
-            except OSError:
-                pass
-            raise WorkspaceError(f"backup to {destination} failed ({exc})") from None
+            raise WorkspaceError(f"backup to {destination} failed ({exc}); nothing was kept") from None
+        except OSError as exc:
+            raise WorkspaceError(describe_os_error(destination, exc)) from None
+        finally:
+            leftovers = [str(temporary) + suffix for suffix in ("", "-wal", "-shm", "-journal")]
+            if placed and not done:  # the entry could not be written: the copy goes too
+                leftovers.append(str(destination))
+            for name in leftovers:
+                try:
+                    os.unlink(name)
+                except OSError:
+                    pass
         return destination
 
     # ------------------------------------------------------------ models
@@ -399,6 +470,10 @@ class Workspace:
 
     def integrity_check(self) -> str:
         return self.connection.execute("PRAGMA integrity_check").fetchone()[0]
+
+    def integrity_report(self, max_problems: int = 100) -> list:
+        """SQLite's ``PRAGMA integrity_check``: ``["ok"]`` or up to ``max_problems`` descriptions."""
+        return [row[0] for row in self.connection.execute(f"PRAGMA integrity_check({int(max_problems)})")]
 
     # ------------------------------------------------------------ audit
     def audit_append(self, actor: str, action: str, target: str, details: dict, changes: RowChanges | None = None,
