@@ -104,17 +104,10 @@ def write_table(out: str, header: list, columns: list, advisory: bool = True) ->
     if out == "-":
         write(sys.stdout)
         return
-    path = Path(out)
-    tmp = path.with_name(path.name + ".part")
-    try:
-        with open(tmp, "w", newline="", encoding="utf-8") as handle:
-            write(handle)
-        tmp.replace(path)
-    except OSError as exc:
-        from caseview.errors import InputError
+    from caseview.private_files import private_text
 
-        tmp.unlink(missing_ok=True)
-        raise InputError(f"{out}: cannot write ({exc.strerror})") from None
+    with private_text(Path(out)) as handle:  # owner-only, complete or not at all
+        write(handle)
 
 
 _NEEDS_QUOTES = (",", '"', "\n", "\r")

@@ -147,6 +147,9 @@ def run_export(args) -> int:
 
     with _open(args.workspace) as ws:
         result = export_timelines(ws, args.out, _actor(args))
+        if not result.recorded:
+            print(f"caseview: warning: {ws.path} is read-only, so this export is not recorded in its audit trail",
+                  file=sys.stderr)
         print(f"exported {result.rows} contacts of {result.cases} cases to {result.file} (sha256 {result.sha256})")
         print(f"audit chain head: {result.audit_head}")
     return 0

@@ -364,8 +364,11 @@ class MainWindow(QMainWindow):
         if self.case_view.canvas is not None:
             self.case_view.canvas.draw()
         pixmap = self.grab()
-        if not pixmap.save(str(path), "PNG"):
-            raise WorkspaceError(f"{path}: cannot write the screenshot")
+        from caseview.private_files import private_output
+
+        with private_output(path) as temporary:  # the picture shows case IDs: owner-only
+            if not pixmap.save(str(temporary), "PNG"):
+                raise WorkspaceError(f"{path}: cannot write the screenshot")
         self.close()
         return 0
 
