@@ -94,3 +94,18 @@ def ensure_can_write(path) -> None:
     probe.unlink(missing_ok=True)
     create_private_file(probe)
     probe.unlink(missing_ok=True)
+
+
+def save_workbook(book, path) -> None:
+    """Save an openpyxl workbook to ``path`` through memory, then write the bytes ourselves.
+
+    When openpyxl writes to a file that fails (a full disk), it leaves its zip archive open and the
+    archive's clean-up later prints a traceback; building the archive in memory keeps every file
+    system error in one ordinary ``OSError`` here.
+    """
+    import io
+
+    buffer = io.BytesIO()
+    book.save(buffer)
+    with open(path, "wb") as handle:
+        handle.write(buffer.getbuffer())

@@ -9,6 +9,8 @@ extracted.
 
 from __future__ import annotations
 
+import io
+
 import numpy as np
 
 from caseview import ADVISORY_NOTICE, __version__
@@ -292,9 +294,12 @@ def write_pdf(data, path) -> int:
                     "Creator": f"caseview {__version__}", "Author": "caseview"}
         if data.dates.deidentified:
             metadata["CreationDate"] = None
-        with PdfPages(path, metadata=metadata) as pdf:
+        buffer = io.BytesIO()  # built in memory: a full disk fails in one plain write below, not inside zlib
+        with PdfPages(buffer, metadata=metadata) as pdf:
             for number, page in enumerate(pages, start=1):
                 page.frame(f"caseview caseload report · {page.title}", header_right, ADVISORY_NOTICE, number,
                            len(pages))
                 pdf.savefig(page.figure)
+    with open(path, "wb") as handle:
+        handle.write(buffer.getbuffer())
     return len(pages)

@@ -157,5 +157,7 @@ def write_xlsx(data, path) -> int:
     _sheet(book, "Notes", ["topic", "note"], notes, widths={"topic": 22, "note": 100})
     book.properties.title = "caseview caseload report"
     book.properties.creator = "caseview"
-    book.save(path)
+    from caseview.private_files import save_workbook
+
+    save_workbook(book, path)  # no traceback from openpyxl on a full disk
     return len(records)

@@ -47,6 +47,22 @@ def _busy_message(path) -> str:
     return f"workspace busy: another caseview process is writing to {path}; try again when it finishes"
 
 
+def _disk_hint(path, exc) -> str:
+    """' - the disk is full' when SQLite's error comes from a full disk (SQLITE_FULL, or an I/O error
+    while the folder has almost no space left), else ''."""
+    text = str(exc).lower()
+    if "disk is full" in text:
+        return "; the disk is full (no space left on device)"
+    if "disk i/o error" in text:
+        try:
+            stats = os.statvfs(Path(path).absolute().parent)
+        except OSError:
+            return ""
+        if stats.f_bavail * stats.f_frsize < 1 << 20:
+            return "; the disk is full (no space left on device)"
+    return ""
+
+
 def _is_busy(exc: sqlite3.OperationalError) -> bool:
     text = str(exc).lower()
     return "locked" in text or "busy" in text
@@ -83,7 +99,7 @@ class Workspace:
         except sqlite3.OperationalError as exc:
             if _is_busy(exc):
                 raise WorkspaceBusy(_busy_message(self.path)) from None
-            raise WorkspaceError(f"{self.path}: cannot open workspace ({exc})") from None
+            raise WorkspaceError(f"{self.path}: cannot open workspace ({exc}){_disk_hint(self.path, exc)}") from None
         except sqlite3.DatabaseError as exc:
             raise WorkspaceError(f"{self.path}: not a caseview workspace ({exc})") from None
         return con
@@ -222,7 +238,7 @@ class Workspace:
             ws.close()
             if isinstance(exc, sqlite3.OperationalError) and _is_busy(exc):
                 raise WorkspaceBusy(_busy_message(path)) from None
-            raise WorkspaceError(f"{path}: cannot use workspace ({exc})") from None
+            raise WorkspaceError(f"{path}: cannot use workspace ({exc}){_disk_hint(path, exc)}") from None
         except BaseException:
             ws.close()
             raise
@@ -296,7 +312,8 @@ class Workspace:
             self._rollback(con)
             if isinstance(exc, sqlite3.OperationalError) and _is_busy(exc):
                 raise WorkspaceBusy(_busy_message(self.path)) from None
-            raise WorkspaceError(f"{self.path}: write failed, nothing was changed ({exc})") from None
+            raise WorkspaceError(f"{self.path}: write failed, nothing was changed ({exc}){_disk_hint(self.path, exc)}"
+                                 ) from None
         except BaseException:
             self._local.depth = 0
             self._rollback(con)
@@ -309,7 +326,8 @@ class Workspace:
                 con.execute("ROLLBACK")
             if _is_busy(exc):
                 raise WorkspaceBusy(_busy_message(self.path)) from None
-            raise WorkspaceError(f"{self.path}: write failed, nothing was changed ({exc})") from None
+            raise WorkspaceError(f"{self.path}: write failed, nothing was changed ({exc}){_disk_hint(self.path, exc)}"
+                                 ) from None
 
     @staticmethod
     def _rollback(con) -> None:

@@ -137,4 +137,6 @@ def _write_xlsx(table, path) -> None:
                 cell.data_type = "s"  # text, never a formula
                 cells.append(cell)
         sheet.append(cells)
-    book.save(path)
+    from caseview.private_files import save_workbook
+
+    save_workbook(book, path)  # no traceback from openpyxl on a full disk
