@@ -122,23 +122,22 @@ def case_digests_from_arrays(codes, case_coordinators, offsets, days, observatio
     records = np.empty((n, width), dtype=np.uint8)
     records[:, 0:8] = np.ascontiguousarray(days, dtype="<i8").reshape(n, 1).view(np.uint8)
     records[:, 8:10] = np.full((n, 1), n_obs, dtype="<u2").view(np.uint8)
+    import pandas as pd
+
     cache: dict = {}
     for start, texts in ((10, stage_known), (26, coordinators)):
-        values, inverse = np.unique(np.asarray(texts, dtype=object).astype(str), return_inverse=True)
-        table = np.frombuffer(b"".join(_text_digest(v, cache) for v in values.tolist()) or b"",
-                              dtype=np.uint8).reshape(len(values), 16)
+        inverse, values = pd.factorize(np.asarray(texts, dtype=object), use_na_sentinel=False)
+        table = np.frombuffer(b"".join(_text_digest(v if isinstance(v, str) else "", cache) for v in values.tolist())
+                              or b"", dtype=np.uint8).reshape(len(values), 16)
         if n:
-            records[:, start:start + 16] = table[inverse.reshape(-1)]
+            records[:, start:start + 16] = table[inverse]
     records[:, 42:42 + n_obs] = observations
     records[:, 42 + n_obs:] = cov.view(np.uint8).reshape(n, -1)
-    buffer = memoryview(records.tobytes())
-    out = []
-    bounds = np.asarray(offsets, dtype=np.int64) * width
-    for i, code in enumerate(codes):
-        h = hashlib.sha256(_case_header(code, case_coordinators[i]))
-        h.update(buffer[bounds[i]:bounds[i + 1]])
-        out.append(h.digest())
-    return out
+    buffer = memoryview(records.reshape(-1))
+    bounds = (np.asarray(offsets, dtype=np.int64) * width).tolist()
+    sha256 = hashlib.sha256
+    return [sha256(_case_header(code, coordinator) + buffer[bounds[i]:bounds[i + 1]]).digest()
+            for i, (code, coordinator) in enumerate(zip(codes, case_coordinators))]
 
 
 # CAST: a contact widened with ``||`` (a new channel or covariate) holds text-typed bytes
@@ -167,10 +166,31 @@ def _case_digests_from_rows(rows) -> dict:
     return out
 
 
+def _all_case_digests(connection) -> dict:
+    """Every case's digest through the fast aggregated read (:func:`~.contacts.fetch_contacts`)."""
+    from .contacts import fetch_contacts
+
+    stored = fetch_contacts(connection)
+    case_rows = dict(connection.execute("SELECT case_code, coordinator FROM cases").fetchall())
+    codes = stored.case_codes.tolist()
+    if len(set(codes) - set(case_rows)):
+        raise ValueError("contacts of a case that is not in the cases table")
+    out = dict(zip(codes, case_digests_from_arrays(
+        codes, [case_rows[c] for c in codes], stored.offsets, stored.days, stored.observations,
+        stored.covariates, stored.stage_known, stored.coordinators)))
+    for code, coordinator in case_rows.items():
+        if code not in out:  # a case without contacts
+            out[code] = hashlib.sha256(_case_header(code, coordinator)).digest()
+    return out
+
+
 def current_case_digests(connection, codes=None) -> dict:
     """Case code -> digest of the stored case (all cases, or only ``codes``; absent cases are left out)."""
     if codes is None:
-        return _case_digests_from_rows(connection.execute(_CASE_ROWS.format(where="")))
+        try:
+            return _all_case_digests(connection)
+        except Exception:  # a damaged or inconsistent file: the row-by-row reference path says which case
+            return _case_digests_from_rows(connection.execute(_CASE_ROWS.format(where="")))
     codes = sorted(set(map(str, codes)))
     out = {}
     for start in range(0, len(codes), 500):
@@ -273,13 +293,18 @@ def record_row_changes(connection, changes: RowChanges) -> dict:
             keys = set(wanted.get(name, ()))
             new = current_row_digests(connection, name, keys) if keys else {}
             old = _stored(connection, name, keys)
-            new.update(precomputed)
-            keys |= set(precomputed)
-            if precomputed:  # new cases: nothing recorded for them before
-                old.update(_stored(connection, name, set(precomputed) - set(old)) if len(precomputed) <= 1000 else {})
         added = removed = count = 0
         listed = {}
         upserts, deletes = [], []
+        if precomputed:  # new cases (an import): nothing was recorded for them before
+            fresh = [(key, digest) for key, digest in precomputed.items() if key not in keys]
+            added = sum(int.from_bytes(digest, "big") for _, digest in fresh)
+            count = len(fresh)
+            upserts = [(name, key, digest.hex()) for key, digest in fresh]
+            if len(fresh) <= KEYS_IN_ENTRY:
+                listed.update((key, digest.hex()) for key, digest in fresh)
+            else:
+                listed[None] = None  # too many to list
         for key in keys:
             before = old.get(key)
             after = new.get(key)
@@ -296,11 +321,12 @@ def record_row_changes(connection, changes: RowChanges) -> dict:
                 upserts.append((name, key, after_hex))
         if not listed:
             continue
+        bulk = listed.pop(None, False) is None
         connection.executemany("INSERT INTO row_digests (set_name, key, digest) VALUES (?, ?, ?) "
                                "ON CONFLICT(set_name, key) DO UPDATE SET digest = excluded.digest", upserts)
         connection.executemany("DELETE FROM row_digests WHERE set_name = ? AND key = ?", deletes)
         entry = {"added": _hex(added), "removed": _hex(removed), "count": count}
-        if len(listed) <= KEYS_IN_ENTRY:
+        if not bulk and len(listed) <= KEYS_IN_ENTRY:
             entry["keys"] = dict(sorted(listed.items()))
         record[name] = entry
     return record
