@@ -32,3 +32,15 @@ def test_failing_review_write_is_shown_and_stores_nothing(window, qtbot, workspa
     assert len(window.workspace().audit_entries()) == before  # the audit entry rolled back with the review
     assert window.caseload.model.data(window.caseload.model.index(
         window.caseload.model.view_row_of_case(case_id), 9)) != "acknowledged"
+
+
+def test_import_dialog_does_not_open_the_workspace_file_itself(window, qtbot, workspace_path, monkeypatch):
+    """Previewing the workspace as a timeline file would open() it and drop the window's SQLite locks."""
+    from caseview.gui import import_dialog
+
+    open_ws(window, qtbot, workspace_path)
+    dialog = import_dialog.ImportDialog(window.source, "tester", window)
+    qtbot.addWidget(dialog)
+    monkeypatch.setattr(import_dialog, "read_preview", lambda *a: pytest.fail("the workspace file was opened"))
+    dialog.load_file(window.workspace().path)
+    assert "workspace file itself" in dialog.summary.text()
