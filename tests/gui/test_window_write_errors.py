@@ -44,3 +44,15 @@ def test_import_dialog_does_not_open_the_workspace_file_itself(window, qtbot, wo
     monkeypatch.setattr(import_dialog, "read_preview", lambda *a: pytest.fail("the workspace file was opened"))
     dialog.load_file(window.workspace().path)
     assert "workspace file itself" in dialog.summary.text()
+
+
+def test_a_job_without_a_failure_handler_still_reports(window, qtbot, monkeypatch):
+    shown = []
+    monkeypatch.setattr(window, "show_error", shown.append)
+
+    def failing(callback):
+        raise sqlite3.DatabaseError("database disk image is malformed")
+
+    job = window.jobs.start("write", failing)
+    qtbot.waitUntil(lambda: bool(job.is_done and shown), timeout=10000)
+    assert "malformed" in shown[0]
