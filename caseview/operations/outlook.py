@@ -141,11 +141,6 @@ def horizon_rows(outlook, months=(3, 6, 12)) -> list:
             for m in months if m <= len(outlook.dates)]
 
 
-def check_places(places, n_pool: int) -> int:
-    number = _check_int(places, "--places", 1, max(1, 10**7))
-    return number
-
-
 def check_horizon(horizon) -> float:
     try:
         value = float(horizon)
@@ -154,3 +149,114 @@ def check_horizon(horizon) -> float:
     if not math.isfinite(value) or value <= 0:
         raise InputError(f"--horizon: expected a number of days > 0, got {horizon!r}")
     return value
+
+
+def run_targeting(ws, as_of: dt.date, changes, places, horizon=180.0, among: str = "flagged", seed: int = 1,
+                  callback=None):
+    """Rank cases for a limited number of places (:class:`caseview.followup.targeting.Targeting`).
+
+    Parameters
+    ----------
+    changes : dict[str, float] or list of 'NAME=VALUE'
+        The covariate change a place brings (for example ``balance_programme=1``).
+    places : int
+    horizon : float
+        Days within which reaching a follow-up stage counts.
+    among : 'flagged' or 'all'
+        Candidates: open cases flagged by the workspace's rules (as ``caseview flags`` with its
+        default 90-day horizon) or every open case.
+    """
+    from caseview.followup.assess import assess_caseload
+    from caseview.followup.outlook import open_case_rows
+    from caseview.followup.targeting import rank_places
+    from caseview.followup.whatif import check_changes, parse_changes
+
+    if among not in AMONG_CHOICES:
+        raise InputError(f"--among: expected one of {', '.join(AMONG_CHOICES)}, got {among!r}")
+    places = _check_int(places, "--places", 1, 10**7)
+    horizon = check_horizon(horizon)
+    seed = _check_int(seed, "--seed", 0, 2**32 - 1)
+    model, _ = ws.current_model()
+    changes = parse_changes(changes, model) if isinstance(changes, (list, tuple)) else check_changes(changes, model)
+    if not changes:
+        raise InputError("--set: give the change a place brings, for example --set balance_programme=1")
+    assessment = assess_caseload(ws, as_of, 90.0, callback=callback, reopen=False, explain_reasons=False)
+    scores = assessment.scores
+    open_cases = open_case_rows(scores)
+    pool = open_cases.rows
+    left_out = scores.n_cases - pool.size
+    if among == "flagged":
+        pool = pool[assessment.is_flagged[pool]]
+    if pool.size == 0:
+        raise InputError(f"no {'flagged ' if among == 'flagged' else ''}open cases as of {as_of.isoformat()} to rank"
+                         + (" (try --among all)" if among == "flagged" else ""))
+    return rank_places(scores, pool, changes, places, horizon, among, seed, left_out)
+
+
+def targeting_table(result) -> tuple:
+    """``(header, columns)`` of the ranking CSV."""
+    header = ["rank", "case_id", "coordinator", "p_reach_without", "p_reach_with", "reduction"]
+    n = result.n_ranked
+    return header, [[str(i + 1) for i in range(n)], _safe(result.case_ids), _safe(result.coordinators),
+                    [f"{v:.4f}" for v in result.p_reach_without], [f"{v:.4f}" for v in result.p_reach_with],
+                    [f"{v:.4f}" for v in result.reduction]]
+
+
+def targeting_comparison(result) -> list:
+    """``(choice, expected_averted, lower_95, upper_95)`` rows: by benefit, by risk, at random."""
+    mean, low, high = result.averted_at_random
+    return [("by benefit (this ranking)", result.averted_by_benefit, None, None),
+            ("highest risk without the change", result.averted_by_risk, None, None),
+            (f"at random ({result.n_random_draws} seeded draws, seed {result.seed})", mean, low, high)]
+
+
+def targeting_summary_lines(result) -> list:
+    """The summary both faces show (and the CLI writes to the summary file)."""
+    from caseview import ADVISORY_NOTICE
+    from caseview.followup.targeting import PLANNING_NOTE
+
+    change = ", ".join(f"{k}={v:g}" for k, v in result.changes.items())
+    who = "flagged open cases" if result.among == "flagged" else "open cases"
+    lines = [f"{result.n_ranked} places for {change} among {result.pool_size} {who} as of {result.as_of.isoformat()}; "
+             f"horizon {result.horizon_days:g} days.",
+             f"Without the change, an expected {result.expected_reaching:.1f} of them reach a follow-up stage "
+             "within the horizon.",
+             "Expected cases kept from reaching a follow-up stage (entries averted):"]
+    for name, value, low, high in targeting_comparison(result):
+        interval = "" if low is None else f" (95% of random choices between {low:.2f} and {high:.2f})"
+        lines.append(f"  {name}: {value:.2f}{interval}")
+    return lines + [PLANNING_NOTE, ADVISORY_NOTICE]
+
+
+def _safe(values):
+    return [("'" + v) if v[:1] in ("=", "+", "-", "@") else v for v in map(str, values)]
+
+
+def export_outlook(outlook, path) -> None:
+    """Write the outlook CSV (with the advisory column), the one writer both faces use."""
+    from caseview.cli.basic import write_table
+
+    write_table(str(path), *outlook_table(outlook))
+
+
+def export_targeting(result, path) -> str | None:
+    """Write the ranking CSV and, beside it, ``<name>_summary.csv`` with the three-way comparison.
+
+    Returns the summary file's path (None when writing the ranking to standard output).
+    """
+    from pathlib import Path
+
+    from caseview.cli.basic import write_table
+    from caseview.followup.targeting import PLANNING_NOTE
+
+    write_table(str(path), *targeting_table(result))
+    if str(path) == "-":
+        return None
+    target = Path(path)
+    summary = target.with_name(target.stem + "_summary" + (target.suffix or ".csv"))
+    rows = targeting_comparison(result)
+    columns = [[r[0] for r in rows], [str(result.places)] * 3, [f"{r[1]:.4f}" for r in rows],
+               ["" if r[2] is None else f"{r[2]:.4f}" for r in rows], ["" if r[3] is None else f"{r[3]:.4f}" for r in rows],
+               [PLANNING_NOTE] * 3]
+    write_table(str(summary), ["choice", "places", "expected_averted", "lower_95", "upper_95", "note"], columns)
+    return str(summary)
