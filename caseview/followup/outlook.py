@@ -125,6 +125,7 @@ class Outlook:
     seed: int | None
     coordinator: str | None
     model_version: int | None
+    kept_fixed: tuple = ()
 
     @property
     def n_open(self) -> int:
@@ -138,7 +139,9 @@ class Outlook:
             return (base + f" Widened for parameter uncertainty: a mixture over {self.n_draws} models drawn "
                     f"(seed {self.seed}) from the fit's multivariate normal on log rates, log hazard ratios and "
                     "initial-share logits (inverse observed information); stage probabilities now kept at the "
-                    "fitted model's.")
+                    "fitted model's."
+                    + (f" Kept at their fitted values (no usable standard error): {', '.join(self.kept_fixed)}."
+                       if self.kept_fixed else ""))
         return base + " Parameter uncertainty is not included (--uncertainty none)."
 
 
@@ -203,7 +206,7 @@ def _parameters(model, rows: np.ndarray, rate_per_day: float) -> _Parameters:
 
 
 def compute_outlook(scores, as_of: dt.date, months: int, referrals: ReferralAssumption, open_cases: OpenCases,
-                    drawn_models=None, drawn_rates=None, seed=None, coordinator=None, callback=None) -> Outlook:
+                    drawn=None, drawn_rates=None, seed=None, coordinator=None, callback=None) -> Outlook:
     """The outlook of the open cases in ``scores`` (see the module docstring).
 
     Parameters
@@ -213,13 +216,14 @@ def compute_outlook(scores, as_of: dt.date, months: int, referrals: ReferralAssu
     referrals : ReferralAssumption
     open_cases : OpenCases
         From :func:`open_case_rows`.
-    drawn_models : list of StageModel, optional
+    drawn : ParameterDraws, optional
         Parameter draws (:func:`caseview.followup.parameter_draws.draw_models`); None for none.
     drawn_rates : ndarray, shape (n_draws,), optional
         Referral rates per month for the draws.
     callback : callable(fraction), optional
     """
     model = scores.model
+    drawn_models = drawn.models if drawn is not None else None
     ends = month_ends(as_of, months)
     days = np.array([(d - as_of).days for d in ends], dtype=float)
     rows = open_cases.rows
@@ -231,9 +235,9 @@ def compute_outlook(scores, as_of: dt.date, months: int, referrals: ReferralAssu
     n_cells = moments.mean.shape
     if drawn_models:
         per_draw = []
-        for d, drawn in enumerate(drawn_models):
+        for d, drawn_model in enumerate(drawn_models):
             rate = float(drawn_rates[d]) / (365.25 / 12.0) if drawn_rates is not None else point.rate_per_day
-            per_draw.append(_evaluate(caseload, _parameters(drawn, caseload.rows, rate), days))
+            per_draw.append(_evaluate(caseload, _parameters(drawn_model, caseload.rows, rate), days))
             if callback:
                 callback(0.1 + 0.8 * (d + 1) / len(drawn_models))
         stacked = CountMoments(*(np.stack([getattr(m[0], f) for m in per_draw]) for f in ("mean", "variance", "third")))
@@ -253,4 +257,4 @@ def compute_outlook(scores, as_of: dt.date, months: int, referrals: ReferralAssu
     names = tuple(model.stages) + (FOLLOW_UP_ROW,)
     return Outlook(as_of, tuple(ends), names, moments.mean, lower, upper, entries, open_cases, referrals,
                    "parameters" if drawn_models else "none", len(drawn_models or ()), seed, coordinator,
-                   getattr(scores, "model_version", None))
+                   getattr(scores, "model_version", None), tuple(drawn.kept_fixed) if drawn is not None else ())

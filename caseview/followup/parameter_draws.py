@@ -13,7 +13,7 @@ the uncertainty in where cases go from now on, not in where they are now.
 
 from __future__ import annotations
 
-from dataclasses import replace
+from dataclasses import dataclass, replace
 
 import numpy as np
 
@@ -44,15 +44,19 @@ def fit_covariance(version) -> tuple:
 
 
 def _drawn_block(names: list, covariance: np.ndarray) -> tuple:
-    keep = [i for i, name in enumerate(names) if name.startswith(DRAWN_KINDS)]
-    block = covariance[np.ix_(keep, keep)]
-    if not np.all(np.isfinite(block)):
-        raise InputError("--uncertainty parameters: the fit could not estimate the uncertainty of some rates, "
-                         "hazard ratios or initial shares (no finite covariance); use --uncertainty none")
-    return [names[i] for i in keep], block
+    """The rates, hazard ratios and initial shares with a usable variance: ``(names, block, kept_fixed)``."""
+    wanted = [i for i, name in enumerate(names) if name.startswith(DRAWN_KINDS)]
+    usable = [i for i in wanted if np.isfinite(covariance[i, i]) and covariance[i, i] >= 0]
+    if usable and not np.all(np.isfinite(covariance[np.ix_(usable, usable)])):
+        usable = []
+    if wanted and not usable:
+        raise InputError("--uncertainty parameters: the fit could not estimate the uncertainty of the rates, "
+                         "hazard ratios or initial shares (no finite covariance, for example an estimate on the "
+                         "boundary); use --uncertainty none")
+    return [names[i] for i in usable], covariance[np.ix_(usable, usable)], [names[i] for i in wanted if i not in usable]
 
 
-def _centre(model, names: list) -> np.ndarray:
+def _centre(model, names: list, reference) -> np.ndarray:
     """Fitted values of the drawn parameters on the unconstrained scale, in ``names`` order."""
     stages = model.stages
     by_name = {}
@@ -61,7 +65,6 @@ def _centre(model, names: list) -> np.ndarray:
         by_name[f"rate {label}"] = np.log(t.rate) if t.rate > 0 else -np.inf
         for cov, value in t.effects.items():
             by_name[f"effect of {cov} on {label}"] = value
-    reference = _initial_reference(model, names)
     initial = np.asarray(model.initial, dtype=float)
     for s, stage in enumerate(stages):
         if initial[s] > 0 and reference is not None:
@@ -81,7 +84,26 @@ def _initial_reference(model, names: list):
     return support[0] if support else None
 
 
-def draw_models(model, version, n_draws: int, rng: np.random.Generator) -> list:
+@dataclass(frozen=True)
+class ParameterDraws:
+    """Drawn models and what was drawn.
+
+    Attributes
+    ----------
+    models : list of StageModel
+    drawn : list of str
+        Names of the parameters drawn.
+    kept_fixed : list of str
+        Rates, hazard ratios or initial shares without a usable variance (a flat direction of the
+        likelihood), kept at their fitted values in every draw.
+    """
+
+    models: list
+    drawn: list
+    kept_fixed: list
+
+
+def draw_models(model, version, n_draws: int, rng: np.random.Generator) -> ParameterDraws:
     """``n_draws`` copies of ``model`` with rates, hazard ratios and initial shares drawn (see module docstring).
 
     Raises
@@ -89,17 +111,18 @@ def draw_models(model, version, n_draws: int, rng: np.random.Generator) -> list:
     InputError
         The model version has no usable fit covariance.
     """
-    names, covariance = fit_covariance(version)
-    names, block = _drawn_block(names, covariance)
-    centre = _centre(model, names)
+    all_names, covariance = fit_covariance(version)
+    reference = _initial_reference(model, all_names)       # the fit's reference stage for the initial logits
+    names, block, kept_fixed = _drawn_block(all_names, covariance)
+    centre = _centre(model, names, reference)
+    fixed = dict(zip(kept_fixed, _centre(model, kept_fixed, reference)))
     values, vectors = np.linalg.eigh(0.5 * (block + block.T))
     root = vectors * np.sqrt(np.clip(values, 0.0, None))          # covariance = root @ root.T
     draws = centre + rng.standard_normal((n_draws, len(names))) @ root.T
-    reference = _initial_reference(model, names)
     stages = model.stages
     models = []
     for theta in draws:
-        value = dict(zip(names, theta))
+        value = {**fixed, **dict(zip(names, theta))}
         transitions = []
         for t in model.transitions:
             label = f"{stages[t.source]} -> {stages[t.target]}"
@@ -116,4 +139,4 @@ def draw_models(model, version, n_draws: int, rng: np.random.Generator) -> list:
             weights = np.exp(logits - logits.max())
             initial = weights / weights.sum()
         models.append(replace(model, transitions=tuple(transitions), initial=initial))
-    return models
+    return ParameterDraws(models, names, kept_fixed)

@@ -88,8 +88,8 @@ def run_outlook(ws, as_of: dt.date, months: int = 12, referrals="auto", uncertai
     assumption = referral_assumption(referrals, scores.first_contact_day[mine],
                                      timelines.covariates[timelines.first_index][mine], scores.as_of_day,
                                      model.n_covariates)
-    rates = assumption.draw_rates(rng, draws) if drawn else None
-    return compute_outlook(scores, as_of, months, assumption, open_cases, drawn, rates, seed if drawn else None,
+    rates = assumption.draw_rates(rng, draws) if drawn is not None else None
+    return compute_outlook(scores, as_of, months, assumption, open_cases, drawn, rates, seed if drawn is not None else None,
                            coordinator, callback=scale(0.4, 1.0))
 
 
