@@ -25,6 +25,8 @@ from dataclasses import dataclass
 import numpy as np
 from scipy.linalg import expm
 
+from hmm.transition import eigen_path_is_safe
+
 
 @dataclass(frozen=True)
 class OccupancyIntegrals:
@@ -35,25 +37,62 @@ class OccupancyIntegrals:
     second_integral: np.ndarray
 
 
-def occupancy_integrals(generators: np.ndarray, days) -> OccupancyIntegrals:
-    """Transition matrices and their first and second time integrals (Van Loan's block matrix).
+def occupancy_integrals(generators: np.ndarray, days, method: str = "auto") -> OccupancyIntegrals:
+    """Transition matrices and their first and second time integrals.
+
+    Generators whose eigendecomposition is trusted (:func:`hmm.transition.eigen_path_is_safe`) use
+    ``Q = V diag(lam) V^-1``: ``E = V diag(exp(lam t)) V^-1``, ``F1 = V diag((exp(lam t) - 1) / lam) V^-1``,
+    ``F2 = V diag((exp(lam t) - 1 - lam t) / lam**2) V^-1`` (``t`` and ``t**2 / 2`` at ``lam = 0``);
+    the others use Van Loan's block matrix with ``scipy.linalg.expm``.
 
     Parameters
     ----------
     generators : ndarray, shape (G, S, S)
     days : ndarray, shape (T,)
         Days ahead, >= 0.
+    method : 'auto', 'eigen' or 'expm'
+        'eigen' and 'expm' force one path (tests).
     """
     generators = np.asarray(generators, dtype=float)
     days = np.asarray(days, dtype=float).reshape(-1)
+    g, s = generators.shape[0], generators.shape[1]
+    if method == "expm":
+        eigen = np.zeros(g, dtype=bool)
+    elif method == "eigen":
+        eigen = np.ones(g, dtype=bool)
+    else:
+        eigen = np.atleast_1d(eigen_path_is_safe(generators)) if g else np.zeros(0, dtype=bool)
+    out = np.empty((3, g, days.size, s, s))
+    if eigen.any():
+        out[:, eigen] = _eigen_integrals(generators[eigen], days)
+    if (~eigen).any():
+        out[:, ~eigen] = _van_loan_integrals(generators[~eigen], days)
+    return OccupancyIntegrals(np.clip(out[0], 0.0, 1.0), out[1], out[2])
+
+
+def _eigen_integrals(generators: np.ndarray, days: np.ndarray) -> np.ndarray:
+    values, vectors = np.linalg.eig(generators)                     # (G, S), (G, S, S)
+    inverse = np.linalg.inv(vectors)
+    x = values[:, None, :] * days[None, :, None]                    # (G, T, S) = lam t
+    t = days[None, :, None]
+    small = np.abs(x) < 1e-4
+    safe_values = np.where(np.abs(values) > 0, values, 1.0)[:, None, :]
+    growth = np.exp(x)
+    first = np.where(small, t * (1 + x / 2 + x * x / 6 + x ** 3 / 24), np.expm1(x) / safe_values)
+    second = np.where(small, t * t * (0.5 + x / 6 + x * x / 24 + x ** 3 / 120),
+                      (np.expm1(x) - x) / safe_values ** 2)
+    stacked = np.stack([growth, first, second])                     # (3, G, T, S)
+    return np.real(np.einsum("grs,kgts,gsu->kgtru", vectors, stacked, inverse))
+
+
+def _van_loan_integrals(generators: np.ndarray, days: np.ndarray) -> np.ndarray:
     g, s = generators.shape[0], generators.shape[1]
     block = np.zeros((g, 3 * s, 3 * s))
     block[:, :s, :s] = generators
     block[:, :s, s:2 * s] = np.eye(s)
     block[:, s:2 * s, 2 * s:] = np.eye(s)
     stacked = expm(block[:, None] * days[None, :, None, None])     # (G, T, 3S, 3S)
-    return OccupancyIntegrals(np.clip(stacked[..., :s, :s], 0.0, 1.0), stacked[..., :s, s:2 * s],
-                              stacked[..., :s, 2 * s:])
+    return np.stack([stacked[..., :s, :s], stacked[..., :s, s:2 * s], stacked[..., :s, 2 * s:]])
 
 
 @dataclass(frozen=True)

@@ -25,10 +25,11 @@ def test_month_ends_start_after_the_as_of_date():
     assert month_ends(dt.date(2026, 11, 15), 2) == [dt.date(2026, 11, 30), dt.date(2026, 12, 31)]
 
 
-def test_van_loan_blocks_are_the_time_integrals_of_expm(demo_model):
+@pytest.mark.parametrize("method", ["eigen", "expm", "auto"])
+def test_occupancy_integrals_are_the_time_integrals_of_expm(demo_model, method):
     q = demo_model.generators(np.array([[1.0, 0.0], [0.0, 1.0]]))
     days = np.array([0.0, 120.0])
-    blocks = occupancy_integrals(q, days)
+    blocks = occupancy_integrals(q, days, method)
     for g in range(2):
         for t, h in enumerate(days):
             # reference: numerical quadrature of expm(Q u) (scipy.integrate.quad_vec)
@@ -37,6 +38,16 @@ def test_van_loan_blocks_are_the_time_integrals_of_expm(demo_model):
             assert np.allclose(blocks.transition[g, t], expm(q[g] * h), atol=1e-12)
             assert np.allclose(blocks.first_integral[g, t], first, atol=1e-8)
             assert np.allclose(blocks.second_integral[g, t], second, atol=1e-6)
+
+
+def test_a_defective_generator_takes_the_expm_path_and_stays_right():
+    """Equal rates on a progressive chain: no eigenbasis (common practice, no source: the textbook
+    defective-matrix example); the auto path must fall back and still integrate correctly."""
+    q = np.array([[[-0.02, 0.02, 0.0], [0.0, -0.02, 0.02], [0.0, 0.0, 0.0]]])
+    blocks = occupancy_integrals(q, np.array([50.0]))
+    first = quad_vec(lambda u: expm(q[0] * u), 0.0, 50.0, epsabs=1e-10)[0]
+    assert np.allclose(blocks.first_integral[0, 0], first, atol=1e-8)
+    assert np.allclose(blocks.transition[0, 0], expm(q[0] * 50.0), atol=1e-12)
 
 
 def test_expected_counts_are_summed_per_case_forecasts(scores):
