@@ -142,7 +142,7 @@ class Outlook:
                     "fitted model's."
                     + (f" Kept at their fitted values (no usable standard error): {', '.join(self.kept_fixed)}."
                        if self.kept_fixed else ""))
-        return base + " Parameter uncertainty is not included (--uncertainty none)."
+        return base + " Parameter uncertainty is not included."
 
 
 @dataclass(frozen=True)
