@@ -23,8 +23,6 @@ from __future__ import annotations
 from dataclasses import dataclass
 
 import numpy as np
-from scipy.linalg import expm
-
 from hmm.transition import eigen_path_is_safe
 
 
@@ -86,6 +84,8 @@ def _eigen_integrals(generators: np.ndarray, days: np.ndarray) -> np.ndarray:
 
 
 def _van_loan_integrals(generators: np.ndarray, days: np.ndarray) -> np.ndarray:
+    from scipy.linalg import expm
+
     g, s = generators.shape[0], generators.shape[1]
     block = np.zeros((g, 3 * s, 3 * s))
     block[:, :s, :s] = generators

@@ -83,10 +83,10 @@ class ReferralAssumption:
 
 def poisson_rate_interval(count: int, exposure: float) -> tuple:
     """Exact 95% interval of a Poisson rate (Garwood 1936), ``count`` events in ``exposure``."""
-    from scipy.stats import chi2
+    from scipy.special import gammaincinv   # chi2.ppf(p, 2k) / 2 = gammaincinv(k, p), without importing scipy.stats
 
-    lower = 0.0 if count == 0 else chi2.ppf(0.025, 2 * count) / (2.0 * exposure)
-    upper = chi2.ppf(0.975, 2 * count + 2) / (2.0 * exposure)
+    lower = 0.0 if count == 0 else gammaincinv(count, 0.025) / exposure
+    upper = gammaincinv(count + 1, 0.975) / exposure
     return float(lower), float(upper)
 
 

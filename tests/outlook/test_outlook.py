@@ -165,3 +165,24 @@ def test_entries_and_referrals_agree_with_monte_carlo(demo_model, rng):
         mean, spread = simulated.mean(axis=0), simulated.std(axis=0) / np.sqrt(replicates)
         assert np.all(np.abs(mean - expected) <= 4.5 * spread + 0.02), (mean, expected)
     assert outlook.rows[-1] == FOLLOW_UP_ROW
+
+
+def test_referral_rate_and_its_exact_interval():
+    from scipy.stats import chi2
+
+    from caseview.followup.referrals import poisson_rate_interval, referral_assumption
+    from caseview.scoring import to_day
+
+    as_of = to_day(AS_OF)
+    first = np.array([as_of - 400, as_of - 300, as_of - 200, as_of - 100, as_of - 10, as_of])
+    covariates = np.array([[0, 0], [1, 0], [1, 0], [0, 1], [1, 0], [1, 0]], dtype=float)
+    a = referral_assumption("auto", first, covariates, as_of, 2)
+    months = 365 / DAYS_PER_MONTH
+    assert a.n_first_contacts == 5 and a.rate_per_month == pytest.approx(5 / months)
+    # Garwood (1936) exact interval, as chi-squared quantiles (scipy.stats.chi2)
+    assert a.lower_95 == pytest.approx(chi2.ppf(0.025, 10) / 2 / months)
+    assert a.upper_95 == pytest.approx(chi2.ppf(0.975, 12) / 2 / months)
+    assert poisson_rate_interval(0, 2.0)[0] == 0.0
+    assert np.allclose(a.weights, [0.2, 0.8]) and np.array_equal(a.covariates, [[0, 1], [1, 0]])  # last year only
+    assert "5 first contacts" in a.describe() and referral_assumption("none", first, covariates, as_of, 2).rate_per_month == 0
+    assert referral_assumption("7.5", first, covariates, as_of, 2).describe().startswith("New referrals: 7.5 a month")
