@@ -8,6 +8,7 @@ by risk, at random) as text, and exports both with
 
 from __future__ import annotations
 
+from PySide6.QtCore import Signal
 from PySide6.QtWidgets import (QAbstractItemView, QComboBox, QDoubleSpinBox, QFileDialog, QGroupBox, QHBoxLayout,
                                QHeaderView, QLabel, QProgressBar, QPushButton, QSpinBox, QTableWidget,
                                QTableWidgetItem, QVBoxLayout)
@@ -17,7 +18,9 @@ MAX_SHOWN = 500
 
 
 class TargetingArea(QGroupBox):
-    """Where to invest a limited number of places."""
+    """Where to invest a limited number of places; ``ranked(result)`` when a ranking is shown."""
+
+    ranked = Signal(object)
 
     def __init__(self, window, parent=None):
         super().__init__("Where to invest places", parent)
@@ -152,6 +155,7 @@ class TargetingArea(QGroupBox):
             self.note.setText(self.note.text() + f" The table shows the first {shown:,}; the export has all "
                                                  f"{result.n_ranked:,}.")
         self.export_button.setEnabled(True)
+        self.ranked.emit(result)
 
     def export_dialog(self) -> None:
         if self.result is None:
