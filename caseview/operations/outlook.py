@@ -62,24 +62,41 @@ def run_outlook(ws, as_of: dt.date, months: int = 12, referrals="auto", uncertai
     callback : callable(fraction), optional
         Progress; raising from it cancels.
     """
-    from caseview.followup.outlook import compute_outlook, open_case_rows
     from caseview.followup.parameter_draws import draw_models
-    from caseview.followup.referrals import referral_assumption
     from caseview.scoring import score_caseload
 
+    months, draws, seed = _check_options(months, uncertainty, draws, seed)
+    model, version = ws.current_model()
+    scale = (lambda lo, hi: (lambda f: callback(lo + (hi - lo) * f))) if callback else (lambda lo, hi: None)
+    if uncertainty == "parameters":
+        draw_models(model, version, 1, np.random.default_rng(seed))      # refuses before any long work
+    scores = score_caseload(ws, as_of, 90.0, model=model, callback=scale(0.0, 0.4))
+    return outlook_from_scores(scores, version, as_of, months, referrals, uncertainty, draws, seed, coordinator,
+                               callback=scale(0.4, 1.0))
+
+
+def _check_options(months, uncertainty, draws, seed) -> tuple:
     months = _check_int(months, "--months", 1, MAX_MONTHS)
     if uncertainty not in UNCERTAINTY_CHOICES:
         raise InputError(f"--uncertainty: expected one of {', '.join(UNCERTAINTY_CHOICES)}, got {uncertainty!r}")
-    draws = _check_int(draws, "--draws", 1, MAX_DRAWS)
-    seed = _check_int(seed, "--seed", 0, 2**32 - 1)
-    model, version = ws.current_model()
-    scale = (lambda lo, hi: (lambda f: callback(lo + (hi - lo) * f))) if callback else (lambda lo, hi: None)
-    drawn = None
+    return months, _check_int(draws, "--draws", 1, MAX_DRAWS), _check_int(seed, "--seed", 0, 2**32 - 1)
+
+
+def outlook_from_scores(scores, version, as_of: dt.date, months: int = 12, referrals="auto", uncertainty: str = "none",
+                        draws: int = 200, seed: int = 1, coordinator: str | None = None, callback=None):
+    """:func:`run_outlook` for an already scored caseload (the report uses its assessment's scores).
+
+    ``version`` is the model version the scores were made with (its fit covariance for the draws).
+    """
+    from caseview.followup.outlook import compute_outlook, open_case_rows
+    from caseview.followup.parameter_draws import draw_models
+    from caseview.followup.referrals import referral_assumption
+
+    months, draws, seed = _check_options(months, uncertainty, draws, seed)
+    model = scores.model
     rng = np.random.default_rng(seed)
-    if uncertainty == "parameters":
-        drawn = draw_models(model, version, draws, rng)       # refuses before any long work
-    scores = score_caseload(ws, as_of, 90.0, model=model, callback=scale(0.0, 0.4))
-    scores = _with_version(scores, version.id)
+    drawn = draw_models(model, version, draws, rng) if uncertainty == "parameters" else None
+    scores = _with_version(scores, getattr(version, "id", None))
     coordinator = _check_coordinator(scores, coordinator)
     open_cases = open_case_rows(scores, coordinator)
     mine = np.ones(scores.n_cases, dtype=bool) if coordinator is None else \
@@ -89,8 +106,8 @@ def run_outlook(ws, as_of: dt.date, months: int = 12, referrals="auto", uncertai
                                      timelines.covariates[timelines.first_index][mine], scores.as_of_day,
                                      model.n_covariates)
     rates = assumption.draw_rates(rng, draws) if drawn is not None else None
-    return compute_outlook(scores, as_of, months, assumption, open_cases, drawn, rates, seed if drawn is not None else None,
-                           coordinator, callback=scale(0.4, 1.0))
+    return compute_outlook(scores, as_of, months, assumption, open_cases, drawn, rates,
+                           seed if drawn is not None else None, coordinator, callback=callback)
 
 
 def _with_version(scores, version_id):
@@ -114,8 +131,11 @@ def outlook_table(outlook) -> tuple:
     return header, [dates, stages, expected, lower, upper, entries]
 
 
-def outlook_notes(outlook) -> list:
-    """Plain sentences saying what the outlook counts and assumes (stdout, window, report)."""
+def outlook_notes(outlook, withhold_dates: bool = False) -> list:
+    """Plain sentences saying what the outlook counts and assumes (stdout, window, report).
+
+    ``withhold_dates``: no calendar dates (reports with de-identified dates).
+    """
     o = outlook.open_cases
     who = f" of coordinator {outlook.coordinator}" if outlook.coordinator else ""
     left = []
@@ -125,11 +145,16 @@ def outlook_notes(outlook) -> list:
         left.append(f"{o.n_closed} closed")
     if o.n_unscorable:
         left.append(f"{o.n_unscorable} that cannot be scored (contradictory or impossible records)")
-    lines = [f"{outlook.n_open} open cases{who} as of {outlook.as_of.isoformat()}"
-             + (f" (left out: {'; '.join(left)})" if left else "")
-             + (f", model version {outlook.model_version}" if outlook.model_version is not None else "") + ".",
-             outlook.referrals.describe(), outlook.describe_uncertainty()]
-    return lines
+    when = "on the as-of date" if withhold_dates else f"as of {outlook.as_of.isoformat()}"
+    referrals = outlook.referrals.describe()
+    if withhold_dates and outlook.referrals.kind == "auto":
+        referrals = (f"New referrals: {outlook.referrals.rate_per_month:.1f} a month (95% interval "
+                     f"{outlook.referrals.lower_95:.1f} to {outlook.referrals.upper_95:.1f}), estimated from the "
+                     "first contacts of the year before the as-of date as a Poisson rate, starting in the model's "
+                     "initial stage mix.")
+    return [f"{outlook.n_open} open cases{who} {when}" + (f" (left out: {'; '.join(left)})" if left else "")
+            + (f", model version {outlook.model_version}" if outlook.model_version is not None else "") + ".",
+            referrals, outlook.describe_uncertainty()]
 
 
 def horizon_rows(outlook, months=(3, 6, 12)) -> list:

@@ -15,8 +15,15 @@ import numpy as np
 from . import style
 
 
-def _dates(outlook) -> np.ndarray:
-    return np.array([np.datetime64(d.isoformat(), "D") for d in (outlook.as_of,) + tuple(outlook.dates)])
+def _dates(outlook, relative: bool = False) -> tuple:
+    """x values (as-of first, then the month ends) and one day in x units.
+
+    ``relative``: months after the as-of date instead of calendar dates (de-identified reports).
+    """
+    if relative:
+        return np.arange(len(outlook.dates) + 1, dtype=float), 12.0 / 365.25
+    return np.array([np.datetime64(d.isoformat(), "D") for d in (outlook.as_of,) + tuple(outlook.dates)]), \
+        np.timedelta64(1, "D")
 
 
 def _tidy(ax, size: float) -> None:
@@ -28,7 +35,10 @@ def _tidy(ax, size: float) -> None:
     ax.yaxis.label.set_color(style.MUTED)
 
 
-def _date_axis(ax) -> None:
+def _date_axis(ax, relative: bool = False) -> None:
+    if relative:
+        ax.set_xlabel("months after the as-of date", fontsize=7, color=style.MUTED)
+        return
     import matplotlib.dates as mdates
 
     locator = mdates.AutoDateLocator(minticks=3, maxticks=8)
@@ -36,14 +46,15 @@ def _date_axis(ax) -> None:
     ax.xaxis.set_major_formatter(mdates.ConciseDateFormatter(locator, show_offset=False))
 
 
-def draw_stages(ax, outlook, size: float = 8.0) -> None:
+def draw_stages(ax, outlook, size: float = 8.0, relative: bool = False) -> None:
     """Stacked expected counts by stage with each stage's 95% band (see the module docstring)."""
     n = len(outlook.rows) - 1
-    x = _dates(outlook)[1:]
+    x, day = _dates(outlook, relative)
+    x = x[1:]
     colours = style.stage_colours(n)
     expected = outlook.expected[:, :n]
     base = np.zeros(len(x))
-    offsets = np.linspace(-4, 4, n).astype("timedelta64[D]") if n > 1 else np.zeros(1, "timedelta64[D]")
+    offsets = [day * float(v) for v in (np.linspace(-4, 4, n) if n > 1 else [0.0])]
     for s, stage in enumerate(outlook.rows[:n]):
         top = base + expected[:, s]
         ax.fill_between(x, base, top, color=colours[s], alpha=0.55, lw=0, step=None)
@@ -57,22 +68,23 @@ def draw_stages(ax, outlook, size: float = 8.0) -> None:
                     bbox=dict(boxstyle="square,pad=0.15", fc=colours[s], alpha=0.35, lw=0))
         base = top
     ax.set_ylim(0, max(1.0, float(base.max()) * 1.08, float((outlook.upper_95[:, :n] - expected).max() + base.max())))
-    ax.set_xlim(x[0] - np.timedelta64(12, "D"), x[-1] + np.timedelta64(5, "D"))
+    ax.set_xlim(x[0] - 12 * day, x[-1] + 5 * day)
     ax.set_ylabel("expected open cases (stacked)", fontsize=size)
     ax.set_title("Expected cases in each stage at each month end; bars: each stage's 95% band", fontsize=size + 0.5,
                  color=style.INK, loc="left")
     _tidy(ax, size)
-    _date_axis(ax)
+    _date_axis(ax, relative)
 
 
-def draw_follow_up(ax, outlook, size: float = 8.0) -> None:
+def draw_follow_up(ax, outlook, size: float = 8.0, relative: bool = False) -> None:
     """The follow-up stages together: expected count with its 95% band, and entries per month."""
     from caseview.followup.outlook import FOLLOW_UP_ROW
 
     c = outlook.rows.index(FOLLOW_UP_ROW)
-    x = _dates(outlook)[1:]
+    x, day = _dates(outlook, relative)
+    x = x[1:]
     colour = style.OKABE_ITO["vermillion"]
-    ax.bar(x - np.timedelta64(10, "D"), outlook.entries_expected[:, c], width=9, color=style.OKABE_ITO["sky_blue"],
+    ax.bar(x - 10 * day, outlook.entries_expected[:, c], width=9 * day, color=style.OKABE_ITO["sky_blue"],
            alpha=0.8, label="expected entries that month")
     ax.fill_between(x, outlook.lower_95[:, c], outlook.upper_95[:, c], color=colour, alpha=0.18, lw=0)
     ax.plot(x, outlook.expected[:, c], color=colour, lw=1.8, marker="o", ms=3)
@@ -81,15 +93,15 @@ def draw_follow_up(ax, outlook, size: float = 8.0) -> None:
                 (x[-1], outlook.expected[-1, c]), xytext=(10, 0), textcoords="offset points", va="center",
                 fontsize=size, color=style.INK)
     ax.annotate(f"entries that month  {outlook.entries_expected[-1, c]:,.1f}",
-                (x[-1] - np.timedelta64(5, "D"), outlook.entries_expected[-1, c]), xytext=(10, 0),
+                (x[-1] - 5 * day, outlook.entries_expected[-1, c]), xytext=(10, 0),
                 textcoords="offset points", va="center", fontsize=size, color=style.INK)
     ax.set_ylim(0, max(1.0, float(outlook.upper_95[:, c].max()) * 1.12))
-    ax.set_xlim(x[0] - np.timedelta64(20, "D"), x[-1] + np.timedelta64(5, "D"))
+    ax.set_xlim(x[0] - 20 * day, x[-1] + 5 * day)
     ax.set_ylabel("cases", fontsize=size)
     ax.set_title("Follow-up stages together (line, shaded 95% band) and entries into them (bars)",
                  fontsize=size + 0.5, color=style.INK, loc="left")
     _tidy(ax, size)
-    _date_axis(ax)
+    _date_axis(ax, relative)
 
 
 def draw_outlook(figure, outlook, size: float = 8.0) -> None:
