@@ -63,16 +63,23 @@ class OpenCases:
 def open_case_rows(scores, coordinator: str | None = None) -> OpenCases:
     """The one place that decides which scored cases are open (and, optionally, one coordinator's).
 
-    Left out: cases that cannot be scored (stage probabilities not a distribution, or an
-    impossible record), cases whose last contact records entry to an exact-entry stage, and
-    closed cases (``scores.is_closed`` when the workspace records closures).
+    Left out: cases that cannot be scored (set aside by scoring in ``scores.unscorable``, or with
+    stage probabilities that are not a distribution), cases whose last contact records entry to an
+    exact-entry stage, and closed cases (scoring leaves closed cases out unless asked to include
+    them; ``scores.is_closed`` marks them then).
     """
     p_now = np.asarray(scores.p_now, dtype=float)
     n = p_now.shape[0]
-    unscorable = np.asarray(getattr(scores, "cannot_be_scored", np.zeros(n, dtype=bool)), dtype=bool)
+    mine = np.ones(n, dtype=bool) if coordinator is None else \
+        np.asarray(scores.coordinators).astype(str) == str(coordinator)
     with np.errstate(invalid="ignore"):
-        unscorable = unscorable | ~np.isfinite(p_now).all(axis=1) | (np.abs(p_now.sum(axis=1) - 1.0) > 1e-6)
+        unscorable = ~np.isfinite(p_now).all(axis=1) | (np.abs(p_now.sum(axis=1) - 1.0) > 1e-6)
         unscorable |= ~np.isfinite(np.asarray(scores.log_likelihood, dtype=float))
+    set_aside = getattr(scores, "unscorable", None)          # cases scoring could not score at all
+    n_set_aside = 0
+    if set_aside is not None and getattr(set_aside, "n_cases", 0):
+        n_set_aside = int(set_aside.n_cases) if coordinator is None else \
+            int(np.sum(np.asarray(set_aside.coordinators).astype(str) == str(coordinator)))
     closed = np.asarray(getattr(scores, "is_closed", np.zeros(n, dtype=bool)), dtype=bool)
     left = np.zeros(n, dtype=bool)
     model = scores.model
@@ -80,11 +87,9 @@ def open_case_rows(scores, coordinator: str | None = None) -> OpenCases:
         exact = np.isin(np.asarray(model.stages), list(model.exact_entry_stages))
         allowed = scores.timelines.allowed_stages[scores.timelines.last_index]
         left = allowed[:, exact].any(axis=1) & ~allowed[:, ~exact].any(axis=1)
-    keep = ~unscorable & ~left & ~closed
-    if coordinator is not None:
-        keep &= np.asarray(scores.coordinators).astype(str) == str(coordinator)
-    return OpenCases(np.flatnonzero(keep), int(unscorable.sum()), int((left & ~unscorable).sum()),
-                     int((closed & ~unscorable & ~left).sum()))
+    keep = ~unscorable & ~left & ~closed & mine
+    return OpenCases(np.flatnonzero(keep), int((unscorable & mine).sum()) + n_set_aside,
+                     int((left & ~unscorable & mine).sum()), int((closed & ~unscorable & ~left & mine).sum()))
 
 
 def month_ends(as_of: dt.date, months: int) -> list:

@@ -70,7 +70,7 @@ def run_outlook(ws, as_of: dt.date, months: int = 12, referrals="auto", uncertai
     scale = (lambda lo, hi: (lambda f: callback(lo + (hi - lo) * f))) if callback else (lambda lo, hi: None)
     if uncertainty == "parameters":
         draw_models(model, version, 1, np.random.default_rng(seed))      # refuses before any long work
-    scores = score_caseload(ws, as_of, 90.0, model=model, callback=scale(0.0, 0.4))
+    scores = score_caseload(ws, as_of, 0.0, model=model, callback=scale(0.0, 0.4))   # no horizon forecast needed
     return outlook_from_scores(scores, version, as_of, months, referrals, uncertainty, draws, seed, coordinator,
                                callback=scale(0.4, 1.0))
 
