@@ -242,8 +242,9 @@ def targeting_summary_lines(result) -> list:
 
     change = ", ".join(f"{k}={v:g}" for k, v in result.changes.items())
     who = "flagged open cases" if result.among == "flagged" else "open cases"
-    lines = [f"{result.n_ranked} places for {change} among {result.pool_size} {who} as of {result.as_of.isoformat()}; "
-             f"horizon {result.horizon_days:g} days.",
+    short = f" (only {result.pool_size} candidates for {result.places} places)" if result.n_ranked < result.places else ""
+    lines = [f"{result.n_ranked} places for {change} among {result.pool_size} {who} as of {result.as_of.isoformat()}"
+             f"{short}; horizon {result.horizon_days:g} days.",
              f"Without the change, an expected {result.expected_reaching:.1f} of them reach a follow-up stage "
              "within the horizon.",
              "Expected cases kept from reaching a follow-up stage (entries averted):"]
