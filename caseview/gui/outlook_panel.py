@@ -138,6 +138,7 @@ class OutlookPanel(QWidget):
         self.targeting.source_changed()
         if self.isVisible():
             self.compute()
+            self.targeting.rank()
 
     def caseload_loaded(self, loaded) -> None:
         """Fill the coordinator and change choices from the newly scored caseload."""
