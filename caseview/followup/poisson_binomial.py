@@ -10,8 +10,8 @@ distribution function in one of two ways:
   evaluated on ``L`` roots of unity and inverted with one FFT (the DFT-CF method, Hong 2013,
   *Comput. Stat. Data Anal.* 59, 41-51). Cases with ``q <= 0.1`` (and ``q >= 0.9``, through
   ``1 - q``) enter through the power sums ``sum q**m`` (the series of ``log(1 + q (z - 1))``), so
-  the cost is ``n`` times a few dozen, not ``n`` times ``L``. A variance below 25 keeps the
-  distribution inside a window of ``L = 256`` counts (the aliasing error is far below 1e-12).
+  the cost is ``n`` times a few dozen, not ``n`` times ``L``. ``L`` (64 to 128 counts below
+  variance 25) comes from Bernstein's inequality, so the aliasing error is below about 1e-15.
 * **refined normal approximation** (:func:`refined_normal_cdf`) otherwise: the normal
   distribution with a continuity and skewness correction (Volkova 1996, as given in Hong 2013,
   eq. 8). With a standard deviation of 5 or more its 2.5% and 97.5% points match the exact ones
@@ -32,7 +32,6 @@ from scipy.special import ndtr
 
 #: Below this variance the count's distribution is computed exactly (standard deviation 5).
 EXACT_BELOW_VARIANCE = 25.0
-WINDOW = 256
 SERIES_TERMS = 30      # |q (z - 1)| <= 0.2, so the series error is below 0.2**30 / 30 per case
 SMALL = 0.1
 
@@ -92,6 +91,15 @@ def _series_log_cf(probabilities: np.ndarray, w: np.ndarray) -> np.ndarray:
     return total
 
 
+def window_length(variance: float) -> int:
+    """Counts the exact distribution is computed over: a power of two at least ``2 t``, where a count
+    farther than ``t`` from its mean has probability below 1e-15 by Bernstein's inequality
+    (``P(|X - mean| >= t) <= 2 exp(-t**2 / (2 (variance + t / 3)))`` for sums of independent
+    variables in [0, 1]; Poisson counts are limits of such sums)."""
+    t = (70.0 / 3.0 + np.sqrt((70.0 / 3.0) ** 2 + 280.0 * max(variance, 0.0))) / 2.0
+    return int(max(64, 2 ** int(np.ceil(np.log2(2.0 * t + 2.0)))))
+
+
 def exact_pmf(probabilities, poisson_mean: float = 0.0) -> tuple:
     """Exact distribution of a Poisson-binomial count plus an independent Poisson count.
 
@@ -106,14 +114,15 @@ def exact_pmf(probabilities, poisson_mean: float = 0.0) -> tuple:
     -------
     start : int
         The first count of the window.
-    pmf : ndarray, shape (WINDOW,)
-        ``pmf[j] = P(count = start + j)``; the mass outside the window is negligible when the
-        variance is below :data:`EXACT_BELOW_VARIANCE`.
+    pmf : ndarray, shape (L,)
+        ``pmf[j] = P(count = start + j)``, ``L = window_length(variance)``; the mass outside the
+        window is below about 1e-15.
     """
     q = np.clip(np.asarray(probabilities, dtype=float).reshape(-1), 0.0, 1.0)
+    window = window_length(float((q * (1.0 - q)).sum()) + float(poisson_mean))
     low, high = q[q <= SMALL], q[q >= 1.0 - SMALL]
     middle = q[(q > SMALL) & (q < 1.0 - SMALL)]
-    angle = 2.0 * np.pi * np.arange(WINDOW) / WINDOW
+    angle = 2.0 * np.pi * np.arange(window) / window
     z = np.exp(1j * angle)
     # log(1 - q + q z) = log(1 + q (z - 1)); for q near 1: log z + log(1 + (1 - q)(1/z - 1))
     log_cf = _series_log_cf(low, z - 1.0) + _series_log_cf(1.0 - high, np.conj(z) - 1.0)
@@ -122,10 +131,10 @@ def exact_pmf(probabilities, poisson_mean: float = 0.0) -> tuple:
     cf = np.exp(log_cf)
     if middle.size:   # few cases (each adds at least 0.09 to the variance): a plain product
         cf = cf * np.prod(1.0 - middle[:, None] + middle[:, None] * z[None, :], axis=0)
-    wrapped = np.fft.fft(cf).real / WINDOW      # P(count = k) at index k mod WINDOW
+    wrapped = np.fft.fft(cf).real / window      # P(count = k) at index k mod window
     mean = q.sum() + float(poisson_mean)
-    start = max(0, int(np.floor(mean)) - WINDOW // 2)
-    pmf = np.clip(wrapped[(start + np.arange(WINDOW)) % WINDOW], 0.0, None)
+    start = max(0, int(np.floor(mean)) - window // 2)
+    pmf = np.clip(wrapped[(start + np.arange(window)) % window], 0.0, None)
     return start, pmf / pmf.sum()
 
 
