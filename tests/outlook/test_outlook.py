@@ -186,3 +186,33 @@ def test_referral_rate_and_its_exact_interval():
     assert np.allclose(a.weights, [0.2, 0.8]) and np.array_equal(a.covariates, [[0, 1], [1, 0]])  # last year only
     assert "5 first contacts" in a.describe() and referral_assumption("none", first, covariates, as_of, 2).rate_per_month == 0
     assert referral_assumption("7.5", first, covariates, as_of, 2).describe().startswith("New referrals: 7.5 a month")
+
+
+def test_bands_are_the_exact_poisson_binomial_quantiles_of_the_per_case_forecasts(scores):
+    """Reference: each cell's count distribution by direct convolution of the per-case Bernoulli
+    distributions (the textbook recursion; Hong 2013, section 2) from hmm.forecasting.occupancy_over_time."""
+    from caseview.followup.poisson_binomial import EXACT_BELOW_VARIANCE
+
+    open_cases = open_case_rows(scores)
+    outlook = compute_outlook(scores, AS_OF, 6, NONE, open_cases)
+    rows = open_cases.rows
+    days = np.array([(d - AS_OF).days for d in outlook.dates], dtype=float)
+    per_case = occupancy_over_time(scores.model, scores.p_now[rows], scores.last_covariates[rows], days)
+    follow_up = per_case[:, :, scores.model.follow_up_mask].sum(axis=2, keepdims=True)
+    per_case = np.concatenate([per_case, follow_up], axis=2)                       # (n, T, S+1)
+    checked_exact = 0
+    for t in range(days.size):
+        for c in range(per_case.shape[2]):
+            q = per_case[:, t, c]
+            pmf = np.array([1.0])
+            for p in q:
+                pmf = np.convolve(pmf, [1.0 - p, p])
+            cdf = np.cumsum(pmf)
+            reference = [int(np.argmax(cdf >= level - 1e-12)) for level in (0.025, 0.975)]
+            got = [outlook.lower_95[t, c], outlook.upper_95[t, c]]
+            if (q * (1 - q)).sum() < EXACT_BELOW_VARIANCE:
+                assert got == reference
+                checked_exact += 1
+            else:
+                assert np.abs(np.array(got) - reference).max() <= 1
+    assert checked_exact > 0
