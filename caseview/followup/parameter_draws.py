@@ -27,7 +27,7 @@ def fit_covariance(version) -> tuple:
     summary = getattr(version, "fit_summary", None)
     if hasattr(summary, "to_dict"):
         summary = summary.to_dict()
-    label = f"model version {getattr(version, 'id', '?')}"
+    label = f"model version {version.id}" if getattr(version, "id", None) is not None else "the current model"
     if not summary:
         raise InputError(f"--uncertainty parameters: {label} was entered, not fitted, so there is no estimated "
                          "sampling distribution to draw from; fit the model first or use --uncertainty none")

@@ -21,10 +21,10 @@ REFERRAL_CHOICES = (("auto", "estimated"), ("none", "left out"), ("fixed", "fixe
 UNCERTAINTY_CHOICES = (("none", "given the model"), ("parameters", "+ parameter uncertainty"))
 
 
-def workspace_path(window):
-    """The open workspace's file, or None (no workspace, or an in-memory stand-in)."""
-    source = getattr(window, "source", None)
-    return getattr(source, "path", None) if source is not None else None
+def outlook_key(window):
+    """What the outlook was worked out for: the caseload the window shows (None when there is none)."""
+    loaded = getattr(window, "loaded", None)
+    return None if loaded is None else id(loaded)
 
 
 class OutlookPanel(QWidget):
@@ -154,14 +154,13 @@ class OutlookPanel(QWidget):
         self.coordinator.setCurrentIndex(max(0, index))
         self.coordinator.blockSignals(False)
         self.targeting.set_covariates(loaded.scores.model.covariates)
-        key = (workspace_path(self.window), self.window.as_of)
-        if self._shown_for != key:
+        if self._shown_for != outlook_key(self.window):
             self.source_changed()
 
     def showEvent(self, event) -> None:
         super().showEvent(event)
-        key = (workspace_path(self.window), self.window.as_of)
-        if self.outlook is None and key[0] is not None and self._shown_for != key and not self.window.jobs.busy("outlook"):
+        key = outlook_key(self.window)
+        if self.outlook is None and key is not None and self._shown_for != key and not self.window.jobs.busy("outlook"):
             self.compute()
             self.targeting.rank()
 
@@ -174,24 +173,25 @@ class OutlookPanel(QWidget):
                 "coordinator": self.coordinator.currentData()}
 
     def compute(self) -> None:
-        path = workspace_path(self.window)
-        if path is None:
-            self.assumption.setText("Open a workspace file to see the caseload outlook.")
+        """Work out the outlook of the caseload the window shows (its scores; no second scoring)."""
+        loaded = getattr(self.window, "loaded", None)
+        if loaded is None:
+            self.assumption.setText("Open a workspace to see the caseload outlook.")
             return
-        as_of, options = self.window.as_of, self.options()
-        self._shown_for = (path, as_of)
-        from caseview.operations.outlook import run_outlook
-        from caseview.storage import Workspace
+        scores, options = loaded.scores, self.options()
+        ws = self.window.workspace()
+        version = ws.current_model()[1] if ws is not None else None
+        self._shown_for = outlook_key(self.window)
+        from caseview.operations.outlook import outlook_from_scores
 
         def work(callback):
-            with Workspace.open(path) as ws:
-                return run_outlook(ws, as_of, callback=callback, **options)
+            return outlook_from_scores(scores, version, scores.as_of, callback=callback, **options)
 
         self.progress.setValue(0)
         self.progress.show()
         self.cancel_button.show()
         self.update_button.setEnabled(False)
-        self.assumption.setText(f"Working out the outlook as of {as_of.isoformat()}…")
+        self.assumption.setText(f"Working out the outlook as of {scores.as_of.isoformat()}…")
         self.window.jobs.start("outlook", work, on_finished=self._finished, on_failed=self._failed,
                                on_progress=lambda f: self.progress.setValue(int(100 * f)),
                                on_cancelled=self._cancelled)

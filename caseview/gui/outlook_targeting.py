@@ -102,20 +102,18 @@ class TargetingArea(QGroupBox):
         self.note.setText("")
 
     def rank(self) -> None:
-        from .outlook_panel import workspace_path
-
-        path = workspace_path(self.window)
-        if path is None or not self.change.currentText():
+        """Rank the cases of the caseload the window shows (its flags; no second scoring)."""
+        loaded = getattr(self.window, "loaded", None)
+        if loaded is None or getattr(loaded, "assessment", None) is None or not self.change.currentText():
             return
-        as_of = self.window.as_of
+        assessment = loaded.assessment
         changes = {self.change.currentText(): self.value.value()}
         places, horizon, among = self.places.value(), self.horizon.value(), self.among.currentData()
-        from caseview.operations.outlook import run_targeting
-        from caseview.storage import Workspace
+        from caseview.operations.outlook import targeting_from_assessment
 
         def work(callback):
-            with Workspace.open(path) as ws:
-                return run_targeting(ws, as_of, changes, places, horizon, among, callback=callback)
+            callback(0.1)
+            return targeting_from_assessment(assessment, changes, places, horizon, among)
 
         self.progress.setValue(0)
         self.progress.show()

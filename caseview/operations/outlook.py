@@ -192,8 +192,14 @@ def run_targeting(ws, as_of: dt.date, changes, places, horizon=180.0, among: str
         default 90-day horizon) or every open case.
     """
     from caseview.followup.assess import assess_caseload
-    from caseview.followup.outlook import open_case_rows
-    from caseview.followup.targeting import rank_places
+
+    model, _ = ws.current_model()
+    options = _check_targeting(model, changes, places, horizon, among, seed)
+    assessment = assess_caseload(ws, as_of, 90.0, callback=callback, reopen=False, explain_reasons=False)
+    return targeting_from_assessment(assessment, *options)
+
+
+def _check_targeting(model, changes, places, horizon, among, seed) -> tuple:
     from caseview.followup.whatif import check_changes, parse_changes
 
     if among not in AMONG_CHOICES:
@@ -201,20 +207,30 @@ def run_targeting(ws, as_of: dt.date, changes, places, horizon=180.0, among: str
     places = _check_int(places, "--places", 1, 10**7)
     horizon = check_horizon(horizon)
     seed = _check_int(seed, "--seed", 0, 2**32 - 1)
-    model, _ = ws.current_model()
     changes = parse_changes(changes, model) if isinstance(changes, (list, tuple)) else check_changes(changes, model)
     if not changes:
         raise InputError("--set: give the change a place brings, for example --set balance_programme=1")
-    assessment = assess_caseload(ws, as_of, 90.0, callback=callback, reopen=False, explain_reasons=False)
+    return changes, places, horizon, among, seed
+
+
+def targeting_from_assessment(assessment, changes, places, horizon=180.0, among: str = "flagged", seed: int = 1):
+    """:func:`run_targeting` for an already assessed caseload (the window uses the one it shows).
+
+    Candidates flagged in ``assessment`` (``among='flagged'``) or every open case (``'all'``).
+    """
+    from caseview.followup.outlook import open_case_rows
+    from caseview.followup.targeting import rank_places
+
     scores = assessment.scores
+    changes, places, horizon, among, seed = _check_targeting(scores.model, changes, places, horizon, among, seed)
     open_cases = open_case_rows(scores)
     pool = open_cases.rows
     left_out = scores.n_cases - pool.size
     if among == "flagged":
-        pool = pool[assessment.is_flagged[pool]]
+        pool = pool[np.asarray(assessment.is_flagged, dtype=bool)[pool]]
     if pool.size == 0:
-        raise InputError(f"no {'flagged ' if among == 'flagged' else ''}open cases as of {as_of.isoformat()} to rank"
-                         + (" (try --among all)" if among == "flagged" else ""))
+        raise InputError(f"no {'flagged ' if among == 'flagged' else ''}open cases as of {scores.as_of.isoformat()} "
+                         "to rank" + (" (try --among all)" if among == "flagged" else ""))
     return rank_places(scores, pool, changes, places, horizon, among, seed, left_out)
 
 

@@ -74,3 +74,19 @@ def test_refusal_and_cancel_reach_the_label(window, qtbot, workspace_path):
     qtbot.waitUntil(lambda: not window.jobs.busy("outlook"), timeout=60000)
     qtbot.waitUntil(lambda: panel.update_button.isEnabled(), timeout=10000)
     assert "cancelled" in panel.assumption.text() or len(panel.outlook.dates) == 120
+
+
+def test_outlook_tab_on_an_in_memory_caseload_uses_the_shown_scores(window, qtbot, standin):
+    """No workspace file: the tab works from the scores the window shows; parameter draws are refused."""
+    from caseview.operations.outlook import outlook_from_scores
+
+    with qtbot.waitSignal(window.caseload_loaded, timeout=90000):
+        window.set_source(standin)
+    panel = window.outlook_panel
+    with qtbot.waitSignal(panel.outlook_ready, timeout=90000) as ready:
+        window.tabs.setCurrentWidget(panel)
+    direct = outlook_from_scores(window.loaded.scores, None, AS_OF)
+    assert np.allclose(ready.args[0].expected, direct.expected)
+    panel.uncertainty.setCurrentIndex(panel.uncertainty.findData("parameters"))
+    panel.update_button.click()
+    qtbot.waitUntil(lambda: "not fitted" in panel.assumption.text(), timeout=60000)
