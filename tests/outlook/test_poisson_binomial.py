@@ -4,6 +4,8 @@ from __future__ import annotations
 
 import numpy as np
 import pytest
+from hypothesis import given, settings
+from hypothesis import strategies as st
 from scipy import stats
 
 from caseview.followup.poisson_binomial import (EXACT_BELOW_VARIANCE, CountDistributions, CountMoments, exact_pmf,
@@ -91,3 +93,15 @@ def test_mixture_of_one_draw_is_that_draws_quantiles_and_mixtures_widen(rng):
     low, high = mixture_quantiles(mixture)
     assert low == pytest.approx(400 - 1.645 * 10, abs=1.0)   # normal 5% point (scipy.stats.norm.ppf(0.05))
     assert high == pytest.approx(500 + 1.645 * 10, abs=1.0)
+
+
+@settings(max_examples=60, deadline=None)
+@given(st.lists(st.floats(0.0, 1.0), min_size=0, max_size=40), st.floats(0.0, 8.0))
+def test_exact_pmf_is_a_distribution_equal_to_convolution_for_any_probabilities(probabilities, poisson_mean):
+    """Property: for any probabilities (0 and 1 included) the pmf sums to one, is non-negative and
+    equals direct convolution (reference as above)."""
+    q = np.asarray(probabilities, dtype=float)
+    start, pmf = exact_pmf(q, poisson_mean)
+    assert pmf.min() >= 0.0 and pmf.sum() == pytest.approx(1.0, abs=1e-12)
+    reference = convolution_pmf(q, poisson_mean, length=start + pmf.size + 1)
+    assert np.abs(pmf - reference[start:start + pmf.size]).max() < 1e-10
