@@ -106,7 +106,8 @@ def run_target_command(args) -> int:
     for line in lines[:-2]:
         print(line, file=out)
     if result.n_ranked:
-        print(f"  {'rank':>4}  {'case_id':<12} {'coordinator':<11} {'without':>8} {'with':>6} {'reduction':>9}", file=out)
+        print(f"  {'rank':>4}  {'case_id':<12} {'coordinator':<11} {'without':>8} {'with':>6} {'reduction':>9}",
+              file=out)
         for i in range(min(10, result.n_ranked)):
             print(f"  {i + 1:>4}  {result.case_ids[i]:<12} {result.coordinators[i]:<11} "
                   f"{result.p_reach_without[i]:>8.2f} {result.p_reach_with[i]:>6.2f} {result.reduction[i]:>9.3f}",

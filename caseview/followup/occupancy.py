@@ -155,7 +155,8 @@ def power_sums(sums: GroupSums, columns: np.ndarray) -> tuple:
     return s1, s2, s3
 
 
-def expected_entries(start_occupancy_days: np.ndarray, generators: np.ndarray, follow_up_mask: np.ndarray) -> np.ndarray:
+def expected_entries(start_occupancy_days: np.ndarray, generators: np.ndarray,
+                     follow_up_mask: np.ndarray) -> np.ndarray:
     """Expected moves into each stage (and into the follow-up stages from outside them).
 
     Parameters

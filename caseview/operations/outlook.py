@@ -39,7 +39,8 @@ def _check_coordinator(scores, coordinator):
     known = sorted(set(np.asarray(scores.coordinators).astype(str)) - {""})
     if str(coordinator) not in known:
         raise InputError(f"--coordinator {coordinator}: no case with a contact on or before "
-                         f"{scores.as_of.isoformat()} has that coordinator (coordinators: {', '.join(known) or 'none'})")
+                         f"{scores.as_of.isoformat()} has that coordinator "
+                         f"(coordinators: {', '.join(known) or 'none'})")
     return str(coordinator)
 
 
@@ -157,15 +158,6 @@ def outlook_notes(outlook, withhold_dates: bool = False) -> list:
             referrals, outlook.describe_uncertainty()]
 
 
-def horizon_rows(outlook, months=(3, 6, 12)) -> list:
-    """``(months, date, expected, lower, upper)`` of the combined follow-up row at some horizons (report table)."""
-    from caseview.followup.outlook import FOLLOW_UP_ROW
-
-    c = outlook.rows.index(FOLLOW_UP_ROW)
-    return [(m, outlook.dates[m - 1], outlook.expected[m - 1, c], outlook.lower_95[m - 1, c], outlook.upper_95[m - 1, c])
-            for m in months if m <= len(outlook.dates)]
-
-
 def check_horizon(horizon) -> float:
     try:
         value = float(horizon)
@@ -258,7 +250,8 @@ def targeting_summary_lines(result) -> list:
 
     change = ", ".join(f"{k}={v:g}" for k, v in result.changes.items())
     who = "flagged open cases" if result.among == "flagged" else "open cases"
-    short = f" (only {result.pool_size} candidates for {result.places} places)" if result.n_ranked < result.places else ""
+    short = (f" (only {result.pool_size} candidates for {result.places} places)"
+             if result.n_ranked < result.places else "")
     lines = [f"{result.n_ranked} places for {change} among {result.pool_size} {who} as of {result.as_of.isoformat()}"
              f"{short}; horizon {result.horizon_days:g} days.",
              f"Without the change, an expected {result.expected_reaching:.1f} of them reach a follow-up stage "
@@ -298,7 +291,8 @@ def export_targeting(result, path) -> str | None:
     summary = target.with_name(target.stem + "_summary" + (target.suffix or ".csv"))
     rows = targeting_comparison(result)
     columns = [[r[0] for r in rows], [str(result.places)] * 3, [f"{r[1]:.4f}" for r in rows],
-               ["" if r[2] is None else f"{r[2]:.4f}" for r in rows], ["" if r[3] is None else f"{r[3]:.4f}" for r in rows],
+               ["" if r[2] is None else f"{r[2]:.4f}" for r in rows],
+               ["" if r[3] is None else f"{r[3]:.4f}" for r in rows],
                [PLANNING_NOTE] * 3]
     write_table(str(summary), ["choice", "places", "expected_averted", "lower_95", "upper_95", "note"], columns)
     return str(summary)

@@ -21,7 +21,8 @@ def scored_caseload(model, n_cases: int, rng: np.random.Generator, exact_entry: 
     covariates = np.column_stack([rng.integers(0, 2, n_cases), rng.integers(0, 2, n_cases)]).astype(float)
     sim = simulate_caseload(model, contact_times, covariates, rng, missing_probability=0.2, exact_entry=exact_entry)
     n = sim.timelines.n_cases
-    caseload = SimpleNamespace(timelines=sim.timelines, case_ids=np.array([f"HS-{i:04d}" for i in range(n)], dtype=object),
+    caseload = SimpleNamespace(timelines=sim.timelines,
+                               case_ids=np.array([f"HS-{i:04d}" for i in range(n)], dtype=object),
                                coordinators=np.array([f"C{i % 3 + 1}" for i in range(n)], dtype=object))
     return score_loaded(caseload, model, end, 90.0)
 

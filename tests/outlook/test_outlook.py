@@ -184,7 +184,8 @@ def test_referral_rate_and_its_exact_interval():
     assert a.upper_95 == pytest.approx(chi2.ppf(0.975, 12) / 2 / months)
     assert poisson_rate_interval(0, 2.0)[0] == 0.0
     assert np.allclose(a.weights, [0.2, 0.8]) and np.array_equal(a.covariates, [[0, 1], [1, 0]])  # last year only
-    assert "5 first contacts" in a.describe() and referral_assumption("none", first, covariates, as_of, 2).rate_per_month == 0
+    assert "5 first contacts" in a.describe()
+    assert referral_assumption("none", first, covariates, as_of, 2).rate_per_month == 0
     assert referral_assumption("7.5", first, covariates, as_of, 2).describe().startswith("New referrals: 7.5 a month")
 
 
