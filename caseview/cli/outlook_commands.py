@@ -16,7 +16,7 @@ from .basic import open_workspace, stderr_progress
 def register(sub) -> None:
     p = sub.add_parser("outlook", help="expected number of open cases in each stage at each coming month end",
                        description="Sum of every open case's forecast (stage probabilities now moved on with "
-                                   "the model's rates and the case's covariates), with 95%% bands and the expected "
+                                   "the model's rates and the case's covariates), with 95% bands and the expected "
                                    "entries into each stage per month; optionally with new referrals and with "
                                    "parameter uncertainty. One row per month end and stage, plus a combined "
                                    "'follow-up stages' row. " + ADVISORY_NOTICE)
