@@ -115,6 +115,9 @@ def test_parameter_uncertainty_widens_the_bands_and_says_how(fitted_ws, tmp_path
     width = lambda t: (t["upper_95"] - t["lower_95"]).to_numpy()   # noqa: E731
     assert np.all(width(wide) >= width(plain) - 1) and width(wide).sum() > width(plain).sum()
     assert "mixture over 60 models drawn (seed 4)" in text and "multivariate normal" in text
+    code, _, _ = run(capsys, "outlook", fitted_ws, "--as-of", "2026-11-30", "--referrals", "none",
+                     "--uncertainty", "parameters", "--draws", "60", "--seed", "4", "--out", tmp_path / "again.csv")
+    assert code == 0 and (tmp_path / "again.csv").read_bytes() == (tmp_path / "wide.csv").read_bytes()  # seeded
 
 
 def test_target_ranking_matches_per_case_whatif_forecasts(demo_ws, tmp_path, capsys):
