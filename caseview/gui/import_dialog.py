@@ -141,6 +141,10 @@ class ImportDialog(QDialog):
         self.use_suggestion.setVisible(False)
         from caseview.errors import InputError
 
+        ws = getattr(self.source, "workspace", lambda: None)()
+        if hasattr(ws, "is_own_file") and ws.is_own_file(path):  # reading it with open() would drop our SQLite locks
+            self.summary.setText(f"{self.path.name} is the workspace file itself, not a timeline file.")
+            return
         try:
             header, rows = read_preview(path, header_row=self.header_row.value())
         except (InputError, OSError, ValueError) as exc:

@@ -222,6 +222,9 @@ def import_timelines(ws, path, actor: str, mapping: dict | None = None, drop=(),
 
     check_one_line(actor, "the name recorded in the audit trail (--by)")
     date_format = check_date_format(date_format)
+    if ws.is_own_file(path):  # reading it with open() would drop this process's SQLite locks on it
+        raise InputError(f"{Path(path).name}: this is the workspace file itself, not a timeline file; "
+                         "nothing was imported")
     facts = scan_file(path)
     report(0.05)
     model, version = ws.current_model()
@@ -289,7 +292,8 @@ def import_timelines(ws, path, actor: str, mapping: dict | None = None, drop=(),
                 details["case_ids"] = sorted({d["case_id"] for d in counts.replaced_details})
             if check_only:
                 raise _RollBack()
-            entry = ws.audit_append(actor, "import.replace" if counts.replaced else "import", file_name, details)
+            entry = ws.audit_append(actor, "import.replace" if counts.replaced else "import", file_name, details,
+                                    changes=counts.row_changes)
     except _RollBack:
         entry = None
     except ContactConflicts as conflict:
