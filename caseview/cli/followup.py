@@ -19,9 +19,11 @@ STATUS_CHOICES = ("acknowledged", "actioned", "dismissed")
 
 def register(sub) -> None:
     p = sub.add_parser("flags", help="cases flagged for follow-up, with reasons and next contact due",
-                       description="One row per flagged case: the rules that fired, why (numbers against "
-                                   "thresholds and the recent contacts that drove them), the next contact due "
-                                   "and the review status. " + ADVISORY_NOTICE)
+                       description="One row per flagged case: the rules that fired, why (the 'reason' column: "
+                                   "plain sentences with the chance against the rule's threshold and the recent "
+                                   "contact that moved it most; the numbers are also in their own columns), the "
+                                   "next contact due (a date for every case; before the as-of date means "
+                                   "overdue) and the review status. " + ADVISORY_NOTICE)
     p.add_argument("workspace", metavar="WS")
     p.add_argument("--as-of", required=True, metavar="YYYY-MM-DD")
     p.add_argument("--horizon", type=float, default=90.0, metavar="DAYS", help="forecast horizon (default 90)")
@@ -128,11 +130,16 @@ def run_flags(args) -> int:
     if a.saved_run_id is not None:
         print(f"  saved score run {a.saved_run_id}", file=out)
     if n:
+        from caseview.followup.wording import due_words
+
         print("top by priority:", file=out)
-        print(f"  {'case_id':<12} {'P(f-u now)':>10} {'P(reach)':>9} {'next due':>10}  {'review':<12} flags", file=out)
-        for i, r in enumerate(rows[:10]):
-            print(f"  {s.case_ids[r]:<12} {s.p_follow_up_now[r]:>10.2f} {s.p_reach_follow_up[r]:>9.2f} "
-                  f"{due_text[i] or 'not soon':>10}  {a.review_status[r]:<12} {a.flags[r]}", file=out)
+        print(f"  {'case_id':<12} {'P(f-u now)':>10} {'P(reach)':>9}  {'next contact due':<26} {'review':<12} flags",
+              file=out)
+        for r in rows[:10]:
+            print(f"  {s.case_ids[r]:<12} {s.p_follow_up_now[r]:>10.2f} {s.p_reach_follow_up[r]:>9.2f}  "
+                  f"{due_words(a.next_contact_due_day[r], s.as_of_day):<26} {a.review_status[r]:<12} {a.flags[r]}",
+                  file=out)
+        print("why the first one is flagged: " + str(a.reason_text[rows[0]]), file=out)
     print(ADVISORY_NOTICE, file=out)
     return 0
 
