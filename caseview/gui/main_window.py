@@ -58,6 +58,7 @@ class MainWindow(QMainWindow):
         self.caseload = CaseloadPanel()
         self.case_view = CaseView()
         self.caseload.case_selected.connect(self.case_view.show_case)
+        self.caseload.selection_cleared.connect(self.case_view.clear_case)
         split = QSplitter(Qt.Vertical)
         split.setObjectName("caseloadSplit")
         split.addWidget(self.caseload)
@@ -224,8 +225,8 @@ class MainWindow(QMainWindow):
     def _scored(self, loaded) -> None:
         self._job_ended()
         self.loaded = loaded
-        self.case_view.set_scores(loaded.scores)
-        self.caseload.set_caseload(loaded)
+        self.case_view.set_scores(loaded.scores, loaded.assessment)
+        self.caseload.set_caseload(loaded)  # re-announces the selected case: the pane redraws from this run
         self.risk_queue.set_caseload(loaded)
         if self._pending_case:
             if not self.caseload.select_case(self._pending_case):
