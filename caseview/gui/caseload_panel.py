@@ -206,6 +206,18 @@ class CaseloadPanel(QWidget):
             self._quiet = False
         self._announce()
 
+    def clear_filters(self) -> None:
+        """Show every case again (search, coordinator, stage, flagged-only and review filters off)."""
+        for w in (self.search, self.coordinator, self.stage, self.flagged, self.review):
+            w.blockSignals(True)
+        self.search.clear()
+        for combo in (self.coordinator, self.stage, self.review):
+            combo.setCurrentIndex(0)
+        self.flagged.setChecked(False)
+        for w in (self.search, self.coordinator, self.stage, self.flagged, self.review):
+            w.blockSignals(False)
+        self._filter(coordinator="", stage=-1, flagged_only=False, review=None, search="")
+
     def _update_count(self) -> None:
         shown, total = self.model.rowCount(), self.model._n
         flagged = int(self.model.is_flagged.sum()) if self.model.scores is not None else 0

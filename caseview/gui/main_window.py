@@ -71,6 +71,8 @@ class MainWindow(QMainWindow):
         from .risk_queue import RiskQueue
 
         self.risk_queue = RiskQueue(self)
+        self.risk_queue.review_saved.connect(self._review_saved)
+        self.risk_queue.open_case_requested.connect(self.show_case)
         self.model_panel = ModelPanel(self)
         self.tabs = QTabWidget()
         self.tabs.setObjectName("mainTabs")
@@ -201,6 +203,19 @@ class MainWindow(QMainWindow):
         self.setWindowTitle(f"caseview — {source.label}")
         self.model_panel.set_source(source)
         self.rescore()
+
+    def show_case(self, case_id: str) -> bool:
+        """Bring the caseload tab forward with ``case_id`` selected (filters cleared if they hide it)."""
+        self.tabs.setCurrentIndex(0)
+        if self.caseload.select_case(case_id):
+            return True
+        self.caseload.clear_filters()
+        return self.caseload.select_case(case_id)
+
+    def _review_saved(self, case_row: int, status: str, note: str) -> None:
+        self.caseload.model.set_review_status(case_row, status, note)
+        if self.case_view.row == case_row:
+            self.case_view.refresh_case()
 
     # ------------------------------------------------------------------ scoring
     def rescore(self) -> None:
