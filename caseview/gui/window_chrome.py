@@ -119,3 +119,20 @@ def build_menus(window) -> None:
     for i, name in enumerate(("Caseload", "Risk queue", "Model")):
         view.addAction(QAction(name, window, shortcut=f"Ctrl+{i + 1}",
                                triggered=lambda _=False, i=i: window.tabs.setCurrentIndex(i)))
+    help_menu = window.menuBar().addMenu("&Help")
+    window.action_glossary = QAction("Glossary of terms", window, shortcut=QKeySequence.HelpContents,
+                                     triggered=lambda: show_glossary(window))
+    window.action_glossary.setToolTip("What the words in this window mean (F1)")
+    help_menu.addAction(window.action_glossary)
+
+
+def show_glossary(window):
+    """Open (or bring forward) the glossary dialog; returns it."""
+    from .glossary import GlossaryDialog
+
+    dialog = getattr(window, "glossary", None)
+    if dialog is None:
+        dialog = window.glossary = GlossaryDialog(window)
+    dialog.show()
+    dialog.raise_()
+    return dialog
