@@ -12,12 +12,13 @@ from __future__ import annotations
 import numpy as np
 
 from caseview import ADVISORY_NOTICE, __version__
+from caseview.followup.wording import plural
 
 from . import charts, style
 from .data import case_history
 from .layout import MARGIN, Column, Page
 from .model_summary import NOT_FITTED
-from .records import short_reasons
+from .records import review_note, short_reasons
 
 #: Most flagged cases drawn as small timelines (the rest are named as left out).
 MAX_TIMELINES = 24
@@ -139,13 +140,17 @@ def _flag_rows(data) -> list:
         k = int(s.most_likely_stage[r])
         due = int(a.next_contact_due_day[r])
         if due < 0:
-            due_text = "not within the schedule limit"
-        elif due <= s.as_of_day:
-            due_text = "now"
+            due_text = "no date"
+        elif due < s.as_of_day:
+            due_text = f"overdue by {plural(s.as_of_day - due, 'day')}"
+        elif due == s.as_of_day:
+            due_text = "due today"
         else:
-            due_text = f"{view.case_text(r, due)} (in {due - s.as_of_day} days)"
+            due_text = f"{view.case_text(r, due)} (in {plural(due - s.as_of_day, 'day')})"
         status = str(a.review_status[r] or "") or "not reviewed"
         who = str(a.reviewed_by[r] or "")
+        note = review_note(data, r)
+        who = who + (f": “{note}”" if note else "")
         rows.append([str(s.case_ids[r]), str(s.coordinators[r] or ""), f"{data.stages[k]} {_pct(s.p_now[r, k])}",
                      _pct(s.p_follow_up_now[r]), _pct(s.p_reach_follow_up[r]), short_reasons(data, r), due_text,
                      status + (f" by {who}" if who else "")])

@@ -38,6 +38,7 @@ def test_flagged_case_ids_and_review_status_in_text(calendar_reports, assessment
         assert case_id in flat
     # The one review recorded in the fixture is counted as done.
     assert re.search(r"\b1 reviewed by a supervisor", flat)
+    assert "seen at meeting" in flat  # the review's note is shown beside its status
     assert f"{len(flagged) - 1} outstanding" in flat
     assert "rates not fitted to this caseload" in flat.lower()
 
