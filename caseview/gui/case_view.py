@@ -299,7 +299,9 @@ class CaseView(QWidget):
         strip.set_yticks(range(len(d.stages)))
         strip.set_yticklabels([s if len(s) < 14 else s[:12] + "…" for s in d.stages], fontsize=7)
         strip.set_ylim(len(d.stages) - 0.5, -0.5)
-        strip.set_ylabel("most likely path\n(estimate, not\na record)", color=fg, fontsize=7)
+        strip.set_ylabel("most likely\npath", color=fg, fontsize=8)
+        strip.set_title("most likely stage at each contact: an estimate, not a record", fontsize=7, color=fg,
+                        loc="left")
         ticks = np.linspace(min(x_contacts[0], d.as_of_day), d.ahead_days[-1], 6)
         strip.set_xticks(ticks)
         strip.set_xticklabels([from_day(int(t)).strftime("%Y-%m-%d") for t in ticks], fontsize=8)

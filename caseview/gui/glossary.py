@@ -18,7 +18,7 @@ _BANDS = "; ".join(
 #: (term, explanation), in the order a new user meets them.
 GLOSSARY = (
     ("advisory", "Everything caseview shows is an estimate from a statistical model, to help decide whom to "
-                 "contact first. It is not a diagnosis. " + ADVISORY_NOTICE),
+                 "contact first. " + ADVISORY_NOTICE),
     ("case", "One person supported by the service, shown by a code, never by name."),
     ("contact", "A visit, call or meeting with a recorded date and what was observed."),
     ("coordinator", "The care coordinator responsible for the case at its last contact."),

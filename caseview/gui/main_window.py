@@ -364,7 +364,9 @@ class MainWindow(QMainWindow):
             QApplication.processEvents()
         return not self.jobs.busy()
 
-    def render_screenshot(self, path, workspace=None, case_id=None, size=(1400, 900), tab: int = 0) -> int:
+    def render_screenshot(self, path, workspace=None, case_id=None, size=(1400, 900), tab: int = 0,
+                          dialog: str | None = None) -> int:
+        """Render the window (or, with ``dialog="glossary"``, the glossary dialog) to a PNG offscreen."""
         from caseview.errors import WorkspaceError
 
         self.setProperty("quiet", True)
@@ -380,6 +382,11 @@ class MainWindow(QMainWindow):
         if self.case_view.canvas is not None:
             self.case_view.canvas.draw()
         pixmap = self.grab()
+        if dialog == "glossary":
+            shown = window_chrome.show_glossary(self)
+            QApplication.processEvents()
+            pixmap = shown.grab()
+            shown.close()
         if not pixmap.save(str(path), "PNG"):
             raise WorkspaceError(f"{path}: cannot write the screenshot")
         self.close()

@@ -68,7 +68,7 @@ class RiskQueue(QWidget):
         self.table.setSelectionMode(QAbstractItemView.SingleSelection)
         self.table.horizontalHeader().setStretchLastSection(True)
         self.table.setWordWrap(False)
-        for column, width in enumerate((100, 90, 95, 105, 170, 100, 180, 200)):
+        for column, width in enumerate((88, 88, 105, 120, 140, 90, 130, 200)):
             self.table.setColumnWidth(column, width)
         self.table.selectionModel().selectionChanged.connect(lambda *_: self._selection_changed())
         self.table.doubleClicked.connect(self._open_case)
@@ -115,6 +115,8 @@ class RiskQueue(QWidget):
         self.by_coordinator.setEditTriggers(QAbstractItemView.NoEditTriggers)
         self.by_coordinator.setSelectionBehavior(QAbstractItemView.SelectRows)
         self.by_coordinator.cellClicked.connect(self._coordinator_clicked)
+        self.by_coordinator.horizontalHeader().setSectionResizeMode(QHeaderView.ResizeToContents)
+        self.by_coordinator.horizontalHeader().setSectionResizeMode(0, QHeaderView.Stretch)
         self.overdue = QLabel("")
         self.overdue.setWordWrap(True)
         self.overdue.setTextFormat(Qt.RichText)
@@ -136,7 +138,8 @@ class RiskQueue(QWidget):
         split.addWidget(supervisor)
         split.setStretchFactor(0, 3)
         split.setStretchFactor(1, 1)
-        supervisor.setMinimumWidth(430)
+        supervisor.setMinimumWidth(440)
+        split.setSizes([940, 440])
         layout = QVBoxLayout(self)
         layout.addWidget(split)
         self._set_available(False)
@@ -221,7 +224,6 @@ class RiskQueue(QWidget):
         self.overdue.setText(f"<a href='overdue'><b>{plural(n_overdue, 'overdue flag')}</b></a>: the next contact "
                              f"was due before {s.as_of.isoformat()} (or is due that day) and nobody has reviewed "
                              "the flag yet. Click to list them.")
-        self.by_coordinator.resizeColumnsToContents()
 
     def show_overdue(self) -> None:
         """List the overdue, unreviewed flags (every coordinator)."""
