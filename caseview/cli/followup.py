@@ -98,6 +98,7 @@ def run_flags(args) -> int:
     import numpy as np
 
     from caseview.followup import assess_caseload
+    from caseview.followup.wording import plural
     from caseview.scoring import parse_date
 
     as_of = parse_date(args.as_of, "--as-of")
@@ -118,7 +119,7 @@ def run_flags(args) -> int:
                s.days_since_contact[rows].astype(str).tolist(), [f"{v:.4f}" for v in a.priority[rows]]]
     write_table(args.out, header, columns)
     out = sys.stderr if args.out == "-" else sys.stdout
-    print(f"{n} of {s.n_cases} cases flagged as of {as_of.isoformat()} (horizon {s.horizon_days:g} days)"
+    print(f"{n} of {plural(s.n_cases, 'case')} flagged as of {as_of.isoformat()} (horizon {s.horizon_days:g} days)"
           + (f"; wrote {args.out}" if args.out != "-" else ""), file=out)
     for rule in a.rules:
         state = "" if rule.enabled else " (switched off)"

@@ -7,6 +7,8 @@ from PySide6.QtGui import QColor, QKeySequence, QShortcut
 from PySide6.QtWidgets import (QAbstractItemView, QCheckBox, QComboBox, QHBoxLayout, QHeaderView, QLabel,
                                QLineEdit, QStyledItemDelegate, QTableView, QVBoxLayout, QWidget)
 
+from caseview.followup.wording import plural
+
 from . import theme
 from .caseload_model import P_NOW, P_REACH, PROBABILITY_ROLE, REVIEW_STATUSES, STAGE, CaseloadTableModel
 
@@ -221,7 +223,7 @@ class CaseloadPanel(QWidget):
     def _update_count(self) -> None:
         shown, total = self.model.rowCount(), self.model._n
         flagged = int(self.model.is_flagged.sum()) if self.model.scores is not None else 0
-        self.count.setText(f"{shown:,} of {total:,} cases shown · {flagged:,} flagged")
+        self.count.setText(f"{shown:,} of {plural(total, 'case')} shown · {flagged:,} flagged")
 
     def _current_changed(self, current, _previous) -> None:
         if self._quiet:

@@ -249,7 +249,9 @@ class MainWindow(QMainWindow):
                                              f"{self.as_of.isoformat()}.")
             self._pending_case = None
         notes = " ".join(loaded.notes)
-        self.statusBar().showMessage(f"Scored {loaded.scores.n_cases:,} cases as of {self.as_of.isoformat()}, "
+        from caseview.followup.wording import plural
+
+        self.statusBar().showMessage(f"Scored {plural(loaded.scores.n_cases, 'case')} as of {self.as_of.isoformat()}, "
                                      f"horizon {self.horizon_days:g} days. {notes}")
         self.caseload_loaded.emit(loaded)
         self._start_reasons(loaded)
@@ -269,7 +271,9 @@ class MainWindow(QMainWindow):
             return
         from .data_source import REASONS_PER_STEP, full_collections_postponed, reason_steps
 
-        first = self.risk_queue.rows if self.risk_queue.loaded is loaded else []
+        from .risk_queue import FIRST_REASONS
+
+        first = self.risk_queue.rows[:FIRST_REASONS] if self.risk_queue.loaded is loaded else []
         steps = reason_steps(a, first, self.REASONS_PER_STEP or REASONS_PER_STEP)
         if not steps:
             return

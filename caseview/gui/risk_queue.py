@@ -22,6 +22,9 @@ from caseview.followup.wording import plural
 from .risk_queue_model import COLUMNS, RULES, RiskQueueModel
 
 ALL = "*"  # combo data meaning "no filter" (never None: see caseload_panel.ProbabilityDelegate)
+#: The queue's first rows get their reasons worked out first, as one step of the window's reasons job
+#: (a few screenfuls; the rest follow in priority order, and a selected case is explained at once).
+FIRST_REASONS = 500
 
 
 class RiskQueue(QWidget):

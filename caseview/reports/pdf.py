@@ -99,9 +99,9 @@ def _cover(data) -> Page:
         page.heading("Changes since the previous date")
         page.paragraph("Not requested (use --since to compare with an earlier date).", colour=style.MUTED)
     page.heading("Reviews")
-    page.paragraph(f"{data.flagged_rows.size} flagged case(s): {data.reviews_done} reviewed by a supervisor "
+    page.paragraph(f"{plural(data.flagged_rows.size, 'flagged case')}: {data.reviews_done} reviewed by a supervisor "
                    f"(acknowledged, actioned or dismissed), {data.reviews_outstanding} outstanding. "
-                   f"Scored {s.n_cases} case(s) in the workspace in total.")
+                   f"Scored {plural(s.n_cases, 'case')} in the workspace in total.")
     if data.flagged_rows.size > MAX_LISTED_FLAGGED:
         page.caution_box(f"This PDF lists the {MAX_LISTED_FLAGGED:,} most urgent flagged cases. "
                          + _left_out_note(int(data.flagged_rows.size) - MAX_LISTED_FLAGGED))
@@ -158,8 +158,9 @@ def _flag_rows(data) -> list:
 
 
 def _left_out_note(left_out: int) -> str:
-    return (f"{left_out:,} more flagged case(s) are not listed in this PDF. Every flagged case is in the spreadsheet "
-            "or CSV report (caseview report ... --out FILE.xlsx), or list one coordinator's cases with "
+    verb = "is" if left_out == 1 else "are"
+    return (f"{plural(left_out, 'more flagged case')} {verb} not listed in this PDF. Every flagged case is in the "
+            "spreadsheet or CSV report (caseview report ... --out FILE.xlsx), or list one coordinator's cases with "
             "--coordinator. Do not take a case's absence here to mean it needs no follow-up.")
 
 

@@ -127,3 +127,17 @@ def test_as_of_field_rescores_when_editing_finishes_not_per_keystroke(window, qt
     qtbot.wait(500)
     assert standin.loads == loads + 1
     assert window.as_of == dt.date(2024, window.as_of.month, window.as_of.day)
+
+
+def test_case_title_says_1_day_ago(window, qtbot, standin):
+    loaded = load(window, qtbot, standin)
+    s = loaded.scores
+    row = int(np.argmax(s.last_contact_day))
+    case_id = str(s.case_ids[row])
+    next_day = from_day(int(s.last_contact_day[row]) + 1)
+    if next_day != window.as_of:
+        with qtbot.waitSignal(window.caseload_loaded, timeout=60000):
+            window.as_of_edit.setDate(next_day)
+    assert window.case_view.refresh_case(case_id)
+    assert "(1 day ago)" in window.case_view.title.text() and "1 days" not in window.case_view.title.text()
+    assert window.caseload.count.text().endswith("flagged") and " cases shown" in window.caseload.count.text()
