@@ -81,14 +81,15 @@ class CoordinatorCounts:
 
 def counts_by_coordinator(assessment) -> list:
     """One :class:`CoordinatorCounts` per coordinator with flagged cases, sorted by coordinator."""
-    scores = assessment.scores
-    flagged = np.asarray(assessment.is_flagged, dtype=bool)
-    coordinators = np.asarray(scores.coordinators, dtype=object)
-    status = queue_status(assessment)
-    overdue = overdue_mask(assessment)
+    flagged = np.flatnonzero(np.asarray(assessment.is_flagged, dtype=bool))
+    coordinators = np.asarray(assessment.scores.coordinators, dtype=object)[flagged].astype(str)
+    status = queue_status(assessment)[flagged].astype(str)
+    overdue = overdue_mask(assessment)[flagged]
+    names, which = np.unique(coordinators, return_inverse=True)
+    which = which.reshape(-1)
     out = []
-    for name in sorted({str(c) for c in coordinators[flagged]}):
-        mine = flagged & (coordinators == name)
-        out.append(CoordinatorCounts(name, {s: int((status[mine] == s).sum()) for s in QUEUE_STATUSES},
-                                     int((overdue & mine).sum())))
+    for k, name in enumerate(names.tolist()):
+        mine = which == k
+        out.append(CoordinatorCounts(name, {s: int(np.count_nonzero(status[mine] == s)) for s in QUEUE_STATUSES},
+                                     int(np.count_nonzero(overdue & mine))))
     return out

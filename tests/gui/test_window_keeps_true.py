@@ -44,6 +44,10 @@ def test_case_pane_shows_the_new_estimate_after_an_import(window, qtbot, workspa
     assert view.scores is new_scores and view.row == new_row      # ... and the pane follows it
     assert view.data.case_id == case_id and int(view.data.contact_days[-1]) == new_scores.as_of_day
     assert new_day in view.title.text() and view.contacts.rowCount() == int(new_scores.n_contacts[new_row])
+    a = window.loaded.assessment
+    assert "Next contact due:" in view.why.text()
+    if a.is_flagged[new_row]:   # the plain reason sentences of this run, not the last one
+        assert "in a follow-up stage" in view.why.text() and "The contact on " + new_day in view.why.text()
 
 
 def test_case_pane_follows_the_as_of_date(window, qtbot, standin):
