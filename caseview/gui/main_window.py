@@ -73,6 +73,7 @@ class MainWindow(QMainWindow):
         self.risk_queue = RiskQueue(self)
         self.risk_queue.review_saved.connect(self._review_saved)
         self.risk_queue.open_case_requested.connect(self.show_case)
+        self.risk_queue.reopen_requested.connect(self.reopen_risen_flags)
         self.model_panel = ModelPanel(self)
         self.tabs = QTabWidget()
         self.tabs.setObjectName("mainTabs")
@@ -211,6 +212,19 @@ class MainWindow(QMainWindow):
             return True
         self.caseload.clear_filters()
         return self.caseload.select_case(case_id)
+
+    def reopen_risen_flags(self) -> list:
+        """Re-open the dismissed flags whose risk rose (audited), then rescore to show them."""
+        ws, loaded = self.workspace(), self.loaded
+        if ws is None or loaded is None or loaded.assessment is None:
+            return []
+        from caseview.followup.reviews import reopen_risen
+        from caseview.followup.wording import plural
+
+        done = reopen_risen(ws, loaded.assessment)
+        self.statusBar().showMessage(f"Re-opened {plural(len(done), 'dismissed flag')}: {', '.join(done)}.")
+        self.rescore()
+        return done
 
     def _review_saved(self, case_row: int, status: str, note: str) -> None:
         self.caseload.model.set_review_status(case_row, status, note)

@@ -33,6 +33,7 @@ class RiskQueue(QWidget):
     review_recorded = Signal(str, str)        # case ID, new status
     review_saved = Signal(int, str, str)      # case row, new status, note (the window updates the table)
     open_case_requested = Signal(str)         # case ID (double click)
+    reopen_requested = Signal()               # re-open the dismissed flags whose risk rose (explicit, audited)
 
     def __init__(self, window, parent=None):
         super().__init__(parent)
@@ -125,6 +126,10 @@ class RiskQueue(QWidget):
         self.overdue.setTextFormat(Qt.RichText)
         self.overdue.setAccessibleName("Overdue flags (click to list them)")
         self.overdue.linkActivated.connect(lambda _: self.show_overdue())
+        self.reopen_button = QPushButton("")
+        self.reopen_button.setAccessibleName("Re-open dismissed flags whose risk rose")
+        self.reopen_button.clicked.connect(self.reopen_requested.emit)
+        self.reopen_button.hide()
         self.audit_status = QLabel("Audit trail: not checked yet")
         self.audit_status.setWordWrap(True)
         self.audit_status.setAccessibleName("Audit verification result")
@@ -133,6 +138,7 @@ class RiskQueue(QWidget):
         sup.addWidget(QLabel("Flags by coordinator and review status (click a row to list them)"))
         sup.addWidget(self.by_coordinator, 1)
         sup.addWidget(self.overdue)
+        sup.addWidget(self.reopen_button)
         sup.addWidget(self.audit_status)
         sup.addWidget(verify)
 
@@ -178,6 +184,11 @@ class RiskQueue(QWidget):
         self.coordinator.setCurrentIndex(max(0, self.coordinator.findData(current)))
         self.coordinator.blockSignals(False)
         self._fill_supervisor()
+        n = len(loaded.reopen_candidates)
+        self.reopen_button.setText(f"Re-open {plural(n, 'dismissed flag')} whose risk rose since dismissal…")
+        self.reopen_button.setToolTip(", ".join(f"{c}: {before:.0%} → {now:.0%}"
+                                                for c, before, now in loaded.reopen_candidates[:20]))
+        self.reopen_button.setVisible(n > 0)
         self.apply_filters()
 
     def apply_filters(self) -> None:

@@ -109,3 +109,35 @@ def test_review_note_shown_in_queue_table_and_case_pane(window, qtbot, workspace
         window.rescore()
     a = window.loaded.assessment
     assert a.review_note[a.scores.row_of(case_id)] == "phoned, visit booked for Friday"
+
+
+def test_loading_never_writes_reopening_is_an_explicit_step(window, qtbot, workspace_path):
+    from caseview.followup import record_review
+    from caseview.storage import Workspace
+
+    # a flagged case dismissed when its chance was far lower (as of its first contact)
+    with Workspace.open(workspace_path) as ws:
+        from caseview.followup import assess_caseload
+
+        a = assess_caseload(ws, AS_OF, 90.0, reopen=False, explain_reasons=False)
+        r = int(np.argmax(a.scores.p_follow_up_now))
+        case_id = str(a.scores.case_ids[r])
+        early = a.scores.first_contact_day[r]
+        from caseview.scoring import from_day
+
+        record_review(ws, case_id, "acknowledged", "looked", "sup", None, from_day(int(early)))
+        row = record_review(ws, case_id, "dismissed", "family visiting daily", "sup", None, from_day(int(early)))
+        assert row.p_follow_up is not None and a.scores.p_follow_up_now[r] - row.p_follow_up >= 0.15
+        entries_before = len(ws.audit_entries())
+    loaded = open_ws(window, qtbot, workspace_path)
+    assert len(window.workspace().audit_entries()) == entries_before          # loading wrote nothing
+    assert loaded.assessment.review_status[loaded.scores.row_of(case_id)] == "dismissed"
+    queue = window.risk_queue
+    assert [c[0] for c in loaded.reopen_candidates] == [case_id]
+    assert not queue.reopen_button.isHidden() and "Re-open 1 dismissed flag " in queue.reopen_button.text()
+    with qtbot.waitSignal(window.caseload_loaded, timeout=60000):
+        queue.reopen_button.click()
+    entries = window.workspace().audit_entries()
+    assert len(entries) == entries_before + 1 and entries[-1].action == "review.reopened"
+    a = window.loaded.assessment
+    assert a.review_status[a.scores.row_of(case_id)] == "new" and queue.reopen_button.isHidden()
