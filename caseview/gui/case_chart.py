@@ -54,8 +54,9 @@ class CaseChartData:
     horizon_days: float
 
     @property
-    def reach_follow_up(self) -> float:
-        """P(follow-up at the horizon) read from the forecast curve (occupancy, not first passage)."""
+    def follow_up_at_horizon(self) -> float:
+        """P(in a follow-up stage on the horizon day) read from the forecast curve (occupancy; not
+        "reach", which means at least once within the horizon)."""
         return float(self.ahead[-1, self.follow_up].sum()) if self.follow_up.any() else 0.0
 
     @property

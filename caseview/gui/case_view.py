@@ -202,7 +202,7 @@ class CaseView(QWidget):
             changes = ", ".join(f"{k.replace('_', ' ')} = {v:g}" for k, v in d.whatif_changes.items())
             self.whatif_summary.setText(
                 f"What-if ({changes}): chance of being in a follow-up stage on day {s.horizon_days:g} "
-                f"{d.reach_follow_up * 100:.0f}% → {d.whatif_follow_up * 100:.0f}%.")
+                f"{d.follow_up_at_horizon * 100:.0f}% → {d.whatif_follow_up * 100:.0f}%.")
         elif self.whatif_box.isChecked():
             self.whatif_summary.setText("Change a value to see the what-if forecast.")
         else:

@@ -95,7 +95,7 @@ def test_whatif_overlay_changes_forecast(window, qtbot, standin):
     assert np.allclose(view.data.ahead, before)
     # the demo model gives the programme hazard ratios < 1 on worsening moves (resources/models),
     # so the chance of a follow-up stage at the horizon must fall
-    assert view.data.whatif_follow_up < view.data.reach_follow_up
+    assert view.data.whatif_follow_up < view.data.follow_up_at_horizon
     assert "What-if" in view.whatif_summary.text()
     assert any(line.get_label() == "follow-up, what-if" for line in view.figure.axes[0].lines)
 
