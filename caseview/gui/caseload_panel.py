@@ -91,7 +91,7 @@ class CaseloadPanel(QWidget):
         # sort on the indicator's change, never flip a second time ourselves
         header.sortIndicatorChanged.connect(self._sort_indicator_changed)
         header.setStretchLastSection(True)
-        for column, width in enumerate((100, 95, 100, 85, 170, 110, 165, 130, 200, 110)):
+        for column, width in enumerate((95, 95, 100, 80, 170, 110, 165, 185, 190, 110)):
             self.table.setColumnWidth(column, width)
         delegate = ProbabilityDelegate(self.table)
         for column in (STAGE, P_NOW, P_REACH):
