@@ -11,9 +11,16 @@ from PySide6.QtWidgets import QDialog, QDialogButtonBox, QLineEdit, QTextBrowser
 from caseview import ADVISORY_NOTICE
 from caseview.followup.wording import CHANCE_BANDS
 
-_BANDS = "; ".join(
-    f"{words}: {low * 100:.0f}% {'and over' if i == 0 else 'to ' + format(CHANCE_BANDS[i - 1][0] * 100 - 1, '.0f') + '%'}"
-    for i, (low, words) in enumerate(CHANCE_BANDS))
+def _band_text() -> str:
+    """'very likely: 90% and over; likely: 65% to 89%; ...' from the bands themselves."""
+    parts = []
+    for i, (low, words) in enumerate(CHANCE_BANDS):
+        upto = "and over" if i == 0 else f"to {CHANCE_BANDS[i - 1][0] * 100 - 1:.0f}%"
+        parts.append(f"{words}: {low * 100:.0f}% {upto}")
+    return "; ".join(parts)
+
+
+_BANDS = _band_text()
 
 #: (term, explanation), in the order a new user meets them.
 GLOSSARY = (

@@ -354,9 +354,11 @@ class RiskQueue(QWidget):
             return
         result = ws.audit_verify()
         if result.ok:
-            self.audit_status.setText(f"Audit trail intact: {result.n_entries:,} entries, head {result.head_hash[:12]}…")
+            self.audit_status.setText(f"Audit trail intact: {plural(result.n_entries, 'entry', 'entries')}, "
+                                      f"head {result.head_hash[:12]}…")
         else:
-            self.audit_status.setText(f"<b>Audit trail check FAILED</b> at entry {result.first_bad_id}: {result.problem}")
+            self.audit_status.setText(f"<b>Audit trail check FAILED</b> at entry {result.first_bad_id}: "
+                                      f"{result.problem}")
 
     def _open_case(self, index) -> None:
         self.open_case_requested.emit(str(self.loaded.scores.case_ids[self.model.case_row(index.row())]))
