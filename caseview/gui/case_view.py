@@ -198,11 +198,14 @@ class CaseView(QWidget):
             f"most likely now: <b>{stage}</b> ({percent(s.p_now[r].max())}) · a follow-up stage within "
             f"{s.horizon_days:g} days is {chance_words(reach)} (<b>{percent(reach)}</b>)")
         self.why.setText(self._why_text(r))
-        if d.whatif is not None:
+        if d.whatif is not None and d.whatif_forecast is not None:
+            w = d.whatif_forecast
             changes = ", ".join(f"{k.replace('_', ' ')} = {v:g}" for k, v in d.whatif_changes.items())
             self.whatif_summary.setText(
                 f"What-if ({changes}): chance of being in a follow-up stage on day {s.horizon_days:g} "
-                f"{d.follow_up_at_horizon * 100:.0f}% → {d.whatif_follow_up * 100:.0f}%.")
+                f"{percent(w.unchanged.p_follow_up_at_horizon)} → {percent(w.changed.p_follow_up_at_horizon)}; "
+                f"of being in one at some time before then {percent(w.unchanged.p_reach_follow_up)} → "
+                f"{percent(w.changed.p_reach_follow_up)}. Advisory estimate, not a plan of care.")
         elif self.whatif_box.isChecked():
             self.whatif_summary.setText("Change a value to see the what-if forecast.")
         else:
