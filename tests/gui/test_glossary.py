@@ -62,3 +62,16 @@ def test_model_tab_leads_with_sentences(window, qtbot, standin):
     assert "People typically stay Stable for about" in text and "contacts when Stable" in text
     assert "not a diagnosis" in text
     assert panel.details.tabText(1) == "Time in stage"   # the statistician's table, one tab away
+
+
+def test_screenshot_of_the_glossary_dialog(tmp_path, qtbot, workspace_path):
+    from PySide6.QtGui import QImage
+
+    from caseview.gui.main_window import MainWindow
+
+    w = MainWindow()
+    qtbot.addWidget(w)
+    out = tmp_path / "glossary.png"
+    assert w.render_screenshot(out, workspace_path, dialog="glossary") == 0
+    image = QImage(str(out))
+    assert not image.isNull() and (image.width(), image.height()) == (720, 640)   # the dialog, not the window
