@@ -109,13 +109,14 @@ def run_flags(args) -> int:
     due = a.next_contact_due_day[rows]
     due_text = [d if day >= 0 else "" for d, day in zip(format_days(np.maximum(due, 0)), due)]
     header = ["case_id", "coordinator", "flags", "reason", "p_follow_up_now", "p_reach_follow_up",
-              "next_contact_due", "review_status", "reviewed_by", "reviewed_at", "most_likely_stage",
+              "next_contact_due", "review_status", "reviewed_by", "reviewed_at", "review_note", "most_likely_stage",
               "days_since_contact", "priority"]
     n = rows.size
     columns = [safe_text(s.case_ids[rows]), safe_text(s.coordinators[rows]), list(a.flags[rows]),
                safe_text(a.reason_text[rows]), format_probabilities(s.p_follow_up_now[rows]),
                format_probabilities(s.p_reach_follow_up[rows]), due_text, list(a.review_status[rows]),
-               safe_text(a.reviewed_by[rows]), list(a.reviewed_at[rows]), list(s.most_likely_stage_names[rows]),
+               safe_text(a.reviewed_by[rows]), list(a.reviewed_at[rows]), safe_text(a.review_note[rows]),
+               list(s.most_likely_stage_names[rows]),
                s.days_since_contact[rows].astype(str).tolist(), [f"{v:.4f}" for v in a.priority[rows]]]
     write_table(args.out, header, columns)
     out = sys.stderr if args.out == "-" else sys.stdout

@@ -76,6 +76,7 @@ def test_review_then_flags_shows_it(ws_path, tmp_path, capsys):
     table = pd.read_csv(out_csv).set_index("case_id")
     assert table.loc["HS-0001", "review_status"] == "acknowledged"
     assert table.loc["HS-0001", "reviewed_by"] == "sup1"
+    assert table.loc["HS-0001", "review_note"] == "seen"   # the note travels with the flag
     code, out, err = run(capsys, "reviews", ws_path, "--status", "acknowledged")
     assert code == 0 and "HS-0001" in out and "sup1" in out
     code, out, err = run(capsys, "reviews", ws_path, "--coordinator", "C2")
