@@ -116,8 +116,8 @@ def build_menus(window) -> None:
     view.addAction(QAction("Find case", window, shortcut=QKeySequence.Find, triggered=window.caseload.focus_search))
     view.addAction(QAction("Sort by priority", window, shortcut="Ctrl+Shift+P",
                            triggered=window.caseload.sort_by_priority))
-    for i, name in enumerate(("Caseload", "Risk queue", "Model")):
-        view.addAction(QAction(name, window, shortcut=f"Ctrl+{i + 1}",
+    for i in range(min(window.tabs.count(), 9)):   # every tab, whichever panels this build has
+        view.addAction(QAction(window.tabs.tabText(i), window, shortcut=f"Ctrl+{i + 1}",
                                triggered=lambda _=False, i=i: window.tabs.setCurrentIndex(i)))
     help_menu = window.menuBar().addMenu("&Help")
     window.action_glossary = QAction("Glossary of terms", window, shortcut=QKeySequence.HelpContents,

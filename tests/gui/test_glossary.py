@@ -75,3 +75,10 @@ def test_screenshot_of_the_glossary_dialog(tmp_path, qtbot, workspace_path):
     assert w.render_screenshot(out, workspace_path, dialog="glossary") == 0
     image = QImage(str(out))
     assert not image.isNull() and (image.width(), image.height()) == (720, 640)   # the dialog, not the window
+
+
+def test_view_menu_lists_every_tab(window):
+    view = next(a.menu() for a in window.menuBar().actions() if a.text().replace("&", "") == "View")
+    names = [a.text() for a in view.actions()]
+    tabs = [window.tabs.tabText(i) for i in range(window.tabs.count())]
+    assert tabs and all(t in names for t in tabs)
