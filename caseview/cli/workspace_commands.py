@@ -247,7 +247,8 @@ def run_audit_show(args) -> int:
         except ValueError:
             raise InputError(f"--since {args.since!r}: expected a date as YYYY-MM-DD") from None
     with _open(args.workspace) as ws:
-        entries = ws.audit_entries(case_id=args.case, since_utc=since)
+        case_id = ws.find_case(args.case) if args.case is not None else None
+        entries = ws.audit_entries(case_id=case_id, since_utc=since)
         head = ws.audit_head()
     from caseview.textfiles import printable
 
