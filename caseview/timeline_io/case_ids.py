@@ -1,7 +1,10 @@
 """Case IDs: one spelling per person, whatever the keyboard or the spreadsheet did to it.
 
 Rules (applied by the importer to every case ID; :func:`normalise_case_id` is the one function
-for anything else that takes a case ID from a person, such as recording a single contact):
+for anything else that takes a case ID from a person, such as recording a single contact; a typed
+ID is looked up with :meth:`caseview.storage.Workspace.find_case`, which applies
+:func:`match_case_id`; coordinator codes follow rules 1-6 too, see :class:`CoordinatorBook`,
+:func:`match_coordinator_code` and :meth:`caseview.storage.Workspace.find_coordinator`):
 
 1. **Refused**: control characters (tab, line break, ...), or nothing left after the steps below.
 2. **Invisible characters removed**: zero-width spaces and joiners, the byte-order mark, soft
@@ -327,3 +330,43 @@ class CaseIdBook:
             return {}
         return {"near_matches": self.near_count,
                 "near_match_examples": [{"new": new, "existing": old, "how": how} for new, old, how, _ in self.near]}
+
+
+class CoordinatorBook:
+    """Spellings of coordinator codes of one import: stored ones first, then the file's in row order.
+
+    Coordinator codes are normalised like case IDs (:func:`normalise_coordinator_code`) and matched
+    without regard to letter case; the spelling kept is the one seen first (stored, else the file's
+    first), so ``c1`` and ``Ｃ１`` in a file are stored as a stored ``C1``.
+
+    Parameters
+    ----------
+    stored : iterable of str
+        The workspace's coordinator codes as stored.
+    """
+
+    def __init__(self, stored=()):
+        self.spelling: dict = {}
+        for code in stored:
+            self.spelling.setdefault(str(code).casefold(), str(code))
+        self.respelled: dict = {}         # (as read, kept) -> rows
+
+    def resolve(self, raw: str, rows: int) -> tuple[str, str | None]:
+        """The spelling to store for a distinct cell text seen on ``rows`` rows, and why it is refused."""
+        value, why = normalise_coordinator_code(raw)
+        if why is not None:
+            return "", why
+        kept = self.spelling.setdefault(value.casefold(), value)
+        if kept != raw.strip():
+            self.respelled[(raw.strip(), kept)] = self.respelled.get((raw.strip(), kept), 0) + rows
+        return kept, None
+
+    def notes(self, label: str) -> list:
+        """A summary line about coordinator codes read as another spelling."""
+        if not self.respelled:
+            return []
+        shown = sorted(self.respelled.items(), key=lambda item: -item[1])[:3]
+        examples = "; ".join(f"read {a!r} as {b!r} {n:,} time{'s' if n != 1 else ''}" for (a, b), n in shown)
+        more = len(self.respelled) - len(shown)
+        return [f"{label}: coordinator codes are normalised like case IDs and matched without regard to letter "
+                f"case: {examples}" + (f" (and {more:,} more spellings)" if more > 0 else "")]
