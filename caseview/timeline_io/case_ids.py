@@ -99,6 +99,16 @@ def _normalise_code(text: str, what: str, example: str) -> tuple[str, str | None
     return value, None
 
 
+def search_key(text: str) -> str:
+    """``text`` as compared by a case-ID search (substring): rules 2-5 without refusing anything
+    (control characters are dropped), casefolded, so ``ｈｓ‐０００１`` finds ``HS-0001``."""
+    text = str(text)
+    if text.isascii() and text.isprintable():
+        return text.strip().casefold()
+    value, why = normalise_case_id("".join(c for c in text if unicodedata.category(c) != "Cc"))
+    return "" if why is not None else value.casefold()
+
+
 def match_case_id(typed: str, stored, where: str) -> str:
     """The stored spelling of the case ``typed`` names (rules 1-6); InputError otherwise.
 
