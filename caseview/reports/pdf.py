@@ -287,7 +287,10 @@ def write_pdf(data, path) -> int:
     from matplotlib.backends.backend_pdf import PdfPages
 
     with matplotlib.rc_context({"pdf.fonttype": 42, "font.family": "DejaVu Sans", "axes.linewidth": 0.6}):
-        pages = [_cover(data), _occupancy_page(data)] + _flag_pages(data) + _timeline_pages(data) + [_model_page(data)]
+        from .outlook_page import outlook_page
+
+        pages = ([_cover(data), _occupancy_page(data), outlook_page(data)] + _flag_pages(data)
+                 + _timeline_pages(data) + [_model_page(data)])
         as_of = data.dates.report_date_text(data.as_of)
         header_right = (f"as of {as_of}" if not data.dates.deidentified else as_of) + f" · {_scope(data)}"
         metadata = {"Title": "caseview caseload report", "Subject": "Advisory caseload stage summary",
