@@ -199,28 +199,28 @@ def simulate_caseload(model: StageModel, contact_times, covariates, rng: np.rand
             if not moving.size:
                 break
             t[moving] += hold[jumped]
+            jumping = moving
             if timing:
-                # the event is an unscheduled contact with probability lambda_s / (leave rate + lambda_s)
+                # the event is an unscheduled contact with probability lambda_s / (leave rate + lambda_s);
+                # the case stays in its stage and goes on to its next event
                 called = rng.random(moving.size) * rate[jumped] < calling[jumped]
                 who = moving[called]
                 extra["case"].append(order[active[who]])
                 extra["time"].append(t[who].copy())
                 extra["stage"].append(s[who].copy())
                 extra["row"].append(rows[who] - 1)
-                moving = moving[~called]
-                if not moving.size:
-                    continue
-            u = rng.random(moving.size)
-            cdf = jump_cdf[g[moving], s[moving]]
-            s[moving] = np.minimum((u[:, None] >= cdf).sum(axis=1), n_stages - 1)
-            entered = exact_mask[s[moving]]
+                jumping = moving[~called]
+            u = rng.random(jumping.size)
+            cdf = jump_cdf[g[jumping], s[jumping]]
+            s[jumping] = np.minimum((u[:, None] >= cdf).sum(axis=1), n_stages - 1)
+            entered = exact_mask[s[jumping]]
             if entered.any():
-                who = moving[entered]
+                who = jumping[entered]
                 stopped[active[who]] = True
                 entry_time[active[who]] = t[who]
                 entry_stage[active[who]] = s[who]
                 entry_row[active[who]] = rows[who] - 1
-                moving = moving[~entered]
+                moving = moving[~np.isin(moving, who)] if timing else jumping[~entered]
         stage[active] = s
         going_on = ~stopped[active]
         true_stage[rows[going_on]] = s[going_on]

@@ -208,6 +208,11 @@ def _boundary_warnings(spec, theta) -> list:
             if np.any(p[row.support] < 1e-6):
                 out.append(f"channel {m.channels[c].name!r}, stage {m.stages[r]}: an observation probability is "
                            "estimated at (nearly) 0 or 1 - on the boundary")
+    if spec.unscheduled_rate_slots is not None:
+        for r, slot in enumerate(spec.unscheduled_rate_slots):
+            if slot >= 0 and theta[slot] <= spec.lower[slot] + 1.0 and f"{spec.names[slot]} is" not in " ".join(out):
+                out.append(f"{spec.names[slot]} is estimated at (nearly) zero - on the boundary; its interval is "
+                           "not reliable")
     if spec.initial_row is not None and np.any(arrays.initial[spec.initial_row.support] < 1e-6):
         out.append("an initial stage probability is estimated at (nearly) zero - on the boundary")
     return out
