@@ -69,7 +69,7 @@ def _parse_header(source: TimelineSource, model, mapping: dict, drop) -> tuple[l
         if name not in seen:
             problems.add(where, None, f"--drop {name}: no column {name!r} in the file (columns: {', '.join(names)})")
     channel_names = [c.name for c in model.channels]
-    allowed = ["case_id", "date", "coordinator", *channel_names, *model.covariates, "stage_known"]
+    allowed = ["case_id", "date", "coordinator", *channel_names, *model.covariates, "stage_known", "contact_kind"]
     targets = []
     for name in names:
         if name in drop:
@@ -130,6 +130,7 @@ def _duplicates_in_file(data: dict, problems: Problems, where) -> np.ndarray:
         equal &= data[name][later] == data[name][first]
     equal &= (data["channel_values"][later] == data["channel_values"][first]).all(axis=1)
     equal &= (data["covariates"][later] == data["covariates"][first]).all(axis=1)
+    equal &= data["unscheduled"][later] == data["unscheduled"][first]
     keep[later] = False
     for a, b in zip(first[~equal].tolist(), later[~equal].tolist()):
         problems.add(where(int(data["lines"][b])), None,
@@ -183,7 +184,8 @@ def import_timelines(ws, path, actor: str, mapping: dict | None = None, drop=(),
     if not parts:
         raise InputError(f"{facts.path}: no contact rows after the header; nothing was imported")
     data = {name: np.concatenate([getattr(p, name) for p in parts]) for name in
-            ("lines", "case_codes", "days", "coordinators", "channel_values", "covariates", "stage_known")}
+            ("lines", "case_codes", "days", "coordinators", "channel_values", "covariates", "stage_known",
+             "unscheduled")}
     del parts
     keep = _duplicates_in_file(data, problems, source.where)
     problems.raise_if_any()
@@ -194,7 +196,7 @@ def import_timelines(ws, path, actor: str, mapping: dict | None = None, drop=(),
         case_codes=data["case_codes"], days=data["days"], coordinators=data["coordinators"],
         channel_names=tuple(rules.channels), channel_categories=tuple(rules.channels.values()),
         channel_values=data["channel_values"], covariate_names=rules.covariates, covariates=data["covariates"],
-        stage_known=data["stage_known"])
+        stage_known=data["stage_known"], unscheduled=data["unscheduled"])
     report(0.75)
     try:
         with ws.transaction():
