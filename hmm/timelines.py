@@ -128,6 +128,41 @@ class Timelines:
             unscheduled=None if unscheduled is None else np.asarray(unscheduled, dtype=bool)[order],
         )
 
+    def with_observation_end(self, end, extend=None) -> "Timelines":
+        """These timelines with one blank *scheduled* contact at ``end`` after each case's last contact.
+
+        A blank scheduled contact (nothing recorded, every stage allowed, the last contact's
+        covariates) adds exactly the quiet time since the last contact to a timing model's
+        likelihood: ``P(no unscheduled contact until end)``. Fitting with it uses every day the
+        service was watching, not just the days up to each case's last contact.
+
+        Parameters
+        ----------
+        end : float or ndarray, shape (n_cases,)
+            Day observation ended (for example the day the data were extracted).
+        extend : ndarray of bool, shape (n_cases,), optional
+            Cases to extend (default: every case whose last contact is before ``end``).
+
+        Returns
+        -------
+        Timelines
+            Marked unscheduled where the original was (the new contacts are scheduled).
+        """
+        end = np.broadcast_to(np.asarray(end, dtype=float), (self.n_cases,))
+        last = self.last_index
+        chosen = end > self.times[last]
+        if extend is not None:
+            chosen &= np.asarray(extend, dtype=bool)
+        at = self.offsets[1:][chosen]
+        observations = np.insert(self.observations, at, MISSING, axis=0)
+        allowed = np.insert(self.allowed_stages, at, True, axis=0)
+        return Timelines(
+            offsets=np.concatenate([[0], np.cumsum(self.n_contacts_per_case + chosen)]).astype(np.int64),
+            times=np.insert(self.times, at, end[chosen]),
+            observations=observations, allowed_stages=allowed,
+            covariates=np.insert(self.covariates, at, self.covariates[last[chosen]], axis=0),
+            unscheduled=np.insert(self.unscheduled_mask, at, False))
+
     # -------------------------------------------------------------- selection
     def subset(self, cases) -> "Timelines":
         """Timelines of the chosen cases (index array or boolean mask), in the order given."""

@@ -100,6 +100,7 @@ class FitResult:
             "parameters": rows(self.parameters), "hazard_ratios": rows(self.hazard_ratios),
             "mean_time_in_stage": rows(self.mean_time_in_stage),
             "next_stage_probabilities": rows(self.next_stage_probabilities),
+            "unscheduled_contacts_per_year": rows(self.unscheduled_contacts_per_year()),
             "history": [{k: _number(v) if k != "iteration" else v for k, v in h.items()} for h in self.history],
         }
 

@@ -248,3 +248,18 @@ def test_unscheduled_block_is_validated():
         replace(base, unscheduled_contacts=UnscheduledContacts(np.array([0.1, -0.2, 0.0])))
     with pytest.raises(ModelError, match="unknown covariate"):
         replace(base, unscheduled_contacts=UnscheduledContacts(np.array([0.1, 0.2, 0.0]), {"age": 0.1}))
+
+
+def test_observation_end_adds_the_quiet_tail():
+    """A blank scheduled contact at the end of observation multiplies each case's likelihood by
+    P(no unscheduled contact from its last contact to the end) = alpha_last expm((Q - Lambda) gap) 1
+    (the matrix from solve_ivp)."""
+    model = timing_model()
+    timelines = tiny_caseload()
+    extended = timelines.with_observation_end(100.0)
+    assert extended.n_contacts == timelines.n_contacts + 3 and not extended.unscheduled[extended.last_index].any()
+    result = forward(model, timelines)
+    q_sub = model.generator() - np.diag(RATES)
+    tail = [np.log((result.filtered[j] @ _quiet_matrix_by_ode(q_sub, 100.0 - timelines.times[j])).sum())
+            for j in timelines.last_index]
+    np.testing.assert_allclose(forward(model, extended).log_likelihood, result.log_likelihood + tail, rtol=1e-9)
