@@ -39,6 +39,7 @@ import numpy as np
 
 from .model import StageModel
 from .timelines import Timelines
+from .contact_timing import unscheduled_steps
 from .transition import covariate_groups, distinct_transition_matrices
 
 __all__ = [
@@ -170,38 +171,6 @@ def _exact_entry_contacts(model: StageModel, allowed: np.ndarray) -> np.ndarray:
     return result
 
 
-def _unscheduled_steps(model: StageModel, distinct: np.ndarray, group: np.ndarray, matrices: np.ndarray,
-                       index: np.ndarray, unscheduled: np.ndarray) -> tuple:
-    """Step matrices into unscheduled contacts: ``expm((Q - Lambda) gap) Lambda`` (columns times lambda).
-
-    Parameters
-    ----------
-    distinct : ndarray, shape (G, n_covariates)
-        Covariate rows of the generators.
-    group : ndarray of int, shape (n_steps,)
-        Generator of each step.
-    matrices : ndarray, shape (m, S, S)
-    index : ndarray of int, shape (n_steps,)
-        Matrix of each step.
-    unscheduled : ndarray of bool, shape (n_steps,)
-        The step ends at an unscheduled contact.
-
-    Returns
-    -------
-    matrices, index
-        With one more matrix per distinct (matrix, generator) pair that ends at an unscheduled contact.
-    """
-    if not unscheduled.any():
-        return matrices, index
-    rates = model.unscheduled_rates(distinct)                                 # (G, S)
-    key = index[unscheduled] * rates.shape[0] + group[unscheduled]
-    keys, inverse = np.unique(key, return_inverse=True)
-    scaled = matrices[keys // rates.shape[0]] * rates[keys % rates.shape[0]][:, None, :]
-    index = index.copy()
-    index[unscheduled] = matrices.shape[0] + inverse.reshape(-1)
-    return np.concatenate([matrices, scaled]), index
-
-
 def _prepare(model: StageModel, timelines: Timelines, method: str = "auto") -> _Plan:
     n_stages = model.n_stages
     if timelines.allowed_stages.shape[1] != n_stages:
@@ -243,7 +212,7 @@ def _prepare(model: StageModel, timelines: Timelines, method: str = "auto") -> _
             matrices = np.concatenate([matrices, entered])
             index = np.where(exact_rows, position[index], index)
         if timing:
-            matrices, index = _unscheduled_steps(model, distinct, group, matrices, index,
+            matrices, index = unscheduled_steps(model, distinct, group, matrices, index,
                                                  timelines.unscheduled_mask[into_rows] & ~exact_rows)
         step_index[into_rows] = index
     else:
