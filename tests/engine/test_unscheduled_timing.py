@@ -263,3 +263,22 @@ def test_observation_end_adds_the_quiet_tail():
     tail = [np.log((result.filtered[j] @ _quiet_matrix_by_ode(q_sub, 100.0 - timelines.times[j])).sum())
             for j in timelines.last_index]
     np.testing.assert_allclose(forward(model, extended).log_likelihood, result.log_likelihood + tail, rtol=1e-9)
+
+
+@pytest.mark.parametrize("spread", [0.0, 1e-10, 1e-3])
+def test_defective_chain_sub_generator_conditioning(spread):
+    """A progressive chain with equal rates is defective; Q - Lambda with equal lambdas stays defective and
+    must take the expm fallback; nearly equal lambdas are (nearly) defective too. Either way the matrices
+    agree with scipy.linalg.expm (Al-Mohy & Higham 2009) of the sub-generator."""
+    import scipy.linalg
+
+    from hmm import eigen_path_is_safe
+
+    q = np.array([[-0.02, 0.02, 0.0], [0.0, -0.02, 0.02], [0.0, 0.0, 0.0]])
+    q_sub = q - np.diag([0.01, 0.01 + spread, 0.01])
+    if spread <= 1e-10:
+        assert not eigen_path_is_safe(q_sub)
+    gaps = np.array([7.0, 90.0, 400.0])
+    auto = transition_matrices(q_sub[None], gaps, np.zeros(3, dtype=np.int64), sub_generators=True)
+    for gap, matrix in zip(gaps, auto):
+        np.testing.assert_allclose(matrix, scipy.linalg.expm(q_sub * gap), atol=1e-10)

@@ -112,3 +112,21 @@ def test_same_rate_in_every_stage_is_the_timing_blind_fit_plus_a_poisson_term(rn
     test = likelihood_ratio_test(same, general)
     assert test.df == 2
     assert general.log_likelihood >= same.log_likelihood - 1e-6
+
+
+def test_timing_comparison_says_what_is_compared():
+    from hmm.fitting.compare import SHARED_CONTACT_RATE, contact_timing_of, timing_comparison
+
+    assert contact_timing_of(three_stage_model()) == "none"
+    assert contact_timing_of(timing_model(same=True, rates=[0.01, 0.01, 0.0])) == "same_in_every_stage"
+    assert contact_timing_of(timing_model()) == "stage_dependent"
+    general = set(parameter_spec(timing_model()).names)
+    restricted = set(parameter_spec(timing_model(same=True, rates=[0.01, 0.01, 0.0])).names)
+    assert SHARED_CONTACT_RATE in restricted
+    blind = set(parameter_spec(three_stage_model()).names)
+    mixed = timing_comparison("none", "stage_dependent", blind, general)
+    assert not mixed.comparable and "not comparable" in mixed.explanation and "same_in_every_stage" in mixed.explanation
+    nested = timing_comparison("stage_dependent", "same_in_every_stage", general, restricted)
+    assert nested.comparable and nested.nested and "one rate in every stage" in nested.explanation
+    plain = timing_comparison("none", "none", blind, blind)
+    assert plain.comparable and not plain.nested and plain.explanation == ""
