@@ -1,7 +1,8 @@
 """Slow simulation study (not in CI): transition rates with and without the timing model when timing is informative.
 
 Caseloads are simulated with scheduled reviews every 8-16 weeks and unscheduled contacts whose rate depends
-on the hidden stage (10 times more often when Unwell), dated in whole days as a service records them. Each caseload is fitted twice from the same start:
+on the hidden stage (10 times more often when Unwell), dated in whole days as a service records them.
+Each caseload is fitted twice from the same start:
 with the ``unscheduled_contacts`` block (observation ending on day 720) and timing-blind. For each
 transition rate the table gives the relative bias of the estimates and the coverage of the 95% intervals.
 
@@ -84,7 +85,8 @@ def test_transition_rates_with_and_without_the_timing_model(seed):
             break
     lines = [f"{done} simulated caseloads of 300 cases (seed {seed}); relative bias of the mean estimate and "
              "coverage of the 95% intervals",
-             f"{'transition':<28} {'true':>8}  {'timing: bias':>12} {'coverage':>9}  {'blind: bias':>12} {'coverage':>9}"]
+             f"{'transition':<28} {'true':>8}  {'timing: bias':>12} {'coverage':>9}  "
+             f"{'blind: bias':>12} {'coverage':>9}"]
     coverage_timing = []
     for n in names:
         row = f"{n.replace(' (per day)', ''):<28} {true_rates[n]:>8.4f}"

@@ -46,7 +46,8 @@ def test_without_the_column_every_contact_is_scheduled_and_timelines_carry_nothi
 def test_an_unknown_kind_is_one_clear_problem_and_nothing_is_stored(ws, tmp_path):
     from caseview.timeline_io import import_timelines
 
-    path = write_csv(tmp_path / "t.csv", rows_with_kinds(["scheduled", "urgent", "", "", ""]), HEADER + ["contact_kind"])
+    path = write_csv(tmp_path / "t.csv", rows_with_kinds(["scheduled", "urgent", "", "", ""]),
+                     HEADER + ["contact_kind"])
     with pytest.raises(InputError) as info:
         import_timelines(ws, path, "tester")
     message = str(info.value)
