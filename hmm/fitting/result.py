@@ -102,6 +102,8 @@ class FitResult:
             "next_stage_probabilities": rows(self.next_stage_probabilities),
             "unscheduled_contacts_per_year": rows(self.unscheduled_contacts_per_year()),
             "history": [{k: _number(v) if k != "iteration" else v for k, v in h.items()} for h in self.history],
+            # unconstrained scale, order free_parameters; the outlook draws parameters from it
+            "covariance": [[_number(v) for v in row] for row in np.asarray(self.covariance)],
         }
 
     def unscheduled_contacts_per_year(self) -> list:
