@@ -208,11 +208,16 @@ def write_contacts(connection, batch: ContactBatch, replace: bool = False) -> Wr
         covs_blobs = _blobs(covs[insert_rows])
         stage = [s or None for s in batch.stage_known[insert_rows].tolist()]
         coords = row_coordinator[insert_rows].tolist()
+        columns = [row_case[insert_rows].tolist(), batch.days[insert_rows].tolist(), obs_blobs, covs_blobs, stage, coords]
+        kind_column = ""
+        if batch.unscheduled is not None and np.any(batch.unscheduled[insert_rows]):
+            # contact_kind is named only when some contact is unscheduled (otherwise the column default,
+            # 'scheduled', applies), so a batch without kinds is stored exactly as before the column existed
+            columns.append(batch.contact_kinds()[insert_rows].tolist())
+            kind_column = ", contact_kind"
         connection.executemany(
-            "INSERT INTO contacts (case_id, day, observations, covariates, stage_known, coordinator_id, contact_kind)"
-            " VALUES (?, ?, ?, ?, ?, ?, ?)",
-            zip(row_case[insert_rows].tolist(), batch.days[insert_rows].tolist(), obs_blobs, covs_blobs, stage, coords,
-                batch.contact_kinds()[insert_rows].tolist()))
+            f"INSERT INTO contacts (case_id, day, observations, covariates, stage_known, coordinator_id{kind_column})"
+            f" VALUES (?, ?, ?, ?, ?, ?{', ?' if kind_column else ''})", zip(*columns))
     if updates:
         connection.executemany(
             "UPDATE contacts SET observations = ?, covariates = ?, stage_known = ?, coordinator_id = ?,"
