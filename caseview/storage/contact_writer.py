@@ -208,7 +208,8 @@ def write_contacts(connection, batch: ContactBatch, replace: bool = False) -> Wr
         covs_blobs = _blobs(covs[insert_rows])
         stage = [s or None for s in batch.stage_known[insert_rows].tolist()]
         coords = row_coordinator[insert_rows].tolist()
-        columns = [row_case[insert_rows].tolist(), batch.days[insert_rows].tolist(), obs_blobs, covs_blobs, stage, coords]
+        columns = [row_case[insert_rows].tolist(), batch.days[insert_rows].tolist(), obs_blobs, covs_blobs, stage,
+                   coords]
         kind_column = ""
         if batch.unscheduled is not None and np.any(batch.unscheduled[insert_rows]):
             # contact_kind is named only when some contact is unscheduled (otherwise the column default,
