@@ -14,7 +14,7 @@ from typing import Any
 
 import numpy as np
 
-from hmm.model import Channel, ModelError, StageModel, Transition
+from hmm.model import Channel, ModelError, StageModel, Transition, UnscheduledContacts
 
 from .errors import InputError
 from .textfiles import decode_json, read_utf8_text
@@ -25,6 +25,7 @@ FORMAT_VERSION = 1
 _TOP_KEYS = {
     "format", "format_version", "name", "time_unit", "stages", "initial", "initial_fixed",
     "transitions", "channels", "covariates", "follow_up_stages", "exact_entry_stages",
+    "unscheduled_contacts",
 }
 
 
@@ -169,12 +170,13 @@ def model_from_dict(data: Any, source: str = "model") -> StageModel:
     for j, s in enumerate(exact):
         stage_ref(f"exact_entry_stages[{j}]", s)
     _check_model_names(p, stages, channels, covariates)
+    unscheduled = _unscheduled_contacts_from_dict(p, data, stages, covariates)
     try:
         return StageModel(
             stages=tuple(stages), initial=init, transitions=tuple(transitions), channels=tuple(channels),
             covariates=tuple(covariates), follow_up_stages=tuple(follow_up), exact_entry_stages=tuple(exact),
             initial_fixed=_bool(p, "initial_fixed", data.get("initial_fixed", False)),
-            name=str(data.get("name", "stage model")),
+            name=str(data.get("name", "stage model")), unscheduled_contacts=unscheduled,
         )
     except ModelError as exc:
         raise InputError(f"{source}: {exc}") from None
@@ -211,6 +213,8 @@ def model_to_dict(model: StageModel, extra: dict | None = None) -> dict:
         out["follow_up_stages"] = list(model.follow_up_stages)
     if model.exact_entry_stages:
         out["exact_entry_stages"] = list(model.exact_entry_stages)
+    if model.unscheduled_contacts is not None:
+        out["unscheduled_contacts"] = _unscheduled_contacts_to_dict(model)
     if extra:
         out.update({k: v for k, v in extra.items() if k not in out})
     return out
@@ -228,6 +232,72 @@ def save_model(model: StageModel, path, extra: dict | None = None) -> None:
     text = dump_model(model, extra)
     with private_text(path, newline="\n") as handle:
         handle.write(text)
+
+
+# ---------------------------------------------------------------- the unscheduled_contacts block
+_UNSCHEDULED_KEYS = {"rates", "effects", "fixed", "fixed_effects", "same_in_every_stage"}
+
+
+def _unscheduled_contacts_from_dict(p, data: dict, stages: list, covariates: list) -> UnscheduledContacts | None:
+    """The optional ``unscheduled_contacts`` block (README, "Timing of unscheduled contacts"), or None.
+
+    ``{"rates": {"<stage>": per-day rate, ...}, "effects": {"<covariate>": log rate ratio, ...},
+    "fixed": false, "fixed_effects": [...], "same_in_every_stage": false}``; every stage needs a rate
+    (0 = no unscheduled contacts in that stage).
+    """
+    if "unscheduled_contacts" not in data:
+        return None
+    where = "unscheduled_contacts"
+    block = data[where]
+    if not isinstance(block, dict):
+        p.fail(where, 'expected {"rates": {"<stage>": rate per day, ...}, "effects": {...}}')
+    unknown = set(block) - _UNSCHEDULED_KEYS
+    if unknown:
+        p.fail(where, f"unknown key(s) {', '.join(sorted(unknown))} (expected: {', '.join(sorted(_UNSCHEDULED_KEYS))})")
+    raw_rates = block.get("rates")
+    if not isinstance(raw_rates, dict):
+        p.fail(f"{where}.rates", "expected an object mapping each stage to its unscheduled contacts per day")
+    rates = np.zeros(len(stages))
+    for name, value in raw_rates.items():
+        if name not in stages:
+            p.fail(f"{where}.rates.{name}", f"unknown stage {name!r} (stages: {', '.join(stages)})")
+        rates[stages.index(name)] = _number(p, f"{where}.rates.{name}", value, low=0.0)
+    for name in stages:
+        if name not in raw_rates:
+            p.fail(f"{where}.rates", f"missing the rate for stage {name!r} (give 0 if it has no unscheduled contacts)")
+    if not np.any(rates > 0):
+        p.fail(f"{where}.rates", "at least one stage needs a rate above 0")
+    raw_effects = block.get("effects", {})
+    if not isinstance(raw_effects, dict):
+        p.fail(f"{where}.effects", "expected an object mapping covariate names to log rate ratios")
+    effects = {}
+    for cov, value in raw_effects.items():
+        if cov not in covariates:
+            p.fail(f"{where}.effects.{cov}", f"unknown covariate (declared: {', '.join(covariates) or 'none'})")
+        effects[cov] = _number(p, f"{where}.effects.{cov}", value)
+    fixed_effects = _string_list(p, block, "fixed_effects", prefix=where)
+    for cov in fixed_effects:
+        if cov not in effects:
+            p.fail(f"{where}.fixed_effects", f"{cov!r} has no effect on unscheduled contacts to keep fixed")
+    same = _bool(p, f"{where}.same_in_every_stage", block.get("same_in_every_stage", False))
+    if same and np.ptp(rates[rates > 0]) > 1e-12 * rates.max():
+        p.fail(f"{where}.rates", "with same_in_every_stage every non-zero rate must be the same")
+    return UnscheduledContacts(rates, effects, fixed=_bool(p, f"{where}.fixed", block.get("fixed", False)),
+                               fixed_effects=frozenset(fixed_effects), same_in_every_stage=same)
+
+
+def _unscheduled_contacts_to_dict(model: StageModel) -> dict:
+    block = model.unscheduled_contacts
+    out = {"rates": {s: float(v) for s, v in zip(model.stages, block.rates)}}
+    if block.effects:
+        out["effects"] = {k: float(v) for k, v in block.effects.items()}
+    if block.fixed:
+        out["fixed"] = True
+    if block.fixed_effects:
+        out["fixed_effects"] = sorted(block.fixed_effects)
+    if block.same_in_every_stage:
+        out["same_in_every_stage"] = True
+    return out
 
 
 # ---------------------------------------------------------------- helpers

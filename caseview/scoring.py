@@ -40,6 +40,15 @@ def parse_date(text: str, what: str = "date") -> dt.date:
         raise InputError(f"{what}: expected a date as YYYY-MM-DD, got {text!r}") from None
 
 
+def observation_end_day(timelines: Timelines) -> float:
+    """The day observation of a caseload ended, for fitting a timing model: its latest recorded contact.
+
+    A model with an ``unscheduled_contacts`` block counts the quiet time from each case's last contact
+    to this day (``hmm.fitting.fit_model(observed_until=...)``); without the block it is not used.
+    """
+    return float(timelines.times.max()) if timelines.n_contacts else 0.0
+
+
 @dataclass(frozen=True)
 class CaseloadScores:
     """Per-case scores as of one date; all arrays have one row per scored case.

@@ -12,6 +12,9 @@ Conventions
 -----------
 * The covariates given (for :func:`stage_probabilities_now`, those of the last contact) are
   assumed to hold over the whole gap or horizon.
+* With the model's ``unscheduled_contacts`` block, "now" uses ``expm((Q - Lambda) gap)``
+  renormalised (nobody has called since the last contact); forecasts beyond the as-of date use Q
+  alone (future contacts are not conditioned on).
 * Reaching a stage (or a set of stages) is a first passage: the target row(s) of Q are set to zero
   so the target becomes absorbing, and the probability in the target at the horizon is read off.
 * Transition matrices are computed once per distinct (covariate row, gap) pair
@@ -33,15 +36,23 @@ __all__ = ["Forecast", "stage_probabilities_now", "forecast", "reach_probability
 
 
 def _propagate(model: StageModel, probabilities: np.ndarray, covariates: np.ndarray, gaps: np.ndarray,
-               rate_rows_zeroed: np.ndarray | None = None) -> np.ndarray:
-    """``p_i P_i(gap_i)`` with P from each row's covariates, optionally with some rows of Q zeroed."""
+               rate_rows_zeroed: np.ndarray | None = None, quiet: bool = False) -> np.ndarray:
+    """``p_i P_i(gap_i)`` with P from each row's covariates, optionally with some rows of Q zeroed.
+
+    With ``quiet`` the generator is ``Q - Lambda`` (no unscheduled contact during the gap) and the
+    result is renormalised: the stage distribution given that nobody called.
+    """
     distinct, group = covariate_groups(np.asarray(covariates, dtype=float).reshape(probabilities.shape[0], -1))
-    generators = model.generators(distinct)
+    generators = model.quiet_generators(distinct) if quiet else model.generators(distinct)
     if rate_rows_zeroed is not None:
         generators = generators.copy()
         generators[:, rate_rows_zeroed, :] = 0.0
-    matrices, index = distinct_transition_matrices(generators, gaps, group)
-    return np.einsum("ns,nst->nt", probabilities, matrices[index])
+    matrices, index = distinct_transition_matrices(generators, gaps, group, sub_generators=quiet)
+    ahead = np.einsum("ns,nst->nt", probabilities, matrices[index])
+    if quiet:
+        total = ahead.sum(axis=1, keepdims=True)
+        ahead = ahead / np.where(total > 0, total, 1.0)
+    return ahead
 
 
 def _propagate_variants(model: StageModel, probabilities: np.ndarray, covariates: np.ndarray, gaps: np.ndarray,
@@ -86,7 +97,9 @@ def stage_probabilities_now(model: StageModel, timelines: Timelines, as_of, filt
     -------
     ndarray, shape (n_cases, n_stages)
         Filtered distribution at the last contact, propagated to ``as_of`` with the generator of
-        the last contact's covariates.
+        the last contact's covariates. With ``model.unscheduled_contacts`` the generator is
+        ``Q - Lambda`` and the result renormalised: the quiet time since the last contact (no
+        unscheduled contact recorded) is evidence too.
     """
     if filtered is None:
         filtered = forward(model, timelines).filtered
@@ -96,7 +109,8 @@ def stage_probabilities_now(model: StageModel, timelines: Timelines, as_of, filt
         case = int(np.flatnonzero(gaps < 0)[0])
         raise ValueError(f"as_of is before the last contact of case {case} "
                          f"(day {timelines.times[last][case]:g}); cut the timelines with Timelines.until first")
-    return _propagate(model, filtered[last], timelines.covariates[last], gaps)
+    return _propagate(model, filtered[last], timelines.covariates[last], gaps,
+                      quiet=model.unscheduled_contacts is not None)
 
 
 @dataclass

@@ -20,6 +20,15 @@ Model conventions
   ``sum_{r != s} P(prev -> r, dt) * Q[r, s]`` (per day) instead of ``P(prev -> s, dt)``.
   The log-likelihood then includes ``log(rate)`` terms, as usual for exactly observed
   transition times (Jackson 2011, msm, "exact death times").
+* Timing of unscheduled contacts (only with ``model.unscheduled_contacts``): between two contacts
+  the stage evolves under Q while unscheduled contacts arrive at rate ``lambda_s`` of the current
+  stage, so the step matrix is ``expm((Q - Lambda) gap)`` (no unscheduled contact in between),
+  times ``Lambda = diag(lambda)`` when the later contact is unscheduled: a Markov-modulated Poisson
+  process joined to the stage process (Fischer & Meier-Hellstern 1993; for observation times driven
+  by a hidden stage, Luo & Sherlock 2025). Scheduled contacts carry no timing information; the first
+  contact of each case is conditioned on. A step into an exact-entry record is
+  ``expm((Q - Lambda) gap) Q`` in the entered stage's column (a record of entry is not an
+  unscheduled contact). Without the block every step is ``expm(Q gap)`` exactly as before.
 """
 
 from __future__ import annotations
@@ -30,6 +39,7 @@ import numpy as np
 
 from .model import StageModel
 from .timelines import Timelines
+from .contact_timing import unscheduled_steps
 from .transition import covariate_groups, distinct_transition_matrices
 
 __all__ = [
@@ -179,7 +189,9 @@ def _prepare(model: StageModel, timelines: Timelines, method: str = "auto") -> _
         distinct, group = covariate_groups(timelines.covariates[into_rows - 1])
         gaps = timelines.times[into_rows] - timelines.times[into_rows - 1]
         generators = model.generators(distinct)
-        matrices, index = distinct_transition_matrices(generators, gaps, group, method)
+        timing = model.unscheduled_contacts is not None
+        quiet = model.quiet_generators(distinct) if timing else generators
+        matrices, index = distinct_transition_matrices(quiet, gaps, group, method, sub_generators=timing)
         exact_all = _exact_entry_contacts(model, timelines.allowed_stages)
         # an entry is a record of the stage not already recorded at the contact before (a second
         # record of an absorbing stage is a step within it, probability 1, not a new entry)
@@ -199,6 +211,9 @@ def _prepare(model: StageModel, timelines: Timelines, method: str = "auto") -> _
             position[needed] = matrices.shape[0] + np.arange(needed.size)
             matrices = np.concatenate([matrices, entered])
             index = np.where(exact_rows, position[index], index)
+        if timing:
+            matrices, index = unscheduled_steps(model, distinct, group, matrices, index,
+                                                 timelines.unscheduled_mask[into_rows] & ~exact_rows)
         step_index[into_rows] = index
     else:
         matrices = np.zeros((0, n_stages, n_stages))

@@ -18,7 +18,7 @@ from dataclasses import dataclass, field, replace
 
 import numpy as np
 
-__all__ = ["Transition", "Channel", "StageModel", "ModelError"]
+__all__ = ["Transition", "Channel", "StageModel", "ModelError", "UnscheduledContacts"]
 
 
 class ModelError(ValueError):
@@ -76,6 +76,58 @@ class Channel:
 
 
 @dataclass(frozen=True)
+class UnscheduledContacts:
+    """Stage-dependent timing of unscheduled contacts (the optional "unscheduled_contacts" block).
+
+    Unscheduled contacts (a fall, a worried call) arrive as a Poisson process whose rate depends on
+    the hidden stage: ``lambda_s(x) = rates[s] * exp(sum_k effects[k] * x_k)`` per day, with the
+    covariates ``x`` of the previous contact. Scheduled contacts carry no timing information.
+
+    Parameters
+    ----------
+    rates : ndarray, shape (n_stages,)
+        Baseline rate per day in each stage (0 = no unscheduled contacts in that stage; kept at 0
+        when fitting).
+    effects : dict[str, float]
+        Log rate ratio per covariate name (the same in every stage).
+    fixed : bool
+        Keep ``rates`` at their values when fitting.
+    fixed_effects : frozenset[str]
+        Effects kept at their value when fitting.
+    same_in_every_stage : bool
+        The rates are one common value in every stage with a non-zero rate (fitted as one
+        parameter): the timing-informative model's nested restriction, in which the timing of
+        contacts says nothing about the stage.
+    """
+
+    rates: np.ndarray
+    effects: dict = field(default_factory=dict)
+    fixed: bool = False
+    fixed_effects: frozenset = frozenset()
+    same_in_every_stage: bool = False
+
+    def rates_at(self, covariates: np.ndarray, covariate_names: tuple) -> np.ndarray:
+        """Rates per day for many covariate rows.
+
+        Parameters
+        ----------
+        covariates : ndarray, shape (m, n_covariates)
+        covariate_names : tuple of str
+            Column names of ``covariates``.
+
+        Returns
+        -------
+        ndarray, shape (m, n_stages)
+        """
+        x = np.atleast_2d(np.asarray(covariates, dtype=float))
+        rates = np.asarray(self.rates, dtype=float)
+        if not self.effects:
+            return np.broadcast_to(rates, (x.shape[0], rates.size)).copy()
+        gamma = np.array([self.effects.get(name, 0.0) for name in covariate_names])
+        return rates[None, :] * np.exp(x @ gamma)[:, None]
+
+
+@dataclass(frozen=True)
 class StageModel:
     """A continuous-time hidden-Markov stage model (immutable).
 
@@ -95,6 +147,9 @@ class StageModel:
     initial_fixed : bool
         Keep ``initial`` at its value when fitting.
     name : str
+    unscheduled_contacts : UnscheduledContacts or None
+        Stage-dependent timing of unscheduled contacts; None (the default) means contact times
+        carry no information.
     """
 
     stages: tuple
@@ -106,6 +161,7 @@ class StageModel:
     exact_entry_stages: tuple = ()
     initial_fixed: bool = False
     name: str = "stage model"
+    unscheduled_contacts: UnscheduledContacts | None = None
 
     def __post_init__(self):
         self.validate()
@@ -171,6 +227,32 @@ class StageModel:
         for s in self.exact_entry_stages:
             if self.stage_index(s) not in self.absorbing_stages:
                 raise ModelError(f"exact entry is only for absorbing stages; {s!r} has a way out")
+        if self.unscheduled_contacts is not None:
+            self._validate_unscheduled(self.unscheduled_contacts)
+
+    def _validate_unscheduled(self, block: UnscheduledContacts) -> None:
+        rates = np.asarray(block.rates, dtype=float)
+        if rates.shape != (self.n_stages,):
+            raise ModelError(f"unscheduled contact rates: {rates.size} values, expected one per stage "
+                             f"({self.n_stages})")
+        for stage, rate in zip(self.stages, rates):
+            if not np.isfinite(rate) or rate < 0:
+                raise ModelError(f"unscheduled contact rate in {stage}: must be a non-negative number per day, "
+                                 f"got {rate!r}")
+        if not np.any(rates > 0):
+            raise ModelError("unscheduled contact rates: at least one stage needs a rate above 0")
+        if block.same_in_every_stage and np.ptp(rates[rates > 0]) > 1e-12 * rates.max():
+            raise ModelError("unscheduled contact rates must be equal in every stage with a non-zero rate "
+                             "when they are the same in every stage")
+        for cov, value in block.effects.items():
+            if cov not in self.covariates:
+                raise ModelError(f"unscheduled contacts: effect of unknown covariate {cov!r} "
+                                 f"(declared covariates: {', '.join(self.covariates) or 'none'})")
+            if not np.isfinite(value):
+                raise ModelError(f"unscheduled contacts: effect of {cov!r} must be a finite number")
+        for cov in block.fixed_effects:
+            if cov not in block.effects:
+                raise ModelError(f"unscheduled contacts: {cov!r} has no effect to keep fixed")
 
     # ------------------------------------------------------------- properties
     @property
@@ -256,6 +338,32 @@ class StageModel:
         if covariate_values is None:
             covariate_values = np.zeros(self.n_covariates)
         return self.generators(np.asarray(covariate_values, dtype=float).reshape(-1))
+
+    def unscheduled_rates(self, covariate_values: np.ndarray) -> np.ndarray | None:
+        """Unscheduled contact rates per day, shape (m, n_stages), or None without the block."""
+        if self.unscheduled_contacts is None:
+            return None
+        x = np.atleast_2d(np.asarray(covariate_values, dtype=float))
+        return self.unscheduled_contacts.rates_at(x, self.covariates)
+
+    def quiet_generators(self, covariate_values: np.ndarray) -> np.ndarray:
+        """``Q - Lambda`` for many covariate rows: the sub-generator of "no unscheduled contact meanwhile".
+
+        Parameters
+        ----------
+        covariate_values : ndarray, shape (m, n_covariates)
+
+        Returns
+        -------
+        ndarray, shape (m, n_stages, n_stages)
+            Rows sum to ``-lambda_s(x)``; exactly :meth:`generators` without the block.
+        """
+        q = self.generators(np.atleast_2d(np.asarray(covariate_values, dtype=float)))
+        rates = self.unscheduled_rates(covariate_values)
+        if rates is not None:
+            idx = np.arange(self.n_stages)
+            q[:, idx, idx] -= rates
+        return q
 
     def emission_matrices(self) -> tuple:
         """Per-channel probability tables, each ndarray shape (n_stages, n_categories)."""

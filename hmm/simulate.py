@@ -91,7 +91,7 @@ def _draw_categories(cdf_rows: np.ndarray, rng: np.random.Generator) -> np.ndarr
 
 
 def simulate_caseload(model: StageModel, contact_times, covariates, rng: np.random.Generator,
-                      missing_probability=0.0, exact_entry: bool = True) -> SimulatedCaseload:
+                      missing_probability=0.0, exact_entry: bool = True, end_times=None) -> SimulatedCaseload:
     """Simulate every case's hidden stage path and the evidence recorded at its contacts.
 
     Parameters
@@ -108,12 +108,19 @@ def simulate_caseload(model: StageModel, contact_times, covariates, rng: np.rand
         If True and a path enters one of ``model.exact_entry_stages`` before the next scheduled
         contact, one contact is recorded at that entry time (allowed stages = only that stage,
         all channels missing, covariates of the previous contact) and the case's timeline stops.
+    end_times : ndarray, shape (n_cases,), optional
+        With ``model.unscheduled_contacts``: unscheduled contacts are simulated up to this day for
+        each case (default: its last scheduled contact). Ignored without the block.
 
     Returns
     -------
     SimulatedCaseload
         Start stage drawn from ``model.initial`` at the first contact; between contacts ``j`` and
-        ``j + 1`` the chain runs with the generator of contact ``j``'s covariates.
+        ``j + 1`` the chain runs with the generator of contact ``j``'s covariates. With
+        ``model.unscheduled_contacts`` the ``contact_times`` are the *scheduled* contacts (the
+        schedule is the caller's choice); unscheduled contacts arrive in between at the rate of the
+        current stage (competing with the stage's jumps, exactly), carry the covariates of the
+        contact before them, and are marked in ``timelines.unscheduled``.
     """
     counts = np.array([len(t) for t in contact_times], dtype=np.int64)
     if counts.size == 0 or counts.min() < 1:
@@ -133,6 +140,21 @@ def simulate_caseload(model: StageModel, contact_times, covariates, rng: np.rand
     case_of = np.repeat(np.arange(n_cases), counts)
     if n_flat > 1 and np.any((np.diff(times) < 0) & (case_of[1:] == case_of[:-1])):
         raise ValueError("contact times must be sorted within each case")
+    timing = model.unscheduled_contacts is not None
+    virtual = np.zeros(n_flat, dtype=bool)
+    if timing and end_times is not None:
+        # one unrecorded stop at each case's end (where it is after the last scheduled contact)
+        end = np.broadcast_to(np.asarray(end_times, dtype=float), (n_cases,))
+        last = offsets[1:] - 1
+        extend = end > times[last]
+        insert_at = offsets[1:][extend]
+        times = np.insert(times, insert_at, end[extend])
+        cov = np.insert(cov, insert_at, cov[last[extend]], axis=0)
+        virtual = np.insert(virtual, insert_at, True)
+        counts = counts + extend
+        offsets = np.concatenate([[0], np.cumsum(counts)])
+        n_flat = times.size
+        case_of = np.repeat(np.arange(n_cases), counts)
 
     distinct, group = covariate_groups(cov)
     generators = model.generators(distinct)
@@ -141,6 +163,8 @@ def simulate_caseload(model: StageModel, contact_times, covariates, rng: np.rand
     jumps[:, np.arange(n_stages), np.arange(n_stages)] = 0.0
     with np.errstate(invalid="ignore", divide="ignore"):
         jump_cdf = np.cumsum(jumps, axis=2) / leave_rate[:, :, None]      # (G, S, S)
+    contact_rate = model.unscheduled_rates(distinct) if timing else np.zeros_like(leave_rate)  # (G, S)
+    extra = {"case": [], "time": [], "stage": [], "row": []}            # unscheduled contacts
     exact_mask = np.zeros(n_stages, dtype=bool)
     if exact_entry:
         exact_mask[[model.stage_index(s) for s in model.exact_entry_stages]] = True
@@ -165,6 +189,9 @@ def simulate_caseload(model: StageModel, contact_times, covariates, rng: np.rand
         moving = np.arange(active.size)
         while moving.size:
             rate = leave_rate[g[moving], s[moving]]
+            if timing:
+                calling = contact_rate[g[moving], s[moving]]
+                rate = rate + calling
             with np.errstate(divide="ignore"):
                 hold = np.where(rate > 0, rng.standard_exponential(moving.size) / rate, np.inf)
             jumped = t[moving] + hold < end[moving]
@@ -172,23 +199,43 @@ def simulate_caseload(model: StageModel, contact_times, covariates, rng: np.rand
             if not moving.size:
                 break
             t[moving] += hold[jumped]
-            u = rng.random(moving.size)
-            cdf = jump_cdf[g[moving], s[moving]]
-            s[moving] = np.minimum((u[:, None] >= cdf).sum(axis=1), n_stages - 1)
-            entered = exact_mask[s[moving]]
+            jumping = moving
+            if timing:
+                # the event is an unscheduled contact with probability lambda_s / (leave rate + lambda_s);
+                # the case stays in its stage and goes on to its next event
+                called = rng.random(moving.size) * rate[jumped] < calling[jumped]
+                who = moving[called]
+                extra["case"].append(order[active[who]])
+                extra["time"].append(t[who].copy())
+                extra["stage"].append(s[who].copy())
+                extra["row"].append(rows[who] - 1)
+                jumping = moving[~called]
+            u = rng.random(jumping.size)
+            cdf = jump_cdf[g[jumping], s[jumping]]
+            s[jumping] = np.minimum((u[:, None] >= cdf).sum(axis=1), n_stages - 1)
+            entered = exact_mask[s[jumping]]
             if entered.any():
-                who = moving[entered]
+                who = jumping[entered]
                 stopped[active[who]] = True
                 entry_time[active[who]] = t[who]
                 entry_stage[active[who]] = s[who]
                 entry_row[active[who]] = rows[who] - 1
-                moving = moving[~entered]
+                moving = moving[~np.isin(moving, who)] if timing else jumping[~entered]
         stage[active] = s
         going_on = ~stopped[active]
         true_stage[rows[going_on]] = s[going_on]
         recorded[rows[going_on]] = True
 
-    # Evidence at scheduled contacts.
+    # Evidence at scheduled contacts (and at the unscheduled ones, appended as extra rows).
+    recorded &= ~virtual
+    n_extra = int(sum(a.size for a in extra["time"]))
+    if n_extra:
+        first_extra = times.size
+        case_of = np.concatenate([case_of] + extra["case"])
+        times = np.concatenate([times] + extra["time"])
+        true_stage = np.concatenate([true_stage] + extra["stage"])
+        cov = np.concatenate([cov, cov[np.concatenate(extra["row"])]])
+        recorded = np.concatenate([recorded, np.ones(n_extra, dtype=bool)])
     kept = np.flatnonzero(recorded)
     n_channels = len(model.channels)
     missing = np.broadcast_to(np.asarray(missing_probability, dtype=float), (n_channels,))
@@ -208,12 +255,17 @@ def simulate_caseload(model: StageModel, contact_times, covariates, rng: np.rand
     sort = np.lexsort((all_times, all_case))
     case_sorted = all_case[sort]
     per_case = np.bincount(case_sorted, minlength=n_cases)
+    unscheduled = None
+    if timing:
+        unscheduled = np.concatenate([kept >= first_extra if n_extra else np.zeros(kept.size, bool),
+                                      np.zeros(entries.size, bool)])[sort]
     timelines = Timelines(
         offsets=np.concatenate([[0], np.cumsum(per_case)]).astype(np.int64),
         times=all_times[sort],
         observations=np.concatenate([observations, np.full((entries.size, n_channels), MISSING, np.int16)])[sort],
         allowed_stages=np.concatenate([allowed, entry_allowed])[sort],
         covariates=np.concatenate([cov[kept], cov[entry_row[entries]]])[sort],
+        unscheduled=unscheduled,
     )
     return SimulatedCaseload(
         timelines=timelines,

@@ -34,6 +34,9 @@ class Timelines:
         (one stage, or a set of stages).
     covariates : ndarray of float64, shape (n_contacts, n_covariates)
         Covariate values recorded at each contact; they hold until the next contact.
+    unscheduled : ndarray of bool, shape (n_contacts,), optional
+        True for an unscheduled contact (``contact_kind`` "unscheduled"); None (the default) means
+        every contact was scheduled. Used only by models with an ``unscheduled_contacts`` block.
     """
 
     offsets: np.ndarray
@@ -41,6 +44,7 @@ class Timelines:
     observations: np.ndarray
     allowed_stages: np.ndarray
     covariates: np.ndarray
+    unscheduled: np.ndarray | None = None
 
     def __post_init__(self):
         n = self.times.shape[0]
@@ -48,7 +52,10 @@ class Timelines:
             raise ValueError("offsets must start at 0 and end at the number of contacts")
         if np.any(np.diff(self.offsets) < 1):
             raise ValueError("every case needs at least one contact")
-        for name in ("observations", "allowed_stages", "covariates"):
+        if self.unscheduled is not None:
+            object.__setattr__(self, "unscheduled", np.asarray(self.unscheduled, dtype=bool).reshape(-1))
+        for name in ("observations", "allowed_stages", "covariates") + (("unscheduled",) if self.unscheduled
+                                                                        is not None else ()):
             if getattr(self, name).shape[0] != n:
                 raise ValueError(f"{name} must have one row per contact ({n})")
         if n and np.any(~self.allowed_stages.any(axis=1)):
@@ -88,9 +95,20 @@ class Timelines:
         """Row of each case's last contact, shape (n_cases,)."""
         return self.offsets[1:] - 1
 
+    @property
+    def unscheduled_mask(self) -> np.ndarray:
+        """ndarray of bool, shape (n_contacts,): True for unscheduled contacts (all False when not recorded)."""
+        if self.unscheduled is None:
+            return np.zeros(self.n_contacts, dtype=bool)
+        return self.unscheduled
+
+    def _rows_unscheduled(self, rows) -> np.ndarray | None:
+        return None if self.unscheduled is None else self.unscheduled[rows]
+
     # ----------------------------------------------------------- construction
     @classmethod
-    def from_contacts(cls, case_index, times, observations, allowed_stages, covariates) -> "Timelines":
+    def from_contacts(cls, case_index, times, observations, allowed_stages, covariates,
+                      unscheduled=None) -> "Timelines":
         """Build from unsorted per-contact arrays; ``case_index`` (int, shape (n_contacts,)) names the case.
 
         Cases are numbered ``0..max(case_index)``; every number must have a contact. Rows are sorted
@@ -107,7 +125,43 @@ class Timelines:
             observations=np.asarray(observations, dtype=np.int16)[order],
             allowed_stages=np.asarray(allowed_stages, dtype=bool)[order],
             covariates=np.asarray(covariates, dtype=float)[order],
+            unscheduled=None if unscheduled is None else np.asarray(unscheduled, dtype=bool)[order],
         )
+
+    def with_observation_end(self, end, extend=None) -> "Timelines":
+        """These timelines with one blank *scheduled* contact at ``end`` after each case's last contact.
+
+        A blank scheduled contact (nothing recorded, every stage allowed, the last contact's
+        covariates) adds exactly the quiet time since the last contact to a timing model's
+        likelihood: ``P(no unscheduled contact until end)``. Fitting with it uses every day the
+        service was watching, not just the days up to each case's last contact.
+
+        Parameters
+        ----------
+        end : float or ndarray, shape (n_cases,)
+            Day observation ended (for example the day the data were extracted).
+        extend : ndarray of bool, shape (n_cases,), optional
+            Cases to extend (default: every case whose last contact is before ``end``).
+
+        Returns
+        -------
+        Timelines
+            Marked unscheduled where the original was (the new contacts are scheduled).
+        """
+        end = np.broadcast_to(np.asarray(end, dtype=float), (self.n_cases,))
+        last = self.last_index
+        chosen = end > self.times[last]
+        if extend is not None:
+            chosen &= np.asarray(extend, dtype=bool)
+        at = self.offsets[1:][chosen]
+        observations = np.insert(self.observations, at, MISSING, axis=0)
+        allowed = np.insert(self.allowed_stages, at, True, axis=0)
+        return Timelines(
+            offsets=np.concatenate([[0], np.cumsum(self.n_contacts_per_case + chosen)]).astype(np.int64),
+            times=np.insert(self.times, at, end[chosen]),
+            observations=observations, allowed_stages=allowed,
+            covariates=np.insert(self.covariates, at, self.covariates[last[chosen]], axis=0),
+            unscheduled=np.insert(self.unscheduled_mask, at, False))
 
     # -------------------------------------------------------------- selection
     def subset(self, cases) -> "Timelines":
@@ -124,6 +178,7 @@ class Timelines:
             observations=self.observations[rows],
             allowed_stages=self.allowed_stages[rows],
             covariates=self.covariates[rows],
+            unscheduled=self._rows_unscheduled(rows),
         )
 
     def until(self, time: float) -> tuple["Timelines", np.ndarray]:
@@ -148,4 +203,5 @@ class Timelines:
             observations=self.observations[keep_row],
             allowed_stages=self.allowed_stages[keep_row],
             covariates=self.covariates[keep_row],
+            unscheduled=self._rows_unscheduled(keep_row),
         ), kept_cases

@@ -82,10 +82,17 @@ def eigen_path_is_safe(generator: np.ndarray) -> bool | np.ndarray:
     return bool(safe[0]) if q.ndim == 2 else safe
 
 
-def _clean(matrices: np.ndarray) -> np.ndarray:
-    """Real part, negatives clipped to zero, rows renormalised; shape (k, S, S) kept."""
+def _clean(matrices: np.ndarray, renormalise: bool = True) -> np.ndarray:
+    """Real part, negatives clipped to zero, rows renormalised (unless not); shape (k, S, S) kept.
+
+    The matrices of a sub-generator (``Q - Lambda``, rows summing to ``-lambda``) are
+    sub-stochastic: their rows sum to the probability of no unscheduled contact, so they are only
+    clipped, never renormalised.
+    """
     p = np.real(matrices)
     p = np.where(p > 0.0, p, 0.0)
+    if not renormalise:
+        return p
     totals = p.sum(axis=2, keepdims=True)
     return p / np.where(totals > 0, totals, 1.0)
 
@@ -187,13 +194,15 @@ def _distinct_pairs(gaps: np.ndarray, generator_index: np.ndarray) -> tuple:
     return pairs // width, gap_values[pairs % width], inverse
 
 
-def distinct_transition_matrices(generators, gaps, generator_index, method: str = "auto") -> tuple:
+def distinct_transition_matrices(generators, gaps, generator_index, method: str = "auto",
+                                 sub_generators: bool = False) -> tuple:
     """Transition matrices for distinct (generator, gap) pairs, with the map back to the input.
 
     Parameters
     ----------
     generators : ndarray, shape (G, S, S)
-        Generator matrices (rows sum to zero, off-diagonal rates per day >= 0).
+        Generator matrices (rows sum to zero, off-diagonal rates per day >= 0), or with
+        ``sub_generators`` the sub-generators ``Q - Lambda`` (rows sum to ``-lambda <= 0``).
     gaps : ndarray, shape (n,)
         Elapsed times in days, >= 0.
     generator_index : ndarray of int, shape (n,)
@@ -202,6 +211,10 @@ def distinct_transition_matrices(generators, gaps, generator_index, method: str 
         ``"auto"`` uses the eigen fast path where :func:`eigen_path_is_safe` and ``expm``
         elsewhere; ``"eigen"`` insists on the eigen path (ValueError if a generator is unsafe);
         ``"expm"`` always uses ``scipy.linalg.expm``.
+    sub_generators : bool
+        The results are sub-stochastic (rows are not renormalised to sum to one). The eigen path
+        and its conditioning check, and the ``expm`` fallback, apply unchanged: ``Q - Lambda`` is
+        decomposed like any other matrix.
 
     Returns
     -------
@@ -252,17 +265,18 @@ def distinct_transition_matrices(generators, gaps, generator_index, method: str 
                 where = position[pair_generator[rows]]
                 growth = np.exp(values[where] * pair_gap[rows, None])
                 result[rows] = _clean(np.einsum("pij,pj,pjk->pik", vectors[where], growth,
-                                                inverse_vectors[where]))
+                                                inverse_vectors[where]), not sub_generators)
         rows = todo[~use_eigen[pair_generator[todo]]]
         if rows.size:
             stacked = generators[pair_generator[rows]] * pair_gap[rows, None, None]
             import scipy.linalg  # only here: importing it costs ~0.2 s of every command's start-up
 
-            result[rows] = _clean(scipy.linalg.expm(stacked))
+            result[rows] = _clean(scipy.linalg.expm(stacked), not sub_generators)
     return result, inverse
 
 
-def transition_matrices(generators, gaps, generator_index, method: str = "auto") -> np.ndarray:
+def transition_matrices(generators, gaps, generator_index, method: str = "auto",
+                        sub_generators: bool = False) -> np.ndarray:
     """Transition matrices ``expm(Q_g t)`` for many gaps, each with its own generator.
 
     Parameters
@@ -273,13 +287,16 @@ def transition_matrices(generators, gaps, generator_index, method: str = "auto")
     generator_index : ndarray of int, shape (n,)
     method : {"auto", "eigen", "expm"}
         See :func:`distinct_transition_matrices`.
+    sub_generators : bool
+        ``generators`` are ``Q - Lambda``; the results are sub-stochastic (not renormalised).
 
     Returns
     -------
     ndarray, shape (n, S, S)
-        Row-stochastic matrices; entry ``[i, r, s]`` is P(stage s after ``gaps[i]`` | stage r).
+        Row-stochastic matrices; entry ``[i, r, s]`` is P(stage s after ``gaps[i]`` | stage r)
+        (with ``sub_generators``: and no unscheduled contact meanwhile).
     """
-    matrices, index = distinct_transition_matrices(generators, gaps, generator_index, method)
+    matrices, index = distinct_transition_matrices(generators, gaps, generator_index, method, sub_generators)
     return matrices[index]
 
 

@@ -49,6 +49,7 @@ def run_fit(args) -> int:
 
     from caseview.errors import Cancelled, InputError
     from caseview.modelfile import dump_model, save_model
+    from caseview.scoring import observation_end_day
     from hmm.fitting import fit_model
 
     from .basic import actor_name, open_workspace, stderr_progress
@@ -69,7 +70,8 @@ def run_fit(args) -> int:
 
         try:
             result = fit_model(model, caseload.timelines, starts=args.starts, rng=np.random.default_rng(args.seed),
-                               penalised=args.penalised, callback=progress, max_iterations=args.max_iterations)
+                               penalised=args.penalised, callback=progress, max_iterations=args.max_iterations,
+                               observed_until=observation_end_day(caseload.timelines))
         except (KeyboardInterrupt, Cancelled):
             if sys.stderr.isatty():
                 print(file=sys.stderr)
@@ -105,6 +107,15 @@ def _summary_fit(version):
                            names=set(s.get("free_parameters", [])))
 
 
+def _timing_comparison(first, second, first_fit, second_fit):
+    """:func:`hmm.fitting.compare.timing_comparison` for two stored model versions."""
+    from caseview.modelfile import parse_model
+    from hmm.fitting.compare import contact_timing_of, timing_comparison
+
+    kinds = [contact_timing_of(parse_model(v.json_text, source=f"model version {v.id}")) for v in (first, second)]
+    return timing_comparison(kinds[0], kinds[1], first_fit.names, second_fit.names)
+
+
 def run_models(args) -> int:
     from caseview.errors import InputError
     from hmm.fitting.compare import information_criteria_difference, likelihood_ratio_test
@@ -129,6 +140,12 @@ def run_models(args) -> int:
                     raise InputError(f"--compare: model version {vid} was not fitted (no log-likelihood to compare)")
                 fits.append(fit)
             a, b = fits
+            timing = _timing_comparison(versions[args.compare[0]], versions[args.compare[1]], a, b)
+            if not timing.comparable:
+                print(timing.explanation)
+                return 0
+            if timing.explanation:
+                print(timing.explanation)
             diff = information_criteria_difference(a, b)
             print(f"version {args.compare[0]}: logL {a.log_likelihood:.3f}, {a.n_parameters} parameters, "
                   f"AIC {a.aic:.2f}, BIC {a.bic:.2f}")
@@ -137,7 +154,8 @@ def run_models(args) -> int:
             print(f"difference (second - first): AIC {diff['aic']:+.2f}, BIC {diff['bic']:+.2f} "
                   "(negative favours the second)")
             restricted, general = (a, b) if a.n_parameters < b.n_parameters else (b, a)
-            nested = restricted.names <= general.names and restricted.n_parameters < general.n_parameters
+            nested = (restricted.names <= general.names or timing.nested) and \
+                restricted.n_parameters < general.n_parameters
             if nested:
                 try:
                     test = likelihood_ratio_test(restricted, general)

@@ -90,7 +90,9 @@ def _concatenate(parts: list) -> Timelines:
     return Timelines(np.concatenate(offsets), np.concatenate([t.times for t in parts]),
                      np.concatenate([t.observations for t in parts]),
                      np.concatenate([t.allowed_stages for t in parts]),
-                     np.concatenate([t.covariates for t in parts]))
+                     np.concatenate([t.covariates for t in parts]),
+                     None if all(t.unscheduled is None for t in parts) else
+                     np.concatenate([t.unscheduled_mask for t in parts]))
 
 
 def evidence_text(model, observations: np.ndarray, allowed: np.ndarray) -> list:
@@ -160,7 +162,8 @@ def contact_influence(model, timelines: Timelines, as_of_day: int, cases, horizo
             evidence[i][k] = text
         observations[rows] = MISSING
         allowed[rows] = True
-        parts.append(Timelines(part.offsets, part.times, observations, allowed, part.covariates))
+        # the recorded values are left out; the contact itself (its date and kind) stays
+        parts.append(Timelines(part.offsets, part.times, observations, allowed, part.covariates, part.unscheduled))
         owners.append((k, have))
     combined = _concatenate(parts)
     filtered = forward(model, combined).filtered

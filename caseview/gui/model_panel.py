@@ -70,6 +70,7 @@ class ModelPanel(QWidget):
         self.sojourn = _table(["Stage", "Mean time in stage (days)", "95% interval"])
         self.hazards = _table(["Effect", "Hazard ratio", "95% interval"])
         self.emissions = _table(["Channel", "Stage", "Probabilities"])
+        self.contact_rates = _table(["Stage", "Unscheduled contacts per year", "95% interval"])
         self.fit_chart_holder = QVBoxLayout()
         self.fit_chart_note = QLabel("Fit the model to see how the log-likelihood improved.")
         self.fit_chart_note.setWordWrap(True)
@@ -97,6 +98,7 @@ class ModelPanel(QWidget):
         self.details.addTab(self.sojourn, "Time in stage")
         self.details.addTab(self.hazards, "Hazard ratios")
         self.details.addTab(self.emissions, "Observation probabilities")
+        self.details.addTab(self.contact_rates, "Unscheduled contacts")
         self.details.addTab(fit_tab, "Fit statistics")
         self._add_fit_check()
         self.details.addTab(versions_tab, "Versions")
@@ -181,6 +183,7 @@ class ModelPanel(QWidget):
         self._fill_sojourn(summary)
         self._fill_hazards(summary)
         self._fill_emissions()
+        self._fill_contact_rates(summary)
         self._draw_fit_history(summary)
         self.fit_check.model_changed()
         from caseview.modelfile import dump_model
@@ -204,6 +207,17 @@ class ModelPanel(QWidget):
             rows = [(f"{name} on {m.stages[t.source]} → {m.stages[t.target]}", f"{np.exp(beta):.2f}",
                      "–") for t in m.transitions for name, beta in t.effects.items()]
         _fill(self.hazards, rows)
+
+    def _fill_contact_rates(self, summary) -> None:
+        """Unscheduled contacts per year in each stage (rows from caseview.reports.model_summary)."""
+        from caseview.reports.model_summary import unscheduled_contacts_per_year
+
+        rows = unscheduled_contacts_per_year(self.model, summary)
+        index = self.details.indexOf(self.contact_rates)
+        self.details.setTabVisible(index, bool(rows))
+        _fill(self.contact_rates, [(r.stage, f"{r.per_year:,.1f}",
+                                    f"{r.lower:,.1f} to {r.upper:,.1f}" if r.lower is not None and r.upper is not None
+                                    else "–") for r in rows])
 
     def _fill_emissions(self) -> None:
         rows = []
@@ -267,6 +281,7 @@ class ModelPanel(QWidget):
         if loaded is None or self.model is None:
             self.fit_message.setText("Open and score a caseload first.")
             return
+        from caseview.scoring import observation_end_day
         from hmm.fitting import fit_model
 
         model, timelines = self.model, loaded.scores.timelines
@@ -276,8 +291,10 @@ class ModelPanel(QWidget):
         self.fit_button.setEnabled(False)
         self.cancel_button.setEnabled(True)
         self.fit_message.setText(f"Fitting to {timelines.n_cases:,} cases ({timelines.n_contacts:,} contacts)…")
+        observed_until = observation_end_day(timelines)
         self.jobs.start("fit", lambda callback: fit_model(model, timelines, starts=starts, rng=rng,
-                                                          penalised=penalised, callback=callback),
+                                                          penalised=penalised, callback=callback,
+                                                          observed_until=observed_until),
                         on_finished=self._fitted, on_failed=self._fit_failed, on_cancelled=self._fit_cancelled,
                         on_progress=lambda f: self.progress.setValue(int(100 * f)))
 

@@ -40,6 +40,45 @@ class SojournRow:
 
 
 @dataclass(frozen=True)
+class ContactRateRow:
+    """Unscheduled contacts per year in one stage (the model's ``unscheduled_contacts`` block), with an
+    optional 95% interval when fitted."""
+
+    stage: str
+    per_year: float
+    lower: float | None = None
+    upper: float | None = None
+
+
+#: Days per year for rates shown per year (hmm.fitting.result.DAYS_PER_YEAR).
+_DAYS_PER_YEAR = 365.25
+
+
+def unscheduled_contacts_per_year(model, fit_summary: dict | None = None) -> list:
+    """Rows of unscheduled contacts per year in each stage (empty without the block).
+
+    Fitted values and intervals come from the stored fit summary (``unscheduled_contacts_per_year``,
+    written by :meth:`hmm.fitting.FitResult.to_summary`); otherwise the model's rates (covariates 0).
+    The window's model panel and the report both use this.
+    """
+    block = getattr(model, "unscheduled_contacts", None)
+    if block is None:
+        return []
+    stored = {}
+    for item in (fit_summary or {}).get("unscheduled_contacts_per_year") or []:
+        stored[item.get("name", "")] = item
+    rows = []
+    for stage, rate in zip(model.stages, block.rates):
+        item = stored.get(f"unscheduled contacts in {stage} (per year)")
+        if item is not None and _number(item.get("estimate")) is not None:
+            rows.append(ContactRateRow(stage, float(item["estimate"]), _number(item.get("lower")),
+                                       _number(item.get("upper"))))
+        else:
+            rows.append(ContactRateRow(stage, float(rate) * _DAYS_PER_YEAR))
+    return rows
+
+
+@dataclass(frozen=True)
 class ModelSummary:
     name: str
     version_id: int | None
@@ -51,6 +90,7 @@ class ModelSummary:
     sojourn_source: str = ""
     follow_up_stages: tuple = ()
     covariates: tuple = ()
+    unscheduled_per_year: list = field(default_factory=list)  # ContactRateRow; empty without the block
 
 
 def _lower_keys(mapping) -> dict:
@@ -138,4 +178,5 @@ def summarise_model(model, version) -> ModelSummary:
         created_utc=str(getattr(version, "created_utc", "") or ""), note=str(getattr(version, "note", "") or ""),
         fitted=bool(fit), statistics=statistics, sojourn=sojourn, sojourn_source=source,
         follow_up_stages=tuple(model.follow_up_stages), covariates=tuple(model.covariates),
+        unscheduled_per_year=unscheduled_contacts_per_year(model, getattr(version, "fit_summary", None)),
     )

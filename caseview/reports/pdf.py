@@ -235,6 +235,27 @@ def _timeline_pages(data) -> list:
     return pages
 
 
+def _unscheduled_contacts_table(page, m) -> None:
+    """Unscheduled contacts per year in each stage (only for a model with the timing block)."""
+    if not m.unscheduled_per_year:
+        return
+    page.heading("Unscheduled contacts per year in each stage", size=style.BODY_SIZE + 1)
+    page.paragraph("The model treats the timing of unscheduled contacts as evidence: people in some stages call "
+                   "or are called about more often. " + ("Fitted to this caseload." if m.fitted else NOT_FITTED + "."),
+                   size=style.BODY_SIZE - 1, colour=style.MUTED)
+    has_interval = any(r.lower is not None and r.upper is not None for r in m.unscheduled_per_year)
+    rows = []
+    for r in m.unscheduled_per_year:
+        cells = [r.stage, f"{r.per_year:,.1f}"]
+        if has_interval:
+            cells.append(f"{r.lower:,.1f} to {r.upper:,.1f}" if r.lower is not None and r.upper is not None else "-")
+        rows.append(cells)
+    columns = [Column("stage", 2.5), Column("per year", 1.3, "right")]
+    if has_interval:
+        columns.append(Column("interval", 1.6, "right"))
+    page.table(columns, rows, size=style.BODY_SIZE - 0.5)
+
+
 def _model_page(data) -> Page:
     m = data.model
     page = Page("model")
@@ -262,6 +283,7 @@ def _model_page(data) -> Page:
     if has_interval:
         columns.append(Column("interval (days)", 1.6, "right"))
     page.table(columns, rows, size=style.BODY_SIZE - 0.5)
+    _unscheduled_contacts_table(page, m)
     page.paragraph(f"Follow-up stages: {', '.join(m.follow_up_stages) or 'none'}. Covariates: "
                    f"{', '.join(m.covariates) or 'none'}.", size=style.BODY_SIZE - 0.5)
     rules = getattr(data.assessment, "rules", None)

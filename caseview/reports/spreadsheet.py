@@ -105,6 +105,7 @@ def _summary_rows(data) -> list:
     rows += [["model", m.name], ["model_version", m.version_id if m.version_id is not None else ""],
              ["model_fitted", "yes" if m.fitted else f"no ({NOT_FITTED})"]]
     rows += [[f"fit: {label}", value] for label, value in m.statistics]
+    rows += [[f"unscheduled contacts per year: {r.stage}", round(r.per_year, 3)] for r in m.unscheduled_per_year]
     rows += [["audit_chain_head", data.audit_head], ["made_by", f"caseview {__version__}"]]
     return rows
 

@@ -55,6 +55,8 @@ def load_caseload(connection, model: StageModel, as_of_day: int | None = None) -
         observations=observations,
         allowed_stages=allowed_stages_for_model(stored.stage_known, model),
         covariates=covariates_for_model(stored, model),
+        # contact_kind: only carried when some contact is unscheduled (None = all scheduled)
+        unscheduled=stored.unscheduled if stored.unscheduled is not None and stored.unscheduled.any() else None,
     )
     return Caseload(case_ids=stored.case_codes, coordinators=stored.case_coordinator,
                     contact_days=stored.days, timelines=timelines, raw_values=raw)

@@ -33,6 +33,7 @@ class ContactBatch:
     covariate_names : tuple of str
     covariates : ndarray of float64 (n, n_covariates)
     stage_known : ndarray of object (n,)   '' = none, else 'A|B' in model stage order
+    unscheduled : ndarray of bool (n,) or None   contact_kind "unscheduled" (None = all scheduled)
     """
 
     case_codes: np.ndarray
@@ -44,10 +45,18 @@ class ContactBatch:
     covariate_names: tuple
     covariates: np.ndarray
     stage_known: np.ndarray
+    unscheduled: np.ndarray | None = None
 
     @property
     def n_rows(self) -> int:
         return int(self.days.shape[0])
+
+    def contact_kinds(self) -> np.ndarray:
+        """ndarray of object (n,): 'scheduled' or 'unscheduled' for each row (the stored text)."""
+        kinds = np.full(self.n_rows, "scheduled", dtype=object)
+        if self.unscheduled is not None:
+            kinds[np.asarray(self.unscheduled, dtype=bool)] = "unscheduled"
+        return kinds
 
 
 @dataclass
@@ -141,14 +150,15 @@ def write_contacts(connection, batch: ContactBatch, replace: bool = False) -> Wr
         gc_was_enabled = gc.isenabled()
         gc.disable()
         try:
-            for key, o, c, st, co in connection.execute(
+            for key, o, c, st, co, kind in connection.execute(
                     "SELECT (c.case_id << 18) + (c.day + 131072), c.observations, c.covariates, c.stage_known,"
-                    " c.coordinator_id FROM contacts c JOIN _import_cases t ON t.id = c.case_id"):
-                stored[key] = (o, c, st, co)
+                    " c.coordinator_id, c.contact_kind FROM contacts c JOIN _import_cases t ON t.id = c.case_id"):
+                stored[key] = (o, c, st, co, kind)
         finally:
             if gc_was_enabled:
                 gc.enable()
         candidates = np.flatnonzero(~is_new_case)
+        kinds = batch.contact_kinds()
         obs_blobs = covs_blobs = None
         if candidates.size:
             cand_obs, cand_cov = _blobs(obs[candidates]), _blobs(covs[candidates])
@@ -158,18 +168,20 @@ def write_contacts(connection, batch: ContactBatch, replace: bool = False) -> Wr
                     continue
                 stage = batch.stage_known[i] or None
                 coord = row_coordinator[i]
-                new = (cand_obs[k], cand_cov[k], stage, coord)
+                new = (cand_obs[k], cand_cov[k], stage, coord, kinds[i])
                 if old == new:
                     duplicates.append(i)
                     continue
-                names = [label for label, a, b in zip(("values", "covariates", "stage_known", "coordinator"),
-                                                      old, new) if a != b]
+                names = [label for label, a, b in zip(("values", "covariates", "stage_known", "coordinator",
+                                                       "contact_kind"), old, new) if a != b]
                 if replace:
                     updates.append((i, new))
                     replaced_details.append({
                         "case_id": str(batch.case_codes[i]), "day": int(batch.days[i]),
                         "old_sha256": _row_digest(old[0], old[1], old[2], coordinator_code.get(old[3], "")),
                         "new_sha256": _row_digest(new[0], new[1], new[2], batch.coordinators[i])})
+                    if old[4] != new[4]:
+                        replaced_details[-1]["contact_kind"] = [old[4], new[4]]
                 else:
                     conflicts.append(i)
                     differing.append(names)
@@ -196,15 +208,22 @@ def write_contacts(connection, batch: ContactBatch, replace: bool = False) -> Wr
         covs_blobs = _blobs(covs[insert_rows])
         stage = [s or None for s in batch.stage_known[insert_rows].tolist()]
         coords = row_coordinator[insert_rows].tolist()
+        columns = [row_case[insert_rows].tolist(), batch.days[insert_rows].tolist(), obs_blobs, covs_blobs, stage,
+                   coords]
+        kind_column = ""
+        if batch.unscheduled is not None and np.any(batch.unscheduled[insert_rows]):
+            # contact_kind is named only when some contact is unscheduled (otherwise the column default,
+            # 'scheduled', applies), so a batch without kinds is stored exactly as before the column existed
+            columns.append(batch.contact_kinds()[insert_rows].tolist())
+            kind_column = ", contact_kind"
         connection.executemany(
-            "INSERT INTO contacts (case_id, day, observations, covariates, stage_known, coordinator_id)"
-            " VALUES (?, ?, ?, ?, ?, ?)",
-            zip(row_case[insert_rows].tolist(), batch.days[insert_rows].tolist(), obs_blobs, covs_blobs, stage, coords))
+            f"INSERT INTO contacts (case_id, day, observations, covariates, stage_known, coordinator_id{kind_column})"
+            f" VALUES (?, ?, ?, ?, ?, ?{', ?' if kind_column else ''})", zip(*columns))
     if updates:
         connection.executemany(
-            "UPDATE contacts SET observations = ?, covariates = ?, stage_known = ?, coordinator_id = ?"
-            " WHERE case_id = ? AND day = ?",
-            [(o, c, s, co, int(row_case[i]), int(batch.days[i])) for i, (o, c, s, co) in updates])
+            "UPDATE contacts SET observations = ?, covariates = ?, stage_known = ?, coordinator_id = ?,"
+            " contact_kind = ? WHERE case_id = ? AND day = ?",
+            [(o, c, s, co, kind, int(row_case[i]), int(batch.days[i])) for i, (o, c, s, co, kind) in updates])
     if touched_existing:
         connection.execute(
             "UPDATE cases SET coordinator = COALESCE((SELECT co.code FROM contacts c JOIN coordinators co"

@@ -105,6 +105,7 @@ class StoredContacts:
     stage_known: np.ndarray       # (n,) object ('' = none)
     coordinators: np.ndarray      # (n,) object ('' = blank)
     layout: FieldLayout
+    unscheduled: np.ndarray | None = None  # (n,) bool, contact_kind 'unscheduled'
 
 
 #: Key packing of (case_id, day) into one int64: 18 bits of day (offset so that days before 1970 stay
@@ -198,6 +199,26 @@ def _known_stages(connection, as_of_day: int | None):
     return connection.execute(sql, params).fetchall()
 
 
+def _unscheduled_contacts(connection, as_of_day: int | None):
+    """(case_id, day) of the contacts recorded as unscheduled (portable SQL)."""
+    sql = "SELECT case_id, day FROM contacts WHERE contact_kind = 'unscheduled'"
+    params = ()
+    if as_of_day is not None:
+        sql += " AND day <= ?"
+        params = (int(as_of_day),)
+    return connection.execute(sql, params).fetchall()
+
+
+def _rows_of(keys: np.ndarray, pairs: list) -> np.ndarray:
+    """Rows of ``keys`` (packed (case, day), one per contact) holding the (case_id, day) ``pairs``."""
+    case, day = zip(*pairs)
+    wanted = (np.array(case, dtype=np.int64) << _DAY_BITS) + (np.array(day, dtype=np.int64) + _DAY_OFFSET)
+    if keys.size > 1 and not np.all(keys[1:] > keys[:-1]):
+        by_key = np.argsort(keys, kind="stable")
+        return by_key[np.searchsorted(keys, wanted, sorter=by_key)]
+    return np.searchsorted(keys, wanted)  # read in (case, day) order already, the usual case
+
+
 def fetch_contacts(connection, as_of_day: int | None = None, row_by_row: bool = False) -> StoredContacts:
     """Read every contact (optionally only days <= ``as_of_day``) into numpy arrays.
 
@@ -213,6 +234,7 @@ def fetch_contacts(connection, as_of_day: int | None = None, row_by_row: bool = 
         cases = connection.execute("SELECT id, case_code FROM cases ORDER BY id").fetchall()
         case_ids, days, coordinator_ids, value_bytes = read(connection, as_of_day, [c[0] for c in cases])
         known = _known_stages(connection, as_of_day)
+        unscheduled_pairs = _unscheduled_contacts(connection, as_of_day)
     finally:
         if gc_was_enabled:
             gc.enable()
@@ -234,6 +256,9 @@ def fetch_contacts(connection, as_of_day: int | None = None, row_by_row: bool = 
         else:  # read in (case, day) order already, the usual case
             rows = np.searchsorted(keys, known_keys)
         stage_known[rows] = np.array(known_text, dtype=object)
+    unscheduled = np.zeros(n, dtype=bool)
+    if unscheduled_pairs:
+        unscheduled[_rows_of(keys, unscheduled_pairs)] = True
 
     coordinator_codes = dict(connection.execute("SELECT id, code FROM coordinators").fetchall())
     code_table = np.array([""] * (max(coordinator_codes, default=0) + 2), dtype=object)
@@ -267,6 +292,7 @@ def fetch_contacts(connection, as_of_day: int | None = None, row_by_row: bool = 
         order = np.argsort(sort_key, kind="stable")
         rank, days, packed = rank[order], days[order], packed[order]
         stage_known, coordinator_ids = stage_known[order], coordinator_ids[order]
+        unscheduled = unscheduled[order]
     counts = np.bincount(rank, minlength=present.size)
     offsets = np.concatenate([[0], np.cumsum(counts)]).astype(np.int64)
     observations = packed[:, :n_channels]
@@ -279,7 +305,7 @@ def fetch_contacts(connection, as_of_day: int | None = None, row_by_row: bool = 
     return StoredContacts(
         case_codes=present_codes[code_order], case_coordinator=case_coordinator, offsets=offsets,
         days=days, observations=observations, covariates=covariates,
-        stage_known=stage_known, coordinators=coordinators, layout=layout)
+        stage_known=stage_known, coordinators=coordinators, layout=layout, unscheduled=unscheduled)
 
 
 def observation_codes_for_model(stored: StoredContacts, model: StageModel) -> tuple[np.ndarray, dict]:

@@ -91,8 +91,16 @@ CREATE TABLE row_digests (set_name TEXT NOT NULL, key TEXT NOT NULL, digest TEXT
   PRIMARY KEY (set_name, key)) WITHOUT ROWID;
 """
 
+#: Whether a contact was scheduled (a planned review) or unscheduled (a fall, a worried call); only
+#: models with an ``unscheduled_contacts`` block use it. Rows stored before keep the default.
+CONTACT_KIND = """
+ALTER TABLE contacts ADD COLUMN contact_kind TEXT NOT NULL DEFAULT 'scheduled'
+  CHECK (contact_kind IN ('scheduled', 'unscheduled'));
+"""
+
 #: Forward migrations; ``MIGRATIONS[k - 1]`` takes version ``k - 1`` to ``k``.
 MIGRATIONS: list[str] = [SCHEMA_V1, ROW_DIGESTS]
+MIGRATIONS.append(CONTACT_KIND)
 
 
 def schema_version() -> int:

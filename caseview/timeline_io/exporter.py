@@ -46,6 +46,14 @@ def _number_text(column: np.ndarray) -> np.ndarray:
     return text
 
 
+def _contact_kind_text(stored) -> np.ndarray:
+    """The ``contact_kind`` column: 'scheduled' or 'unscheduled' per contact (import reads it back)."""
+    kinds = np.full(stored.days.shape[0], "scheduled", dtype=object)
+    if stored.unscheduled is not None:
+        kinds[stored.unscheduled] = "unscheduled"
+    return kinds
+
+
 def timeline_table(ws):
     """The stored timelines as a pandas DataFrame in the import layout (all text cells)."""
     import pandas as pd
@@ -72,6 +80,7 @@ def timeline_table(ws):
         columns[name] = (_number_text(stored.covariates[:, position]) if position is not None
                          else np.full(stored.days.shape[0], "", dtype=object))
     columns["stage_known"] = escape_text(stored.stage_known)
+    columns["contact_kind"] = _contact_kind_text(stored)
     from ..cell_text import neutralise
 
     table = pd.DataFrame({neutralise(name): values for name, values in columns.items()})

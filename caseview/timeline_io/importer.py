@@ -67,12 +67,12 @@ def _parse_header(source: TimelineSource, model, mapping: dict, drop) -> tuple[l
     raw = source.header()
     names = [str(h).strip() for h in raw]
     known = {neutralise(n): n for n in ("case_id", "date", "coordinator", *(c.name for c in model.channels),
-                                        *model.covariates, "stage_known")}
+                                        *model.covariates, "stage_known", "contact_kind")}
     names = [known.get(n, n) if n.startswith("'") else n for n in names]   # headers of caseview's own exports
     problems = Problems(source.facts.label)
     where = source.where(source.header_row)
     channel_names = [c.name for c in model.channels]
-    allowed = ["case_id", "date", "coordinator", *channel_names, *model.covariates, "stage_known"]
+    allowed = ["case_id", "date", "coordinator", *channel_names, *model.covariates, "stage_known", "contact_kind"]
     provided = {mapping.get(n, n) for n in names if n not in set(drop or ())}
     if not (provided & set(allowed)):
         raise InputError(
@@ -157,6 +157,7 @@ def _duplicates_in_file(data: dict, problems: Problems, where) -> np.ndarray:
         equal &= data[name][later] == data[name][first]
     equal &= (data["channel_values"][later] == data["channel_values"][first]).all(axis=1)
     equal &= (data["covariates"][later] == data["covariates"][first]).all(axis=1)
+    equal &= data["unscheduled"][later] == data["unscheduled"][first]
     keep[later] = False
     for a, b in zip(first[~equal].tolist(), later[~equal].tolist()):
         problems.add(where(int(data["lines"][b])), None,
@@ -262,7 +263,8 @@ def import_timelines(ws, path, actor: str, mapping: dict | None = None, drop=(),
         notes.append(f"{facts.label}: read {count:,} Excel day number{'s' if count != 1 else ''} in the date column "
                      f"as dates (e.g. {example})")
     data = {name: np.concatenate([getattr(p, name) for p in parts]) for name in
-            ("lines", "case_codes", "days", "coordinators", "channel_values", "covariates", "stage_known")}
+            ("lines", "case_codes", "days", "coordinators", "channel_values", "covariates", "stage_known",
+             "unscheduled")}
     del parts
     keep = _duplicates_in_file(data, problems, source.where)
     problems.raise_if_any()
@@ -273,7 +275,7 @@ def import_timelines(ws, path, actor: str, mapping: dict | None = None, drop=(),
         case_codes=data["case_codes"], days=data["days"], coordinators=data["coordinators"],
         channel_names=tuple(rules.channels), channel_categories=tuple(rules.channels.values()),
         channel_values=data["channel_values"], covariate_names=rules.covariates, covariates=data["covariates"],
-        stage_known=data["stage_known"])
+        stage_known=data["stage_known"], unscheduled=data["unscheduled"])
     report(0.75)
     try:
         with ws.transaction():

@@ -24,6 +24,8 @@ FORMULA_START = ("=", "+", "-", "@")
 _CONTROL = re.compile(r"[\x00-\x1f\x7f-\x9f\u2028\u2029]")
 
 BASE_COLUMNS = ("case_id", "date", "coordinator", "stage_known")
+#: Values of the optional ``contact_kind`` column (case-insensitive; blank = scheduled).
+CONTACT_KINDS = ("scheduled", "unscheduled")
 
 
 def _privacy():
@@ -106,6 +108,7 @@ class EncodedChunk:
     channel_values: np.ndarray # (n, C) int16
     covariates: np.ndarray     # (n, K) float64
     stage_known: np.ndarray    # (n,) object
+    unscheduled: np.ndarray | None = None  # (n,) bool, contact_kind "unscheduled"
 
 
 def _factor(series) -> tuple[np.ndarray, np.ndarray]:
@@ -266,8 +269,20 @@ class ChunkValidator:
                              lambda v: f"value {shown(v, 'stage_known', 'stage_known')}: {why[v]}")
             stage_known = normal_u[codes]
 
+        unscheduled = self._contact_kind(factors["contact_kind"], lines) if "contact_kind" in factors else \
+            np.zeros(n, dtype=bool)
         return EncodedChunk(lines=lines, case_codes=case_codes, days=days, coordinators=coordinators,
-                            channel_values=channel_values, covariates=covariates, stage_known=stage_known)
+                            channel_values=channel_values, covariates=covariates, stage_known=stage_known,
+                            unscheduled=unscheduled)
+
+    def _contact_kind(self, factor: tuple, lines: np.ndarray) -> np.ndarray:
+        """The ``contact_kind`` column as bool (n,) True = unscheduled; other values are problems."""
+        codes, uniques = factor
+        kind_u = np.array([CONTACT_KINDS.index(u.lower()) if u.lower() in CONTACT_KINDS else (0 if u == "" else -1)
+                           for u in uniques.tolist()], dtype=np.int8)
+        self._report_all(lines, kind_u[codes] < 0, "contact_kind", uniques[codes], lambda v: (
+            f"value {shown(v, 'other', 'contact_kind')}: expected scheduled, unscheduled or blank (= scheduled)"))
+        return kind_u[codes] == 1
 
     def _case_ids(self, codes: np.ndarray, uniques: np.ndarray, lines: np.ndarray) -> tuple:
         """Case IDs of the rows as stored (normalised, first-seen spelling) and the rows whose ID was

@@ -27,6 +27,11 @@ layout, and ``p = (1 + #{T_b >= T}) / (B + 1)``. With ``refit=False`` (default) 
 scored with the model as given, which ignores estimation error; because the model was fitted to
 the observed data and not to the replicates, that p-value tends to be too large (conservative).
 ``refit=True`` refits every replicate from the model as start (one start each; much slower).
+
+With the model's ``unscheduled_contacts`` block the replicates keep the scheduled dates only and
+draw the unscheduled contacts from the model's stage-dependent rates (each case up to its last
+recorded contact), so dates and values stay linked as in the data; without the block, replicates
+at the observed dates sever that link and the p-value loses power when contact timing is informative.
 """
 
 from __future__ import annotations
@@ -186,7 +191,13 @@ def _channel_indices(model: StageModel, channel) -> tuple:
 
 
 def _schedule(model: StageModel, timelines: Timelines) -> dict:
-    """Contact times, covariates and recording pattern of the ordinary contacts, for simulation."""
+    """Contact times, covariates and recording pattern of the ordinary contacts, for simulation.
+
+    With ``model.unscheduled_contacts`` only the scheduled contacts (and each case's first contact,
+    which is conditioned on) are kept as the schedule; unscheduled contacts are simulated from the
+    model's rates up to each case's last contact, and their values go missing at the rate observed
+    at unscheduled contacts (per channel).
+    """
     exact = np.zeros(model.n_stages, dtype=bool)
     for name in model.exact_entry_stages:
         exact[model.stage_index(name)] = True
@@ -194,28 +205,45 @@ def _schedule(model: StageModel, timelines: Timelines) -> dict:
     kept = timelines.subset(np.flatnonzero(np.add.reduceat(ordinary.astype(np.int64), timelines.offsets[:-1]) > 0)) \
         if timelines.n_contacts else timelines
     ordinary = (kept.allowed_stages & ~exact).any(axis=1)
+    timing = model.unscheduled_contacts is not None
+    extra = {}
+    if timing:
+        first = np.zeros(kept.n_contacts, dtype=bool)
+        first[kept.first_index] = True
+        unscheduled = ordinary & kept.unscheduled_mask & ~first
+        ordinary &= ~unscheduled
+        seen = kept.observations[unscheduled] >= 0
+        extra = dict(end_times=kept.times[kept.last_index],
+                     unscheduled_missing=1.0 - seen.mean(axis=0) if seen.shape[0] else
+                     np.zeros(kept.observations.shape[1]))
     rows = np.flatnonzero(ordinary)
     counts = np.bincount(kept.case_of_contact[rows], minlength=kept.n_cases)
     times = np.split(kept.times[rows], np.cumsum(counts)[:-1])
     return dict(times=times, offsets=np.concatenate([[0], np.cumsum(counts)]), covariates=kept.covariates[rows],
-                missing=kept.observations[rows] < 0, known=~kept.allowed_stages[rows].all(axis=1))
+                missing=kept.observations[rows] < 0, known=~kept.allowed_stages[rows].all(axis=1), **extra)
 
 
 def _replicate(model: StageModel, schedule: dict, rng: np.random.Generator) -> Timelines:
     """A caseload simulated from ``model`` with the observed contact schedule and recording pattern."""
-    sim = simulate_caseload(model, schedule["times"], schedule["covariates"], rng, exact_entry=True)
+    timing = "end_times" in schedule
+    sim = simulate_caseload(model, schedule["times"], schedule["covariates"], rng, exact_entry=True,
+                            end_times=schedule["end_times"] if timing else None)
     t = sim.timelines
-    ordinary = np.flatnonzero(~sim.exact_entry_contact)
+    ordinary = np.flatnonzero(~sim.exact_entry_contact & ~t.unscheduled_mask)
     case = sim.case_of_contact[ordinary]
     position = np.arange(ordinary.size) - np.searchsorted(case, case, side="left")
     scheduled = schedule["offsets"][case] + position
     observations = t.observations.copy()
     observations[ordinary] = np.where(schedule["missing"][scheduled], MISSING, observations[ordinary])
+    if timing:
+        extra = np.flatnonzero(t.unscheduled_mask)
+        lost = rng.random((extra.size, observations.shape[1])) < schedule["unscheduled_missing"][None, :]
+        observations[extra] = np.where(lost, MISSING, observations[extra])
     allowed = t.allowed_stages.copy()
     known = ordinary[schedule["known"][scheduled]]
     allowed[known] = False
     allowed[known, sim.true_stages[known]] = True  # a recorded stage is recorded as the true one
-    return Timelines(t.offsets, t.times, observations, allowed, t.covariates)
+    return Timelines(t.offsets, t.times, observations, allowed, t.covariates, t.unscheduled)
 
 
 def goodness_of_fit(model: StageModel, timelines: Timelines, *, channel=None, group_by: str = "category",

@@ -10,7 +10,11 @@ For one case with contacts ``0..n-1``, step matrices ``M_j`` (``P = expm(Q(x_{j-
   :func:`hmm.fitting.expm_derivative.adjoint_derivative` (and the product rule for ``P Q``);
   then ``Q[r, s] = rate_rs exp(beta_rs . x)`` by the chain rule (the diagonal is minus the row sum);
 * observation and initial probabilities from the smoothed probabilities ``a_j * b_j``
-  (expected category counts), through the softmax parametrisation.
+  (expected category counts), through the softmax parametrisation;
+* with unscheduled contact rates ``lambda`` (the model's ``unscheduled_contacts`` block):
+  ``P = expm((Q - Lambda) t)`` and ``M = P Lambda`` for a step into an unscheduled contact, so
+  ``lambda`` gets the adjoint's diagonal (minus sign) plus the direct term of the column factor
+  (see :mod:`hmm.inference` for the model).
 
 The only Python loop is over contact position; each step is one numpy operation over all cases.
 """
@@ -49,6 +53,7 @@ class LikelihoodPlan:
     pair_generator: np.ndarray      # (m,)
     pair_gap: np.ndarray            # (m,)
     pair_exact: np.ndarray          # (m,) bool: step into an exact-entry stage (matrix P Q)
+    pair_unscheduled: np.ndarray    # (m,) bool: step into an unscheduled contact (matrix P Lambda)
     generator_covariates: np.ndarray  # (G, K) distinct covariate rows starting a step
     steps_by_pair: np.ndarray       # (n_steps,) position-major rows of steps, sorted by pair
     previous_by_pair: np.ndarray    # (n_steps,) the row before each of those
@@ -109,7 +114,11 @@ def prepare(model: StageModel, timelines: Timelines, spec: ParameterSpec | None 
     # an entry is a single-stage record of an exact-entry stage not already known at the contact before
     exact = single[step_rows] & (allowed_steps & exact_mask).any(axis=1) & \
         ~(single[previous] & (allowed_rows[previous] == allowed_steps).all(axis=1))
-    keys = np.stack([generator_index.astype(float), gaps, exact.astype(float)], axis=1)
+    columns = [generator_index.astype(float), gaps, exact.astype(float)]
+    if model.unscheduled_contacts is not None:
+        # a step into an unscheduled contact (not a record of exact entry) has the matrix P Lambda
+        columns.append((timelines.unscheduled_mask[order[step_rows]] & ~exact).astype(float))
+    keys = np.stack(columns, axis=1)
     pairs, pair_index = np.unique(keys, axis=0, return_inverse=True)
     pair_index = pair_index.reshape(-1)
     step_pair = np.full(n, -1, dtype=np.int64)
@@ -137,6 +146,7 @@ def prepare(model: StageModel, timelines: Timelines, spec: ParameterSpec | None 
         spec=spec, timelines=timelines, n_stages=s, order=order, block_starts=block_starts,
         block_sizes=block_sizes, case_of_row=case_of_row, step_pair=step_pair,
         pair_generator=pairs[:, 0].astype(np.int64), pair_gap=pairs[:, 1], pair_exact=pairs[:, 2] > 0.5,
+        pair_unscheduled=pairs[:, 3] > 0.5 if pairs.shape[1] > 3 else np.zeros(pairs.shape[0], dtype=bool),
         generator_covariates=generator_covariates, steps_by_pair=step_rows[sort], previous_by_pair=previous[sort],
         pair_starts=pair_starts, large_pairs=large, small_steps=small_steps, small_starts=small_starts,
         small_pairs=small, one_hot=one_hot, codes=codes,
@@ -174,17 +184,33 @@ def _generators(plan: LikelihoodPlan, rates, effects) -> np.ndarray:
     return q, q_off, src, dst
 
 
+def _contact_rates(plan: LikelihoodPlan, arrays) -> np.ndarray | None:
+    """Unscheduled contact rates per day for each generator's covariate row, shape (G, S), or None."""
+    if arrays.unscheduled_rates is None:
+        return None
+    return arrays.unscheduled_rates[None, :] * np.exp(plan.generator_covariates @ arrays.unscheduled_effects)[:, None]
+
+
 def evaluate(plan: LikelihoodPlan, theta: np.ndarray, gradient: bool = True, method: str = "auto") -> Evaluation:
     """Log-likelihood (and gradient with respect to ``theta``) over the caseload of ``plan``."""
     spec = plan.spec
     arrays = spec.arrays(np.asarray(theta, dtype=float))
     q, q_off, src, dst = _generators(plan, arrays.rates, arrays.effects)
-    cache = decompose(q, method)
+    contact_rates = _contact_rates(plan, arrays)
+    if contact_rates is None:
+        cache = decompose(q, method)
+    else:  # the interval matrices come from the sub-generator Q - Lambda
+        quiet = q.copy()
+        quiet[:, np.arange(plan.n_stages), np.arange(plan.n_stages)] -= contact_rates
+        cache = decompose(quiet, method)
     p_matrices = transition_matrices(cache, plan.pair_generator, plan.pair_gap)
     steps = p_matrices.copy()
     if plan.pair_exact.any():
         ex = np.flatnonzero(plan.pair_exact)
         steps[ex] = p_matrices[ex] @ q[plan.pair_generator[ex]]
+    if plan.pair_unscheduled.any():
+        un = np.flatnonzero(plan.pair_unscheduled)
+        steps[un] = p_matrices[un] * contact_rates[plan.pair_generator[un]][:, None, :]
     e = plan.allowed.copy()
     for c, table in enumerate(arrays.emissions):
         with_missing = np.hstack([table, np.ones((plan.n_stages, 1))]).T
@@ -234,7 +260,8 @@ def evaluate(plan: LikelihoodPlan, theta: np.ndarray, gradient: bool = True, met
         if plan.small_pairs.size:
             outer = (a_sorted[plan.small_steps][:, :, None] * b_sorted[plan.small_steps][:, None, :]).reshape(-1, s * s)
             weights[plan.small_pairs] = np.add.reduceat(outer, plan.small_starts, axis=0).reshape(-1, s, s)
-        _transition_gradient(plan, spec, cache, p_matrices, q, q_off, src, dst, weights, grad)
+        _transition_gradient(plan, spec, cache, p_matrices, q, q_off, src, dst, weights, grad, arrays,
+                             contact_rates)
 
     # --- observation probabilities: expected counts N[s, k]
     for c, rows_spec in enumerate(spec.emission_rows):
@@ -253,17 +280,35 @@ def evaluate(plan: LikelihoodPlan, theta: np.ndarray, gradient: bool = True, met
     return Evaluation(total, grad, case_ll, smoothed_rows)
 
 
-def _transition_gradient(plan, spec, cache, p, q, q_off, src, dst, weights, grad) -> None:
-    """Add d l / d(log rate, effect) to ``grad`` given ``weights`` = d l / d(step matrix) per pair."""
+def _transition_gradient(plan, spec, cache, p, q, q_off, src, dst, weights, grad, arrays=None,
+                         contact_rates=None) -> None:
+    """Add d l / d(log rate, effect) to ``grad`` given ``weights`` = d l / d(step matrix) per pair.
+
+    With unscheduled contact rates ``lambda`` (shape (G, S)) the interval matrices are
+    ``P = expm((Q - Lambda) t)`` and the adjoint is with respect to ``Q - Lambda``; ``lambda_s``
+    enters its diagonal with a minus sign and, for steps into an unscheduled contact, directly as
+    the column factor of ``P Lambda``.
+    """
     grad_q_direct = np.zeros_like(weights)
+    grad_rates_direct = None
     if plan.pair_exact.any():
         ex = np.flatnonzero(plan.pair_exact)
         w_ex = weights[ex]
         grad_q_direct[ex] = np.swapaxes(p[ex], 1, 2) @ w_ex                 # d<W, P Q>/dQ = P^T W
         weights[ex] = w_ex @ np.swapaxes(q[plan.pair_generator[ex]], 1, 2)  # d<W, P Q>/dP = W Q^T
-    grad_q_pairs = adjoint_derivative(cache, plan.pair_generator, plan.pair_gap, weights) + grad_q_direct
+    if plan.pair_unscheduled.any():
+        un = np.flatnonzero(plan.pair_unscheduled)
+        lam = contact_rates[plan.pair_generator[un]][:, None, :]
+        grad_rates_direct = np.zeros_like(contact_rates)
+        np.add.at(grad_rates_direct, plan.pair_generator[un], (weights[un] * p[un]).sum(axis=1))  # d<W, P L>/dL
+        weights[un] = weights[un] * lam                                                         # d<W, P L>/dP
+    grad_sub_pairs = adjoint_derivative(cache, plan.pair_generator, plan.pair_gap, weights)
     grad_q = np.zeros_like(q)
-    np.add.at(grad_q, plan.pair_generator, grad_q_pairs)
+    np.add.at(grad_q, plan.pair_generator, grad_sub_pairs + grad_q_direct)
+    if contact_rates is not None:
+        grad_sub = np.zeros_like(q)
+        np.add.at(grad_sub, plan.pair_generator, grad_sub_pairs)
+        _contact_rate_gradient(plan, spec, grad_sub, grad_rates_direct, contact_rates, grad)
     # q_rs enters Q[r, s] and (with minus sign) Q[r, r]
     d_qoff = grad_q[:, src, dst] - grad_q[:, src, src]     # (G, n_transitions)
     weighted = d_qoff * q_off                                # d l / d log q_rs(x_g)
@@ -273,6 +318,25 @@ def _transition_gradient(plan, spec, cache, p, q, q_off, src, dst, weights, grad
     if eff.size:
         x = plan.generator_covariates
         grad[spec.effect_slots[eff[:, 0], eff[:, 1]]] += (weighted[:, eff[:, 0]] * x[:, eff[:, 1]]).sum(axis=0)
+
+
+def _contact_rate_gradient(plan, spec, grad_sub, grad_rates_direct, contact_rates, grad) -> None:
+    """Add d l / d(log unscheduled contact rate, log rate ratio) to ``grad``.
+
+    ``lambda_gs = rate_s exp(gamma . x_g)`` sits on the diagonal of ``Q - Lambda`` (minus sign) and
+    in the column factor of steps into unscheduled contacts (``grad_rates_direct``).
+    """
+    idx = np.arange(plan.n_stages)
+    d_lambda = -grad_sub[:, idx, idx]                                  # (G, S)
+    if grad_rates_direct is not None:
+        d_lambda = d_lambda + grad_rates_direct
+    weighted = d_lambda * contact_rates                                # d l / d log lambda_gs
+    slots = spec.unscheduled_rate_slots
+    free = np.flatnonzero(slots >= 0)
+    np.add.at(grad, slots[free], weighted[:, free].sum(axis=0))
+    effect_slots = spec.unscheduled_effect_slots
+    for k in np.flatnonzero(effect_slots >= 0):
+        grad[effect_slots[k]] += float((weighted.sum(axis=1) * plan.generator_covariates[:, k]).sum())
 
 
 def log_likelihood_and_gradient(model: StageModel, timelines: Timelines, free_vector=None,

@@ -63,7 +63,7 @@ class _Objective:
 
 def fit_model(model: StageModel, timelines: Timelines, *, starts: int = 3, rng: np.random.Generator | None = None,
               penalised: bool = False, prior: Prior | None = None, callback=None, max_iterations: int = 500,
-              tolerance: float = 1e-10, standard_errors: bool = True) -> FitResult:
+              tolerance: float = 1e-10, standard_errors: bool = True, observed_until=None) -> FitResult:
     """Fit every free parameter of ``model`` to ``timelines``.
 
     Parameters
@@ -91,6 +91,12 @@ def fit_model(model: StageModel, timelines: Timelines, *, starts: int = 3, rng: 
         standard errors and intervals. False skips it (for example when refitting bootstrap
         replicates): every interval is then reported as not available and the flat-direction
         warnings are not checked.
+    observed_until : float or ndarray, shape (n_cases,), optional
+        Only with an ``unscheduled_contacts`` block: the day observation ended (for example the data
+        extract); the quiet time from each case's last contact to it enters the likelihood
+        (:meth:`hmm.Timelines.with_observation_end`; not for cases whose last contact records an
+        exact entry). Without it the likelihood stops at each case's last contact, which fits the
+        unscheduled contact rates too high when contacts could have come after it.
 
     Returns
     -------
@@ -103,6 +109,9 @@ def fit_model(model: StageModel, timelines: Timelines, *, starts: int = 3, rng: 
         penalised = True
     prior = (prior or Prior()) if penalised else None
     spec = parameter_spec(model)
+    observed = timelines
+    if observed_until is not None and model.unscheduled_contacts is not None:
+        timelines = _with_quiet_tail(model, timelines, observed_until)
     plan = prepare(model, timelines, spec)
     objective = _Objective(plan, prior)
     theta0 = spec.to_vector(model)
@@ -167,12 +176,20 @@ def fit_model(model: StageModel, timelines: Timelines, *, starts: int = 3, rng: 
     report(1.0)
     return FitResult(
         model=fitted, log_likelihood=log_l, penalised_log_likelihood=value if penalised else log_l,
-        penalised=penalised, n_parameters=k, n_cases=timelines.n_cases, n_contacts=timelines.n_contacts,
+        penalised=penalised, n_parameters=k, n_cases=observed.n_cases, n_contacts=observed.n_contacts,
         aic=-2 * log_l + 2 * k, bic=-2 * log_l + k * np.log(max(timelines.n_cases, 1)),
         iterations=iterations, n_likelihood_evaluations=objective.evaluations, converged=converged,
         warnings=warnings, history=history, start_log_likelihoods=[r[0] for r in runs],
         parameter_names=list(spec.names), parameters=natural, hazard_ratios=hazard, mean_time_in_stage=sojourn,
         next_stage_probabilities=next_stage, covariance=covariance, free_vector=theta)
+
+
+def _with_quiet_tail(model: StageModel, timelines: Timelines, observed_until) -> Timelines:
+    """Timelines extended with a blank scheduled contact at ``observed_until`` (not after an exact-entry record)."""
+    from ..inference import _exact_entry_contacts
+
+    ended = _exact_entry_contacts(model, timelines.allowed_stages)[timelines.last_index]
+    return timelines.with_observation_end(observed_until, extend=~ended)
 
 
 def _monitor(objective, history, on_iteration):
@@ -208,6 +225,11 @@ def _boundary_warnings(spec, theta) -> list:
             if np.any(p[row.support] < 1e-6):
                 out.append(f"channel {m.channels[c].name!r}, stage {m.stages[r]}: an observation probability is "
                            "estimated at (nearly) 0 or 1 - on the boundary")
+    if spec.unscheduled_rate_slots is not None:
+        for r, slot in enumerate(spec.unscheduled_rate_slots):
+            if slot >= 0 and theta[slot] <= spec.lower[slot] + 1.0 and f"{spec.names[slot]} is" not in " ".join(out):
+                out.append(f"{spec.names[slot]} is estimated at (nearly) zero - on the boundary; its interval is "
+                           "not reliable")
     if spec.initial_row is not None and np.any(arrays.initial[spec.initial_row.support] < 1e-6):
         out.append("an initial stage probability is estimated at (nearly) zero - on the boundary")
     return out

@@ -7,7 +7,9 @@ Layout of the vector (only parameters that are free are in it):
 3. for each channel and each free stage row, the logits ``log(p_k / p_ref)`` of the row's
    categories other than a reference category (the category with the largest probability in
    the start model);
-4. the logits of the initial distribution, same construction (unless ``initial_fixed``).
+4. the logits of the initial distribution, same construction (unless ``initial_fixed``);
+5. with an ``unscheduled_contacts`` block: ``log`` of each free unscheduled contact rate (one shared
+   value when ``same_in_every_stage``), then each free log rate ratio of a covariate.
 
 Fixed values (``Transition.fixed_rate``, ``Transition.fixed_effects``, ``Channel.fixed_stages``,
 ``StageModel.initial_fixed``) are not in the vector and keep their values exactly.
@@ -58,12 +60,18 @@ class ModelArrays:
     effects : ndarray, shape (n_transitions, n_covariates)
     emissions : tuple of ndarray, each shape (n_stages, n_categories)
     initial : ndarray, shape (n_stages,)
+    unscheduled_rates : ndarray, shape (n_stages,) or None
+        Unscheduled contact rates per day (None without the block).
+    unscheduled_effects : ndarray, shape (n_covariates,) or None
+        Their log rate ratios (0 for covariates without an effect).
     """
 
     rates: np.ndarray
     effects: np.ndarray
     emissions: tuple
     initial: np.ndarray
+    unscheduled_rates: np.ndarray | None = None
+    unscheduled_effects: np.ndarray | None = None
 
 
 @dataclass(frozen=True)
@@ -86,6 +94,11 @@ class ParameterSpec:
     initial_row : SoftmaxRow or None
     lower, upper : ndarray, shape (n_free,)
         Bounds for the optimiser.
+    unscheduled_rate_slots : ndarray of int, shape (n_stages,)
+        Vector position of each stage's log unscheduled contact rate, -1 when fixed, zero or
+        without the block (stages share one position when the rates are the same in every stage).
+    unscheduled_effect_slots : ndarray of int, shape (n_covariates,)
+        Position of each log rate ratio, -1 when fixed or absent.
     """
 
     template: StageModel
@@ -97,6 +110,8 @@ class ParameterSpec:
     initial_row: object
     lower: np.ndarray
     upper: np.ndarray
+    unscheduled_rate_slots: np.ndarray | None = None
+    unscheduled_effect_slots: np.ndarray | None = None
 
     @property
     def n_free(self) -> int:
@@ -119,6 +134,13 @@ class ParameterSpec:
                     theta[row.slots] = _logits(np.asarray(channel.probabilities[r], float), row)
         if self.initial_row is not None:
             theta[self.initial_row.slots] = _logits(np.asarray(model.initial, float), self.initial_row)
+        block = model.unscheduled_contacts
+        if block is not None and self.unscheduled_rate_slots is not None:
+            for r in np.flatnonzero(self.unscheduled_rate_slots >= 0)[::-1]:  # the first stage of a shared slot wins
+                theta[self.unscheduled_rate_slots[r]] = np.log(block.rates[r])
+            for k, cov in enumerate(model.covariates):
+                if self.unscheduled_effect_slots[k] >= 0:
+                    theta[self.unscheduled_effect_slots[k]] = block.effects.get(cov, 0.0)
         return np.clip(theta, self.lower, self.upper)
 
     def arrays(self, theta: np.ndarray) -> ModelArrays:
@@ -143,7 +165,16 @@ class ParameterSpec:
         initial = np.array(m.initial, dtype=float)
         if self.initial_row is not None:
             initial = _softmax(theta, self.initial_row, initial.size)
-        return ModelArrays(rates, effects, tuple(emissions), initial)
+        block = m.unscheduled_contacts
+        if block is None:
+            return ModelArrays(rates, effects, tuple(emissions), initial)
+        contact_rates = np.array(block.rates, dtype=float)
+        free = self.unscheduled_rate_slots >= 0
+        contact_rates[free] = np.exp(theta[self.unscheduled_rate_slots[free]])
+        contact_effects = np.array([block.effects.get(cov, 0.0) for cov in m.covariates], dtype=float)
+        free = self.unscheduled_effect_slots >= 0
+        contact_effects[free] = theta[self.unscheduled_effect_slots[free]]
+        return ModelArrays(rates, effects, tuple(emissions), initial, contact_rates, contact_effects)
 
     def to_model(self, theta: np.ndarray) -> StageModel:
         """A :class:`StageModel` with the template's structure and the values in ``theta``."""
@@ -157,7 +188,12 @@ class ParameterSpec:
                     effects[cov] = float(a.effects[i, k])
             transitions.append(replace(t, rate=float(a.rates[i]), effects=effects))
         channels = tuple(replace(c, probabilities=a.emissions[j]) for j, c in enumerate(m.channels))
-        return replace(m, transitions=tuple(transitions), channels=channels, initial=a.initial)
+        block = m.unscheduled_contacts
+        if block is not None:
+            effects = {cov: float(a.unscheduled_effects[m.covariates.index(cov)]) for cov in block.effects}
+            block = replace(block, rates=a.unscheduled_rates.copy(), effects=effects)
+        return replace(m, transitions=tuple(transitions), channels=channels, initial=a.initial,
+                       unscheduled_contacts=block)
 
 
 def _logits(p: np.ndarray, row: SoftmaxRow) -> np.ndarray:
@@ -224,5 +260,22 @@ def parameter_spec(model: StageModel) -> ParameterSpec:
         if initial_row is not None:
             for k in initial_row.free:
                 add(f"initial P({stages[k]})", "initial", LOGIT_BOUNDS)
+    contact_rate_slots = np.full(model.n_stages, -1, dtype=np.int64)
+    contact_effect_slots = np.full(model.n_covariates, -1, dtype=np.int64)
+    block = model.unscheduled_contacts
+    if block is not None:
+        positive = np.flatnonzero(np.asarray(block.rates) > 0)
+        if not block.fixed and block.same_in_every_stage:
+            contact_rate_slots[positive] = add("unscheduled contact rate, same in every stage", "unscheduled_rate",
+                                               LOG_RATE_BOUNDS)
+        elif not block.fixed:
+            for r in positive:
+                contact_rate_slots[r] = add(f"unscheduled contact rate in {stages[r]}", "unscheduled_rate",
+                                            LOG_RATE_BOUNDS)
+        for k, cov in enumerate(model.covariates):
+            if cov in block.effects and cov not in block.fixed_effects:
+                contact_effect_slots[k] = add(f"effect of {cov} on the unscheduled contact rate",
+                                              "unscheduled_log_rate_ratio", EFFECT_BOUNDS)
     return ParameterSpec(model, tuple(names), tuple(kinds), rate_slots, effect_slots, tuple(emission_rows),
-                         initial_row, np.array(lower, float), np.array(upper, float))
+                         initial_row, np.array(lower, float), np.array(upper, float),
+                         contact_rate_slots, contact_effect_slots)

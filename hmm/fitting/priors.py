@@ -6,6 +6,9 @@ off the boundaries where the likelihood is flat:
 * log baseline rate per day ~ Normal(log(1/365), sd 2): a typical stay of a year, with 95% of the
   prior mass between about 7 days and 50 years (365 * exp(-/+ 1.96 * 2) days);
 * log hazard ratio ~ Normal(0, sd 2): hazard ratios between about 1/50 and 50;
+* with an ``unscheduled_contacts`` block: log unscheduled contact rate per day ~ Normal(log(2/365),
+  sd 2) (two a year, 95% between about one in 25 years and 100 a year) and each log rate ratio
+  ~ Normal(0, sd 2);
 * each observation-probability row and the initial distribution ~ Dirichlet with every
   concentration 1.5 (a mild pull away from 0 and 1; 1 would be flat).
 
@@ -34,6 +37,8 @@ class Prior:
     effect_mean: float = 0.0
     effect_sd: float = 2.0
     concentration: float = 1.5
+    log_contact_rate_mean: float = float(np.log(2.0 / 365.0))
+    log_contact_rate_sd: float = 2.0
 
     def log_density_and_gradient(self, theta: np.ndarray, spec: ParameterSpec) -> tuple:
         """Log prior (up to a constant) and its gradient, shapes () and (n_free,)."""
@@ -42,7 +47,9 @@ class Prior:
         value = 0.0
         kinds = np.array(spec.kinds)
         for kind, mean, sd in (("rate", self.log_rate_mean, self.log_rate_sd),
-                               ("log_hazard_ratio", self.effect_mean, self.effect_sd)):
+                               ("log_hazard_ratio", self.effect_mean, self.effect_sd),
+                               ("unscheduled_rate", self.log_contact_rate_mean, self.log_contact_rate_sd),
+                               ("unscheduled_log_rate_ratio", self.effect_mean, self.effect_sd)):
             idx = np.flatnonzero(kinds == kind)
             z = (theta[idx] - mean) / sd
             value -= 0.5 * float(np.sum(z * z))

@@ -13,7 +13,10 @@ import numpy as np
 
 from ..model import StageModel
 
-__all__ = ["FitResult"]
+__all__ = ["FitResult", "DAYS_PER_YEAR"]
+
+#: Days in a (Julian) year, for rates shown per year.
+DAYS_PER_YEAR = 365.25
 
 
 def _number(value):
@@ -97,10 +100,29 @@ class FitResult:
             "parameters": rows(self.parameters), "hazard_ratios": rows(self.hazard_ratios),
             "mean_time_in_stage": rows(self.mean_time_in_stage),
             "next_stage_probabilities": rows(self.next_stage_probabilities),
+            "unscheduled_contacts_per_year": rows(self.unscheduled_contacts_per_year()),
             "history": [{k: _number(v) if k != "iteration" else v for k, v in h.items()} for h in self.history],
             # unconstrained scale, order free_parameters; the outlook draws parameters from it
             "covariance": [[_number(v) for v in row] for row in np.asarray(self.covariance)],
         }
+
+    def unscheduled_contacts_per_year(self) -> list:
+        """The fitted unscheduled contact rates per year (365.25 days) in each stage, with intervals.
+
+        Returns
+        -------
+        list of ParameterEstimate
+            Kind ``"unscheduled_per_year"``; empty without an ``unscheduled_contacts`` block.
+        """
+        from dataclasses import replace as _replace
+
+        def per_year(value):
+            return None if value is None else float(value) * DAYS_PER_YEAR
+
+        return [_replace(p, name=p.name.replace(" (per day)", " (per year)"), kind="unscheduled_per_year",
+                         estimate=per_year(p.estimate), standard_error=per_year(p.standard_error),
+                         lower=per_year(p.lower), upper=per_year(p.upper))
+                for p in self.parameters if p.kind == "unscheduled_rate"]
 
     def format_table(self) -> str:
         """A plain-text table for a terminal: estimates with 95% intervals, then fit statistics."""
@@ -131,6 +153,10 @@ class FitResult:
                 lambda v: f"{v:.3f}")
         section("Initial stage distribution", [p for p in self.parameters if p.kind == "initial"],
                 lambda v: f"{v:.3f}")
+        section("Unscheduled contacts per year in each stage, estimate [95% interval]",
+                self.unscheduled_contacts_per_year(), lambda v: f"{v:.2f}")
+        section("Log rate ratios of unscheduled contacts",
+                [p for p in self.parameters if p.kind == "unscheduled_log_rate_ratio"], lambda v: f"{v:.3f}")
         lines.append("")
         lines.append(f"log-likelihood      {self.log_likelihood:,.2f}")
         if self.penalised:

@@ -52,9 +52,10 @@ class ParameterEstimate:
         lower, upper = self.lower, self.upper
         if lower is None or upper is None or not (math.isfinite(lower) and math.isfinite(upper)):
             return False
-        if self.kind == "log_hazard_ratio":
+        if self.kind in ("log_hazard_ratio", "unscheduled_log_rate_ratio"):
             return upper - lower <= math.log(UNINFORMATIVE_RATIO)
-        if self.kind in ("rate", "hazard_ratio", "mean_time_in_stage"):
+        if self.kind in ("rate", "hazard_ratio", "mean_time_in_stage", "unscheduled_rate",
+                         "unscheduled_per_year"):
             return lower > 0 and upper / lower <= UNINFORMATIVE_RATIO
         return True
 
@@ -191,6 +192,7 @@ def natural_estimates(spec: ParameterSpec, theta: np.ndarray, covariance: np.nda
         names.append(f"initial P({stage})")
         kinds.append("initial"), links.append("logit"), fixed.append(spec.initial_row is None)
         picks.append(("initial", r))
+    _add_unscheduled_estimates(spec, names, kinds, links, fixed, picks)
 
     def function(th):
         a = spec.arrays(th)
@@ -202,11 +204,33 @@ def natural_estimates(spec: ParameterSpec, theta: np.ndarray, covariance: np.nda
                 out[j] = a.effects[pick[1], pick[2]]
             elif pick[0] == "emission":
                 out[j] = a.emissions[pick[1]][pick[2], pick[3]]
+            elif pick[0] == "unscheduled_rate":
+                out[j] = a.unscheduled_rates[pick[1]]
+            elif pick[0] == "unscheduled_effect":
+                out[j] = a.unscheduled_effects[pick[1]]
             else:
                 out[j] = a.initial[pick[1]]
         return out
 
     return _delta(function, theta, covariance, names, kinds, links, np.array(fixed))
+
+
+def _add_unscheduled_estimates(spec: ParameterSpec, names, kinds, links, fixed, picks) -> None:
+    """Rows for the unscheduled contact rates (per day, log link) and their log rate ratios, if any."""
+    m = spec.template
+    block = m.unscheduled_contacts
+    if block is None:
+        return
+    for r, stage in enumerate(m.stages):
+        names.append(f"unscheduled contacts in {stage} (per day)")
+        kinds.append("unscheduled_rate"), links.append("log"), fixed.append(spec.unscheduled_rate_slots[r] < 0)
+        picks.append(("unscheduled_rate", r))
+    for k, cov in enumerate(m.covariates):
+        if cov in block.effects:
+            names.append(f"log rate ratio of {cov} on unscheduled contacts")
+            kinds.append("unscheduled_log_rate_ratio"), links.append("identity")
+            fixed.append(spec.unscheduled_effect_slots[k] < 0)
+            picks.append(("unscheduled_effect", k))
 
 
 def derived_estimates(spec: ParameterSpec, theta: np.ndarray, covariance: np.ndarray) -> tuple:

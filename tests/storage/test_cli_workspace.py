@@ -38,7 +38,7 @@ def test_init_import_export_backup(tmp_path):
     assert len(head) == 64
     verify = _cv("audit", "verify", ws)
     assert head in verify.stdout  # the printed head is the chain head after the export entry
-    assert exported.read_text().splitlines()[0] == ",".join(HEADER)
+    assert exported.read_text().splitlines()[0] == ",".join(HEADER + ["contact_kind"])  # the import layout
     run = _cv("import", ws, exported)
     assert "exact duplicates skipped: 5" in run.stdout
     backup = tmp_path / "copy.bak"
