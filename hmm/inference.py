@@ -34,7 +34,7 @@ from .transition import covariate_groups, distinct_transition_matrices
 
 __all__ = [
     "ForwardResult", "contact_likelihoods", "forward", "backward",
-    "smoothed_probabilities", "most_likely_path",
+    "smoothed_probabilities", "most_likely_path", "effective_allowed_stages", "contacts_after_absorbing_entry",
 ]
 
 
@@ -108,6 +108,7 @@ class _Plan:
     step_matrices: np.ndarray     # (m, S, S)
     step_index: np.ndarray        # (n_contacts,) position-major; matrix for the step INTO each contact
     _row_positions: np.ndarray | None = None  # (n_contacts,) position-major row of each timelines row
+    unusable_cases: np.ndarray | None = None  # (n_cases,) bool: a step's generator overflowed; None if none
 
     def current(self, k: int) -> slice:
         return slice(self.base[k], self.base[k] + self.active_counts[k])
@@ -129,22 +130,73 @@ class _Plan:
 def effective_allowed_stages(model: StageModel, allowed: np.ndarray) -> np.ndarray:
     """Allowed stages once the exact-entry convention is applied, shape (n_contacts, n_stages).
 
-    An entry into an exact-entry stage is always recorded (and ends the ordinary contacts), so a
-    contact that is not a record of a single stage cannot be in an exact-entry stage. The fitting
-    likelihood (:mod:`hmm.fitting.likelihood`) applies the same convention.
+    The one home of the convention (the fitting likelihood and the fit check call it too):
+
+    * a contact recording **one** exact-entry stage ``s`` dates the entry into ``s`` (its step is
+      the entry density, see :func:`_prepare`);
+    * a contact with **no** known stage (every stage allowed) cannot be in an exact-entry stage:
+      an entry is always recorded, and it ends the ordinary contacts;
+    * a **set** of several stages that includes an exact-entry stage ``s`` (``Crisis|Moved``) is an
+      ordinary "one of these on that date" record: the case may be in ``s``, having entered it on
+      or before that date (the entry date is not known), so ``s`` stays allowed with the ordinary
+      probability P(prev -> s, gap), not the entry density. A set naming every stage says
+      nothing and is read like no known stage.
     """
     if not model.exact_entry_stages:
         return allowed
     exact_mask = np.zeros(model.n_stages, dtype=bool)
     for name in model.exact_entry_stages:
         exact_mask[model.stage_index(name)] = True
-    single = allowed.sum(axis=1) == 1
-    drop = ~single & (allowed & ~exact_mask).any(axis=1)
+    drop = allowed.all(axis=1)
     if not drop.any():
         return allowed
     allowed = allowed.copy()
     allowed[np.ix_(drop, exact_mask)] = False
     return allowed
+
+
+def contacts_after_absorbing_entry(model: StageModel, offsets: np.ndarray, allowed: np.ndarray) -> np.ndarray:
+    """Contacts that contradict an earlier recorded entry into an absorbing exact-entry stage.
+
+    Once a case's contact records one exact-entry stage ``s`` alone (the entry), the case stays in
+    ``s`` for good; a later contact whose allowed stages (after :func:`effective_allowed_stages`)
+    exclude ``s`` is impossible under the model (its likelihood is zero). Both the import checks
+    and the scoring's "cannot be scored" reasons use this one rule.
+
+    Parameters
+    ----------
+    model : StageModel
+    offsets : ndarray of int64, shape (n_cases + 1,)
+        Case boundaries (CSR, as in :class:`Timelines`); contacts sorted by time within a case.
+    allowed : ndarray of bool, shape (n_contacts, n_stages)
+        Recorded allowed stages (all True when no stage is known).
+
+    Returns
+    -------
+    ndarray of int64, shape (n_contacts,)
+        For each contradicting contact, the row of the case's first entry record it contradicts;
+        -1 for every other contact.
+    """
+    n = allowed.shape[0]
+    result = np.full(n, -1, dtype=np.int64)
+    if not n or not model.exact_entry_stages:
+        return result
+    entry = _exact_entry_contacts(model, allowed)
+    if not entry.any():
+        return result
+    counts = np.diff(offsets)
+    rows = np.arange(n, dtype=np.int64)
+    first_entry = np.minimum.reduceat(np.where(entry, rows, n), offsets[:-1])  # n when the case has none
+    earlier = np.repeat(first_entry, counts)
+    after = earlier < rows
+    if not after.any():
+        return result
+    candidates = np.flatnonzero(after)
+    entered_stage = np.argmax(allowed[earlier[candidates]], axis=1)
+    effective = effective_allowed_stages(model, allowed[candidates])
+    bad = ~effective[np.arange(candidates.size), entered_stage]
+    result[candidates[bad]] = earlier[candidates[bad]]
+    return result
 
 
 def _exact_entry_contacts(model: StageModel, allowed: np.ndarray) -> np.ndarray:
@@ -171,6 +223,7 @@ def _prepare(model: StageModel, timelines: Timelines, method: str = "auto") -> _
     active_counts = counts.size - np.cumsum(np.bincount(counts, minlength=max_contacts + 1))[:max_contacts]
 
     n = timelines.n_contacts
+    unusable = None
     step_index = np.full(n, -1, dtype=np.int64)
     into = np.ones(n, dtype=bool)
     into[timelines.first_index] = False
@@ -178,7 +231,16 @@ def _prepare(model: StageModel, timelines: Timelines, method: str = "auto") -> _
     if into_rows.size:
         distinct, group = covariate_groups(timelines.covariates[into_rows - 1])
         gaps = timelines.times[into_rows] - timelines.times[into_rows - 1]
-        generators = model.generators(distinct)
+        with np.errstate(over="ignore", invalid="ignore"):
+            generators = model.generators(distinct)
+        usable = model.usable_covariate_rows(distinct)
+        if not usable.all():
+            # a rate that overflows (or passes MAX_RATE_PER_DAY) fails only the cases that use it:
+            # their steps become placeholders (identity) and forward marks them not finite
+            generators[~usable] = 0.0
+            failed_contacts = np.zeros(n, dtype=bool)
+            failed_contacts[into_rows[~usable[group]]] = True
+            unusable = np.add.reduceat(failed_contacts.astype(np.int64), timelines.offsets[:-1]) > 0
         matrices, index = distinct_transition_matrices(generators, gaps, group, method)
         exact_all = _exact_entry_contacts(model, timelines.allowed_stages)
         # an entry is a record of the stage not already recorded at the contact before (a second
@@ -208,7 +270,7 @@ def _prepare(model: StageModel, timelines: Timelines, method: str = "auto") -> _
     base = np.concatenate([[0], np.cumsum(active_counts)[:-1]]).astype(np.int64)
     # the likelihoods are computed straight in position-major order (no second copy to reorder)
     return _Plan(layout, contact_likelihoods(model, timelines, layout), active_counts, base, matrices,
-                 np.take(step_index, layout))
+                 np.take(step_index, layout), unusable_cases=unusable)
 
 
 # --------------------------------------------------------------------------- forward-backward
@@ -219,7 +281,8 @@ class ForwardResult:
     Attributes
     ----------
     log_likelihood : ndarray, shape (n_cases,)
-        Log-likelihood of each case's timeline (``-inf`` if impossible under the model).
+        Log-likelihood of each case's timeline (``-inf`` if impossible under the model, ``nan``
+        if the case's covariates make a transition rate overflow; see :attr:`finite`).
     filtered : ndarray, shape (n_contacts, n_stages)
         P(stage at contact j | that case's evidence up to and including contact j); a row of zeros
         after the evidence became impossible.
@@ -231,6 +294,18 @@ class ForwardResult:
     filtered: np.ndarray
     log_scale: np.ndarray
     _plan: _Plan = field(default=None, repr=False)
+
+    @property
+    def finite(self) -> np.ndarray:
+        """ndarray of bool, shape (n_cases,): the case's log-likelihood is a finite number.
+
+        False for a case impossible under the model (``-inf``: for example a contact after a
+        recorded entry into an absorbing stage, see :func:`contacts_after_absorbing_entry`) and
+        for a case whose covariates make a rate overflow (``nan``; its ``filtered`` rows are nan).
+        The other cases' numbers do not depend on these: a notebook can keep
+        ``timelines.subset(result.finite)``.
+        """
+        return np.isfinite(self.log_likelihood)
 
 
 def _forward(plan: _Plan, initial: np.ndarray, timelines: Timelines) -> ForwardResult:
@@ -250,6 +325,9 @@ def _forward(plan: _Plan, initial: np.ndarray, timelines: Timelines) -> ForwardR
         log_scale = plan.to_rows(np.log(scale))
     filtered = plan.to_rows(filtered)
     log_likelihood = np.add.reduceat(log_scale, timelines.offsets[:-1]) if n else np.zeros(0)
+    if plan.unusable_cases is not None:
+        log_likelihood[plan.unusable_cases] = np.nan
+        filtered[np.repeat(plan.unusable_cases, timelines.n_contacts_per_case)] = np.nan
     return ForwardResult(log_likelihood, filtered, log_scale, plan)
 
 
