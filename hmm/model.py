@@ -74,13 +74,15 @@ def rate_limit_problem(rate: float, effects: dict, ranges: dict) -> str | None:
     The one rule for model values (model files, fitted models and :class:`StageModel` alike);
     the limit is :data:`MAX_RATE_PER_DAY`.
     """
+    limit = f"above the limit of {MAX_RATE_PER_DAY:g} per day"
+    if not np.isfinite(rate) or rate > MAX_RATE_PER_DAY:
+        return f"the rate {rate:g} per day is {limit} (a typing error?)"
     log_rate, corner = largest_rate(rate, effects, ranges)
-    if not np.isfinite(rate) or log_rate > np.log(MAX_RATE_PER_DAY) or np.isnan(log_rate):
-        where = ", ".join(f"{k} = {v:g}" + ("" if ranges.get(k) else " (no range declared: checked over -1..1)")
-                          for k, v in corner.items() if effects.get(k))
-        value = f"{rate:g}" if not where else f"{rate:g} * exp({log_rate - np.log(rate):.4g}) at {where}"
-        return (f"the rate reaches {value}, above the limit of {MAX_RATE_PER_DAY:g} per day "
-                "(a typing error or an effect far too large for the covariate's values?)")
+    if np.isnan(log_rate) or log_rate > np.log(MAX_RATE_PER_DAY):
+        at = ", ".join(f"{k} = {v:g}" + ("" if ranges.get(k) else " (no range declared, so -1..1 is checked)")
+                       for k, v in corner.items() if effects.get(k))
+        return (f"with {at} the rate reaches {rate:g} * exp({log_rate - np.log(rate):.4g}) per day, {limit} "
+                "(an effect far too large for the covariate's values? declare the covariate's range)")
     return None
 
 

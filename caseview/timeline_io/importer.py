@@ -26,7 +26,7 @@ import numpy as np
 
 from ..errors import InputError, WorkspaceError
 from .reader import CHUNK_ROWS, TimelineSource, scan_file
-from .validate import BASE_COLUMNS, ChunkValidator, Problems, Rules
+from .validate import BASE_COLUMNS, ChunkValidator, Problems, Rules, contradictory_contacts
 
 
 @dataclass(frozen=True)
@@ -139,6 +139,43 @@ def _duplicates_in_file(data: dict, problems: Problems, where) -> np.ndarray:
     return keep
 
 
+def _refuse_contacts_after_entry(ws, model, data: dict, problems: Problems, where) -> None:
+    """Inside the write transaction: refuse contacts after a recorded entry into an absorbing stage.
+
+    Runs on the stored contacts (this file's rows included) of the cases that record an
+    exact-entry stage, so a file row that contradicts a stored record, or a stored contact that a
+    new entry record contradicts, is found too; raising rolls the whole import back.
+    """
+    from ..storage.contacts import contacts_of_cases_with_stage
+
+    if not model.exact_entry_stages:
+        return
+    codes, days, known = contacts_of_cases_with_stage(ws.connection, model.exact_entry_stages)
+    if not codes.size:
+        return
+    file_line = {(c, int(d)): int(line) for c, d, line in
+                 zip(data["case_codes"].tolist(), data["days"].tolist(), data["lines"].tolist())}
+    touched = np.isin(codes, np.unique(data["case_codes"]))
+    if not touched.any():
+        return
+
+    def named(code, day):
+        line = file_line.get((code, day))
+        date = np.datetime64(day, "D")
+        return (f"line {line}", line) if line is not None else (f"the stored contact of {date}", None)
+
+    for c in contradictory_contacts(model, codes[touched], days[touched], known[touched]):
+        later, later_line = named(c.case_id, c.day)
+        earlier, earlier_line = named(c.case_id, c.entry_day)
+        line = later_line if later_line is not None else earlier_line
+        problems.add(where(line), None, line=line, message=(
+            f"case {c.case_id!r}: the contact on {np.datetime64(c.day, 'D')} ({later}) comes after the recorded "
+            f"entry into absorbing stage {c.stage!r} on {np.datetime64(c.entry_day, 'D')} ({earlier}); a case "
+            "that has entered it has no later contacts unless they record that stage - correct the date or "
+            "the stage, or leave the row out"))
+    problems.raise_if_any("nothing was imported")
+
+
 def import_timelines(ws, path, actor: str, mapping: dict | None = None, drop=(), replace: bool = False,
                      chunk_rows: int = CHUNK_ROWS, progress=None, check_only: bool = False) -> ImportResult:
     """Import a CSV/XLSX timeline file into ``ws`` (all rows or none).
@@ -165,7 +202,7 @@ def import_timelines(ws, path, actor: str, mapping: dict | None = None, drop=(),
     source = TimelineSource(facts, chunk_rows)
     targets, warnings = _parse_header(source, model, dict(mapping or {}), drop)
     rules = Rules(channels={c.name: tuple(c.categories) for c in model.channels}, covariates=tuple(model.covariates),
-                  stages=tuple(model.stages), present=tuple(targets))
+                  stages=tuple(model.stages), present=tuple(targets), covariate_ranges=model.range_of)
     problems = Problems(str(facts.path))
     validator = ChunkValidator(rules, problems, source.where)
     parts = []
@@ -202,6 +239,7 @@ def import_timelines(ws, path, actor: str, mapping: dict | None = None, drop=(),
             if now_version.id != version.id:
                 raise WorkspaceError("the current model changed while the file was being checked; import again")
             counts = ws.write_contacts(batch, replace=replace)
+            _refuse_contacts_after_entry(ws, model, data, problems, source.where)
             details = {"file": facts.path.name, "sha256": facts.sha256, "bytes": facts.size, "rows_read": rows_read,
                        "cases_added": counts.cases_added, "contacts_added": counts.contacts_added,
                        "duplicates_skipped": counts.duplicates_skipped + in_file_duplicates,
