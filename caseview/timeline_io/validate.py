@@ -14,6 +14,7 @@ from dataclasses import dataclass, field
 
 import numpy as np
 
+from ..case_checks import contradictory_contacts, covariate_range_problem  # noqa: F401 (shared with record)
 from ..errors import InputError
 
 PROBLEM_CAP = 50
@@ -290,98 +291,3 @@ class ChunkValidator:
         chosen = set(names)
         return "|".join(s for s in self.rules.stages if s in chosen), None
 
-
-# ---------------------------------------------------------------- rules shared with the record command
-def covariate_range_problem(name: str, low: float, high: float) -> str:
-    """The one wording of "outside the covariate's range" (import, record and scoring use it)."""
-    return (f"outside the range of {name}: expected a number from {low:g} to {high:g} (the range the model "
-            "declares or was fitted on; a typing error? a model file may declare a wider 'range')")
-
-
-def covariate_values_outside_range(model, covariates: np.ndarray) -> np.ndarray:
-    """Which values lie outside the model's covariate ranges, ndarray of bool, shape (n, n_covariates).
-
-    Parameters
-    ----------
-    model : hmm.StageModel
-    covariates : ndarray, shape (n, n_covariates), in the model's covariate order
-    """
-    covariates = np.asarray(covariates, dtype=float).reshape(-1, model.n_covariates)
-    outside = np.zeros(covariates.shape, dtype=bool)
-    for k, name in enumerate(model.covariates):
-        bounds = model.range_of.get(name)
-        if bounds is not None:
-            with np.errstate(invalid="ignore"):
-                outside[:, k] = (covariates[:, k] < bounds[0]) | (covariates[:, k] > bounds[1])
-    return outside
-
-
-@dataclass(frozen=True)
-class ContradictoryContact:
-    """A contact after its case's recorded entry into an absorbing exact-entry stage.
-
-    ``row`` and ``entry_row`` index the arrays given to :func:`contradictory_contacts`.
-    """
-
-    case_id: str
-    day: int
-    entry_day: int
-    stage: str
-    row: int
-    entry_row: int
-
-    @property
-    def reason(self) -> str:
-        """The reason shown wherever the case cannot be scored."""
-        return (f"contradictory record: contact on {np.datetime64(self.day, 'D')} after the recorded entry into "
-                f"absorbing stage {self.stage} on {np.datetime64(self.entry_day, 'D')}")
-
-
-def contradictory_contacts(model, case_codes, days, stage_known) -> list:
-    """Contacts that come after their case's recorded entry into an absorbing exact-entry stage.
-
-    The one check that import and the record command call (with the case's stored contacts and the
-    new ones together), so both refuse the same records; the rule itself is the engine's
-    (:func:`hmm.inference.contacts_after_absorbing_entry`), which is also what makes such a case
-    impossible when scored.
-
-    Parameters
-    ----------
-    model : hmm.StageModel
-    case_codes : array of str, shape (n,)
-    days : array of int, shape (n,)
-        Days since 1970-01-01; at most one contact per case and day.
-    stage_known : array of str, shape (n,)
-        '' or stage names joined with '|'.
-
-    Returns
-    -------
-    list[ContradictoryContact]
-        In the order of case, then day.
-    """
-    from hmm.inference import contacts_after_absorbing_entry
-
-    case_codes = np.asarray(case_codes, dtype=object)
-    days = np.asarray(days, dtype=np.int64)
-    stage_known = np.asarray(stage_known, dtype=object)
-    if not model.exact_entry_stages or not days.size:
-        return []
-    order = np.lexsort((days, case_codes.astype(str)))
-    codes, days, known = case_codes[order], days[order], stage_known[order]
-    starts = np.flatnonzero(np.concatenate([[True], codes[1:] != codes[:-1]]))
-    offsets = np.concatenate([starts, [codes.size]]).astype(np.int64)
-    allowed = np.ones((codes.size, model.n_stages), dtype=bool)
-    recorded = np.flatnonzero(known != "")
-    if recorded.size:
-        values, inverse = np.unique(known[recorded].astype(str), return_inverse=True)
-        masks = np.array([[stage in value.split("|") for stage in model.stages] for value in values], dtype=bool)
-        masks[~masks.any(axis=1)] = True   # names the model does not know: no constraint here
-        allowed[recorded] = masks[inverse.reshape(-1)]
-    entry_of = contacts_after_absorbing_entry(model, offsets, allowed)
-    found = []
-    for row in np.flatnonzero(entry_of >= 0).tolist():
-        entry = int(entry_of[row])
-        found.append(ContradictoryContact(str(codes[row]), int(days[row]), int(days[entry]),
-                                          model.stages[int(np.argmax(allowed[entry]))], int(order[row]),
-                                          int(order[entry])))
-    return found
