@@ -11,8 +11,8 @@ import sys
 
 from caseview import ADVISORY_NOTICE
 
-from .basic import (actor_name, add_actor_option, format_days, format_probabilities, open_workspace, safe_text,
-                    write_table)
+from .basic import (CANNOT_BE_SCORED, actor_name, add_actor_option, format_days, format_probabilities,
+                    open_workspace, report_unscorable, safe_text, write_table)
 
 STATUS_CHOICES = ("acknowledged", "actioned", "dismissed")
 
@@ -114,9 +114,17 @@ def run_flags(args) -> int:
                format_probabilities(s.p_reach_follow_up[rows]), due_text, list(a.review_status[rows]),
                safe_text(a.reviewed_by[rows]), list(a.reviewed_at[rows]), list(s.most_likely_stage_names[rows]),
                s.days_since_contact[rows].astype(str).tolist(), [f"{v:.4f}" for v in a.priority[rows]]]
+    lost = s.unscorable
+    if lost.n_cases:  # needing attention before any flag: listed first, the reason in the reason column
+        blank = [""] * lost.n_cases
+        columns = [list(a) + list(b) for a, b in zip(
+            [safe_text(lost.case_ids), safe_text(lost.coordinators), [CANNOT_BE_SCORED] * lost.n_cases,
+             safe_text(lost.reasons), blank, blank, blank, blank, blank, blank, blank,
+             lost.days_since_contact.astype(str).tolist(), blank], columns)]
     write_table(args.out, header, columns)
     out = sys.stderr if args.out == "-" else sys.stdout
     print(f"{n} of {s.n_cases} cases flagged as of {as_of.isoformat()} (horizon {s.horizon_days:g} days)"
+          + (f"; {lost.n_cases} cannot be scored (listed first)" if lost.n_cases else "")
           + (f"; wrote {args.out}" if args.out != "-" else ""), file=out)
     for rule in a.rules:
         state = "" if rule.enabled else " (switched off)"
@@ -134,7 +142,7 @@ def run_flags(args) -> int:
             print(f"  {s.case_ids[r]:<12} {s.p_follow_up_now[r]:>10.2f} {s.p_reach_follow_up[r]:>9.2f} "
                   f"{due_text[i] or 'not soon':>10}  {a.review_status[r]:<12} {a.flags[r]}", file=out)
     print(ADVISORY_NOTICE, file=out)
-    return 0
+    return report_unscorable(lost)
 
 
 # ---------------------------------------------------------------- reviews

@@ -53,4 +53,12 @@ def run_report(args) -> int:
     print(f"wrote {result.path} ({result.format}, {what}; sha256 {result.sha256})")
     print(f"audit chain head: {result.audit_head}")
     print(ADVISORY_NOTICE)
+    if result.not_scored:
+        from caseview.errors import EXIT_CASES_NOT_SCORED
+
+        named = "; ".join(f"{c} ({r})" for c, _, r in result.not_scored[:3])
+        more = f"; and {len(result.not_scored) - 3} more" if len(result.not_scored) > 3 else ""
+        print(f"caseview: {len(result.not_scored)} case(s) cannot be scored: {named}{more} (marked in the report; "
+              "every other case was scored)", file=sys.stderr)
+        return EXIT_CASES_NOT_SCORED
     return 0

@@ -16,7 +16,7 @@ import datetime as dt
 import hashlib
 import os
 import tempfile
-from dataclasses import dataclass
+from dataclasses import dataclass, field
 from pathlib import Path
 
 from caseview.errors import InputError
@@ -40,6 +40,9 @@ class ReportResult:
         Audit chain head after the report was recorded.
     sha256 : str
         Hash of the written file (also in the audit entry).
+    not_scored : list
+        ``(case_id, coordinator, reason)`` of the cases in scope that cannot be scored (marked in
+        the report, left out of its figures).
     """
 
     path: Path
@@ -47,6 +50,7 @@ class ReportResult:
     count: int
     audit_head: str
     sha256: str
+    not_scored: list = field(default_factory=list)
 
     @property
     def n_pages(self) -> int | None:
@@ -127,10 +131,12 @@ def build_report(ws, as_of, out_path, *, horizon_days: float = 90, coordinator: 
         digest = hashlib.sha256(Path(temporary).read_bytes()).hexdigest()
         details = {"format": kind, "as_of": as_of.isoformat(), "options": data.options, "sha256": digest,
                    "count": int(count)}
+        if data.not_scored:
+            details["cannot_be_scored"] = len(data.not_scored)
         ws.audit_append(actor or _default_actor(), "report.create", out_path.name, details)
         os.replace(temporary, out_path)
     finally:
         if os.path.exists(temporary):
             os.unlink(temporary)
     progress(1.0)
-    return ReportResult(out_path, kind, int(count), ws.audit_head(), digest)
+    return ReportResult(out_path, kind, int(count), ws.audit_head(), digest, list(data.not_scored))

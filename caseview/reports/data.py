@@ -15,7 +15,7 @@ import numpy as np
 from caseview.errors import InputError
 from caseview.scoring import to_day
 
-from .deidentify import DateView
+from .deidentify import DateView, withhold_dates
 from .model_summary import ModelSummary, summarise_model
 
 #: Review statuses that count as "review done" (a supervisor has looked at the flag).
@@ -104,6 +104,7 @@ class ReportData:
     model: ModelSummary
     audit_head: str
     options: dict = field(default_factory=dict)
+    not_scored: list = field(default_factory=list)  # [(case_id, coordinator, reason)] in scope, never in figures
 
     @property
     def scores(self):
@@ -183,6 +184,10 @@ def collect_report_data(ws, as_of: dt.date, *, horizon_days: float = 90.0, coord
     model, version = ws.current_model()
     summary = summarise_model(scores.model, version)
     view = DateView(dates, scores.first_contact_day, seed=seed)
+    lost = scores.unscorable
+    not_scored = [(str(c), str(k or ""), withhold_dates(str(r)) if view.deidentified else str(r))
+                  for c, k, r in zip(lost.case_ids, lost.coordinators, lost.reasons)
+                  if not coordinator or k == coordinator]
     return ReportData(
         assessment=assessment, as_of=as_of, horizon_days=float(horizon_days), coordinator=coordinator or None,
         flagged_only=flagged_only, dates=view, stages=tuple(scores.model.stages), rows=rows,
@@ -193,6 +198,7 @@ def collect_report_data(ws, as_of: dt.date, *, horizon_days: float = 90.0, coord
         options={"horizon_days": float(horizon_days), "coordinator": coordinator or None,
                  "flagged_only": bool(flagged_only), "since": since.isoformat() if since else None,
                  "dates": dates, "seed": "given" if seed is not None else None},
+        not_scored=not_scored,
     )
 
 
