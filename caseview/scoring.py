@@ -159,33 +159,36 @@ def _unscorable(caseload, timelines: Timelines, kept: np.ndarray, cases: np.ndar
                            np.asarray(reasons, dtype=object)[order])
 
 
-def score_loaded(caseload, model: StageModel, as_of_day: int, horizon_days: float = 90.0,
-                 model_version: int | None = None, callback=None) -> CaseloadScores:
-    """Score an already loaded caseload (no database access).
+def split_unscorable(caseload, model: StageModel, timelines: Timelines, kept: np.ndarray, as_of_day: int):
+    """Set aside the cases that cannot be scored; run the forward pass on the others.
 
-    ``caseload`` is a :class:`caseview.storage.Caseload`; only its contacts on or before
-    ``as_of_day`` are used and only cases whose first contact is on or before it are scored.
-    A case that cannot be scored (:func:`caseview.case_checks.unscorable_reasons`, or evidence
-    with probability zero under the model) is left out of the score arrays and listed in
-    ``unscorable`` with its reason; the other cases get exactly the numbers they would get alone.
+    Parameters
+    ----------
+    caseload : caseview.storage.Caseload
+    model : StageModel
+    timelines : Timelines
+        The caseload's timelines (already cut to ``as_of_day``).
+    kept : ndarray of int64, shape (n_cases,)
+        Row of each of ``timelines``' cases in ``caseload``.
+    as_of_day : int
+
+    Returns
+    -------
+    timelines : Timelines
+        Only the cases that can be scored (the same object when that is all of them).
+    kept : ndarray of int64
+        Their rows in ``caseload``.
+    forward_result : hmm.inference.ForwardResult or None
+        Their forward pass (None when none is left).
+    unscorable : UnscorableCases
     """
     from .case_checks import IMPOSSIBLE_REASON, unscorable_reasons
 
-    if horizon_days < 0 or not np.isfinite(horizon_days):
-        from .errors import InputError
-
-        raise InputError(f"horizon: expected a number of days >= 0, got {horizon_days!r}")
-    full = caseload.timelines
-    timelines, kept = full.until(float(as_of_day))
-    if callback:
-        callback(0.1)
     reasons = unscorable_reasons(model, timelines)
     scorable = reasons == ""
-    all_cases = timelines
+    all_cases, all_kept = timelines, kept
     if not scorable.all():
-        timelines, kept_now = timelines.subset(scorable), kept[scorable]
-    else:
-        kept_now = kept
+        timelines, kept = timelines.subset(scorable), kept[scorable]
     result = forward(model, timelines) if timelines.n_cases else None
     if result is not None and not result.finite.all():
         # evidence impossible under the model (or a numerical failure the checks did not foresee)
@@ -196,9 +199,31 @@ def score_loaded(caseload, model: StageModel, as_of_day: int, horizon_days: floa
         scorable[cases[~finite]] = False
         rows = np.repeat(finite, timelines.n_contacts_per_case)
         result = type(result)(result.log_likelihood[finite], result.filtered[rows], result.log_scale[rows])
-        timelines, kept_now = timelines.subset(finite), kept_now[finite]
-    unscorable = _unscorable(caseload, all_cases, kept, np.flatnonzero(~scorable), reasons, as_of_day) \
+        timelines, kept = timelines.subset(finite), kept[finite]
+    unscorable = _unscorable(caseload, all_cases, all_kept, np.flatnonzero(~scorable), reasons, as_of_day) \
         if not scorable.all() else _no_unscorable()
+    return timelines, kept, result, unscorable
+
+
+def score_loaded(caseload, model: StageModel, as_of_day: int, horizon_days: float = 90.0,
+                 model_version: int | None = None, callback=None) -> CaseloadScores:
+    """Score an already loaded caseload (no database access).
+
+    ``caseload`` is a :class:`caseview.storage.Caseload`; only its contacts on or before
+    ``as_of_day`` are used and only cases whose first contact is on or before it are scored.
+    A case that cannot be scored (:func:`caseview.case_checks.unscorable_reasons`, or evidence
+    with probability zero under the model) is left out of the score arrays and listed in
+    ``unscorable`` with its reason; the other cases get exactly the numbers they would get alone.
+    """
+    if horizon_days < 0 or not np.isfinite(horizon_days):
+        from .errors import InputError
+
+        raise InputError(f"horizon: expected a number of days >= 0, got {horizon_days!r}")
+    full = caseload.timelines
+    timelines, kept = full.until(float(as_of_day))
+    if callback:
+        callback(0.1)
+    timelines, kept_now, result, unscorable = split_unscorable(caseload, model, timelines, kept, as_of_day)
     if callback:
         callback(0.5)
     n_stages = model.n_stages
