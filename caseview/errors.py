@@ -37,3 +37,9 @@ class FitRefused(CaseviewError):
     """A fit that cannot be run or whose result cannot be saved (nothing was saved)."""
 
     exit_code = 1
+
+
+class CaseNotScored(CaseviewError):
+    """The case asked about cannot be scored (the message gives the reason)."""
+
+    exit_code = EXIT_CASES_NOT_SCORED

@@ -266,7 +266,7 @@ def run_history(args) -> int:
 
     from caseview.errors import InputError
     from caseview.scoring import parse_date, to_day
-    from hmm.inference import most_likely_path, smoothed_probabilities
+    from hmm.inference import forward, most_likely_path, smoothed_probabilities
 
     as_of_day = to_day(parse_date(args.as_of, "--as-of")) if args.as_of else None
     with open_workspace(args.workspace) as ws:
@@ -279,8 +279,17 @@ def run_history(args) -> int:
     case = int(hits[0])
     timelines = caseload.timelines.subset([case])
     rows = slice(caseload.timelines.offsets[case], caseload.timelines.offsets[case + 1])
-    smoothed = smoothed_probabilities(model, timelines)
-    path = most_likely_path(model, timelines)
+    from caseview.case_checks import IMPOSSIBLE_REASON, unscorable_reasons
+
+    reason = unscorable_reasons(model, timelines)[0]
+    if not reason:
+        result = forward(model, timelines)
+        reason = "" if result.finite[0] else IMPOSSIBLE_REASON
+    if reason:  # the recorded values, with blank probabilities and path; named on stderr, exit 4
+        smoothed, path = np.full((timelines.n_contacts, model.n_stages), np.nan), None
+    else:
+        smoothed = smoothed_probabilities(model, timelines, forward_result=result)
+        path = most_likely_path(model, timelines, forward_result=result)
     n = timelines.n_contacts
     header = ["case_id", "date"]
     columns = [[args.case_id] * n, format_days(caseload.contact_days[rows])]
@@ -295,13 +304,19 @@ def run_history(args) -> int:
         columns.append(list(caseload.raw_values["stage_known"][rows]))
     for s, stage in enumerate(model.stages):
         header.append(f"p_{stage}")
-        columns.append(format_probabilities(smoothed[:, s]))
+        columns.append(format_probabilities(smoothed[:, s]) if path is not None else [""] * n)
     header.append("path_stage")
-    columns.append([model.stages[i] for i in path])
+    columns.append([model.stages[i] for i in path] if path is not None else [""] * n)
     write_table(args.out, header, columns)
     if args.out != "-":
         print(f"case {args.case_id}: {n} contacts (model version {version.id}); wrote {args.out}")
         print(ADVISORY_NOTICE)
+    if reason:
+        from caseview.errors import EXIT_CASES_NOT_SCORED
+
+        print(f"caseview: case {args.case_id} cannot be scored: {reason} (its contacts are listed without "
+              "probabilities)", file=sys.stderr)
+        return EXIT_CASES_NOT_SCORED
     return 0
 
 

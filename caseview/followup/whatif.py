@@ -92,6 +92,11 @@ def check_changes(changes: dict, model) -> dict:
             raise InputError(f"covariate {name}: expected a number, got {value!r}") from None
         if not math.isfinite(number):
             raise InputError(f"covariate {name}: expected a finite number, got {value!r}")
+        bounds = model.range_of.get(name)
+        if bounds is not None and not bounds[0] <= number <= bounds[1]:
+            from caseview.case_checks import covariate_range_problem
+
+            raise InputError(f"covariate {name} = {number:g}: {covariate_range_problem(name, *bounds)}")
         out[name] = number
     return out
 
@@ -151,6 +156,11 @@ def whatif_forecast(ws_or_scores, case_id: str, as_of: dt.date | None = None, ho
     changes = check_changes(changes or {}, model)
     row = scores.row_of(case_id)
     if row < 0:
+        reason = scores.unscorable.reason_of(case_id)
+        if reason:
+            from caseview.errors import CaseNotScored
+
+            raise CaseNotScored(f"case {case_id!r} cannot be scored: {reason}")
         raise InputError(f"case {case_id!r}: no such case with a contact on or before {scores.as_of.isoformat()}")
     p_now = scores.p_now[row]
     base = scores.last_covariates[row]
