@@ -160,9 +160,10 @@ def unscorable_reasons(model, timelines) -> np.ndarray:
     if outside.any():
         for case, row in first_row_per_case(outside.any(axis=1)).items():
             k = int(np.argmax(outside[row]))
-            low, high = model.range_of[model.covariates[k]]
-            reasons[case] = (f"covariate {model.covariates[k]} = {covariates[row, k]:g} on {_date(timelines.times[row])} "
-                             f"outside its range {low:g} to {high:g}")
+            name = model.covariates[k]
+            low, high = model.range_of[name]
+            reasons[case] = (f"covariate {name} = {covariates[row, k]:g} on {_date(timelines.times[row])} outside its "
+                             f"range {low:g} to {high:g}")
     if any(name not in model.range_of for name in model.covariates):
         usable = model.usable_covariate_rows(covariates)
         if not usable.all():

@@ -97,8 +97,8 @@ class CaseloadPanel(QWidget):
         self.not_scored.setAccessibleName("Cases that cannot be scored")
         self.not_scored.setWordWrap(True)
         self.not_scored.setTextFormat(Qt.PlainText)
-        self.not_scored.setStyleSheet(f"QLabel {{ border-left: 4px solid {theme.colour('risk_high')}; "
-                                      "padding: 4px 8px; }")
+        self.not_scored.setStyleSheet(f"QLabel#notScoredNotice {{ border-left: 5px solid {theme.colour('risk_high')}; "
+                                      "padding: 4px 8px; font-weight: bold; }")
         self.not_scored.hide()
 
         layout = QVBoxLayout(self)
@@ -137,7 +137,8 @@ class CaseloadPanel(QWidget):
         if lost is None or not lost.n_cases:
             self.not_scored.hide()
             return
-        self.not_scored.setText(f"Cannot be scored - correct their records: {lost.summary(limit=3)}")
+        self.not_scored.setText(f"{lost.summary(limit=3)}. Not in the table below: correct or void their records "
+                                "(every reason in the tooltip).")
         self.not_scored.setToolTip("\n".join(f"{c}: {r}" for c, r in zip(lost.case_ids[:50], lost.reasons[:50])))
         self.not_scored.show()
 

@@ -233,6 +233,8 @@ class MainWindow(QMainWindow):
                                              f"{self.as_of.isoformat()}.")
             self._pending_case = None
         notes = " ".join(loaded.notes)
+        lost = loaded.scores.unscorable.n_cases
+        notes = (f"{lost:,} case(s) cannot be scored (see above the table). " if lost else "") + notes
         self.statusBar().showMessage(f"Scored {loaded.scores.n_cases:,} cases as of {self.as_of.isoformat()}, "
                                      f"horizon {self.horizon_days:g} days. {notes}")
         self.caseload_loaded.emit(loaded)
