@@ -250,3 +250,14 @@ def test_fit_keeps_the_covariate_range_it_saw(tmp_path, capsys):
     capsys.readouterr()
     assert cli("import", path, wider) == 2
     assert "from 0 to 1" in capsys.readouterr().err
+
+
+def test_stored_values_outside_a_later_models_range_are_named_not_scored(tmp_path, capsys):
+    path = make_workspace(tmp_path, HEALTHY + ["HS-0003,2026-02-01,C2,slow,one,none,2,0,"], ranges=False)
+    with Workspace.open(path) as ws:
+        ws.add_model_version(json.dumps(model_json(ranges=True)), "ranges declared", "tester")
+    code, rows, err = score(path, tmp_path, capsys)
+    assert code == EXIT_CASES_NOT_SCORED
+    assert rows["HS-0003"]["flags"] == "cannot_be_scored: covariate lives_alone = 2 on 2026-02-01 outside its range 0 to 1"
+    assert "HS-0003 (covariate lives_alone = 2" in err
+    assert all(rows[c]["p_Stable"] for c in ("HS-0001", "HS-0002", "HS-0004"))
