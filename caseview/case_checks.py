@@ -148,12 +148,11 @@ def unscorable_reasons(model, timelines) -> np.ndarray:
     reasons = np.full(n_cases, "", dtype=object)
     if not timelines.n_contacts:
         return reasons
-    case_of = timelines.case_of_contact
     covariates = timelines.covariates
 
     def first_row_per_case(bad_rows: np.ndarray) -> dict:
         rows = np.flatnonzero(bad_rows)
-        cases, first = np.unique(case_of[rows], return_index=True)
+        cases, first = np.unique(np.searchsorted(timelines.offsets, rows, side="right") - 1, return_index=True)
         return {int(c): int(rows[f]) for c, f in zip(cases, first) if reasons[c] == ""}
 
     outside = covariate_values_outside_range(model, covariates)

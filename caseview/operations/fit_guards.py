@@ -38,8 +38,8 @@ def refuse_unscorable_cases(caseload, model) -> None:
     kept = np.arange(timelines.n_cases, dtype=np.int64)
     lost = split_unscorable(caseload, model, timelines, kept, last_day)[3]
     if lost.n_cases:
-        raise FitRefused(f"cannot fit: {lost.summary()}; correct or void those records first, or fit a model "
-                         "under which they are possible (nothing was fitted or saved)")
+        raise FitRefused(f"cannot fit or check the fit: {lost.summary()}; correct or void those records first, or "
+                         "use a model under which they are possible (nothing was fitted or saved)")
 
 
 def fitted_model_to_save(fitted, timelines):

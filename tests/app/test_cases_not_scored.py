@@ -221,6 +221,8 @@ def test_fit_refuses_a_workspace_holding_an_impossible_case(impossible_workspace
     assert "HS-0003" in err and "contradictory record" in err and "nothing was fitted or saved" in err
     with Workspace.open(impossible_workspace) as ws:
         assert [v.id for v in ws.model_versions()] == [1]
+    assert cli("check-fit", impossible_workspace, "--bootstrap", "0") == 1    # before: ran, the case included
+    assert "HS-0003" in capsys.readouterr().err
 
 
 def test_models_lists_and_refuses_to_compare_a_failed_fit(tmp_path, capsys):
