@@ -52,7 +52,8 @@ def _generators(model: StageModel, distinct: np.ndarray) -> tuple:
 def _propagate(model: StageModel, probabilities: np.ndarray, covariates: np.ndarray, gaps: np.ndarray,
                rate_rows_zeroed: np.ndarray | None = None) -> np.ndarray:
     """``p_i P_i(gap_i)`` with P from each row's covariates, optionally with some rows of Q zeroed."""
-    distinct, group = covariate_groups(np.asarray(covariates, dtype=float).reshape(probabilities.shape[0], -1))
+    rows = np.asarray(covariates, dtype=float).reshape(probabilities.shape[0], model.n_covariates)
+    distinct, group = covariate_groups(rows)
     generators, usable = _generators(model, distinct)
     if rate_rows_zeroed is not None:
         generators = generators.copy()
@@ -73,7 +74,7 @@ def _propagate_variants(model: StageModel, probabilities: np.ndarray, covariates
     generators that need it instead of one per variant); each matrix is the same as in a separate call.
     """
     n = probabilities.shape[0]
-    distinct, group = covariate_groups(np.asarray(covariates, dtype=float).reshape(n, -1))
+    distinct, group = covariate_groups(np.asarray(covariates, dtype=float).reshape(n, model.n_covariates))
     base, usable = _generators(model, distinct)
     stacked = []
     for rows in zeroed:
@@ -227,7 +228,7 @@ def occupancy_over_time(model: StageModel, probabilities, covariates, days) -> n
     if days.size and (not np.all(np.isfinite(days)) or days.min() < 0):
         raise ValueError("days must be offsets >= 0")
     n = probabilities.shape[0]
-    distinct, group = covariate_groups(np.asarray(covariates, dtype=float).reshape(n, -1))
+    distinct, group = covariate_groups(np.asarray(covariates, dtype=float).reshape(n, model.n_covariates))
     generators, usable = _generators(model, distinct)
     all_groups = np.repeat(np.arange(distinct.shape[0]), days.size)
     all_days = np.tile(days, distinct.shape[0])

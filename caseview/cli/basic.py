@@ -249,14 +249,13 @@ def merge_case_rows(columns: list, case_ids, extra: list, extra_ids) -> list:
     return [np.asarray(list(a) + list(b), dtype=object)[order].tolist() for a, b in zip(columns, extra)]
 
 
-def report_unscorable(lost) -> int:
+def report_unscorable(lost, where: str = f"marked '{CANNOT_BE_SCORED}' in the output") -> int:
     """Name the cases that cannot be scored on stderr; the exit code (0 when every case was scored)."""
     from caseview.errors import EXIT_CASES_NOT_SCORED
 
     if not lost.n_cases:
         return 0
-    print(f"caseview: {lost.summary()} (marked '{CANNOT_BE_SCORED}' in the output; every other case was "
-          "scored)", file=sys.stderr)
+    print(f"caseview: {lost.summary()} ({where}; every other case was scored)", file=sys.stderr)
     return EXIT_CASES_NOT_SCORED
 
 

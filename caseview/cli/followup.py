@@ -247,7 +247,7 @@ def run_whatif(args) -> int:
     print(f"  likely to reach a follow-up stage (P >= {rules['likely_to_reach_follow_up'].threshold:.2f}): "
           f"{result.reaching_without} without, {result.reaching_with} with the change")
     print(ADVISORY_NOTICE)
-    return report_unscorable(scores.unscorable)
+    return report_unscorable(scores.unscorable, "left out of these counts")
 
 
 # ---------------------------------------------------------------- rules

@@ -153,6 +153,8 @@ def collect_report_data(ws, as_of: dt.date, *, horizon_days: float = 90.0, coord
                         callback=lambda f: progress(0.5 * f))
     scores = assessment.scores
     if scores.n_cases == 0:
+        if scores.unscorable.n_cases:
+            raise InputError(f"--as-of {as_of.isoformat()}: no case can be scored; {scores.unscorable.summary()}")
         raise InputError(f"--as-of {as_of.isoformat()}: no case has a contact on or before this date")
     coordinators = np.asarray(scores.coordinators, dtype=object)
     in_scope = np.ones(scores.n_cases, dtype=bool)
