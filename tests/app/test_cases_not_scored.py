@@ -260,6 +260,7 @@ def test_stored_values_outside_a_later_models_range_are_named_not_scored(tmp_pat
         ws.add_model_version(json.dumps(model_json(ranges=True)), "ranges declared", "tester")
     code, rows, err = score(path, tmp_path, capsys)
     assert code == EXIT_CASES_NOT_SCORED
-    assert rows["HS-0003"]["flags"] == "cannot_be_scored: covariate lives_alone = 2 on 2026-02-01 outside its range 0 to 1"
+    assert rows["HS-0003"]["flags"] == \
+        "cannot_be_scored: covariate lives_alone = 2 on 2026-02-01 outside its range 0 to 1"
     assert "HS-0003 (covariate lives_alone = 2" in err
     assert all(rows[c]["p_Stable"] for c in ("HS-0001", "HS-0002", "HS-0004"))
