@@ -7,7 +7,8 @@ One rule, one home:
 * :func:`contradictory_contacts` - a contact after the case's recorded entry into an absorbing
   exact-entry stage (the rule itself is the engine's,
   :func:`hmm.inference.contacts_after_absorbing_entry`); import and the record command call it on
-  the case's stored contacts together with the new ones;
+  the case's stored contacts together with the new ones (:func:`stored_contradictions` does that
+  inside the write transaction);
 * :func:`unscorable_reasons` - why each case of a caseload cannot be scored ('' when it can),
   before the engine runs; :mod:`caseview.scoring` adds the cases the engine finds impossible.
 """
@@ -112,6 +113,29 @@ def contradictory_contacts(model, case_codes, days, stage_known) -> list:
                                           model.stages[int(np.argmax(allowed[entry]))], int(order[row]),
                                           int(order[entry])))
     return found
+
+
+def stored_contradictions(connection, model, case_codes=None) -> list:
+    """:func:`contradictory_contacts` over the stored contacts (of ``case_codes`` only, when given).
+
+    Call it inside the write transaction that adds or changes contacts (import does; the record
+    command should), then refuse and roll back when it finds any: it sees that transaction's rows.
+    Only cases that record an exact-entry stage are read.
+
+    Returns
+    -------
+    list[ContradictoryContact]
+        ``row``/``entry_row`` index the stored contacts read; use ``case_id``, ``day``, ``entry_day``.
+    """
+    from .storage.contacts import contacts_of_cases_with_stage
+
+    if not model.exact_entry_stages:
+        return []
+    codes, days, known = contacts_of_cases_with_stage(connection, model.exact_entry_stages)
+    if case_codes is not None and codes.size:
+        keep = np.isin(codes.astype(str), np.asarray(list(case_codes), dtype=str))
+        codes, days, known = codes[keep], days[keep], known[keep]
+    return contradictory_contacts(model, codes, days, known)
 
 
 #: Reason for a case whose evidence has probability zero under the model (found by the engine).

@@ -24,9 +24,10 @@ from pathlib import Path
 
 import numpy as np
 
+from ..case_checks import stored_contradictions
 from ..errors import InputError, WorkspaceError
 from .reader import CHUNK_ROWS, TimelineSource, scan_file
-from .validate import BASE_COLUMNS, ChunkValidator, Problems, Rules, contradictory_contacts
+from .validate import BASE_COLUMNS, ChunkValidator, Problems, Rules
 
 
 @dataclass(frozen=True)
@@ -146,25 +147,18 @@ def _refuse_contacts_after_entry(ws, model, data: dict, problems: Problems, wher
     exact-entry stage, so a file row that contradicts a stored record, or a stored contact that a
     new entry record contradicts, is found too; raising rolls the whole import back.
     """
-    from ..storage.contacts import contacts_of_cases_with_stage
-
-    if not model.exact_entry_stages:
-        return
-    codes, days, known = contacts_of_cases_with_stage(ws.connection, model.exact_entry_stages)
-    if not codes.size:
+    found = stored_contradictions(ws.connection, model, np.unique(data["case_codes"]))
+    if not found:
         return
     file_line = {(c, int(d)): int(line) for c, d, line in
                  zip(data["case_codes"].tolist(), data["days"].tolist(), data["lines"].tolist())}
-    touched = np.isin(codes, np.unique(data["case_codes"]))
-    if not touched.any():
-        return
 
     def named(code, day):
         line = file_line.get((code, day))
         date = np.datetime64(day, "D")
         return (f"line {line}", line) if line is not None else (f"the stored contact of {date}", None)
 
-    for c in contradictory_contacts(model, codes[touched], days[touched], known[touched]):
+    for c in found:
         later, later_line = named(c.case_id, c.day)
         earlier, earlier_line = named(c.case_id, c.entry_day)
         line = later_line if later_line is not None else earlier_line

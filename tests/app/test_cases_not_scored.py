@@ -264,3 +264,13 @@ def test_stored_values_outside_a_later_models_range_are_named_not_scored(tmp_pat
         "cannot_be_scored: covariate lives_alone = 2 on 2026-02-01 outside its range 0 to 1"
     assert "HS-0003 (covariate lives_alone = 2" in err
     assert all(rows[c]["p_Stable"] for c in ("HS-0001", "HS-0002", "HS-0004"))
+
+
+def test_stored_contradictions_is_the_check_a_record_command_runs_in_its_transaction(impossible_workspace):
+    from caseview.case_checks import stored_contradictions
+
+    with Workspace.open(impossible_workspace) as ws:
+        model, _ = ws.current_model()
+        found = stored_contradictions(ws.connection, model)
+        assert [(c.case_id, str(np.datetime64(c.day, "D"))) for c in found] == [("HS-0003", "2026-05-05")]
+        assert stored_contradictions(ws.connection, model, ["HS-0001"]) == []
