@@ -166,7 +166,7 @@ def unscorable_reasons(model, timelines) -> np.ndarray:
     -------
     ndarray of object, shape (n_cases,)
     """
-    from hmm.inference import contacts_after_absorbing_entry
+    from hmm.inference import contacts_after_absorbing_entry, effective_allowed_stages
 
     n_cases = timelines.n_cases
     reasons = np.full(n_cases, "", dtype=object)
@@ -194,6 +194,14 @@ def unscorable_reasons(model, timelines) -> np.ndarray:
                 values = ", ".join(f"{name} = {v:g}" for name, v in zip(model.covariates, covariates[row]))
                 reasons[case] = (f"numerical failure: the covariates on {_date(timelines.times[row])} ({values}) make "
                                  "a transition rate overflow")
+    first = timelines.first_index
+    first_allowed = effective_allowed_stages(model, timelines.allowed_stages[first])
+    never_first = ~(first_allowed & (np.asarray(model.initial) > 0)).any(axis=1)
+    for case in np.flatnonzero(never_first & (reasons == "")).tolist():
+        stages = "|".join(np.asarray(model.stages)[first_allowed[case]])
+        reasons[case] = (f"impossible under the current model: the first contact "
+                         f"({_date(timelines.times[first[case]])}) records {stages}, where the model never starts "
+                         "a case (initial probability 0)")
     entry_of = contacts_after_absorbing_entry(model, timelines.offsets, timelines.allowed_stages)
     if (entry_of >= 0).any():
         for case, row in first_row_per_case(entry_of >= 0).items():

@@ -274,3 +274,13 @@ def test_stored_contradictions_is_the_check_a_record_command_runs_in_its_transac
         found = stored_contradictions(ws.connection, model)
         assert [(c.case_id, str(np.datetime64(c.day, "D"))) for c in found] == [("HS-0003", "2026-05-05")]
         assert stored_contradictions(ws.connection, model, ["HS-0001"]) == []
+
+
+def test_a_case_impossible_from_its_first_contact_gets_its_own_reason(tmp_path, capsys):
+    path = make_workspace(tmp_path, HEALTHY)
+    store_directly(path, [("HS-0007", "2026-03-05", [0, 0], MOVED)])   # the demo model's initial P(moved) is 0
+    code, rows, err = score(path, tmp_path, capsys)
+    assert code == EXIT_CASES_NOT_SCORED
+    assert rows["HS-0007"]["flags"] == ("cannot_be_scored: impossible under the current model: the first contact "
+                                        f"(2026-03-05) records {MOVED}, where the model never starts a case "
+                                        "(initial probability 0)")
