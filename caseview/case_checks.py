@@ -26,6 +26,13 @@ def covariate_range_problem(name: str, low: float, high: float) -> str:
             "declares or was fitted on; a typing error? a model file may declare a wider 'range')")
 
 
+def outside_range(values: np.ndarray, low: float, high: float) -> np.ndarray:
+    """The one range rule: True where a value is below ``low`` or above ``high`` (both ends allowed; nan is not
+    outside - it is refused as "not a number" where it can occur)."""
+    with np.errstate(invalid="ignore"):
+        return (np.asarray(values, dtype=float) < low) | (np.asarray(values, dtype=float) > high)
+
+
 def covariate_values_outside_range(model, covariates: np.ndarray) -> np.ndarray:
     """Which values lie outside the model's covariate ranges, ndarray of bool, shape (n, n_covariates).
 
@@ -39,8 +46,7 @@ def covariate_values_outside_range(model, covariates: np.ndarray) -> np.ndarray:
     for k, name in enumerate(model.covariates):
         bounds = model.range_of.get(name)
         if bounds is not None:
-            with np.errstate(invalid="ignore"):
-                outside[:, k] = (covariates[:, k] < bounds[0]) | (covariates[:, k] > bounds[1])
+            outside[:, k] = outside_range(covariates[:, k], *bounds)
     return outside
 
 

@@ -93,9 +93,9 @@ def check_changes(changes: dict, model) -> dict:
         if not math.isfinite(number):
             raise InputError(f"covariate {name}: expected a finite number, got {value!r}")
         bounds = model.range_of.get(name)
-        if bounds is not None and not bounds[0] <= number <= bounds[1]:
-            from caseview.case_checks import covariate_range_problem
+        from caseview.case_checks import covariate_range_problem, outside_range
 
+        if bounds is not None and outside_range(number, *bounds):
             raise InputError(f"covariate {name} = {number:g}: {covariate_range_problem(name, *bounds)}")
         out[name] = number
     return out

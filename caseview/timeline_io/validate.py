@@ -14,7 +14,7 @@ from dataclasses import dataclass, field
 
 import numpy as np
 
-from ..case_checks import contradictory_contacts, covariate_range_problem  # noqa: F401 (shared with record)
+from ..case_checks import contradictory_contacts, covariate_range_problem, outside_range  # noqa: F401 (record)
 from ..errors import InputError
 
 PROBLEM_CAP = 50
@@ -261,8 +261,7 @@ class ChunkValidator:
             covariates[:, k] = np.where(bad_u, 0.0, numbers_u)[codes]
             if name in self.rules.covariate_ranges:
                 low, high = self.rules.covariate_ranges[name]
-                with np.errstate(invalid="ignore"):
-                    outside_u = ~bad_u & ((numbers_u < low) | (numbers_u > high))
+                outside_u = ~bad_u & outside_range(numbers_u, low, high)
                 self._report_all(lines, outside_u[codes], name, uniques[codes], lambda v, name=name: (
                     f"value {shown(v, 'covariate', name)}: {covariate_range_problem(name, low, high)}"))
 

@@ -109,6 +109,8 @@ def test_import_refuses_a_covariate_outside_its_declared_range(tmp_path, capsys)
     assert "line 2, column 'lives_alone'" in err and "'1000'" in err and "from 0 to 1" in err
     with Workspace.open(path) as ws:
         assert ws.case_count() == 3          # nothing stored
+    assert cli("whatif", path, "--as-of", "2026-11-30", "--set", "lives_alone=1000") == 2   # the same rule
+    assert "lives_alone = 1000: outside the range of lives_alone" in capsys.readouterr().err
 
 
 # ---------------------------------------------------------------- model values
