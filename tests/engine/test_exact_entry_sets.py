@@ -119,3 +119,15 @@ def test_contacts_after_absorbing_entry_points_at_the_entry_record():
     result = forward(model, timelines)
     np.testing.assert_array_equal(np.isneginf(result.log_likelihood), [True, False, False, True])
     np.testing.assert_array_equal(result.finite, [False, True, True, False])
+
+
+def test_the_fitting_likelihood_reads_sets_the_same_way():
+    from hmm.fitting.likelihood import log_likelihood_and_gradient
+
+    model = _model()
+    timelines = _timelines(CASES)
+    value, _ = log_likelihood_and_gradient(model, timelines)
+    # the fitting likelihood and the forward pass share effective_allowed_stages
+    assert value == pytest.approx(forward(model, timelines).log_likelihood.sum(), rel=1e-10)
+    expected = sum(np.log(_brute_force(*case)) for case in CASES)
+    assert value == pytest.approx(expected, rel=1e-9)   # reference: the brute-force enumeration above
