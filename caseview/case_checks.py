@@ -6,7 +6,7 @@ One rule, one home:
   outside the model's ranges (declared in the model file, or seen when it was fitted);
 * :func:`contradictory_contacts` - a contact after the case's recorded entry into an absorbing
   exact-entry stage (the rule itself is the engine's,
-  :func:`hmm.inference.contacts_after_absorbing_entry`); import and the record command call it on
+  :func:`hmm.exact_entry.contacts_after_absorbing_entry`); import and the record command call it on
   the case's stored contacts together with the new ones (:func:`stored_contradictions` does that
   inside the write transaction);
 * :func:`unscorable_reasons` - why each case of a caseload cannot be scored ('' when it can),
@@ -76,7 +76,7 @@ def contradictory_contacts(model, case_codes, days, stage_known) -> list:
 
     The one check that import and the record command call (with the case's stored contacts and the
     new ones together), so both refuse the same records; the rule itself is the engine's
-    (:func:`hmm.inference.contacts_after_absorbing_entry`), which is also what makes such a case
+    (:func:`hmm.exact_entry.contacts_after_absorbing_entry`), which is also what makes such a case
     impossible when scored.
 
     Parameters
@@ -93,7 +93,7 @@ def contradictory_contacts(model, case_codes, days, stage_known) -> list:
     list[ContradictoryContact]
         In the order of case, then day.
     """
-    from hmm.inference import contacts_after_absorbing_entry
+    from hmm.exact_entry import contacts_after_absorbing_entry
 
     case_codes = np.asarray(case_codes, dtype=object)
     days = np.asarray(days, dtype=np.int64)
@@ -172,7 +172,7 @@ def unscorable_reasons(model, timelines) -> np.ndarray:
     -------
     ndarray of object, shape (n_cases,)
     """
-    from hmm.inference import contacts_after_absorbing_entry, effective_allowed_stages
+    from hmm.exact_entry import contacts_after_absorbing_entry, effective_allowed_stages
 
     n_cases = timelines.n_cases
     reasons = np.full(n_cases, "", dtype=object)

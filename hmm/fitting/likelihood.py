@@ -21,7 +21,7 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from ..inference import effective_allowed_stages
+from ..exact_entry import effective_allowed_stages
 from ..model import StageModel
 from ..timelines import Timelines
 from .expm_derivative import adjoint_derivative, decompose, transition_matrices
@@ -101,7 +101,7 @@ def prepare(model: StageModel, timelines: Timelines, spec: ParameterSpec | None 
         exact_mask[model.stage_index(name)] = True
     allowed_rows = timelines.allowed_stages[order]
     single = allowed_rows.sum(axis=1) == 1
-    # the exact-entry convention has one home (hmm.inference.effective_allowed_stages)
+    # the exact-entry convention has one home (hmm.exact_entry.effective_allowed_stages)
     allowed_rows = effective_allowed_stages(model, allowed_rows)
     allowed_steps = allowed_rows[step_rows]
     # an entry is a single-stage record of an exact-entry stage not already known at the contact before

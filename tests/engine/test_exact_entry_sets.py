@@ -1,6 +1,6 @@
 """Known-stage sets that include an exact-entry stage, and contacts after a recorded entry.
 
-The meaning (hmm.inference.effective_allowed_stages): a set such as ``B|D`` is an ordinary "one of
+The meaning (hmm.exact_entry.effective_allowed_stages): a set such as ``B|D`` is an ordinary "one of
 these on that date" record, so D stays allowed with the probability P(prev -> D, gap) (entered on or
 before that date); only a record of D alone dates the entry (density sum_r P(prev -> r) Q[r, D]).
 The checks compare the forward algorithm with a brute-force sum over every stage sequence at the
