@@ -15,6 +15,7 @@ import numpy as np
 
 from caseview.errors import InputError
 from hmm.forecasting import forecast, reach_probability
+from hmm.model import MAX_RATE_PER_DAY
 
 from .rules import RuleSet, default_rules
 
@@ -102,10 +103,18 @@ def check_changes(changes: dict, model) -> dict:
 
 
 def changed_covariates(covariates: np.ndarray, model, changes: dict) -> np.ndarray:
-    """Copy of ``covariates`` (n, K) with the named columns set to the new values."""
+    """Copy of ``covariates`` (n, K) with the named columns set to the new values.
+
+    Raises InputError when the new values make a transition rate overflow for some case (only
+    possible for a covariate without a declared range; see ``hmm.model.MAX_RATE_PER_DAY``).
+    """
     out = np.array(covariates, dtype=float, copy=True)
     for name, value in changes.items():
         out[:, model.covariates.index(name)] = value
+    if changes and out.size and not model.usable_covariate_rows(out).all():
+        text = ", ".join(f"{k}={v:g}" for k, v in changes.items())
+        raise InputError(f"--set {text}: these values make a transition rate overflow (above "
+                         f"{MAX_RATE_PER_DAY:g} per day) for some case; choose values the model is meant for")
     return out
 
 

@@ -111,6 +111,9 @@ def test_import_refuses_a_covariate_outside_its_declared_range(tmp_path, capsys)
         assert ws.case_count() == 3          # nothing stored
     assert cli("whatif", path, "--as-of", "2026-11-30", "--set", "lives_alone=1000") == 2   # the same rule
     assert "lives_alone = 1000: outside the range of lives_alone" in capsys.readouterr().err
+    unranged = make_workspace(tmp_path, HEALTHY, ranges=False, name="unranged.cvw")
+    assert cli("whatif", unranged, "--as-of", "2026-11-30", "--set", "lives_alone=1e6") == 2   # not silent nan
+    assert "make a transition rate overflow" in capsys.readouterr().err
 
 
 # ---------------------------------------------------------------- model values
