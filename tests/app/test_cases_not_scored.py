@@ -217,6 +217,16 @@ def test_a_stored_contradictory_case_is_marked_in_score_flags_and_report(impossi
     assert "HS-0003" in capsys.readouterr().err
     history = tmp_path / "history.csv"
     assert cli("history", impossible_workspace, "HS-0003", "--out", history) == EXIT_CASES_NOT_SCORED
+    from tests.reports.reports_helpers import pdf_page_texts, squash
+
+    pdf = tmp_path / "report.pdf"
+    assert cli("report", impossible_workspace, "--as-of", "2026-11-30", "--out", pdf) == EXIT_CASES_NOT_SCORED
+    cover = squash(pdf_page_texts(pdf)[0])
+    assert "1 case(s) cannot be scored" in cover and squash(f"HS-0003: {reason}") in cover
+    shared = tmp_path / "shared.csv"
+    assert cli("report", impossible_workspace, "--as-of", "2026-11-30", "--out", shared, "--dates",
+               "relative") == EXIT_CASES_NOT_SCORED
+    assert "2026-" not in read(shared)["HS-0003"]["flags"]       # no calendar date in a de-identified report
 
 
 def test_fit_refuses_a_workspace_holding_an_impossible_case(impossible_workspace, capsys):
