@@ -14,7 +14,7 @@ from typing import Any
 
 import numpy as np
 
-from hmm.model import Channel, ModelError, StageModel, Transition, largest_rate, rate_limit_problem
+from hmm.model import UNDECLARED_RANGE, Channel, ModelError, StageModel, Transition, rate_limit_problem
 
 from .errors import InputError
 from .textfiles import decode_json, read_utf8_text
@@ -120,11 +120,10 @@ def model_from_dict(data: Any, source: str = "model") -> StageModel:
                 p.fail(f"{where}.effects.{cov}", f"unknown covariate (declared: {', '.join(covariates) or 'none'})")
             effects[cov] = _number(p, f"{where}.effects.{cov}", beta)
         problem = rate_limit_problem(rate, effects, ranges)
-        if problem:  # name the value to correct: the rate itself, or the effect that pushes it furthest
-            corner = largest_rate(rate, effects, ranges)[1]
-            pushes = {c: effects[c] * corner[c] for c in corner}
-            worst = max(pushes, key=pushes.get, default=None)
-            blame = f"{where}.rate" if rate_limit_problem(rate, {}, ranges) or worst is None or pushes[worst] <= 0 \
+        if problem:  # name the value to correct: the rate itself, or the effect that can push it furthest
+            reach = {c: abs(b) * max(map(abs, ranges.get(c) or UNDECLARED_RANGE)) for c, b in effects.items()}
+            worst = max(reach, key=reach.get, default=None)
+            blame = f"{where}.rate" if rate_limit_problem(rate, {}, ranges) or not reach.get(worst) \
                 else f"{where}.effects.{worst}"
             p.fail(blame, f"{stages[r]} -> {stages[s]}: {problem}")
         fixed_effects = _string_list(p, t, "fixed_effects", prefix=where)

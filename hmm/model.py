@@ -18,7 +18,8 @@ from dataclasses import dataclass, field, replace
 
 import numpy as np
 
-__all__ = ["Transition", "Channel", "StageModel", "ModelError", "MAX_RATE_PER_DAY", "UNDECLARED_RANGE",
+__all__ = ["Transition", "Channel", "StageModel", "ModelError", "MAX_RATE_PER_DAY", "MIN_POSITIVE_RATE_PER_DAY",
+           "UNDECLARED_RANGE",
            "largest_rate", "rate_limit_problem"]
 
 #: Largest transition rate per day a model may reach anywhere in its covariate ranges.
@@ -31,13 +32,17 @@ __all__ = ["Transition", "Channel", "StageModel", "ModelError", "MAX_RATE_PER_DA
 #: Larger values come from typos (1e100) or runaway effects (800 per unit) and made every
 #: probability of the affected cases zero.
 MAX_RATE_PER_DAY = 1e10
+#: Smallest value a positive rate may fall to over the covariate ranges: below it ``exp`` underflows
+#: to zero (float64's smallest normal number is 2.2e-308), so a move the model allows would silently
+#: become impossible for some covariate values (effects of -800). A rate of exactly 0 rules a move out.
+MIN_POSITIVE_RATE_PER_DAY = 1e-300
 #: Covariate values assumed when checking a model whose covariate has no declared range: one unit
 #: either side of zero ("one unit of the covariate may not push a rate past the limit").
 UNDECLARED_RANGE = (-1.0, 1.0)
 
 
-def largest_rate(rate: float, effects: dict, ranges: dict) -> tuple:
-    """Largest value of ``rate * exp(beta . x)`` over a box of covariate values, on the log scale.
+def largest_rate(rate: float, effects: dict, ranges: dict, smallest: bool = False) -> tuple:
+    """Largest (or ``smallest``) value of ``rate * exp(beta . x)`` over a box of covariate values, on the log scale.
 
     Parameters
     ----------
@@ -62,7 +67,7 @@ def largest_rate(rate: float, effects: dict, ranges: dict) -> tuple:
     corner = {}
     for name, beta in effects.items():
         low, high = ranges.get(name) or UNDECLARED_RANGE
-        x = high if beta * high >= beta * low else low
+        x = high if (beta * high >= beta * low) != smallest else low
         corner[name] = x
         log_rate += float(beta) * float(x)
     return log_rate, corner
@@ -83,6 +88,12 @@ def rate_limit_problem(rate: float, effects: dict, ranges: dict) -> str | None:
                        for k, v in corner.items() if effects.get(k))
         return (f"with {at} the rate reaches {rate:g} * exp({log_rate - np.log(rate):.4g}) per day, {limit} "
                 "(an effect far too large for the covariate's values? declare the covariate's range)")
+    log_low, corner = largest_rate(rate, effects, ranges, smallest=True)
+    if rate > 0 and log_low < np.log(MIN_POSITIVE_RATE_PER_DAY):
+        at = ", ".join(f"{k} = {v:g}" for k, v in corner.items() if effects.get(k))
+        return (f"with {at} the rate falls to {rate:g} * exp({log_low - np.log(rate):.4g}) per day, below "
+                f"{MIN_POSITIVE_RATE_PER_DAY:g}: it would vanish in floating point (a degenerate generator); use "
+                "a rate of 0 to rule a move out")
     return None
 
 

@@ -117,10 +117,12 @@ def test_import_refuses_a_covariate_outside_its_declared_range(tmp_path, capsys)
 
 
 # ---------------------------------------------------------------- model values
-@pytest.mark.parametrize("where, value, path", [("rate", 1e100, "transitions[0].rate"),
-                                                ("effect", 800, "transitions[0].effects.lives_alone")])
-def test_model_values_that_overflow_are_refused_with_their_json_path(tmp_path, capsys, where, value, path):
-    data = model_json(ranges=False)
+@pytest.mark.parametrize("where, value, path, says", [
+    ("rate", 1e100, "transitions[0].rate", "above the limit of 1e+10 per day"),
+    ("effect", 800, "transitions[0].effects.lives_alone", "above the limit of 1e+10 per day"),
+    ("effect", -800, "transitions[0].effects.lives_alone", "would vanish in floating point")])
+def test_model_values_that_overflow_are_refused_with_their_json_path(tmp_path, capsys, where, value, path, says):
+    data = model_json(ranges=value < 0)    # without a range, -1..1 is checked: -800 would overflow at -1
     if where == "rate":
         data["transitions"][0]["rate"] = value
     else:
@@ -129,7 +131,7 @@ def test_model_values_that_overflow_are_refused_with_their_json_path(tmp_path, c
     model.write_text(json.dumps(data), encoding="utf-8")
     assert cli("init", tmp_path / "ws.cvw", "--model", model) == 2   # before: accepted, then all-zero scores
     err = capsys.readouterr().err
-    assert f"{path}:" in err and "above the limit of 1e+10 per day" in err
+    assert f"{path}:" in err and says in err
     assert not (tmp_path / "ws.cvw").exists()
 
 
