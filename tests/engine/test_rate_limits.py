@@ -53,6 +53,8 @@ def test_model_refuses_rates_that_overflow():
     with pytest.raises(ModelError, match="above the limit"):
         _model(effect=30.0, ranges=((0.0, 1.0),))         # 0.015 * exp(30) = 1.6e11
     _model(effect=30.0, ranges=((-5.0, 0.5),))            # the same effect is fine over these values
+    with pytest.raises(ModelError, match="vanish in floating point"):
+        _model(effect=-800.0, ranges=((0.0, 1.0),))       # exp(-800) underflows: the move would silently vanish
     # the largest fitted values (rate 10 per day, log hazard ratio 20) pass on a 0..1 covariate
     assert rate_limit_problem(10.0, {"x": 20.0}, {"x": (0.0, 1.0)}) is None
     assert "x = 1" in rate_limit_problem(10.0, {"x": 25.0}, {"x": (0.0, 1.0)})
