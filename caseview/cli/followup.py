@@ -100,7 +100,11 @@ def run_flags(args) -> int:
 
     as_of = parse_date(args.as_of, "--as-of")
     with open_workspace(args.workspace) as ws:
-        a = assess_caseload(ws, as_of, args.horizon, save_snapshot=args.save, actor=actor_name(args))
+        if ws.read_only and not args.save:
+            print(f"caseview: note: {ws.path} is read-only: dismissed flags that would re-open are not re-opened",
+                  file=sys.stderr)
+        a = assess_caseload(ws, as_of, args.horizon, save_snapshot=args.save, actor=actor_name(args),
+                            reopen=not ws.read_only)
     s = a.scores
     rows = a.order[a.is_flagged[a.order]]
     due = a.next_contact_due_day[rows]

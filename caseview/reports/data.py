@@ -104,6 +104,8 @@ class ReportData:
     model: ModelSummary
     audit_head: str
     options: dict = field(default_factory=dict)
+    outlook: object | None = None   # caseview.followup.outlook.Outlook (reports/outlook_page.py)
+    outlook_note: str = ""
     not_scored: list = field(default_factory=list)  # [(case_id, coordinator, reason)] in scope, never in figures
 
     @property
@@ -185,6 +187,9 @@ def collect_report_data(ws, as_of: dt.date, *, horizon_days: float = 90.0, coord
     progress(0.95)
     model, version = ws.current_model()
     summary = summarise_model(scores.model, version)
+    from .outlook_page import collect_outlook
+
+    outlook, outlook_note = collect_outlook(scores, version, as_of, coordinator or None)
     view = DateView(dates, scores.first_contact_day, seed=seed)
     lost = scores.unscorable
     not_scored = [(str(c), str(k or ""), withhold_dates(str(r)) if view.deidentified else str(r))
@@ -200,7 +205,7 @@ def collect_report_data(ws, as_of: dt.date, *, horizon_days: float = 90.0, coord
         options={"horizon_days": float(horizon_days), "coordinator": coordinator or None,
                  "flagged_only": bool(flagged_only), "since": since.isoformat() if since else None,
                  "dates": dates, "seed": "given" if seed is not None else None},
-        not_scored=not_scored,
+        outlook=outlook, outlook_note=outlook_note, not_scored=not_scored,
     )
 
 
