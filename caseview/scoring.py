@@ -100,6 +100,9 @@ class CaseloadScores:
         Probability of being in each stage at least once between the as-of date and the horizon.
     p_follow_up_now, p_reach_follow_up : ndarray, shape (n_cases,)
         The same for the follow-up stages taken together.
+    p_at_last_contact : ndarray, shape (n_cases, n_stages), or None
+        Stage probabilities at the last contact (filtered); the schedule uses them to date when a
+        case went over the follow-up threshold between that contact and the as-of date.
     unscorable : UnscorableCases
         Cases left out of every array above because they cannot be scored (a covariate outside
         its range, a rate that overflows, a contradictory or impossible record), with the reason;
@@ -128,6 +131,7 @@ class CaseloadScores:
     log_likelihood: np.ndarray
     caseload: object
     timelines: Timelines
+    p_at_last_contact: np.ndarray | None = None
     unscorable: UnscorableCases = field(default_factory=_no_unscorable)
 
     @property
@@ -234,7 +238,8 @@ def score_loaded(caseload, model: StageModel, as_of_day: int, horizon_days: floa
         return CaseloadScores(
             dt.date.fromordinal(EPOCH.toordinal() + as_of_day), as_of_day, float(horizon_days), model, model_version,
             np.zeros(0, dtype=object), np.zeros(0, dtype=object), ints, ints, ints, ints, ints, empty, ints, empty,
-            empty, zeros, zeros, np.zeros((0, model.n_covariates)), zeros, caseload, timelines, unscorable)
+            empty, zeros, zeros, np.zeros((0, model.n_covariates)), zeros, caseload, timelines,
+            p_at_last_contact=empty, unscorable=unscorable)
     p_now = stage_probabilities_now(model, timelines, float(as_of_day), filtered=result.filtered)
     last = timelines.last_index
     last_covariates = timelines.covariates[last]
@@ -272,6 +277,7 @@ def score_loaded(caseload, model: StageModel, as_of_day: int, horizon_days: floa
         log_likelihood=result.log_likelihood,
         caseload=caseload,
         timelines=timelines,
+        p_at_last_contact=result.filtered[last],
         unscorable=unscorable,
     )
 

@@ -303,6 +303,7 @@ def run_history(args) -> int:
     write_table(args.out, header, columns)
     if args.out != "-":
         print(f"case {args.case_id}: {n} contacts (model version {version.id}); wrote {args.out}")
+        print("path_stage is the most likely sequence of stages: an estimate, not a record.")
         print(ADVISORY_NOTICE)
     if reason:
         from caseview.errors import EXIT_CASES_NOT_SCORED

@@ -211,3 +211,33 @@ def reopen_dismissed(ws, candidates: list, as_of: dt.date, flags_by_case: dict) 
                             flags_by_case.get(code, ""), now, as_of.isoformat())
             done.append(code)
     return done
+
+
+def pending_reopens(ws, assessment) -> list:
+    """Dismissed flags the assessment would re-open (read only; nothing is written).
+
+    Returns
+    -------
+    list of (case_id, value_at_dismissal, value_now), as :func:`reopen_candidates`.
+    """
+    from caseview.storage import followup_store as store
+
+    scores = assessment.scores
+    return reopen_candidates(store.latest_reviews(ws.connection), scores.case_ids, scores.p_follow_up_now,
+                             scores.as_of)
+
+
+def reopen_risen(ws, assessment) -> list:
+    """The explicit, audited step that re-opens dismissed flags whose risk rose (window and CLI).
+
+    Loading a caseload never writes; this is what a person asks for (the window's risk queue
+    offers it when :func:`pending_reopens` finds any).
+
+    Returns
+    -------
+    list[str]
+        Case IDs set back to ``new`` (one ``review.reopened`` audit entry each).
+    """
+    candidates = pending_reopens(ws, assessment)
+    flags_by_case = dict(zip(map(str, assessment.scores.case_ids), assessment.flags))
+    return reopen_dismissed(ws, candidates, assessment.scores.as_of, flags_by_case)
