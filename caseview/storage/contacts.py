@@ -351,6 +351,11 @@ def allowed_stages_for_model(stage_known: np.ndarray, model: StageModel) -> np.n
     return allowed
 
 
+def stored_case_codes(connection) -> list:
+    """Every stored case ID, in the order the cases were added (the importer matches new IDs to them)."""
+    return [code for (code,) in connection.execute("SELECT case_code FROM cases ORDER BY id")]
+
+
 def contacts_of_cases_with_stage(connection, stage_names) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
     """Every contact of the cases that have a contact recording one of ``stage_names`` alone.
 
