@@ -25,3 +25,21 @@ class WorkspaceBusy(WorkspaceError):
 
 class Cancelled(Exception):
     """Raised from a progress callback to stop a long computation cleanly."""
+
+
+#: Exit code of ``score``, ``flags`` and ``report`` when some cases cannot be scored: every other case
+#: was scored and written, those cases are marked "cannot be scored" with the reason in the output and
+#: named on stderr. (3 is :class:`WorkspaceBusy`.)
+EXIT_CASES_NOT_SCORED = 4
+
+
+class FitRefused(CaseviewError):
+    """A fit that cannot be run or whose result cannot be saved (nothing was saved)."""
+
+    exit_code = 1
+
+
+class CaseNotScored(CaseviewError):
+    """The case asked about cannot be scored (the message gives the reason)."""
+
+    exit_code = EXIT_CASES_NOT_SCORED

@@ -14,7 +14,7 @@ from typing import Any
 
 import numpy as np
 
-from hmm.model import Channel, ModelError, StageModel, Transition, UnscheduledContacts
+from hmm.model import UNDECLARED_RANGE, Channel, ModelError, StageModel, Transition, UnscheduledContacts, rate_limit_problem
 
 from .errors import InputError
 from .textfiles import decode_json, read_utf8_text
@@ -75,7 +75,7 @@ def model_from_dict(data: Any, source: str = "model") -> StageModel:
             p.fail(where, f"unknown stage {value!r} (stages: {', '.join(stages)})")
         return index[value]
 
-    covariates = []
+    covariates, ranges = [], {}
     for i, cov in enumerate(_list(p, data, "covariates")):
         where = f"covariates[{i}]"
         if not isinstance(cov, dict) or not isinstance(cov.get("name"), str) or not cov["name"].strip():
@@ -83,6 +83,8 @@ def model_from_dict(data: Any, source: str = "model") -> StageModel:
         if cov.get("kind", "numeric") != "numeric":
             p.fail(f"{where}.kind", f'only "numeric" covariates are supported, got {cov.get("kind")!r}')
         covariates.append(cov["name"])
+        if "range" in cov:
+            ranges[cov["name"]] = _range(p, f"{where}.range", cov["range"])
     _no_duplicates(p, "covariates", covariates)
 
     initial = data.get("initial")
@@ -118,6 +120,13 @@ def model_from_dict(data: Any, source: str = "model") -> StageModel:
             if cov not in covariates:
                 p.fail(f"{where}.effects.{cov}", f"unknown covariate (declared: {', '.join(covariates) or 'none'})")
             effects[cov] = _number(p, f"{where}.effects.{cov}", beta)
+        problem = rate_limit_problem(rate, effects, ranges)
+        if problem:  # name the value to correct: the rate itself, or the effect that can push it furthest
+            reach = {c: abs(b) * max(map(abs, ranges.get(c) or UNDECLARED_RANGE)) for c, b in effects.items()}
+            worst = max(reach, key=reach.get, default=None)
+            blame = f"{where}.rate" if rate_limit_problem(rate, {}, ranges) or not reach.get(worst) \
+                else f"{where}.effects.{worst}"
+            p.fail(blame, f"{stages[r]} -> {stages[s]}: {problem}")
         fixed_effects = _string_list(p, t, "fixed_effects", prefix=where)
         for cov in fixed_effects:
             if cov not in effects:
@@ -177,6 +186,7 @@ def model_from_dict(data: Any, source: str = "model") -> StageModel:
             covariates=tuple(covariates), follow_up_stages=tuple(follow_up), exact_entry_stages=tuple(exact),
             initial_fixed=_bool(p, "initial_fixed", data.get("initial_fixed", False)),
             name=str(data.get("name", "stage model")), unscheduled_contacts=unscheduled,
+            covariate_ranges=tuple(ranges.get(c) for c in covariates) if ranges else (),
         )
     except ModelError as exc:
         raise InputError(f"{source}: {exc}") from None
@@ -208,7 +218,9 @@ def model_to_dict(model: StageModel, extra: dict | None = None) -> dict:
         if c.fixed_stages:
             item["fixed_stages"] = [model.stages[r] for r in sorted(c.fixed_stages)]
         out["channels"].append(item)
-    out["covariates"] = [{"name": n, "kind": "numeric"} for n in model.covariates]
+    ranges = model.range_of
+    out["covariates"] = [{"name": n, "kind": "numeric", **({"range": list(ranges[n])} if n in ranges else {})}
+                         for n in model.covariates]
     if model.follow_up_stages:
         out["follow_up_stages"] = list(model.follow_up_stages)
     if model.exact_entry_stages:
@@ -347,6 +359,16 @@ def _number(p: _Path, where: str, value, low: float | None = None, high: float |
     if high is not None and value > high:
         p.fail(where, f"must be <= {high:g}, got {value!r}")
     return float(value)
+
+
+def _range(p: _Path, where: str, value) -> tuple:
+    """A covariate's declared ``[low, high]`` (finite numbers, low <= high)."""
+    if not isinstance(value, list) or len(value) != 2:
+        p.fail(where, f"expected [low, high], two numbers, got {value!r}")
+    low, high = (_number(p, f"{where}[{j}]", v) for j, v in enumerate(value))
+    if low > high:
+        p.fail(where, f"low must not be above high, got [{low:g}, {high:g}]")
+    return (low, high)
 
 
 def _check_model_names(p: _Path, stages: list, channels: list, covariates: list) -> None:

@@ -8,7 +8,7 @@ as-of date, and forecasts to the horizon. Every number it returns is advisory.
 from __future__ import annotations
 
 import datetime as dt
-from dataclasses import dataclass
+from dataclasses import dataclass, field
 
 import numpy as np
 
@@ -50,6 +50,52 @@ def observation_end_day(timelines: Timelines) -> float:
 
 
 @dataclass(frozen=True)
+class UnscorableCases:
+    """Cases that cannot be scored, and why; arrays aligned, one row per such case (m rows).
+
+    Attributes
+    ----------
+    case_ids, coordinators : ndarray of object, shape (m,)
+    case_rows : ndarray of int64, shape (m,)
+        Rows in the loaded caseload.
+    last_contact_day, days_since_contact, n_contacts : ndarray of int64, shape (m,)
+    reasons : ndarray of object, shape (m,)
+        For example "contradictory record: contact on 2026-05-05 after the recorded entry into
+        absorbing stage Moved to residential care on 2026-03-05" (see :mod:`caseview.case_checks`).
+    """
+
+    case_ids: np.ndarray
+    coordinators: np.ndarray
+    case_rows: np.ndarray
+    last_contact_day: np.ndarray
+    days_since_contact: np.ndarray
+    n_contacts: np.ndarray
+    reasons: np.ndarray
+
+    @property
+    def n_cases(self) -> int:
+        return int(self.case_ids.shape[0])
+
+    def reason_of(self, case_id: str) -> str:
+        """'' when ``case_id`` is not among these cases."""
+        hits = np.flatnonzero(self.case_ids == case_id)
+        return str(self.reasons[hits[0]]) if hits.size else ""
+
+    def summary(self, limit: int = 3) -> str:
+        """One line naming the first ``limit`` cases with their reasons, and how many more."""
+        named = "; ".join(f"{c} ({r})" for c, r in zip(self.case_ids[:limit], self.reasons[:limit]))
+        more = f"; and {self.n_cases - limit} more" if self.n_cases > limit else ""
+        return (f"{self.n_cases} case{'s' if self.n_cases != 1 else ''} cannot be scored: {named}{more}"
+                if self.n_cases else "")
+
+
+def _no_unscorable() -> UnscorableCases:
+    ints = np.zeros(0, dtype=np.int64)
+    return UnscorableCases(np.zeros(0, dtype=object), np.zeros(0, dtype=object), ints, ints, ints, ints,
+                           np.zeros(0, dtype=object))
+
+
+@dataclass(frozen=True)
 class CaseloadScores:
     """Per-case scores as of one date; all arrays have one row per scored case.
 
@@ -66,6 +112,10 @@ class CaseloadScores:
     p_at_last_contact : ndarray, shape (n_cases, n_stages), or None
         Stage probabilities at the last contact (filtered); the schedule uses them to date when a
         case went over the follow-up threshold between that contact and the as-of date.
+    unscorable : UnscorableCases
+        Cases left out of every array above because they cannot be scored (a covariate outside
+        its range, a rate that overflows, a contradictory or impossible record), with the reason;
+        one case's failure never stops the others.
     """
 
     as_of: dt.date
@@ -91,6 +141,7 @@ class CaseloadScores:
     caseload: object
     timelines: Timelines
     p_at_last_contact: np.ndarray | None = None
+    unscorable: UnscorableCases = field(default_factory=_no_unscorable)
 
     @property
     def n_cases(self) -> int:
@@ -110,12 +161,72 @@ class CaseloadScores:
         return int(hits[0]) if hits.size else -1
 
 
+def _unscorable(caseload, timelines: Timelines, kept: np.ndarray, cases: np.ndarray, reasons: np.ndarray,
+                as_of_day: int) -> UnscorableCases:
+    """The record of ``cases`` (indices into ``timelines``) with their reasons, in case order."""
+    order = np.sort(cases)
+    last = timelines.times[timelines.last_index[order]].astype(np.int64)
+    rows = kept[order]
+    return UnscorableCases(np.asarray(caseload.case_ids)[rows], np.asarray(caseload.coordinators)[rows], rows, last,
+                           int(as_of_day) - last, timelines.n_contacts_per_case[order],
+                           np.asarray(reasons, dtype=object)[order])
+
+
+def split_unscorable(caseload, model: StageModel, timelines: Timelines, kept: np.ndarray, as_of_day: int):
+    """Set aside the cases that cannot be scored; run the forward pass on the others.
+
+    Parameters
+    ----------
+    caseload : caseview.storage.Caseload
+    model : StageModel
+    timelines : Timelines
+        The caseload's timelines (already cut to ``as_of_day``).
+    kept : ndarray of int64, shape (n_cases,)
+        Row of each of ``timelines``' cases in ``caseload``.
+    as_of_day : int
+
+    Returns
+    -------
+    timelines : Timelines
+        Only the cases that can be scored (the same object when that is all of them).
+    kept : ndarray of int64
+        Their rows in ``caseload``.
+    forward_result : hmm.inference.ForwardResult or None
+        Their forward pass (None when none is left).
+    unscorable : UnscorableCases
+    """
+    from .case_checks import IMPOSSIBLE_REASON, unscorable_reasons
+
+    reasons = unscorable_reasons(model, timelines)
+    scorable = reasons == ""
+    all_cases, all_kept = timelines, kept
+    if not scorable.all():
+        timelines, kept = timelines.subset(scorable), kept[scorable]
+    result = forward(model, timelines) if timelines.n_cases else None
+    if result is not None and not result.finite.all():
+        # evidence impossible under the model (or a numerical failure the checks did not foresee)
+        finite = result.finite
+        cases = np.flatnonzero(scorable)
+        reasons[cases[~finite]] = np.where(np.isneginf(result.log_likelihood[~finite]), IMPOSSIBLE_REASON,
+                                           "numerical failure: the likelihood is not a number")
+        scorable[cases[~finite]] = False
+        rows = np.repeat(finite, timelines.n_contacts_per_case)
+        result = type(result)(result.log_likelihood[finite], result.filtered[rows], result.log_scale[rows])
+        timelines, kept = timelines.subset(finite), kept[finite]
+    unscorable = _unscorable(caseload, all_cases, all_kept, np.flatnonzero(~scorable), reasons, as_of_day) \
+        if not scorable.all() else _no_unscorable()
+    return timelines, kept, result, unscorable
+
+
 def score_loaded(caseload, model: StageModel, as_of_day: int, horizon_days: float = 90.0,
                  model_version: int | None = None, callback=None) -> CaseloadScores:
     """Score an already loaded caseload (no database access).
 
     ``caseload`` is a :class:`caseview.storage.Caseload`; only its contacts on or before
     ``as_of_day`` are used and only cases whose first contact is on or before it are scored.
+    A case that cannot be scored (:func:`caseview.case_checks.unscorable_reasons`, or evidence
+    with probability zero under the model) is left out of the score arrays and listed in
+    ``unscorable`` with its reason; the other cases get exactly the numbers they would get alone.
     """
     if horizon_days < 0 or not np.isfinite(horizon_days):
         from .errors import InputError
@@ -125,6 +236,9 @@ def score_loaded(caseload, model: StageModel, as_of_day: int, horizon_days: floa
     timelines, kept = full.until(float(as_of_day))
     if callback:
         callback(0.1)
+    timelines, kept_now, result, unscorable = split_unscorable(caseload, model, timelines, kept, as_of_day)
+    if callback:
+        callback(0.5)
     n_stages = model.n_stages
     if timelines.n_cases == 0:
         empty = np.zeros((0, n_stages))
@@ -133,10 +247,8 @@ def score_loaded(caseload, model: StageModel, as_of_day: int, horizon_days: floa
         return CaseloadScores(
             dt.date.fromordinal(EPOCH.toordinal() + as_of_day), as_of_day, float(horizon_days), model, model_version,
             np.zeros(0, dtype=object), np.zeros(0, dtype=object), ints, ints, ints, ints, ints, empty, ints, empty,
-            empty, zeros, zeros, np.zeros((0, model.n_covariates)), zeros, caseload, timelines)
-    result = forward(model, timelines)
-    if callback:
-        callback(0.5)
+            empty, zeros, zeros, np.zeros((0, model.n_covariates)), zeros, caseload, timelines,
+            p_at_last_contact=empty, unscorable=unscorable)
     p_now = stage_probabilities_now(model, timelines, float(as_of_day), filtered=result.filtered)
     last = timelines.last_index
     last_covariates = timelines.covariates[last]
@@ -157,9 +269,9 @@ def score_loaded(caseload, model: StageModel, as_of_day: int, horizon_days: floa
         horizon_days=float(horizon_days),
         model=model,
         model_version=model_version,
-        case_ids=np.asarray(caseload.case_ids)[kept],
-        coordinators=np.asarray(caseload.coordinators)[kept],
-        case_rows=kept,
+        case_ids=np.asarray(caseload.case_ids)[kept_now],
+        coordinators=np.asarray(caseload.coordinators)[kept_now],
+        case_rows=kept_now,
         first_contact_day=timelines.times[timelines.first_index].astype(np.int64),
         last_contact_day=last_day,
         days_since_contact=int(as_of_day) - last_day,
@@ -175,6 +287,7 @@ def score_loaded(caseload, model: StageModel, as_of_day: int, horizon_days: floa
         caseload=caseload,
         timelines=timelines,
         p_at_last_contact=result.filtered[last],
+        unscorable=unscorable,
     )
 
 

@@ -19,6 +19,8 @@ Conventions
   so the target becomes absorbing, and the probability in the target at the horizon is read off.
 * Transition matrices are computed once per distinct (covariate row, gap) pair
   (:func:`hmm.transition.distinct_transition_matrices`).
+* A case whose covariates make a rate overflow (:meth:`hmm.StageModel.usable_covariate_rows`)
+  gets nan rows; the other cases are computed as usual.
 """
 
 from __future__ import annotations
@@ -35,24 +37,48 @@ from .transition import covariate_groups, distinct_transition_matrices
 __all__ = ["Forecast", "stage_probabilities_now", "forecast", "reach_probability", "occupancy_over_time"]
 
 
+def _generators(model: StageModel, distinct: np.ndarray) -> tuple:
+    """Generators of the distinct covariate rows, and which rows are usable, shape (g,).
+
+    A row whose rates overflow (:meth:`StageModel.usable_covariate_rows`) gets a zero generator
+    as a placeholder; callers set the results of the cases using it to nan, so one case's
+    numerical failure never stops the others.
+    """
+    with np.errstate(over="ignore", invalid="ignore"):
+        generators = model.generators(distinct)
+    usable = model.usable_covariate_rows(distinct)
+    if not usable.all():
+        generators[~usable] = 0.0
+    return generators, usable
+
+
 def _propagate(model: StageModel, probabilities: np.ndarray, covariates: np.ndarray, gaps: np.ndarray,
                rate_rows_zeroed: np.ndarray | None = None, quiet: bool = False) -> np.ndarray:
     """``p_i P_i(gap_i)`` with P from each row's covariates, optionally with some rows of Q zeroed.
 
     With ``quiet`` the generator is ``Q - Lambda`` (no unscheduled contact during the gap) and the
-    result is renormalised: the stage distribution given that nobody called.
+    result is renormalised: the stage distribution given that nobody called. Rows whose rates
+    overflow give nan (see :func:`_generators`).
     """
-    distinct, group = covariate_groups(np.asarray(covariates, dtype=float).reshape(probabilities.shape[0], -1))
-    generators = model.quiet_generators(distinct) if quiet else model.generators(distinct)
+    rows = np.asarray(covariates, dtype=float).reshape(probabilities.shape[0], model.n_covariates)
+    distinct, group = covariate_groups(rows)
+    generators, usable = _generators(model, distinct)
+    if quiet:
+        with np.errstate(over="ignore", invalid="ignore"):
+            generators = model.quiet_generators(distinct)
+        if not usable.all():
+            generators[~usable] = 0.0
     if rate_rows_zeroed is not None:
         generators = generators.copy()
         generators[:, rate_rows_zeroed, :] = 0.0
     matrices, index = distinct_transition_matrices(generators, gaps, group, sub_generators=quiet)
-    ahead = np.einsum("ns,nst->nt", probabilities, matrices[index])
+    result = np.einsum("ns,nst->nt", probabilities, matrices[index])
     if quiet:
-        total = ahead.sum(axis=1, keepdims=True)
-        ahead = ahead / np.where(total > 0, total, 1.0)
-    return ahead
+        total = result.sum(axis=1, keepdims=True)
+        result = result / np.where(total > 0, total, 1.0)
+    if not usable.all():
+        result[~usable[group]] = np.nan
+    return result
 
 
 def _propagate_variants(model: StageModel, probabilities: np.ndarray, covariates: np.ndarray, gaps: np.ndarray,
@@ -64,8 +90,8 @@ def _propagate_variants(model: StageModel, probabilities: np.ndarray, covariates
     generators that need it instead of one per variant); each matrix is the same as in a separate call.
     """
     n = probabilities.shape[0]
-    distinct, group = covariate_groups(np.asarray(covariates, dtype=float).reshape(n, -1))
-    base = model.generators(distinct)
+    distinct, group = covariate_groups(np.asarray(covariates, dtype=float).reshape(n, model.n_covariates))
+    base, usable = _generators(model, distinct)
     stacked = []
     for rows in zeroed:
         generators = base.copy()
@@ -77,7 +103,11 @@ def _propagate_variants(model: StageModel, probabilities: np.ndarray, covariates
     matrices, index = distinct_transition_matrices(np.concatenate(stacked), np.tile(gaps, len(zeroed)),
                                                    generator_index)
     index = index.reshape(len(zeroed), n)
-    return [np.einsum("ns,nst->nt", probabilities, matrices[index[v]]) for v in range(len(zeroed))]
+    results = [np.einsum("ns,nst->nt", probabilities, matrices[index[v]]) for v in range(len(zeroed))]
+    if not usable.all():
+        for result in results:
+            result[~usable[group]] = np.nan
+    return results
 
 
 def stage_probabilities_now(model: StageModel, timelines: Timelines, as_of, filtered: np.ndarray | None = None):
@@ -217,8 +247,8 @@ def occupancy_over_time(model: StageModel, probabilities, covariates, days) -> n
     if days.size and (not np.all(np.isfinite(days)) or days.min() < 0):
         raise ValueError("days must be offsets >= 0")
     n = probabilities.shape[0]
-    distinct, group = covariate_groups(np.asarray(covariates, dtype=float).reshape(n, -1))
-    generators = model.generators(distinct)
+    distinct, group = covariate_groups(np.asarray(covariates, dtype=float).reshape(n, model.n_covariates))
+    generators, usable = _generators(model, distinct)
     all_groups = np.repeat(np.arange(distinct.shape[0]), days.size)
     all_days = np.tile(days, distinct.shape[0])
     matrices = distinct_transition_matrices(generators, all_days, all_groups)
@@ -228,4 +258,6 @@ def occupancy_over_time(model: StageModel, probabilities, covariates, days) -> n
     for start in range(0, n, chunk):
         part = slice(start, start + chunk)
         result[part] = np.einsum("ns,ntsu->ntu", probabilities[part], table[group[part]])
+    if not usable.all():
+        result[~usable[group]] = np.nan
     return result

@@ -37,6 +37,7 @@ from dataclasses import dataclass, field
 
 import numpy as np
 
+from .exact_entry import _exact_entry_contacts, contacts_after_absorbing_entry, effective_allowed_stages
 from .model import StageModel
 from .timelines import Timelines
 from .contact_timing import unscheduled_steps
@@ -44,7 +45,7 @@ from .transition import covariate_groups, distinct_transition_matrices
 
 __all__ = [
     "ForwardResult", "contact_likelihoods", "forward", "backward",
-    "smoothed_probabilities", "most_likely_path",
+    "smoothed_probabilities", "most_likely_path", "effective_allowed_stages", "contacts_after_absorbing_entry",
 ]
 
 
@@ -118,6 +119,7 @@ class _Plan:
     step_matrices: np.ndarray     # (m, S, S)
     step_index: np.ndarray        # (n_contacts,) position-major; matrix for the step INTO each contact
     _row_positions: np.ndarray | None = None  # (n_contacts,) position-major row of each timelines row
+    unusable_cases: np.ndarray | None = None  # (n_cases,) bool: a step's generator overflowed; None if none
 
     def current(self, k: int) -> slice:
         return slice(self.base[k], self.base[k] + self.active_counts[k])
@@ -136,41 +138,6 @@ class _Plan:
         return np.take(values, self._row_positions, axis=0)
 
 
-def effective_allowed_stages(model: StageModel, allowed: np.ndarray) -> np.ndarray:
-    """Allowed stages once the exact-entry convention is applied, shape (n_contacts, n_stages).
-
-    An entry into an exact-entry stage is always recorded (and ends the ordinary contacts), so a
-    contact that is not a record of a single stage cannot be in an exact-entry stage. The fitting
-    likelihood (:mod:`hmm.fitting.likelihood`) applies the same convention.
-    """
-    if not model.exact_entry_stages:
-        return allowed
-    exact_mask = np.zeros(model.n_stages, dtype=bool)
-    for name in model.exact_entry_stages:
-        exact_mask[model.stage_index(name)] = True
-    single = allowed.sum(axis=1) == 1
-    drop = ~single & (allowed & ~exact_mask).any(axis=1)
-    if not drop.any():
-        return allowed
-    allowed = allowed.copy()
-    allowed[np.ix_(drop, exact_mask)] = False
-    return allowed
-
-
-def _exact_entry_contacts(model: StageModel, allowed: np.ndarray) -> np.ndarray:
-    """Boolean (n_contacts,): the contact records the exact date of entry into its one allowed stage."""
-    if not model.exact_entry_stages:
-        return np.zeros(allowed.shape[0], dtype=bool)
-    # Compare bit-packed rows with the one-stage patterns (much faster than row sums over bools).
-    packed = np.packbits(allowed, axis=1, bitorder="little")
-    result = np.zeros(allowed.shape[0], dtype=bool)
-    for name in model.exact_entry_stages:
-        pattern = np.zeros((1, model.n_stages), dtype=bool)
-        pattern[0, model.stage_index(name)] = True
-        result |= (packed == np.packbits(pattern, axis=1, bitorder="little")).all(axis=1)
-    return result
-
-
 def _prepare(model: StageModel, timelines: Timelines, method: str = "auto") -> _Plan:
     n_stages = model.n_stages
     if timelines.allowed_stages.shape[1] != n_stages:
@@ -181,6 +148,7 @@ def _prepare(model: StageModel, timelines: Timelines, method: str = "auto") -> _
     active_counts = counts.size - np.cumsum(np.bincount(counts, minlength=max_contacts + 1))[:max_contacts]
 
     n = timelines.n_contacts
+    unusable = None
     step_index = np.full(n, -1, dtype=np.int64)
     into = np.ones(n, dtype=bool)
     into[timelines.first_index] = False
@@ -188,10 +156,24 @@ def _prepare(model: StageModel, timelines: Timelines, method: str = "auto") -> _
     if into_rows.size:
         distinct, group = covariate_groups(timelines.covariates[into_rows - 1])
         gaps = timelines.times[into_rows] - timelines.times[into_rows - 1]
-        generators = model.generators(distinct)
+        with np.errstate(over="ignore", invalid="ignore"):
+            generators = model.generators(distinct)
+        usable = model.usable_covariate_rows(distinct)
         timing = model.unscheduled_contacts is not None
-        quiet = model.quiet_generators(distinct) if timing else generators
-        matrices, index = distinct_transition_matrices(quiet, gaps, group, method, sub_generators=timing)
+        if timing:
+            with np.errstate(over="ignore", invalid="ignore"):
+                quiet = model.quiet_generators(distinct)
+        if not usable.all():
+            # a rate that overflows (or passes MAX_RATE_PER_DAY) fails only the cases that use it:
+            # their steps become placeholders (identity) and forward marks them not finite
+            generators[~usable] = 0.0
+            if timing:
+                quiet[~usable] = 0.0
+            failed_contacts = np.zeros(n, dtype=bool)
+            failed_contacts[into_rows[~usable[group]]] = True
+            unusable = np.add.reduceat(failed_contacts.astype(np.int64), timelines.offsets[:-1]) > 0
+        matrices, index = distinct_transition_matrices(quiet if timing else generators, gaps, group, method,
+                                                       sub_generators=timing)
         exact_all = _exact_entry_contacts(model, timelines.allowed_stages)
         # an entry is a record of the stage not already recorded at the contact before (a second
         # record of an absorbing stage is a step within it, probability 1, not a new entry)
@@ -223,7 +205,7 @@ def _prepare(model: StageModel, timelines: Timelines, method: str = "auto") -> _
     base = np.concatenate([[0], np.cumsum(active_counts)[:-1]]).astype(np.int64)
     # the likelihoods are computed straight in position-major order (no second copy to reorder)
     return _Plan(layout, contact_likelihoods(model, timelines, layout), active_counts, base, matrices,
-                 np.take(step_index, layout))
+                 np.take(step_index, layout), unusable_cases=unusable)
 
 
 # --------------------------------------------------------------------------- forward-backward
@@ -234,7 +216,8 @@ class ForwardResult:
     Attributes
     ----------
     log_likelihood : ndarray, shape (n_cases,)
-        Log-likelihood of each case's timeline (``-inf`` if impossible under the model).
+        Log-likelihood of each case's timeline (``-inf`` if impossible under the model, ``nan``
+        if the case's covariates make a transition rate overflow; see :attr:`finite`).
     filtered : ndarray, shape (n_contacts, n_stages)
         P(stage at contact j | that case's evidence up to and including contact j); a row of zeros
         after the evidence became impossible.
@@ -246,6 +229,18 @@ class ForwardResult:
     filtered: np.ndarray
     log_scale: np.ndarray
     _plan: _Plan = field(default=None, repr=False)
+
+    @property
+    def finite(self) -> np.ndarray:
+        """ndarray of bool, shape (n_cases,): the case's log-likelihood is a finite number.
+
+        False for a case impossible under the model (``-inf``: for example a contact after a
+        recorded entry into an absorbing stage, see :func:`contacts_after_absorbing_entry`) and
+        for a case whose covariates make a rate overflow (``nan``; its ``filtered`` rows are nan).
+        The other cases' numbers do not depend on these: a notebook can keep
+        ``timelines.subset(result.finite)``.
+        """
+        return np.isfinite(self.log_likelihood)
 
 
 def _forward(plan: _Plan, initial: np.ndarray, timelines: Timelines) -> ForwardResult:
@@ -265,6 +260,9 @@ def _forward(plan: _Plan, initial: np.ndarray, timelines: Timelines) -> ForwardR
         log_scale = plan.to_rows(np.log(scale))
     filtered = plan.to_rows(filtered)
     log_likelihood = np.add.reduceat(log_scale, timelines.offsets[:-1]) if n else np.zeros(0)
+    if plan.unusable_cases is not None:
+        log_likelihood[plan.unusable_cases] = np.nan
+        filtered[np.repeat(plan.unusable_cases, timelines.n_contacts_per_case)] = np.nan
     return ForwardResult(log_likelihood, filtered, log_scale, plan)
 
 

@@ -18,7 +18,83 @@ from dataclasses import dataclass, field, replace
 
 import numpy as np
 
-__all__ = ["Transition", "Channel", "StageModel", "ModelError", "UnscheduledContacts"]
+__all__ = ["Transition", "Channel", "StageModel", "ModelError", "MAX_RATE_PER_DAY", "MIN_POSITIVE_RATE_PER_DAY",
+           "UNDECLARED_RANGE",
+           "largest_rate", "rate_limit_problem", "UnscheduledContacts"]
+
+#: Largest transition rate per day a model may reach anywhere in its covariate ranges.
+#: Records are kept by the day, so any rate above a few per day already means "at once"; this bound
+#: is far above that (a mean stay of 9 microseconds) so it never rejects a model that means
+#: something - fitted rates stop at 10 per day and fitted hazard ratios at exp(20), whose product is
+#: 4.9e9 - and far below float overflow (1.8e308): Q * gap then stays under 1.1e15 over the longest
+#: gap the accepted dates allow (1900-2199, 110,000 days), where scipy's expm (scaling and squaring)
+#: and the eigen path still return stochastic matrices (tests/engine/test_rate_limits.py checks it).
+#: Larger values come from typos (1e100) or runaway effects (800 per unit) and made every
+#: probability of the affected cases zero.
+MAX_RATE_PER_DAY = 1e10
+#: Smallest value a positive rate may fall to over the covariate ranges: below it ``exp`` underflows
+#: to zero (float64's smallest normal number is 2.2e-308), so a move the model allows would silently
+#: become impossible for some covariate values (effects of -800). A rate of exactly 0 rules a move out.
+MIN_POSITIVE_RATE_PER_DAY = 1e-300
+#: Covariate values assumed when checking a model whose covariate has no declared range: one unit
+#: either side of zero ("one unit of the covariate may not push a rate past the limit").
+UNDECLARED_RANGE = (-1.0, 1.0)
+
+
+def largest_rate(rate: float, effects: dict, ranges: dict, smallest: bool = False) -> tuple:
+    """Largest (or ``smallest``) value of ``rate * exp(beta . x)`` over a box of covariate values, on the log scale.
+
+    Parameters
+    ----------
+    rate : float
+        Baseline rate per day (covariates at zero), >= 0.
+    effects : dict[str, float]
+        Log hazard ratio per covariate name.
+    ranges : dict[str, tuple[float, float]]
+        ``(low, high)`` per covariate; a covariate without one uses :data:`UNDECLARED_RANGE`.
+
+    Returns
+    -------
+    log_rate : float
+        ``log`` of the largest rate (``-inf`` for a zero rate); the maximum of a linear function
+        over a box is at a corner, and each covariate's corner is chosen on its own.
+    corner : dict[str, float]
+        The covariate values where it is reached.
+    """
+    if rate <= 0:
+        return -np.inf, {}
+    log_rate = float(np.log(rate))
+    corner = {}
+    for name, beta in effects.items():
+        low, high = ranges.get(name) or UNDECLARED_RANGE
+        x = high if (beta * high >= beta * low) != smallest else low
+        corner[name] = x
+        log_rate += float(beta) * float(x)
+    return log_rate, corner
+
+
+def rate_limit_problem(rate: float, effects: dict, ranges: dict) -> str | None:
+    """Why ``rate * exp(beta . x)`` leaves the finite range allowed over the covariate ranges, or None.
+
+    The one rule for model values (model files, fitted models and :class:`StageModel` alike);
+    the limit is :data:`MAX_RATE_PER_DAY`.
+    """
+    limit = f"above the limit of {MAX_RATE_PER_DAY:g} per day"
+    if not np.isfinite(rate) or rate > MAX_RATE_PER_DAY:
+        return f"the rate {rate:g} per day is {limit} (a typing error?)"
+    log_rate, corner = largest_rate(rate, effects, ranges)
+    if np.isnan(log_rate) or log_rate > np.log(MAX_RATE_PER_DAY):
+        at = ", ".join(f"{k} = {v:g}" + ("" if ranges.get(k) else " (no range declared, so -1..1 is checked)")
+                       for k, v in corner.items() if effects.get(k))
+        return (f"with {at} the rate reaches {rate:g} * exp({log_rate - np.log(rate):.4g}) per day, {limit} "
+                "(an effect far too large for the covariate's values? declare the covariate's range)")
+    log_low, corner = largest_rate(rate, effects, ranges, smallest=True)
+    if rate > 0 and log_low < np.log(MIN_POSITIVE_RATE_PER_DAY):
+        at = ", ".join(f"{k} = {v:g}" for k, v in corner.items() if effects.get(k))
+        return (f"with {at} the rate falls to {rate:g} * exp({log_low - np.log(rate):.4g}) per day, below "
+                f"{MIN_POSITIVE_RATE_PER_DAY:g}: it would vanish in floating point (a degenerate generator); use "
+                "a rate of 0 to rule a move out")
+    return None
 
 
 class ModelError(ValueError):
@@ -144,6 +220,10 @@ class StageModel:
         Stages that call for follow-up (used by the application's rules).
     exact_entry_stages : tuple[str, ...]
         Absorbing stages whose entry date is known exactly when recorded.
+    covariate_ranges : tuple
+        Empty, or one ``(low, high)`` pair or None per covariate: the values the model is meant
+        for. Rates are checked against :data:`MAX_RATE_PER_DAY` over these ranges; the
+        application refuses and does not score covariate values outside them.
     initial_fixed : bool
         Keep ``initial`` at its value when fitting.
     name : str
@@ -162,6 +242,7 @@ class StageModel:
     initial_fixed: bool = False
     name: str = "stage model"
     unscheduled_contacts: UnscheduledContacts | None = None
+    covariate_ranges: tuple = ()
 
     def __post_init__(self):
         self.validate()
@@ -204,6 +285,20 @@ class StageModel:
                                      f"{self.stages[t.target]} must be a finite number")
         if len(set(self.covariates)) != len(self.covariates):
             raise ModelError("duplicate covariate names")
+        if self.covariate_ranges:
+            if len(self.covariate_ranges) != len(self.covariates):
+                raise ModelError(f"covariate_ranges has {len(self.covariate_ranges)} entries, expected one per "
+                                 f"covariate ({len(self.covariates)})")
+            for name, bounds in zip(self.covariates, self.covariate_ranges):
+                if bounds is not None and not (len(bounds) == 2 and np.all(np.isfinite(bounds))
+                                               and bounds[0] <= bounds[1]):
+                    raise ModelError(f"covariate {name!r}: range must be two finite numbers low <= high, "
+                                     f"got {bounds!r}")
+        ranges = self.range_of
+        for t in self.transitions:
+            problem = rate_limit_problem(t.rate, t.effects, ranges)
+            if problem:
+                raise ModelError(f"transition {self.stages[t.source]} -> {self.stages[t.target]}: {problem}")
         names = [c.name for c in self.channels]
         if len(set(names)) != len(names):
             raise ModelError("duplicate channel names")
@@ -268,6 +363,47 @@ class StageModel:
             return self.stages.index(name)
         except ValueError:
             raise ModelError(f"unknown stage {name!r} (stages: {', '.join(self.stages)})") from None
+
+    @property
+    def range_of(self) -> dict:
+        """Declared ``(low, high)`` per covariate name (covariates without a range are left out)."""
+        if not self.covariate_ranges:
+            return {}
+        return {name: (float(b[0]), float(b[1])) for name, b in zip(self.covariates, self.covariate_ranges)
+                if b is not None}
+
+    def with_covariate_ranges(self, ranges: dict) -> "StageModel":
+        """A copy whose covariates have these ranges ``{name: (low, high)}`` (others keep theirs)."""
+        current = self.range_of
+        current.update({k: (float(v[0]), float(v[1])) for k, v in ranges.items()})
+        return replace(self, covariate_ranges=tuple(current.get(name) for name in self.covariates))
+
+    def usable_covariate_rows(self, covariate_values: np.ndarray) -> np.ndarray:
+        """Which covariate rows give a generator the engine can use, ndarray of bool, shape (m,).
+
+        False where a rate ``rate * exp(beta . x)`` is not finite or exceeds
+        :data:`MAX_RATE_PER_DAY` (computed on the log scale, so nothing overflows).
+        """
+        x = np.atleast_2d(np.asarray(covariate_values, dtype=float))
+        active = [t for t in self.transitions if t.rate > 0]
+        if not x.size or not active:
+            return np.all(np.isfinite(x), axis=1)
+        limit = np.log(MAX_RATE_PER_DAY)
+        log_rates = np.log([t.rate for t in active])
+        beta = np.array([[t.effects.get(name, 0.0) for t in active] for name in self.covariates]).reshape(
+            self.n_covariates, len(active))
+        low = np.array([x[:, k].min() for k in range(x.shape[1])])    # column by column: far faster on
+        high = np.array([x[:, k].max() for k in range(x.shape[1])])   # a tall (n, K) array than axis=0
+        if np.all(np.isfinite(low)) and np.all(np.isfinite(high)):
+            # the largest log rate over the box the values span bounds every row's: usually all is well
+            with np.errstate(all="ignore"):
+                worst = log_rates + np.maximum(beta * low[:, None], beta * high[:, None]).sum(axis=0)
+            if np.all(worst <= limit):
+                return np.ones(x.shape[0], dtype=bool)
+        ok = np.all(np.isfinite(x), axis=1)
+        with np.errstate(all="ignore"):
+            row_log_rates = np.where(ok[:, None], x, 0.0) @ beta + log_rates
+        return ok & np.all(np.isfinite(row_log_rates) & (row_log_rates <= limit), axis=1)
 
     @property
     def absorbing_stages(self) -> tuple:

@@ -221,13 +221,51 @@ def run_score(args) -> int:
     header += ["flags", "coordinator", "p_follow_up_now", "p_reach_follow_up"]
     columns += [list(flags) if flags is not None else [""] * n, safe_text(scores.coordinators),
                 format_probabilities(scores.p_follow_up_now), format_probabilities(scores.p_reach_follow_up)]
+    lost = scores.unscorable
+    if lost.n_cases:  # one row each, in case order: blank numbers, the reason in the flags column
+        blank = [""] * lost.n_cases
+        extra = [safe_text(lost.case_ids), [as_of.isoformat()] * lost.n_cases, format_days(lost.last_contact_day),
+                 lost.days_since_contact.astype(str).tolist()] + [blank] * model.n_stages + \
+            [blank, [f"{scores.horizon_days:g}"] * lost.n_cases] + [blank] * model.n_stages + \
+            [unscorable_flags(lost), safe_text(lost.coordinators), blank, blank]
+        columns = merge_case_rows(columns, scores.case_ids, extra, lost.case_ids)
     write_table(args.out, header, columns)
     if args.out != "-":
         flagged = int(np.count_nonzero([bool(f) for f in flags])) if flags is not None else 0
         print(f"scored {n} cases as of {as_of.isoformat()} (horizon {scores.horizon_days:g} days, "
-              f"model version {scores.model_version}); {flagged} flagged; wrote {args.out}")
+              f"model version {scores.model_version}); {flagged} flagged"
+              + (f"; {lost.n_cases} cannot be scored" if lost.n_cases else "") + f"; wrote {args.out}")
         print(ADVISORY_NOTICE)
-    return 0
+    return report_unscorable(lost)
+
+
+# ---------------------------------------------------------------- cases that cannot be scored
+#: The flag a case that cannot be scored carries in every CSV (followed by ": <reason>").
+CANNOT_BE_SCORED = "cannot_be_scored"
+
+
+def unscorable_flags(lost) -> list:
+    """The flags cell of each case that cannot be scored: ``cannot_be_scored: <reason>``."""
+    return safe_text([f"{CANNOT_BE_SCORED}: {reason}" for reason in lost.reasons])
+
+
+def merge_case_rows(columns: list, case_ids, extra: list, extra_ids) -> list:
+    """Columns of two row sets merged into case-ID order (both sets already in that order)."""
+    import numpy as np
+
+    order = np.argsort(np.concatenate([np.asarray(case_ids, dtype=str), np.asarray(extra_ids, dtype=str)]),
+                       kind="stable")
+    return [np.asarray(list(a) + list(b), dtype=object)[order].tolist() for a, b in zip(columns, extra)]
+
+
+def report_unscorable(lost, where: str = f"marked '{CANNOT_BE_SCORED}' in the output") -> int:
+    """Name the cases that cannot be scored on stderr; the exit code (0 when every case was scored)."""
+    from caseview.errors import EXIT_CASES_NOT_SCORED
+
+    if not lost.n_cases:
+        return 0
+    print(f"caseview: {lost.summary()} ({where}; every other case was scored)", file=sys.stderr)
+    return EXIT_CASES_NOT_SCORED
 
 
 # ---------------------------------------------------------------- history
@@ -236,7 +274,7 @@ def run_history(args) -> int:
 
     from caseview.errors import InputError
     from caseview.scoring import parse_date, to_day
-    from hmm.inference import most_likely_path, smoothed_probabilities
+    from hmm.inference import forward, most_likely_path, smoothed_probabilities
 
     as_of_day = to_day(parse_date(args.as_of, "--as-of")) if args.as_of else None
     with open_workspace(args.workspace) as ws:
@@ -249,8 +287,17 @@ def run_history(args) -> int:
     case = int(hits[0])
     timelines = caseload.timelines.subset([case])
     rows = slice(caseload.timelines.offsets[case], caseload.timelines.offsets[case + 1])
-    smoothed = smoothed_probabilities(model, timelines)
-    path = most_likely_path(model, timelines)
+    from caseview.case_checks import IMPOSSIBLE_REASON, unscorable_reasons
+
+    reason = unscorable_reasons(model, timelines)[0]
+    if not reason:
+        result = forward(model, timelines)
+        reason = "" if result.finite[0] else IMPOSSIBLE_REASON
+    if reason:  # the recorded values, with blank probabilities and path; named on stderr, exit 4
+        smoothed, path = np.full((timelines.n_contacts, model.n_stages), np.nan), None
+    else:
+        smoothed = smoothed_probabilities(model, timelines, forward_result=result)
+        path = most_likely_path(model, timelines, forward_result=result)
     n = timelines.n_contacts
     header = ["case_id", "date"]
     columns = [[case_id] * n, format_days(caseload.contact_days[rows])]
@@ -265,14 +312,20 @@ def run_history(args) -> int:
         columns.append(list(caseload.raw_values["stage_known"][rows]))
     for s, stage in enumerate(model.stages):
         header.append(f"p_{stage}")
-        columns.append(format_probabilities(smoothed[:, s]))
+        columns.append(format_probabilities(smoothed[:, s]) if path is not None else [""] * n)
     header.append("path_stage")
-    columns.append([model.stages[i] for i in path])
+    columns.append([model.stages[i] for i in path] if path is not None else [""] * n)
     write_table(args.out, header, columns)
     if args.out != "-":
         print(f"case {case_id}: {n} contacts (model version {version.id}); wrote {args.out}")
         print("path_stage is the most likely sequence of stages: an estimate, not a record.")
         print(ADVISORY_NOTICE)
+    if reason:
+        from caseview.errors import EXIT_CASES_NOT_SCORED
+
+        print(f"caseview: case {args.case_id} cannot be scored: {reason} (its contacts are listed without "
+              "probabilities)", file=sys.stderr)
+        return EXIT_CASES_NOT_SCORED
     return 0
 
 

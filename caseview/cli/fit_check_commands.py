@@ -70,6 +70,9 @@ def run_check_fit(args) -> int:
         caseload = ws.load_caseload(model)
         if caseload.timelines.n_cases == 0:
             raise InputError(f"{args.workspace}: no contacts to check; import timelines first")
+        from caseview.operations.fit_guards import refuse_unscorable_cases
+
+        refuse_unscorable_cases(caseload, model)   # the same refusal as `caseview fit`
         if not version.fit_summary:
             print(f"caseview: note: model version {version.id} was entered, not fitted; the check compares the "
                   "caseload with the values as entered", file=sys.stderr)

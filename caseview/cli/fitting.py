@@ -50,6 +50,7 @@ def run_fit(args) -> int:
     from caseview.errors import Cancelled, InputError
     from caseview.modelfile import dump_model, save_model
     from caseview.scoring import observation_end_day
+    from caseview.operations.fit_guards import fitted_model_to_save, refuse_unscorable_cases, run_guarded
     from hmm.fitting import fit_model
 
     from .basic import actor_name, open_workspace, stderr_progress
@@ -66,12 +67,14 @@ def run_fit(args) -> int:
         caseload = ws.load_caseload(model)
         if caseload.timelines.n_cases == 0:
             raise InputError(f"{args.workspace}: no contacts to fit; import timelines first")
+        refuse_unscorable_cases(caseload, model)
         progress = stderr_progress("fitting")
 
         try:
-            result = fit_model(model, caseload.timelines, starts=args.starts, rng=np.random.default_rng(args.seed),
-                               penalised=args.penalised, callback=progress, max_iterations=args.max_iterations,
-                               observed_until=observation_end_day(caseload.timelines))
+            result = run_guarded(lambda: fit_model(
+                model, caseload.timelines, starts=args.starts, rng=np.random.default_rng(args.seed),
+                penalised=args.penalised, callback=progress, max_iterations=args.max_iterations,
+                observed_until=observation_end_day(caseload.timelines)))
         except (KeyboardInterrupt, Cancelled):
             if sys.stderr.isatty():
                 print(file=sys.stderr)
@@ -83,13 +86,14 @@ def run_fit(args) -> int:
         note = (f"fitted to {result.n_cases} cases from version {version.id}"
                 + (" (penalised)" if args.penalised else "")
                 + ("" if result.converged else " - DID NOT CONVERGE"))
+        to_save = fitted_model_to_save(result, caseload.timelines)
         with ws.transaction():  # the version and the --out file: both or neither
-            new_id = ws.add_model_version(dump_model(result.model), note, actor, fit_summary=summary,
+            new_id = ws.add_model_version(dump_model(to_save), note, actor, fit_summary=summary,
                                           make_current=True)
             if args.out:
-                save_model(result.model, args.out, extra={"fit": {k: summary[k] for k in
-                                                                   ("log_likelihood", "aic", "bic", "n_parameters",
-                                                                    "n_cases", "converged")}})
+                save_model(to_save, args.out, extra={"fit": {k: summary[k] for k in
+                                                             ("log_likelihood", "aic", "bic", "n_parameters",
+                                                              "n_cases", "converged")}})
     print(result.format_table())
     print(f"\nsaved as model version {new_id} (now current for scoring; version {version.id} kept)")
     if args.out:
@@ -98,13 +102,31 @@ def run_fit(args) -> int:
     return 0 if result.converged else 1
 
 
-def _summary_fit(version):
-    s = version.fit_summary or {}
-    if "log_likelihood" not in s:
+def _number(value):
+    """A finite float, or None (a failed fit stored None, -inf or nan)."""
+    import math
+
+    try:
+        value = float(value)
+    except (TypeError, ValueError):
         return None
-    return SimpleNamespace(log_likelihood=s["log_likelihood"], n_parameters=s["n_parameters"],
-                           n_cases=s.get("n_cases"), n_contacts=s.get("n_contacts"), aic=s["aic"], bic=s["bic"],
-                           names=set(s.get("free_parameters", [])))
+    return value if math.isfinite(value) else None
+
+
+def _summary_fit(version):
+    """The fit statistics of a version, or None when it was not fitted or its fit failed."""
+    s = version.fit_summary or {}
+    numbers = {key: _number(s.get(key)) for key in ("log_likelihood", "aic", "bic", "n_parameters")}
+    if any(value is None for value in numbers.values()):
+        return None
+    return SimpleNamespace(log_likelihood=numbers["log_likelihood"], n_parameters=int(numbers["n_parameters"]),
+                           n_cases=s.get("n_cases"), n_contacts=s.get("n_contacts"), aic=numbers["aic"],
+                           bic=numbers["bic"], names=set(s.get("free_parameters", [])))
+
+
+def _fit_state(version) -> str:
+    """'-' for a version never fitted, 'failed' for a fit whose statistics are not numbers."""
+    return "failed" if version.fit_summary and "log_likelihood" in version.fit_summary else "-"
 
 
 def _timing_comparison(first, second, first_fit, second_fit):
@@ -137,7 +159,8 @@ def run_models(args) -> int:
                     raise InputError(f"--compare: no model version {vid}")
                 fit = _summary_fit(versions[vid])
                 if fit is None:
-                    raise InputError(f"--compare: model version {vid} was not fitted (no log-likelihood to compare)")
+                    why = "its fit failed" if _fit_state(versions[vid]) == "failed" else "it was not fitted"
+                    raise InputError(f"--compare: model version {vid} has no log-likelihood to compare ({why})")
                 fits.append(fit)
             a, b = fits
             timing = _timing_comparison(versions[args.compare[0]], versions[args.compare[1]], a, b)
@@ -171,7 +194,8 @@ def run_models(args) -> int:
         print(f"{'id':>4}  {'created (UTC)':<20}  {'current':<7}  {'logL':>12}  {'AIC':>10}  {'BIC':>10}  note")
         for v in versions.values():
             fit = _summary_fit(v)
+            state = _fit_state(v)
             numbers = (f"{fit.log_likelihood:>12.2f}  {fit.aic:>10.1f}  {fit.bic:>10.1f}" if fit else
-                       f"{'-':>12}  {'-':>10}  {'-':>10}")
+                       f"{state:>12}  {'-':>10}  {'-':>10}")
             print(f"{v.id:>4}  {v.created_utc[:19]:<20}  {'yes' if v.is_current else '':<7}  {numbers}  {v.note}")
     return 0

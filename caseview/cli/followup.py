@@ -11,8 +11,8 @@ import sys
 
 from caseview import ADVISORY_NOTICE
 
-from .basic import (actor_name, add_actor_option, format_days, format_probabilities, open_workspace, safe_text,
-                    write_table)
+from .basic import (CANNOT_BE_SCORED, actor_name, add_actor_option, format_days, format_probabilities,
+                    open_workspace, report_unscorable, safe_text, write_table)
 
 STATUS_CHOICES = ("acknowledged", "actioned", "dismissed")
 
@@ -122,9 +122,17 @@ def run_flags(args) -> int:
                safe_text(a.reviewed_by[rows]), list(a.reviewed_at[rows]), safe_text(a.review_note[rows]),
                list(s.most_likely_stage_names[rows]),
                s.days_since_contact[rows].astype(str).tolist(), [f"{v:.4f}" for v in a.priority[rows]]]
+    lost = s.unscorable
+    if lost.n_cases:  # needing attention before any flag: listed first, the reason in the reason column
+        blank = [""] * lost.n_cases
+        columns = [list(a) + list(b) for a, b in zip(
+            [safe_text(lost.case_ids), safe_text(lost.coordinators), [CANNOT_BE_SCORED] * lost.n_cases,
+             safe_text(lost.reasons)] + [blank] * (header.index("days_since_contact") - 4)
+            + [lost.days_since_contact.astype(str).tolist(), blank], columns)]
     write_table(args.out, header, columns)
     out = sys.stderr if args.out == "-" else sys.stdout
     print(f"{n} of {plural(s.n_cases, 'case')} flagged as of {as_of.isoformat()} (horizon {s.horizon_days:g} days)"
+          + (f"; {lost.n_cases} cannot be scored (listed first)" if lost.n_cases else "")
           + (f"; wrote {args.out}" if args.out != "-" else ""), file=out)
     for rule in a.rules:
         state = "" if rule.enabled else " (switched off)"
@@ -147,7 +155,7 @@ def run_flags(args) -> int:
                   file=out)
         print("why the first one is flagged: " + str(a.reason_text[rows[0]]), file=out)
     print(ADVISORY_NOTICE, file=out)
-    return 0
+    return report_unscorable(lost)
 
 
 # ---------------------------------------------------------------- reviews
@@ -257,7 +265,7 @@ def run_whatif(args) -> int:
     print(f"  likely to reach a follow-up stage (P >= {rules['likely_to_reach_follow_up'].threshold:.2f}): "
           f"{result.reaching_without} without, {result.reaching_with} with the change")
     print(ADVISORY_NOTICE)
-    return 0
+    return report_unscorable(scores.unscorable, "left out of these counts")
 
 
 # ---------------------------------------------------------------- rules

@@ -55,4 +55,12 @@ def run_report(args) -> int:
     print(f"audit chain head in the report: {result.audit_head}")
     print(f"report recorded as audit entry {result.entry_id}; audit chain head now: {result.entry_hash}")
     print(ADVISORY_NOTICE)
+    if result.not_scored:
+        from caseview.errors import EXIT_CASES_NOT_SCORED
+
+        named = "; ".join(f"{c} ({r})" for c, _, r in result.not_scored[:3])
+        more = f"; and {len(result.not_scored) - 3} more" if len(result.not_scored) > 3 else ""
+        print(f"caseview: {len(result.not_scored)} case(s) cannot be scored: {named}{more} (marked in the report; "
+              "every other case was scored)", file=sys.stderr)
+        return EXIT_CASES_NOT_SCORED
     return 0

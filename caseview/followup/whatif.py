@@ -15,6 +15,7 @@ import numpy as np
 
 from caseview.errors import InputError
 from hmm.forecasting import forecast, reach_probability
+from hmm.model import MAX_RATE_PER_DAY
 
 from .rules import RuleSet, default_rules
 
@@ -92,15 +93,28 @@ def check_changes(changes: dict, model) -> dict:
             raise InputError(f"covariate {name}: expected a number, got {value!r}") from None
         if not math.isfinite(number):
             raise InputError(f"covariate {name}: expected a finite number, got {value!r}")
+        bounds = model.range_of.get(name)
+        from caseview.case_checks import covariate_range_problem, outside_range
+
+        if bounds is not None and outside_range(number, *bounds):
+            raise InputError(f"covariate {name} = {number:g}: {covariate_range_problem(name, *bounds)}")
         out[name] = number
     return out
 
 
 def changed_covariates(covariates: np.ndarray, model, changes: dict) -> np.ndarray:
-    """Copy of ``covariates`` (n, K) with the named columns set to the new values."""
+    """Copy of ``covariates`` (n, K) with the named columns set to the new values.
+
+    Raises InputError when the new values make a transition rate overflow for some case (only
+    possible for a covariate without a declared range; see ``hmm.model.MAX_RATE_PER_DAY``).
+    """
     out = np.array(covariates, dtype=float, copy=True)
     for name, value in changes.items():
         out[:, model.covariates.index(name)] = value
+    if changes and out.size and not model.usable_covariate_rows(out).all():
+        text = ", ".join(f"{k}={v:g}" for k, v in changes.items())
+        raise InputError(f"--set {text}: these values make a transition rate overflow (above "
+                         f"{MAX_RATE_PER_DAY:g} per day) for some case; choose values the model is meant for")
     return out
 
 
@@ -158,6 +172,11 @@ def whatif_forecast(ws_or_scores, case_id: str, as_of: dt.date | None = None, ho
     changes = check_changes(changes or {}, model)
     row = scores.row_of(case_id)
     if row < 0:
+        reason = scores.unscorable.reason_of(case_id)
+        if reason:
+            from caseview.errors import CaseNotScored
+
+            raise CaseNotScored(f"case {case_id!r} cannot be scored: {reason}")
         raise InputError(f"case {case_id!r}: no such case with a contact on or before {scores.as_of.isoformat()}")
     p_now = scores.p_now[row]
     base = scores.last_covariates[row]

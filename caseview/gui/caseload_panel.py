@@ -98,9 +98,19 @@ class CaseloadPanel(QWidget):
             self.table.setItemDelegateForColumn(column, delegate)
         self.table.selectionModel().currentRowChanged.connect(self._current_changed)
 
+        self.not_scored = QLabel()   # cases that cannot be scored: never silently missing from the table
+        self.not_scored.setObjectName("notScoredNotice")
+        self.not_scored.setAccessibleName("Cases that cannot be scored")
+        self.not_scored.setWordWrap(True)
+        self.not_scored.setTextFormat(Qt.PlainText)
+        self.not_scored.setStyleSheet(f"QLabel#notScoredNotice {{ border-left: 5px solid {theme.colour('risk_high')}; "
+                                      "padding: 4px 8px; font-weight: bold; }")
+        self.not_scored.hide()
+
         layout = QVBoxLayout(self)
         layout.setContentsMargins(0, 0, 0, 0)
         layout.addLayout(bar)
+        layout.addWidget(self.not_scored)
         layout.addWidget(self.table, 1)
 
         self.search.textChanged.connect(lambda text: self._filter(search=text))
@@ -127,6 +137,7 @@ class CaseloadPanel(QWidget):
                              [(c, c) for c in self.model.coordinator_names()])
             self._fill_combo(self.stage, "Any likely stage", -1,
                              [(s, i) for i, s in enumerate(loaded.scores.model.stages)])
+            self._show_not_scored(getattr(loaded.scores, "unscorable", None))
             self.flagged.setEnabled(loaded.assessment is not None)
             self.review.setEnabled(loaded.assessment is not None)
             self._update_count()
@@ -147,6 +158,16 @@ class CaseloadPanel(QWidget):
         elif force or self._last_case_row != -1:
             self._last_case_row = -1
             self.selection_cleared.emit()
+
+    def _show_not_scored(self, lost) -> None:
+        """The "cannot be scored" state: which cases are missing from the table, and why."""
+        if lost is None or not lost.n_cases:
+            self.not_scored.hide()
+            return
+        self.not_scored.setText(f"{lost.summary(limit=3)}. Not in the table below: correct or void their records "
+                                "(every reason in the tooltip).")
+        self.not_scored.setToolTip("\n".join(f"{c}: {r}" for c, r in zip(lost.case_ids[:50], lost.reasons[:50])))
+        self.not_scored.show()
 
     def _fill_combo(self, combo, all_text, all_value, items):
         current = combo.currentData() if combo.count() else all_value
@@ -223,7 +244,9 @@ class CaseloadPanel(QWidget):
     def _update_count(self) -> None:
         shown, total = self.model.rowCount(), self.model._n
         flagged = int(self.model.is_flagged.sum()) if self.model.scores is not None else 0
-        self.count.setText(f"{shown:,} of {plural(total, 'case')} shown · {flagged:,} flagged")
+        lost = getattr(self.model.scores, "unscorable", None)
+        missing = f" · {lost.n_cases:,} cannot be scored" if lost is not None and lost.n_cases else ""
+        self.count.setText(f"{shown:,} of {plural(total, 'case')} shown · {flagged:,} flagged{missing}")
 
     def _current_changed(self, current, _previous) -> None:
         if self._quiet:

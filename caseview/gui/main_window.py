@@ -282,6 +282,8 @@ class MainWindow(QMainWindow):
         from caseview.followup.wording import plural
 
         notes = " ".join(loaded.notes)
+        lost = loaded.scores.unscorable.n_cases
+        notes = (f"{plural(lost, 'case')} cannot be scored (see above the table). " if lost else "") + notes
         self.statusBar().showMessage(f"Scored {plural(loaded.scores.n_cases, 'case')} as of {self.as_of.isoformat()}, "
                                      f"horizon {self.horizon_days:g} days. {notes}")
         if pending:

@@ -284,6 +284,11 @@ class ModelPanel(QWidget):
         from caseview.scoring import observation_end_day
         from hmm.fitting import fit_model
 
+        lost = getattr(loaded.scores, "unscorable", None)
+        if lost is not None and lost.n_cases:   # the same refusal as `caseview fit` (operations.fit_guards)
+            self.fit_message.setText(f"Cannot fit: {lost.summary()}; correct or void those records first. "
+                                     "Nothing was fitted or saved.")
+            return
         model, timelines = self.model, loaded.scores.timelines
         starts, penalised = self.starts.value(), self.penalised.isChecked()
         rng = np.random.default_rng(20261202)
@@ -316,9 +321,17 @@ class ModelPanel(QWidget):
                     "before relying on the new version." if result.warnings else "")
         ws = self.window.workspace()
         if ws is not None:
+            from caseview.errors import FitRefused
             from caseview.modelfile import dump_model
+            from caseview.operations.fit_guards import fitted_model_to_save
 
-            version = ws.add_model_version(dump_model(result.model), "fitted in the window", self.window.actor,
+            try:
+                to_save = fitted_model_to_save(result, self.window.loaded.scores.timelines)
+            except FitRefused as exc:
+                self.fit_message.setText(f"Fit failed: {exc}")
+                self.fit_failed.emit(str(exc))
+                return
+            version = ws.add_model_version(dump_model(to_save), "fitted in the window", self.window.actor,
                                            fit_summary=result.to_summary(), make_current=True)
             self._last_fit = (version, list(result.history))
             self.fit_message.setText(f"Fit finished (log-likelihood {result.log_likelihood:,.1f}); saved as "

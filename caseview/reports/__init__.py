@@ -14,7 +14,7 @@ from __future__ import annotations
 
 import datetime as dt
 import hashlib
-from dataclasses import dataclass
+from dataclasses import dataclass, field
 from pathlib import Path
 
 from caseview.errors import InputError
@@ -41,6 +41,9 @@ class ReportResult:
     entry_id, entry_hash : int, str
         The report's own audit entry (it cannot be inside the report: it holds the report's hash);
         ``entry_hash`` is the chain head after the report was recorded.
+    not_scored : list
+        ``(case_id, coordinator, reason)`` of the cases in scope that cannot be scored (marked in
+        the report, left out of its figures).
     """
 
     path: Path
@@ -50,6 +53,7 @@ class ReportResult:
     sha256: str
     entry_id: int = 0
     entry_hash: str = ""
+    not_scored: list = field(default_factory=list)
 
     @property
     def n_pages(self) -> int | None:
@@ -130,9 +134,12 @@ def build_report(ws, as_of, out_path, *, horizon_days: float = 90, coordinator: 
         digest = hashlib.sha256(Path(temporary).read_bytes()).hexdigest()
         details = {"format": kind, "as_of": as_of.isoformat(), "options": data.options, "sha256": digest,
                    "count": int(count), "audit_head_in_report": data.audit_head}
+        if data.not_scored:
+            details["cannot_be_scored"] = len(data.not_scored)
         from caseview.timeline_io.importer import audited_file_name
 
         entry = ws.audit_append(actor or _default_actor(), "report.create",
                                 audited_file_name(out_path.name, digest), details)
     progress(1.0)
-    return ReportResult(out_path, kind, int(count), data.audit_head, digest, entry.id, entry.entry_hash)
+    return ReportResult(out_path, kind, int(count), data.audit_head, digest, entry.id, entry.entry_hash,
+                        list(data.not_scored))

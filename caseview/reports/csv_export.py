@@ -12,7 +12,7 @@ import datetime as dt
 
 from caseview import ADVISORY_NOTICE
 
-from .records import case_columns, case_records, escape_text
+from .records import case_columns, case_records, escape_text, not_scored_records
 
 #: Columns of the spreadsheet's Cases sheet left out of the CSV to keep it a compact stage summary
 #: (the plain-language ``reasons`` and the latest ``review_note`` stay: text columns after the numbers).
@@ -33,7 +33,7 @@ def write_csv(data, path) -> int:
     """Write the CSV; returns the number of case rows."""
     columns = case_columns(data)
     keep = [j for j, name in enumerate(columns) if name not in _DROP]
-    records = case_records(data)
+    records = case_records(data) + not_scored_records(data)
     with open(path, "w", newline="", encoding="utf-8") as handle:
         writer = csv.writer(handle)
         writer.writerow([escape_text(columns[j]) for j in keep] + ["advisory"])

@@ -15,7 +15,7 @@ import numpy as np
 from caseview.errors import InputError
 from caseview.scoring import to_day
 
-from .deidentify import DateView
+from .deidentify import DateView, withhold_dates
 from .model_summary import ModelSummary, summarise_model
 
 #: Review statuses that count as "review done" (a supervisor has looked at the flag).
@@ -106,6 +106,7 @@ class ReportData:
     options: dict = field(default_factory=dict)
     outlook: object | None = None   # caseview.followup.outlook.Outlook (reports/outlook_page.py)
     outlook_note: str = ""
+    not_scored: list = field(default_factory=list)  # [(case_id, coordinator, reason)] in scope, never in figures
 
     @property
     def scores(self):
@@ -154,6 +155,8 @@ def collect_report_data(ws, as_of: dt.date, *, horizon_days: float = 90.0, coord
                         callback=lambda f: progress(0.5 * f))
     scores = assessment.scores
     if scores.n_cases == 0:
+        if scores.unscorable.n_cases:
+            raise InputError(f"--as-of {as_of.isoformat()}: no case can be scored; {scores.unscorable.summary()}")
         raise InputError(f"--as-of {as_of.isoformat()}: no case has a contact on or before this date")
     coordinators = np.asarray(scores.coordinators, dtype=object)
     in_scope = np.ones(scores.n_cases, dtype=bool)
@@ -188,6 +191,10 @@ def collect_report_data(ws, as_of: dt.date, *, horizon_days: float = 90.0, coord
 
     outlook, outlook_note = collect_outlook(scores, version, as_of, coordinator or None)
     view = DateView(dates, scores.first_contact_day, seed=seed)
+    lost = scores.unscorable
+    not_scored = [(str(c), str(k or ""), withhold_dates(str(r)) if view.deidentified else str(r))
+                  for c, k, r in zip(lost.case_ids, lost.coordinators, lost.reasons)
+                  if not coordinator or k == coordinator]
     return ReportData(
         assessment=assessment, as_of=as_of, horizon_days=float(horizon_days), coordinator=coordinator or None,
         flagged_only=flagged_only, dates=view, stages=tuple(scores.model.stages), rows=rows,
@@ -198,7 +205,7 @@ def collect_report_data(ws, as_of: dt.date, *, horizon_days: float = 90.0, coord
         options={"horizon_days": float(horizon_days), "coordinator": coordinator or None,
                  "flagged_only": bool(flagged_only), "since": since.isoformat() if since else None,
                  "dates": dates, "seed": "given" if seed is not None else None},
-        outlook=outlook, outlook_note=outlook_note,
+        outlook=outlook, outlook_note=outlook_note, not_scored=not_scored,
     )
 
 

@@ -177,3 +177,8 @@ def rewrite_dates(text: str, view: DateView, row: int) -> str:
         return view.case_text(row, day)
 
     return _ISO_DATE.sub(replace, str(text))
+
+
+def withhold_dates(text: str) -> str:
+    """Every ISO date inside a text replaced by "(date withheld)" (a case that has no scored row)."""
+    return _ISO_DATE.sub("(date withheld)", str(text))

@@ -32,6 +32,10 @@ TIMELINES_PER_PAGE = 6
 _LIST_LIMIT = 40
 
 
+#: Cases that cannot be scored named on the cover (the rest are counted).
+_NOT_SCORED_LISTED = 5
+
+
 def _pct(p: float) -> str:
     return f"{100 * p:.0f}%"
 
@@ -107,6 +111,12 @@ def _cover(data) -> Page:
     if data.flagged_rows.size > MAX_LISTED_FLAGGED:
         page.caution_box(f"This PDF lists the {MAX_LISTED_FLAGGED:,} most urgent flagged cases. "
                          + _left_out_note(int(data.flagged_rows.size) - MAX_LISTED_FLAGGED))
+    if data.not_scored:
+        shown = data.not_scored[:_NOT_SCORED_LISTED]
+        more = len(data.not_scored) - len(shown)
+        page.caution_box(f"{len(data.not_scored)} case(s) cannot be scored and are in none of the figures; "
+                         "correct their records: " + "; ".join(f"{c}: {r}" for c, _, r in shown)
+                         + (f"; and {more} more (all in the spreadsheet and CSV)." if more else "."))
     return page
 
 

@@ -133,6 +133,19 @@ def case_records(data, rows=None) -> list:
     return records
 
 
+def not_scored_records(data) -> list:
+    """Rows for the cases that cannot be scored, aligned with :func:`case_columns`: no numbers,
+    ``flags`` = ``cannot_be_scored: <reason>`` and the reason under ``reasons`` too."""
+    width = len(case_columns(data))
+    flags_at = case_columns(data).index("flags")
+    records = []
+    for case_id, coordinator, reason in data.not_scored:
+        row = [None] * width
+        row[0], row[1], row[flags_at], row[flags_at + 1] = case_id, coordinator, f"cannot_be_scored: {reason}", reason
+        records.append(row)
+    return records
+
+
 def review_records(data) -> tuple:
     """Columns and rows of the reviews table: flagged cases (outstanding or done) and reviewed cases."""
     a, s, view = data.assessment, data.scores, data.dates

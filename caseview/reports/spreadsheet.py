@@ -14,8 +14,8 @@ from caseview import ADVISORY_NOTICE, __version__
 from .deidentify import rewrite_dates
 from caseview.followup.wording import CHANCE_BANDS, points
 
-from .records import (case_columns, case_records, contact_day, escape_text, reason_text, review_note,
-                      review_records)
+from .records import (case_columns, case_records, contact_day, escape_text, not_scored_records, reason_text,
+                      review_note, review_records)
 from .model_summary import NOT_FITTED
 
 _HEADER_FILL = "DDEAF5"   # pale tint of Okabe-Ito blue
@@ -87,6 +87,8 @@ def _summary_rows(data) -> list:
             ["flagged", int(data.flagged_rows.size)],
             ["reviews_done", data.reviews_done],
             ["reviews_outstanding", data.reviews_outstanding]]
+    if data.not_scored:
+        rows.append(["cannot_be_scored", len(data.not_scored)])
     for k, stage in enumerate(data.stages):
         rows.append([f"most likely stage now: {stage}", int(data.stage_counts[k])])
     for k, stage in enumerate(data.stages):
@@ -149,7 +151,7 @@ def write_xlsx(data, path) -> int:
     book = Workbook(write_only=True)
     _sheet(book, "Summary", ["item", "value"], _summary_rows(data), widths={"item": 38, "value": 48})
     columns = case_columns(data)
-    records = case_records(data)
+    records = case_records(data) + not_scored_records(data)
     _sheet(book, "Cases", columns, records, widths={"reasons": 60})
     _sheet(book, "Flags", *_flag_rows(data), widths={"message": 50, "recent_contacts_effect": 60})
     _sheet(book, "Reviews", *review_records(data))

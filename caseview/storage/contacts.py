@@ -380,3 +380,31 @@ def allowed_stages_for_model(stage_known: np.ndarray, model: StageModel) -> np.n
 def stored_case_codes(connection) -> list:
     """Every stored case ID, in the order the cases were added (the importer matches new IDs to them)."""
     return [code for (code,) in connection.execute("SELECT case_code FROM cases ORDER BY id")]
+
+
+def contacts_of_cases_with_stage(connection, stage_names) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    """Every contact of the cases that have a contact recording one of ``stage_names`` alone.
+
+    Used to check records against an earlier (or later) recorded entry into an absorbing stage
+    (:func:`caseview.timeline_io.validate.contradictory_contacts`) without reading the whole caseload.
+    Inside a write transaction it sees that transaction's rows.
+
+    Returns
+    -------
+    case_codes : ndarray of object, shape (n,)
+    days : ndarray of int64, shape (n,)
+    stage_known : ndarray of object, shape (n,)
+        '' when none, else 'A|B' in model stage order; rows sorted by case code, then day.
+    """
+    names = list(stage_names)
+    if not names:
+        return np.zeros(0, dtype=object), np.zeros(0, dtype=np.int64), np.zeros(0, dtype=object)
+    marks = ", ".join("?" * len(names))
+    rows = connection.execute(
+        "SELECT ca.case_code, c.day, COALESCE(c.stage_known, '') FROM contacts c JOIN cases ca ON ca.id = c.case_id"
+        f" WHERE c.case_id IN (SELECT case_id FROM contacts WHERE stage_known IN ({marks}))"
+        " ORDER BY ca.case_code, c.day", names).fetchall()
+    if not rows:
+        return np.zeros(0, dtype=object), np.zeros(0, dtype=np.int64), np.zeros(0, dtype=object)
+    codes, days, stages = zip(*rows)
+    return np.array(codes, dtype=object), np.array(days, dtype=np.int64), np.array(stages, dtype=object)

@@ -24,6 +24,7 @@ from pathlib import Path
 
 import numpy as np
 
+from ..case_checks import stored_contradictions
 from ..errors import InputError, WorkspaceError
 from .reader import CHUNK_ROWS, TimelineSource, scan_file
 from .validate import BASE_COLUMNS, ChunkValidator, Problems, Rules
@@ -167,6 +168,36 @@ def _duplicates_in_file(data: dict, problems: Problems, where) -> np.ndarray:
     return keep
 
 
+def _refuse_contacts_after_entry(ws, model, data: dict, problems: Problems, where) -> None:
+    """Inside the write transaction: refuse contacts after a recorded entry into an absorbing stage.
+
+    Runs on the stored contacts (this file's rows included) of the cases that record an
+    exact-entry stage, so a file row that contradicts a stored record, or a stored contact that a
+    new entry record contradicts, is found too; raising rolls the whole import back.
+    """
+    found = stored_contradictions(ws.connection, model, np.unique(data["case_codes"]))
+    if not found:
+        return
+    file_line = {(c, int(d)): int(line) for c, d, line in
+                 zip(data["case_codes"].tolist(), data["days"].tolist(), data["lines"].tolist())}
+
+    def named(code, day):
+        line = file_line.get((code, day))
+        date = np.datetime64(day, "D")
+        return (f"line {line}", line) if line is not None else (f"the stored contact of {date}", None)
+
+    for c in found:
+        later, later_line = named(c.case_id, c.day)
+        earlier, earlier_line = named(c.case_id, c.entry_day)
+        line = later_line if later_line is not None else earlier_line
+        problems.add(where(line), None, line=line, message=(
+            f"case {c.case_id!r}: the contact on {np.datetime64(c.day, 'D')} ({later}) comes after the recorded "
+            f"entry into absorbing stage {c.stage!r} on {np.datetime64(c.entry_day, 'D')} ({earlier}); a case "
+            "that has entered it has no later contacts unless they record that stage - correct the date or "
+            "the stage, or leave the row out"))
+    problems.raise_if_any("nothing was imported")
+
+
 def audited_file_name(name: str, sha256: str) -> str:
     """The file name as the audit trail keeps it: the name itself, or ``file <sha256 prefix><suffix>
     (name withheld)`` when the name may hold an identifier (the trail is append-only: nothing written
@@ -236,7 +267,8 @@ def import_timelines(ws, path, actor: str, mapping: dict | None = None, drop=(),
     source.date_columns = frozenset(i for i, t in enumerate(targets) if t == "date")
     source.date_format = date_format
     rules = Rules(channels={c.name: tuple(c.categories) for c in model.channels}, covariates=tuple(model.covariates),
-                  stages=tuple(model.stages), present=tuple(targets), date_format=date_format)
+                  stages=tuple(model.stages), present=tuple(targets), date_format=date_format,
+                  covariate_ranges=model.range_of)
     problems = Problems(facts.label)
     book = CaseIdBook(stored_case_codes(ws.connection))
     coordinator_book = CoordinatorBook(stored_coordinator_codes(ws.connection))
@@ -283,6 +315,7 @@ def import_timelines(ws, path, actor: str, mapping: dict | None = None, drop=(),
             if now_version.id != version.id:
                 raise WorkspaceError("the current model changed while the file was being checked; import again")
             counts = ws.write_contacts(batch, replace=replace)
+            _refuse_contacts_after_entry(ws, model, data, problems, source.where)
             file_name = audited_file_name(facts.path.name, facts.sha256)
             details = {"file": file_name, "sha256": facts.sha256, "bytes": facts.size, "rows_read": rows_read,
                        "cases_added": counts.cases_added, "contacts_added": counts.contacts_added,

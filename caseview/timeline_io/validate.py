@@ -14,6 +14,7 @@ from dataclasses import dataclass, field
 
 import numpy as np
 
+from ..case_checks import contradictory_contacts, covariate_range_problem, outside_range  # noqa: F401 (record)
 from ..errors import InputError
 from .dates import FIRST_DAY, LAST_DAY, date_format_hint, date_format_text, parse_dates  # noqa: F401
 
@@ -97,6 +98,7 @@ class Rules:
     stages: tuple
     present: tuple            # target column names in the file, in file order
     date_format: str | None = None   # strptime format of the date column (None: YYYY-MM-DD)
+    covariate_ranges: dict = field(default_factory=dict)  # name -> (low, high), see covariate_range_problem
 
 
 @dataclass
@@ -257,6 +259,11 @@ class ChunkValidator:
                 self._screen(fresh, "covariate", name, {u: first[u] for u in fresh})
                 self._screened_numbers[name].update(fresh)
             covariates[:, k] = np.where(bad_u, 0.0, numbers_u)[codes]
+            if name in self.rules.covariate_ranges:
+                low, high = self.rules.covariate_ranges[name]
+                outside_u = ~bad_u & outside_range(numbers_u, low, high)
+                self._report_all(lines, outside_u[codes], name, uniques[codes], lambda v, name=name: (
+                    f"value {shown(v, 'covariate', name)}: {covariate_range_problem(name, low, high)}"))
 
         stage_known = np.full(n, "", dtype=object)
         if "stage_known" in factors:
@@ -368,3 +375,4 @@ class ChunkValidator:
                         "or several joined with '|', or blank")
         chosen = set(names)
         return "|".join(s for s in self.rules.stages if s in chosen), None
+

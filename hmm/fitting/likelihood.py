@@ -25,6 +25,7 @@ from dataclasses import dataclass
 
 import numpy as np
 
+from ..exact_entry import effective_allowed_stages
 from ..model import StageModel
 from ..timelines import Timelines
 from .expm_derivative import adjoint_derivative, decompose, transition_matrices
@@ -105,11 +106,8 @@ def prepare(model: StageModel, timelines: Timelines, spec: ParameterSpec | None 
         exact_mask[model.stage_index(name)] = True
     allowed_rows = timelines.allowed_stages[order]
     single = allowed_rows.sum(axis=1) == 1
-    # A contact that is not a record of one stage cannot be in an exact-entry stage: had the case
-    # entered it, the entry would have been recorded (and the case would not be seen as usual).
-    drop = ~single & (allowed_rows & ~exact_mask).any(axis=1) & exact_mask.any()
-    allowed_rows = allowed_rows.copy()
-    allowed_rows[np.ix_(drop, exact_mask)] = False
+    # the exact-entry convention has one home (hmm.exact_entry.effective_allowed_stages)
+    allowed_rows = effective_allowed_stages(model, allowed_rows)
     allowed_steps = allowed_rows[step_rows]
     # an entry is a single-stage record of an exact-entry stage not already known at the contact before
     exact = single[step_rows] & (allowed_steps & exact_mask).any(axis=1) & \
