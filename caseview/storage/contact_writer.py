@@ -82,9 +82,16 @@ def _blobs(array: np.ndarray) -> list:
     return [data[i:i + width] for i in range(0, len(data), width)]
 
 
-def write_contacts(connection, batch: ContactBatch, replace: bool = False) -> WriteCounts:
-    """Store ``batch``; the caller holds a write transaction."""
-    layout = field_layout(connection)
+def encode_batch(layout, batch: ContactBatch) -> tuple[np.ndarray, np.ndarray]:
+    """The batch's values in the stored layout.
+
+    Returns
+    -------
+    observations : ndarray of uint8, shape (n, n_workspace_channels)
+        Workspace category codes, :data:`~caseview.storage.schema.BLANK_CODE` = blank.
+    covariates : ndarray of little-endian float64, shape (n, n_workspace_covariates)
+        NaN where the batch has no such covariate.
+    """
     n = batch.n_rows
     obs = np.full((n, len(layout.channels)), BLANK_CODE, dtype=np.uint8)
     for j, name in enumerate(batch.channel_names):
@@ -100,6 +107,19 @@ def write_contacts(connection, batch: ContactBatch, replace: bool = False) -> Wr
         if position is None:
             raise WorkspaceError(f"covariate {name!r} is not registered in the workspace")
         covs[:, position] = batch.covariates[:, k]
+    return obs, covs
+
+
+def write_contacts(connection, batch: ContactBatch, replace: bool = False, actor: str = "",
+                   reason: str = "") -> WriteCounts:
+    """Store ``batch``; the caller holds a write transaction.
+
+    With ``replace``, each stored contact that differs is replaced and its earlier version kept in
+    ``contact_versions`` (status superseded, ``reason``, ``actor``), never overwritten.
+    """
+    layout = field_layout(connection)
+    n = batch.n_rows
+    obs, covs = encode_batch(layout, batch)
 
     import pandas as pd
 
@@ -199,6 +219,10 @@ def write_contacts(connection, batch: ContactBatch, replace: bool = False) -> Wr
             " VALUES (?, ?, ?, ?, ?, ?)",
             zip(row_case[insert_rows].tolist(), batch.days[insert_rows].tolist(), obs_blobs, covs_blobs, stage, coords))
     if updates:
+        from .casework_store import keep_earlier_versions
+
+        keep_earlier_versions(connection, [(int(row_case[i]), int(batch.days[i])) for i, _ in updates],
+                              "superseded", actor, reason or "replaced by an import")
         connection.executemany(
             "UPDATE contacts SET observations = ?, covariates = ?, stage_known = ?, coordinator_id = ?"
             " WHERE case_id = ? AND day = ?",

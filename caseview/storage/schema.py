@@ -84,8 +84,52 @@ CREATE TABLE case_scores (run_id INTEGER NOT NULL REFERENCES score_runs(id) ON D
 CREATE TABLE settings (key TEXT PRIMARY KEY, value TEXT NOT NULL);
 """
 
+#: Case work (issue 15): earlier versions of contacts, who recorded the current ones, closed cases.
+#: ``contacts`` keeps holding only the current version of each contact (so the fast read is
+#: unchanged); a correction or a void moves the version it replaces to ``contact_versions`` in the
+#: same transaction. ``contact_provenance`` says who recorded a current contact, when and why (a
+#: contact imported from a file has no row: its import is in the audit trail). A case is closed from
+#: ``closed_day`` on while it has a ``case_closures`` row; reopening deletes the row (both audited).
+CASEWORK_SCHEMA = """
+CREATE TABLE contact_versions (
+  id INTEGER PRIMARY KEY,
+  case_id INTEGER NOT NULL REFERENCES cases(id),
+  day INTEGER NOT NULL,
+  observations BLOB NOT NULL,
+  covariates BLOB NOT NULL,
+  stage_known TEXT,
+  coordinator_id INTEGER REFERENCES coordinators(id),
+  status TEXT NOT NULL CHECK (status IN ('superseded', 'voided')),
+  recorded_at TEXT NOT NULL DEFAULT '',
+  recorded_by TEXT NOT NULL DEFAULT '',
+  recorded_reason TEXT NOT NULL DEFAULT '',
+  ended_at TEXT NOT NULL,
+  ended_by TEXT NOT NULL,
+  reason TEXT NOT NULL,
+  audit_id INTEGER REFERENCES audit_log(id));
+CREATE INDEX contact_versions_case ON contact_versions(case_id, day);
+CREATE TRIGGER contact_versions_no_update BEFORE UPDATE ON contact_versions
+BEGIN SELECT RAISE(ABORT, 'earlier contact versions are kept as recorded'); END;
+CREATE TRIGGER contact_versions_no_delete BEFORE DELETE ON contact_versions
+BEGIN SELECT RAISE(ABORT, 'earlier contact versions are kept as recorded'); END;
+CREATE TABLE contact_provenance (
+  case_id INTEGER NOT NULL REFERENCES cases(id),
+  day INTEGER NOT NULL,
+  recorded_at TEXT NOT NULL,
+  recorded_by TEXT NOT NULL,
+  reason TEXT NOT NULL DEFAULT '',
+  PRIMARY KEY (case_id, day)) WITHOUT ROWID;
+CREATE TABLE case_closures (
+  case_id INTEGER PRIMARY KEY REFERENCES cases(id),
+  closed_day INTEGER NOT NULL,
+  reason TEXT NOT NULL CHECK (reason IN ('moved', 'discharged', 'died', 'transferred', 'other')),
+  closed_at TEXT NOT NULL,
+  closed_by TEXT NOT NULL,
+  audit_id INTEGER REFERENCES audit_log(id));
+"""
+
 #: Forward migrations; ``MIGRATIONS[k - 1]`` takes version ``k - 1`` to ``k``.
-MIGRATIONS: list[str] = [SCHEMA_V1]
+MIGRATIONS: list[str] = [SCHEMA_V1, CASEWORK_SCHEMA]
 
 
 def schema_version() -> int:

@@ -201,7 +201,8 @@ def import_timelines(ws, path, actor: str, mapping: dict | None = None, drop=(),
             _, now_version = ws.current_model()
             if now_version.id != version.id:
                 raise WorkspaceError("the current model changed while the file was being checked; import again")
-            counts = ws.write_contacts(batch, replace=replace)
+            counts = ws.write_contacts(batch, replace=replace, actor=actor,
+                                       reason=f"replaced by the import of {facts.path.name}")
             details = {"file": facts.path.name, "sha256": facts.sha256, "bytes": facts.size, "rows_read": rows_read,
                        "cases_added": counts.cases_added, "contacts_added": counts.contacts_added,
                        "duplicates_skipped": counts.duplicates_skipped + in_file_duplicates,

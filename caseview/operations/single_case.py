@@ -1,0 +1,152 @@
+"""Rescore one case of an already scored caseload, reading only that case's contacts.
+
+After a contact is recorded, corrected or voided the window needs the new estimate of that one case
+at once. Rescoring the caseload (100,000 cases) takes seconds; this reads the case's rows by its
+key, scores and assesses it alone with the same functions the caseload uses
+(:func:`caseview.scoring.score_loaded`, :func:`caseview.followup.assess_scores`), and splices the
+result into copies of the caseload's arrays (the row replaced, inserted in case-ID order, or
+removed when the case has no current contact left or is closed).
+"""
+
+from __future__ import annotations
+
+import dataclasses
+
+import numpy as np
+
+#: Per-case fields of ``CaseloadScores`` (one row per scored case).
+_SCORE_FIELDS = ("case_ids", "coordinators", "first_contact_day", "last_contact_day", "days_since_contact",
+                 "n_contacts", "p_now", "most_likely_stage", "p_at_horizon", "p_reach", "p_follow_up_now",
+                 "p_reach_follow_up", "last_covariates", "log_likelihood")
+#: Per-case fields of ``CaseloadAssessment``.
+_ASSESSMENT_FIELDS = ("flags", "is_flagged", "reason_text", "next_contact_due_day", "review_status",
+                      "reviewed_by", "reviewed_at", "priority", "previous_p_follow_up", "explained")
+
+
+class _Splice:
+    """Where one case goes: replace row ``row`` (present and kept), insert at ``row``, or delete ``row``."""
+
+    def __init__(self, row: int, present: bool, keep: bool):
+        self.row, self.present, self.keep = row, present, keep
+
+    def per_case(self, old, new):
+        """``old`` (n, ...) with the case's row replaced/inserted/removed; ``new`` has shape (1, ...)."""
+        old = np.asarray(old)
+        new = np.asarray(new, dtype=old.dtype) if new is not None else None
+        r = self.row
+        if self.present and self.keep:
+            out = old.copy()
+            out[r] = new[0]
+            return out
+        if self.present:
+            return np.concatenate([old[:r], old[r + 1:]])
+        return np.concatenate([old[:r], new, old[r:]])
+
+    def per_contact(self, old, new, old_offsets):
+        """Contact-row array (n_contacts, ...) with the case's rows replaced by ``new``."""
+        a = int(old_offsets[self.row])
+        b = int(old_offsets[self.row + 1]) if self.present else a
+        parts = [old[:a]] + ([np.asarray(new, dtype=old.dtype)] if self.keep else []) + [old[b:]]
+        return np.concatenate(parts)
+
+    def offsets(self, old_offsets, new_count: int):
+        r = self.row
+        if self.present:
+            removed = int(old_offsets[r + 1] - old_offsets[r])
+            if self.keep:
+                return np.concatenate([old_offsets[:r + 1], old_offsets[r + 1:] + (new_count - removed)])
+            return np.concatenate([old_offsets[:r], old_offsets[r + 1:] - removed])
+        return np.concatenate([old_offsets[:r + 1], old_offsets[r:] + new_count])
+
+
+def _timelines(old, new, splice: _Splice):
+    from hmm import Timelines
+
+    count = new.n_contacts if splice.keep else 0
+    return Timelines(offsets=splice.offsets(old.offsets, count).astype(np.int64),
+                     times=splice.per_contact(old.times, new.times, old.offsets),
+                     observations=splice.per_contact(old.observations, new.observations, old.offsets),
+                     allowed_stages=splice.per_contact(old.allowed_stages, new.allowed_stages, old.offsets),
+                     covariates=splice.per_contact(old.covariates, new.covariates, old.offsets))
+
+
+def rescore_one(ws, loaded, case_id: str, include_closed: bool = False):
+    """A new ``LoadedCaseload`` equal to ``loaded`` except for case ``case_id``, rescored.
+
+    Parameters
+    ----------
+    ws : caseview.storage.Workspace
+    loaded : caseview.gui.data_source.LoadedCaseload (or any object with ``scores``, ``assessment``,
+        ``notes``)
+    case_id : str
+    include_closed : bool
+        Keep the case even if it is closed on the as-of date.
+
+    Returns
+    -------
+    (new loaded, row) : the copy, and the case's row in it (-1 when it left the caseload).
+    """
+    from caseview.scoring import score_loaded
+    from caseview.storage.caseload import Caseload
+
+    scores = loaded.scores
+    model = scores.model
+    one = ws.load_case(model, case_id, as_of_day=scores.as_of_day)
+    keep = one.n_cases == 1 and (include_closed or bool(ws.open_case_mask([case_id], scores.as_of_day)[0]))
+    ids = np.asarray(scores.case_ids, dtype=object)
+    row = int(np.searchsorted(ids, case_id))
+    present = row < ids.size and ids[row] == case_id
+    if not present and not keep:
+        return loaded, -1
+    splice = _Splice(row, present, keep)
+    fresh = score_loaded(one, model, scores.as_of_day, scores.horizon_days, scores.model_version) if keep else None
+
+    old_caseload = scores.caseload
+    timelines = _timelines(scores.timelines, fresh.timelines if keep else None, splice)
+    raw = {name: splice.per_contact(column, one.raw_values[name] if keep else None, scores.timelines.offsets)
+           for name, column in old_caseload.raw_values.items()}
+    caseload = Caseload(case_ids=splice.per_case(old_caseload.case_ids, one.case_ids if keep else None),
+                        coordinators=splice.per_case(old_caseload.coordinators, one.coordinators if keep else None),
+                        contact_days=splice.per_contact(old_caseload.contact_days, one.contact_days if keep else None,
+                                                        scores.timelines.offsets),
+                        timelines=timelines, raw_values=raw)
+    changes = {name: splice.per_case(getattr(scores, name), getattr(fresh, name) if keep else None)
+               for name in _SCORE_FIELDS}
+    n = changes["case_ids"].shape[0]
+    new_scores = dataclasses.replace(scores, caseload=caseload, timelines=timelines,
+                                     case_rows=np.arange(n, dtype=np.int64), **changes)
+
+    assessment = loaded.assessment
+    if assessment is not None:
+        assessment = _reassess(ws, assessment, new_scores, fresh, splice, case_id)
+    return dataclasses.replace(loaded, scores=new_scores, assessment=assessment), (row if keep else -1)
+
+
+def _reassess(ws, old, new_scores, fresh, splice: _Splice, case_id: str):
+    from caseview.followup import assess_scores
+    from caseview.followup.flags import RuleEvaluation
+    from caseview.storage import followup_store
+
+    keep = splice.keep
+    one = None
+    if keep:
+        previous = np.array([old.previous_p_follow_up[splice.row] if splice.present else np.nan])
+        one = assess_scores(fresh, old.rules, previous, old.previous_as_of,
+                            followup_store.latest_reviews(ws.connection, case_id),
+                            influence_contacts=old.influence_contacts, explain_reasons=True)
+    changes = {name: splice.per_case(getattr(old, name), getattr(one, name) if keep else None)
+               for name in _ASSESSMENT_FIELDS if getattr(old, name) is not None}
+    reasons = list(old.reasons)
+    if splice.present and keep:
+        reasons[splice.row] = one.reasons[0]
+    elif splice.present:
+        del reasons[splice.row]
+    else:
+        reasons.insert(splice.row, one.reasons[0])
+    evaluation = old.evaluation
+    if evaluation is not None:
+        evaluation = RuleEvaluation(
+            fired=splice.per_case(evaluation.fired, one.evaluation.fired if keep else None),
+            values=splice.per_case(evaluation.values, one.evaluation.values if keep else None),
+            rule_names=evaluation.rule_names)
+    return dataclasses.replace(old, scores=new_scores, reasons=reasons, evaluation=evaluation, **changes)
