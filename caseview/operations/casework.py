@@ -179,6 +179,34 @@ def case_estimate(ws, case_id: str, as_of, horizon_days: float = 90.0) -> CaseEs
                         model.stages[int(np.argmax(p))], float(scores.p_follow_up_now[0]))
 
 
+def _refuse_impossible(ws, case_id: str, source: str) -> None:
+    """InputError when the case's current contacts are impossible together under the model.
+
+    For example a contact after one that records entry into a stage with no way out: the
+    likelihood of the case's record is zero. Called inside the write's transaction, so the change
+    rolls back.
+    """
+    from ..scoring import score_loaded
+
+    model, _ = ws.current_model()
+    one = ws.load_case(model, case_id)
+    if one.n_cases == 0:
+        return
+    last = int(one.contact_days[-1])
+    scores = score_loaded(one, model, last, 0.0)
+    total = float(np.sum(scores.p_now[0]))
+    if np.isfinite(scores.log_likelihood[0]) and abs(total - 1.0) < 1e-6:
+        return
+    absorbing = {model.stages[i] for i in model.absorbing_stages}
+    history = store.contact_history(ws.connection, case_id)
+    entered = [v for v in history[:-1] if v.stage_known and set(v.stage_known.split("|")) <= absorbing]
+    why = (f"the contact on {entered[0].date} records {entered[0].stage_known}, a stage with no way out, "
+           "so no later contact can differ" if entered else
+           "under the current model no sequence of stages fits all of the case's contacts")
+    raise InputError(f"{source}: case {case_id!r}: the record would contradict itself ({why}); "
+                     "correct or void the contradicting contact instead (nothing was stored)")
+
+
 def closing_suggestion(ws, case_id: str) -> str:
     """A sentence offering to close the case when its latest contact records a stage with no way out."""
     model, _ = ws.current_model()
@@ -233,7 +261,9 @@ def record_contact(ws, case_id: str, date, actor: str, values: dict | None = Non
     for name in carried:
         given[name] = defaults["covariates"][name]
     batch = _validated(ws, source, code, date_text, coordinator or "", dict(values or {}), given, stage_known or "")
-    details = store.record_contact(ws, batch, actor, create_case=not exists)
+    with ws.transaction():  # the storage write joins this transaction; an impossible record rolls it back
+        details = store.record_contact(ws, batch, actor, create_case=not exists)
+        _refuse_impossible(ws, code, source)
     return RecordResult(code, details["date"], not exists, carried, details,
                         case_estimate(ws, code, details["date"]), closing_suggestion(ws, code))
 
@@ -287,7 +317,9 @@ def correct_contact(ws, case_id: str, date, reason: str, actor: str, new_date=No
     target = new_date if new_date is not None else old.date
     target = target.isoformat() if isinstance(target, dt.date) else str(target)
     batch = _validated(ws, source, code, target, coordinator or "", merged_values, merged_covariates, stage)
-    details = store.correct_contact(ws, code, day, batch, actor, reason)
+    with ws.transaction():
+        details = store.correct_contact(ws, code, day, batch, actor, reason)
+        _refuse_impossible(ws, code, source)
     return ContactChange(code, "contact.correct", details, case_estimate(ws, code, details["new"]["date"]),
                          closing_suggestion(ws, code))
 

@@ -62,12 +62,13 @@ class _Splice:
 def _timelines(old, new, splice: _Splice):
     from hmm import Timelines
 
+    def rows(name):
+        return splice.per_contact(getattr(old, name), getattr(new, name) if splice.keep else None, old.offsets)
+
     count = new.n_contacts if splice.keep else 0
-    return Timelines(offsets=splice.offsets(old.offsets, count).astype(np.int64),
-                     times=splice.per_contact(old.times, new.times, old.offsets),
-                     observations=splice.per_contact(old.observations, new.observations, old.offsets),
-                     allowed_stages=splice.per_contact(old.allowed_stages, new.allowed_stages, old.offsets),
-                     covariates=splice.per_contact(old.covariates, new.covariates, old.offsets))
+    return Timelines(offsets=splice.offsets(old.offsets, count).astype(np.int64), times=rows("times"),
+                     observations=rows("observations"), allowed_stages=rows("allowed_stages"),
+                     covariates=rows("covariates"))
 
 
 def rescore_one(ws, loaded, case_id: str, include_closed: bool = False):
