@@ -67,6 +67,10 @@ class CaseView(QWidget):
         side_layout.setContentsMargins(0, 0, 0, 0)
         side_layout.addWidget(QLabel("Contacts (recorded values)"))
         side_layout.addWidget(self.contacts, 1)
+        from .case_actions import CaseActions
+
+        self.actions = CaseActions()  # case work (record, correct, void, close); see casework_controller
+        side_layout.addWidget(self.actions)
         side_layout.addWidget(self.whatif_box)
         side_layout.addWidget(self.whatif_summary)
         splitter = QSplitter(Qt.Horizontal)

@@ -52,13 +52,16 @@ class CaseloadPanel(QWidget):
         self.flagged.setAccessibleName("Show flagged cases only")
         self.review = QComboBox()
         self.review.setAccessibleName("Filter by review status")
+        self.show_closed = QCheckBox("Show closed")
+        self.show_closed.setAccessibleName("Also show closed cases")
+        self.show_closed.setToolTip("Closed cases leave the table, the risk queue, flags and reports; show them too")
         self.review.addItem("Any review status", ANY)
         for status in REVIEW_STATUSES:
             self.review.addItem(status or "not reviewed", status)
         self.count = QLabel("No caseload open")
         self.count.setAccessibleName("Number of cases shown")
         bar = QHBoxLayout()
-        for w in (self.search, self.coordinator, self.stage, self.flagged, self.review):
+        for w in (self.search, self.coordinator, self.stage, self.flagged, self.review, self.show_closed):
             bar.addWidget(w)
         bar.addStretch(1)
         bar.addWidget(self.count)

@@ -105,6 +105,7 @@ class WorkspaceSource:
         self.path = Path(path)
         self._workspace = Workspace.open(self.path)  # main-thread connection; raises WorkspaceError
         self.label = self.path.name
+        self.include_closed = False  # the window's "Show closed" filter
         self.warnings = list(getattr(self._workspace, "warnings", []) or [])
 
     def workspace(self):
@@ -123,11 +124,11 @@ class WorkspaceSource:
                 # flags now, reasons later: the window explains flagged cases in a second job
                 # (risk queue first) and on the spot for a case the user selects
                 assessment = followup.assess_caseload(ws, as_of, horizon_days, callback=callback,
-                                                      explain_reasons=False)
+                                                      explain_reasons=False, include_closed=self.include_closed)
                 return LoadedCaseload(assessment.scores, assessment, notes)
             from caseview.scoring import score_caseload
 
-            scores = score_caseload(ws, as_of, horizon_days, callback=callback)
+            scores = score_caseload(ws, as_of, horizon_days, callback=callback, include_closed=self.include_closed)
             notes.append("Follow-up flags are not available yet; ordered by chance of reaching follow-up.")
             return LoadedCaseload(scores, None, notes)
 
