@@ -124,6 +124,19 @@ class CaseView(QWidget):
                 spin.blockSignals(False)
         self.refresh()
 
+    def show_rescored(self, scores, row: int) -> None:
+        """Show case ``row`` of freshly spliced ``scores`` now (title and contacts); the chart follows
+        from the event loop, so the new estimate is on screen before the chart is redrawn."""
+        from PySide6.QtCore import QTimer
+
+        self.set_scores(scores)
+        self.row = row
+        self.data = case_chart_data(scores, row, {})
+        self._fill_title()
+        self._fill_contacts()
+        data = self.data
+        QTimer.singleShot(0, lambda: self._draw() if self.data is data else None)
+
     def refresh(self) -> None:
         if self.scores is None or self.row < 0 or self.row >= self.scores.n_cases:
             return

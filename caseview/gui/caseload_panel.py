@@ -124,6 +124,16 @@ class CaseloadPanel(QWidget):
         if self.model.rowCount() and not self.table.currentIndex().isValid():
             self.table.selectRow(0)
 
+    def update_case(self, loaded, row: int) -> None:
+        """One case of the shown caseload was rescored (see ``CaseloadTableModel.update_case``)."""
+        keep = self.current_case_id()
+        if not self.model.update_case(loaded, row):
+            self.set_caseload(loaded)
+            return
+        self._update_count()
+        if keep:
+            self.select_case(keep)
+
     def _fill_combo(self, combo, all_text, all_value, items):
         current = combo.currentData() if combo.count() else all_value
         combo.blockSignals(True)

@@ -10,6 +10,8 @@ from __future__ import annotations
 
 import time
 
+import numpy as np
+
 from PySide6.QtCore import QObject, Signal
 from PySide6.QtGui import QAction, QKeySequence
 
@@ -23,6 +25,7 @@ class CaseworkController(QObject):
         super().__init__(window)
         self.window = window
         self.last_refresh_seconds = None
+        self.last_splice_seconds = None
         actions = window.case_view.actions
         actions.record_requested.connect(self.record_contact)
         actions.correct_requested.connect(self.correct_contact)
@@ -185,15 +188,35 @@ class CaseworkController(QObject):
         if ws is None or window.loaded is None:
             window.rescore()
             return None
+        window.jobs.cancel("reasons")  # the splice writes the changed case's row in place
         started = time.perf_counter()
         include_closed = bool(getattr(window.source, "include_closed", False))
-        loaded, row = casework.rescore_case(ws, window.loaded, case_id, include_closed)
+        before = window.loaded
+        ids = before.scores.case_ids
+        position = int(np.searchsorted(ids, case_id))
+        was_present = position < ids.size and ids[position] == case_id
+        was_flagged = bool(was_present and before.assessment is not None and before.assessment.is_flagged[position])
+        loaded, row = casework.rescore_case(ws, before, case_id, include_closed)
+        self.last_splice_seconds = time.perf_counter() - started
         window.loaded = loaded
-        window.case_view.set_scores(loaded.scores)
-        window.caseload.set_caseload(loaded)
-        window.risk_queue.set_caseload(loaded)
-        if row >= 0 and window.caseload.select_case(case_id):
-            window.case_view.show_case(row)
+        if was_present and row >= 0:  # the same cases: update one row, the pane and (if it shows it) the queue
+            window.caseload.update_case(loaded, row)
+            window.case_view.set_scores(loaded.scores)
+            if window.caseload.current_case_id() == case_id:
+                window.case_view.show_rescored(loaded.scores, row)
+            else:
+                window.caseload.select_case(case_id)  # shows it in the case pane
+            flagged = loaded.assessment is not None and bool(loaded.assessment.is_flagged[row])
+            if was_flagged or flagged:
+                window.risk_queue.set_caseload(loaded)
+            else:
+                window.risk_queue.loaded = loaded  # the queue lists flagged cases only: nothing to redraw
+        else:  # a case added or gone: the table's rows change
+            window.case_view.set_scores(loaded.scores)
+            window.caseload.set_caseload(loaded)
+            window.risk_queue.set_caseload(loaded)
+            if row >= 0 and window.caseload.select_case(case_id):
+                window.case_view.show_case(row)
         self.update_case_actions()
         seconds = time.perf_counter() - started
         self.last_refresh_seconds = seconds

@@ -169,19 +169,22 @@ class RiskQueue(QWidget):
 
     def _fill_supervisor(self) -> None:
         a, s = self.loaded.assessment, self.loaded.scores
-        flagged = np.asarray(a.is_flagged, dtype=bool)
-        status = np.where(np.asarray(a.review_status, dtype=object) == "", "new", a.review_status)
-        coordinators = sorted({str(c) for c in s.coordinators[flagged]})
+        # work on the flagged cases only (object-array comparisons over 100,000 cases add up)
+        flagged_rows = np.flatnonzero(np.asarray(a.is_flagged, dtype=bool))
+        status = np.asarray(a.review_status, dtype=object)[flagged_rows]
+        status = np.where(status == "", "new", status)
+        owners = np.asarray(s.coordinators, dtype=object)[flagged_rows]
+        coordinators = sorted({str(c) for c in owners})
         self.by_coordinator.setRowCount(len(coordinators))
         for i, c in enumerate(coordinators):
-            mine = flagged & (s.coordinators == c)
+            mine = owners == c
             self.by_coordinator.setItem(i, 0, QTableWidgetItem(c or "-"))
             for j, st in enumerate(("new", "acknowledged", "actioned", "dismissed")):
                 item = QTableWidgetItem(str(int((status[mine] == st).sum())))
                 item.setTextAlignment(Qt.AlignRight | Qt.AlignVCenter)
                 self.by_coordinator.setItem(i, j + 1, item)
-        due = np.asarray(a.next_contact_due_day)
-        overdue = flagged & (due >= 0) & (due <= s.as_of_day) & np.isin(status, ["new"])
+        due = np.asarray(a.next_contact_due_day)[flagged_rows]
+        overdue = (due >= 0) & (due <= s.as_of_day) & (status == "new")
         self.overdue.setText(f"<b>{int(overdue.sum()):,} overdue flags</b>: a contact is due on or before "
                              f"{s.as_of.isoformat()} and nobody has reviewed the flag yet.")
         self.by_coordinator.resizeColumnsToContents()

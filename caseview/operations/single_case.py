@@ -14,6 +14,9 @@ import dataclasses
 
 import numpy as np
 
+#: Room left at the end of each contact-row buffer, so later changes move rows instead of allocating.
+SPARE_ROWS = 4096
+
 #: Per-case fields of ``CaseloadScores`` (one row per scored case).
 _SCORE_FIELDS = ("case_ids", "coordinators", "first_contact_day", "last_contact_day", "days_since_contact",
                  "n_contacts", "p_now", "most_likely_stage", "p_at_horizon", "p_reach", "p_follow_up_now",
@@ -30,24 +33,49 @@ class _Splice:
         self.row, self.present, self.keep = row, present, keep
 
     def per_case(self, old, new):
-        """``old`` (n, ...) with the case's row replaced/inserted/removed; ``new`` has shape (1, ...)."""
+        """``old`` (n, ...) with the case's row replaced/inserted/removed; ``new`` has shape (1, ...).
+
+        A replaced row is written into ``old`` itself (no copy of the caseload's arrays: the
+        caller's caseload is superseded by the result).
+        """
         old = np.asarray(old)
         new = np.asarray(new, dtype=old.dtype) if new is not None else None
         r = self.row
         if self.present and self.keep:
-            out = old.copy()
-            out[r] = new[0]
-            return out
+            old[r] = new[0]
+            return old
         if self.present:
             return np.concatenate([old[:r], old[r + 1:]])
         return np.concatenate([old[:r], new, old[r:]])
 
     def per_contact(self, old, new, old_offsets):
-        """Contact-row array (n_contacts, ...) with the case's rows replaced by ``new``."""
+        """Contact-row array (n_contacts, ...) with the case's rows replaced by ``new``.
+
+        In place when the case keeps its number of contacts. Otherwise the rows after the case
+        move within the array's buffer when it has room (see :data:`SPARE_ROWS`), else into a new
+        buffer with room to spare: allocating and first touching ~50 MB of fresh pages per change
+        costs more than the move itself.
+        """
         a = int(old_offsets[self.row])
         b = int(old_offsets[self.row + 1]) if self.present else a
-        parts = [old[:a]] + ([np.asarray(new, dtype=old.dtype)] if self.keep else []) + [old[b:]]
-        return np.concatenate(parts)
+        k = len(new) if self.keep and new is not None else 0
+        if self.keep and self.present and k == b - a:
+            old[a:b] = new
+            return old
+        n = old.shape[0]
+        m = n - (b - a) + k
+        base = old.base
+        if (isinstance(base, np.ndarray) and base.shape[0] >= m and base.shape[1:] == old.shape[1:]
+                and base.dtype == old.dtype and base.flags.c_contiguous and old.flags.c_contiguous
+                and base.ctypes.data == old.ctypes.data):
+            base[a + k:m] = base[b:n]  # overlapping move; numpy copies overlapping ranges correctly
+        else:
+            base = np.empty((m + max(SPARE_ROWS, m // 100),) + old.shape[1:], dtype=old.dtype)
+            base[:a] = old[:a]
+            base[a + k:m] = old[b:n]
+        if k:
+            base[a:a + k] = new
+        return base[:m]
 
     def offsets(self, old_offsets, new_count: int):
         r = self.row
@@ -66,9 +94,15 @@ def _timelines(old, new, splice: _Splice):
         return splice.per_contact(getattr(old, name), getattr(new, name) if splice.keep else None, old.offsets)
 
     count = new.n_contacts if splice.keep else 0
-    return Timelines(offsets=splice.offsets(old.offsets, count).astype(np.int64), times=rows("times"),
-                     observations=rows("observations"), allowed_stages=rows("allowed_stages"),
-                     covariates=rows("covariates"))
+    parts = {"offsets": splice.offsets(old.offsets, count).astype(np.int64), "times": rows("times"),
+             "observations": rows("observations"), "allowed_stages": rows("allowed_stages"),
+             "covariates": rows("covariates")}
+    # Every part was checked when it was loaded (the caseload, and the case alone), and the splice
+    # keeps the case order, so the 1.2-million-row check of Timelines.__post_init__ is not run again.
+    spliced = object.__new__(Timelines)
+    for name, value in parts.items():
+        object.__setattr__(spliced, name, value)
+    return spliced
 
 
 def rescore_one(ws, loaded, case_id: str, include_closed: bool = False):
@@ -85,7 +119,12 @@ def rescore_one(ws, loaded, case_id: str, include_closed: bool = False):
 
     Returns
     -------
-    (new loaded, row) : the copy, and the case's row in it (-1 when it left the caseload).
+    (new loaded, row) : the new caseload, and the case's row in it (-1 when it left the caseload).
+
+    Notes
+    -----
+    ``loaded`` is consumed: to stay fast at 100,000 cases the new caseload reuses its arrays and
+    buffers, writing the case's rows in place, so only the returned object may be used afterwards.
     """
     from caseview.scoring import score_loaded
     from caseview.storage.caseload import Caseload
@@ -137,7 +176,7 @@ def _reassess(ws, old, new_scores, fresh, splice: _Splice, case_id: str):
                             influence_contacts=old.influence_contacts, explain_reasons=True)
     changes = {name: splice.per_case(getattr(old, name), getattr(one, name) if keep else None)
                for name in _ASSESSMENT_FIELDS if getattr(old, name) is not None}
-    reasons = list(old.reasons)
+    reasons = old.reasons  # a list: changed in place like the arrays
     if splice.present and keep:
         reasons[splice.row] = one.reasons[0]
     elif splice.present:

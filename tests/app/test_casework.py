@@ -222,3 +222,30 @@ def test_rescoring_one_case_equals_rescoring_all(ws, change):
     assert spliced.assessment.flags.tolist() == full.flags.tolist()
     assert np.allclose(spliced.assessment.priority, full.priority)
     assert spliced.assessment.evaluation.fired.shape == full.evaluation.fired.shape
+
+
+def test_successive_one_case_rescores_reuse_buffers_and_stay_exact(ws):
+    """Several changes in a row (the window's buffers gain spare rows, then rows move within them)."""
+    from caseview.followup import assess_caseload
+    from caseview.gui.data_source import LoadedCaseload
+
+    as_of = dt.date(2026, 12, 5)
+    a = assess_caseload(ws, as_of, 90.0, reopen=False, explain_reasons=False)
+    loaded = LoadedCaseload(a.scores, a)
+    steps = [lambda: casework.record_contact(ws, "HS-0002", "2026-12-01", "ann", values={"falls": "one"}),
+             lambda: casework.record_contact(ws, "HS-0003", "2026-12-02", "ann", values={"falls": "several"}),
+             lambda: casework.void_contact(ws, "HS-0002", "2026-11-16", "never happened", "ann"),
+             lambda: casework.record_contact(ws, "HS-0002", "2026-12-03", "ann", values={"concern": "serious"})]
+    cases = ["HS-0002", "HS-0003", "HS-0002", "HS-0002"]
+    for step, case in zip(steps, cases):
+        step()
+        loaded, _ = casework.rescore_case(ws, loaded, case)
+    full = assess_caseload(ws, as_of, 90.0, reopen=False, explain_reasons=False)
+    assert loaded.scores.timelines.offsets[-1] == full.scores.timelines.n_contacts
+    assert np.array_equal(loaded.scores.timelines.times, full.scores.timelines.times)
+    assert np.array_equal(loaded.scores.timelines.observations, full.scores.timelines.observations)
+    assert np.array_equal(loaded.scores.caseload.contact_days, full.scores.caseload.contact_days)
+    for name, column in full.scores.caseload.raw_values.items():
+        assert loaded.scores.caseload.raw_values[name].tolist() == column.tolist()
+    assert np.allclose(loaded.scores.p_now, full.scores.p_now, atol=1e-12)
+    assert loaded.assessment.flags.tolist() == full.flags.tolist()
