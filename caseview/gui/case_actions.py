@@ -53,14 +53,18 @@ class CaseActions(QWidget):
         self.versions.clicked.connect(lambda: self.versions_requested.emit(self.case_id))
         self.close_button.clicked.connect(
             lambda: (self.reopen_requested if self.closed else self.close_requested).emit(self.case_id))
-        row = QHBoxLayout()
-        row.setContentsMargins(0, 0, 0, 0)
-        for button in (self.record, self.correct, self.void, self.versions, self.close_button):
-            row.addWidget(button)
+        case_row, contact_row = QHBoxLayout(), QHBoxLayout()  # two rows: the side pane is narrow
+        for button in (self.record, self.versions, self.close_button):
+            case_row.addWidget(button)
+        contact_row.addWidget(QLabel("Selected contact:"))
+        for button in (self.correct, self.void):
+            contact_row.addWidget(button)
+        contact_row.addStretch(1)
         layout = QVBoxLayout(self)
         layout.setContentsMargins(0, 0, 0, 0)
         layout.addWidget(self.hint)
-        layout.addLayout(row)
+        layout.addLayout(case_row)
+        layout.addLayout(contact_row)
         self.show_case("", "", None)
 
     def show_case(self, case_id: str, suggestion: str, closure) -> None:

@@ -148,9 +148,12 @@ class CaseworkController(QObject):
         last = history[-1].date if history else None
         import datetime as dt
 
-        day = max(dt.date.fromisoformat(last), self.window.as_of) if last else self.window.as_of
-        dialog = CloseCaseDialog(ws, self.window.actor, case_id, day, casework.closing_suggestion(ws, case_id),
-                                 parent=self.window)
+        suggestion = casework.closing_suggestion(ws, case_id)
+        if suggestion:  # the record shows the move: close from that contact's date
+            day = dt.date.fromisoformat(last)
+        else:
+            day = max(dt.date.fromisoformat(last), self.window.as_of) if last else self.window.as_of
+        dialog = CloseCaseDialog(ws, self.window.actor, case_id, day, suggestion, parent=self.window)
         if dialog.exec():
             self.after_change(case_id)
 

@@ -25,13 +25,13 @@ def _contact_summary(version) -> str:
 class _ReasonDialog(QDialog):
     """Common parts: an error line, a required reason, and the buttons."""
 
-    def __init__(self, title: str, action: str, parent=None):
+    def __init__(self, title: str, action: str, parent=None, example: str = "falls were one, not several"):
         super().__init__(parent)
         self.setWindowTitle(title)
         self.result = None
         self.reason_edit = QLineEdit()
         self.reason_edit.setAccessibleName("Reason for the change (required)")
-        self.reason_edit.setPlaceholderText("required, e.g. 'falls were one, not several'")
+        self.reason_edit.setPlaceholderText(f"required, e.g. '{example}'")
         self.error = QLabel("")
         self.error.setObjectName("formError")
         self.error.setWordWrap(True)
@@ -63,24 +63,27 @@ class CorrectContactDialog(_ReasonDialog):
         super().__init__(f"Correct a contact — {version.case_id}", "Correct", parent)
         self.workspace, self.actor, self.version = workspace, actor, version
         model, _ = workspace.current_model()
-        self.resize(520, 540)
-        intro = QLabel(f"Correcting the contact of {version.date}. The recorded version is kept and listed as "
-                       "superseded; scoring uses the corrected one.")
+        self.resize(520, 470)
+        who = f" by {version.recorded_by}" if version.recorded_by else " (imported)"
+        intro = QLabel(f"Recorded{who}: {_contact_summary(version)}.\nThe recorded version is kept and listed as "
+                       "superseded; estimates use the corrected one.")
         intro.setWordWrap(True)
-        form = QFormLayout()
+        top = QFormLayout()
         self.date_edit = QDateEdit(qdate(_as_date(version.date)))
         self.date_edit.setCalendarPopup(True)
         self.date_edit.setDisplayFormat("yyyy-MM-dd")
         self.date_edit.setAccessibleName("Date of the contact (change it to move the contact)")
-        form.addRow("Date:", self.date_edit)
-        box = QGroupBox("Values")
+        top.addRow("Date:", self.date_edit)
+        box = QGroupBox("Corrected values")
         self.fields = ContactFields(model, QFormLayout(box))
         self.fields.fill(version.values, version.covariates, version.stage_known)
-        form.addRow("Reason:", self.reason_edit)
+        bottom = QFormLayout()
+        bottom.addRow("Reason:", self.reason_edit)
         layout = QVBoxLayout(self)
         layout.addWidget(intro)
+        layout.addLayout(top)
         layout.addWidget(box)
-        layout.addLayout(form)
+        layout.addLayout(bottom)
         layout.addWidget(self.error)
         layout.addStretch(1)
         layout.addWidget(self.buttons)
@@ -101,7 +104,8 @@ class VoidContactDialog(_ReasonDialog):
     """Void the contact ``version`` (recorded under the wrong case, or it never happened)."""
 
     def __init__(self, workspace, actor: str, version, parent=None):
-        super().__init__(f"Void a contact — {version.case_id}", "Void contact", parent)
+        super().__init__(f"Void a contact — {version.case_id}", "Void contact", parent,
+                         example="recorded under the wrong case")
         self.workspace, self.actor, self.version = workspace, actor, version
         self.resize(520, 240)
         intro = QLabel(f"Void this contact? It stops counting for estimates, fitting and exports, and stays "
@@ -132,7 +136,7 @@ class ContactVersionsDialog(QDialog):
         from caseview.operations import casework
 
         self.setWindowTitle(f"Contacts and their versions — {case_id}")
-        self.resize(1100, 520)
+        self.resize(1320, 520)
         model, _ = workspace.current_model()
         self.versions = casework.list_contacts(workspace, case_id, all_versions=True)
         self.show_all = QCheckBox("Show superseded and voided versions")
@@ -147,34 +151,44 @@ class ContactVersionsDialog(QDialog):
         buttons = QDialogButtonBox(QDialogButtonBox.Close)
         buttons.rejected.connect(self.reject)
         layout = QVBoxLayout(self)
-        layout.addWidget(QLabel("Corrections and voids never remove what was recorded; earlier versions stay here."))
+        layout.addWidget(QLabel("Corrections and voids never remove what was recorded; earlier versions stay "
+                                "here (newest first)."))
         layout.addWidget(self.show_all)
         layout.addWidget(self.table, 1)
         layout.addWidget(buttons)
         self._fill()
 
     def _fill(self) -> None:
-        rows = [v for v in self.versions if self.show_all.isChecked() or v.status == "current"]
+        # newest first, so the latest changes are in view
+        rows = [v for v in reversed(self.versions) if self.show_all.isChecked() or v.status == "current"]
         headers = (["Date", "Status"] + [c.replace("_", " ") for c in self.channels]
-                   + [c.replace("_", " ") for c in self.covariates] + ["Known stage", "Recorded", "By", "Reason"])
+                   + [c.replace("_", " ") for c in self.covariates]
+                   + ["Known stage", "Recorded", "Recorded by", "Changed", "Changed by", "Reason"])
         self.table.setColumnCount(len(headers))
         self.table.setHorizontalHeaderLabels(headers)
         self.table.setRowCount(len(rows))
         for i, v in enumerate(rows):
             reason = v.reason if v.status != "current" else v.recorded_reason
+            if reason == "import" and not v.recorded_at:
+                reason = ""  # an imported contact: "(imported)" says it
             cells = ([v.date, STATUS_TEXT.get(v.status, v.status)] + [v.values.get(c, "") or "–" for c in self.channels]
                      + ["" if v.covariates.get(c) is None else f"{v.covariates[c]:g}" for c in self.covariates]
-                     + [v.stage_known, v.recorded_at[:16].replace("T", " ") or "(imported)", v.recorded_by,
-                        reason])
+                     + [v.stage_known, _when(v.recorded_at) or "(imported)", v.recorded_by, _when(v.ended_at),
+                        v.ended_by, reason])
             for j, text in enumerate(cells):
                 item = QTableWidgetItem(text)
-                if v.status != "current":
+                if v.status != "current":  # earlier versions in italics; "voided" struck through
                     font = item.font()
-                    font.setStrikeOut(v.status == "voided")
                     font.setItalic(True)
+                    font.setStrikeOut(v.status == "voided" and j == 1)
                     item.setFont(font)
                 self.table.setItem(i, j, item)
         self.table.resizeColumnsToContents()
+
+
+def _when(utc_text: str) -> str:
+    """'2026-12-03T09:55:01.123Z' -> '2026-12-03 09:55 UTC' ('' stays '')."""
+    return f"{utc_text[:16].replace('T', ' ')} UTC" if utc_text else ""
 
 
 def _as_date(text: str):

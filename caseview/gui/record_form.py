@@ -100,7 +100,7 @@ class RecordForm(QDialog):
         self.model, _ = workspace.current_model()
         self.setWindowTitle("Add a person" if self.adding else f"Record a contact — {case_id}")
         self.setObjectName("recordForm")
-        self.resize(520, 560)
+        self.resize(520, 470)
 
         intro = QLabel("A new case starts with its first contact. Give a pseudonymous case ID (never a name) "
                        "and the coordinator." if self.adding else
@@ -112,6 +112,9 @@ class RecordForm(QDialog):
         self.case_edit.setAccessibleName("Case ID")
         self.case_edit.setPlaceholderText("e.g. HS-0123")
         self.case_edit.setReadOnly(not self.adding)
+        if not self.adding:
+            self.case_edit.setFrame(False)  # shown, not edited: the contact belongs to this case
+            self.case_edit.setFocusPolicy(Qt.NoFocus)
         form.addRow("Case ID:", self.case_edit)
         self.coordinator_edit = QLineEdit()
         self.coordinator_edit.setAccessibleName("Coordinator code")
@@ -135,7 +138,7 @@ class RecordForm(QDialog):
         self.error.setAccessibleName("Problem with the form")
         advisory = QLabel(ADVISORY_NOTICE)
         advisory.setWordWrap(True)
-        advisory.setStyleSheet("color: palette(mid);")
+        advisory.setObjectName("formAdvisory")
         self.buttons = QDialogButtonBox(QDialogButtonBox.Cancel)
         self.record_button = self.buttons.addButton("Add person" if self.adding else "Record",
                                                     QDialogButtonBox.AcceptRole)
@@ -149,8 +152,8 @@ class RecordForm(QDialog):
         layout.addWidget(values_box)
         layout.addWidget(self.previous_note)
         layout.addWidget(self.error)
-        layout.addStretch(1)
         layout.addWidget(advisory)
+        layout.addStretch(1)
         layout.addWidget(self.buttons)
         order = [self.case_edit, self.coordinator_edit, self.date_edit, *self.fields.widgets(), self.record_button]
         if not self.adding:
@@ -166,7 +169,10 @@ class RecordForm(QDialog):
         defaults = self._casework.contact_form_defaults(self.workspace, case_id, pydate(self.date_edit.date()))
         self.fields.fill({}, defaults["covariates"])
         if defaults["covariates"]:
-            self.previous_note.setText("Covariates are those of the previous contact; change any that changed.")
+            previous = defaults.get("previous_date", "")
+            since = f" ({previous})" if previous else ""
+            self.previous_note.setText(f"Covariates are those of the previous contact{since}; change any that "
+                                       "changed.")
         if defaults["closed"] is not None:
             closed = defaults["closed"]
             self.previous_note.setText(f"This case is closed (since {_iso(closed.closed_day)}, {closed.reason}); "

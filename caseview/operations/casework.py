@@ -150,18 +150,19 @@ def list_contacts(ws, case_id: str, all_versions: bool = False) -> list[ContactV
 def contact_form_defaults(ws, case_id: str, date=None) -> dict:
     """What a new contact of ``case_id`` starts from: covariates of its latest contact before ``date``.
 
-    Returns {"exists": bool, "coordinator": str, "covariates": {name: number}, "closed": CaseClosure|None}.
+    Returns {"exists": bool, "coordinator": str, "covariates": {name: number}, "previous_date": str,
+    "closed": CaseClosure or None}.
     """
     con = ws.connection
     key = store.case_key(con, case_id)
     if key is None:
-        return {"exists": False, "coordinator": "", "covariates": {}, "closed": None}
+        return {"exists": False, "coordinator": "", "covariates": {}, "previous_date": "", "closed": None}
     day = _day(date) if date is not None else 10 ** 6
     previous = store.latest_contact_before(con, case_id, day)
     coordinator = con.execute("SELECT coordinator FROM cases WHERE id = ?", (key,)).fetchone()[0]
     covariates = {k: v for k, v in (previous.covariates if previous else {}).items() if v is not None}
     return {"exists": True, "coordinator": coordinator, "covariates": covariates,
-            "closed": store.closed_cases(con).get(case_id)}
+            "previous_date": previous.date if previous else "", "closed": store.closed_cases(con).get(case_id)}
 
 
 def case_estimate(ws, case_id: str, as_of, horizon_days: float = 90.0) -> CaseEstimate:
