@@ -293,6 +293,12 @@ def _reason(reason: str, source: str) -> str:
                          "(nothing was stored)")
     if any(ord(ch) < 32 or 127 <= ord(ch) < 160 for ch in text):
         raise InputError(f"{source}: the reason holds control characters; expected plain text (nothing was stored)")
+    from .. import privacy
+
+    finding = privacy.screen_value(text, "other", "reason")  # the import's identifier screen
+    if finding is not None:
+        raise InputError(f"{source}: the reason {finding.description} (identifier rule {finding.rule}); caseview "
+                         "never stores direct identifiers - describe the change without them (nothing was stored)")
     return text
 
 

@@ -193,7 +193,8 @@ def collect_report_data(ws, as_of: dt.date, *, horizon_days: float = 90.0, coord
         occupancy=occupancy, model=summary, audit_head=ws.audit_head(),
         options={"horizon_days": float(horizon_days), "coordinator": coordinator or None,
                  "flagged_only": bool(flagged_only), "since": since.isoformat() if since else None,
-                 "dates": dates, "seed": "given" if seed is not None else None},
+                 "dates": dates, "seed": "given" if seed is not None else None,
+                 "include_closed": bool(include_closed)},
     )
 
 

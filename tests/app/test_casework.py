@@ -132,6 +132,9 @@ def test_correct_that_changes_nothing_or_lacks_reason_is_refused(ws):
         casework.correct_contact(ws, "HS-0002", "2026-11-16", "no change", "bo")
     with pytest.raises(InputError, match="reason is required"):
         casework.correct_contact(ws, "HS-0002", "2026-11-16", "  ", "bo", values={"falls": "one"})
+    with pytest.raises(InputError, match="identifier rule phone") as caught:
+        casework.void_contact(ws, "HS-0002", "2026-11-16", "daughter rang from 0207 946 0123", "bo")
+    assert "0207" not in str(caught.value)
     with pytest.raises(InputError, match="no current contact on 2026-11-17"):
         casework.void_contact(ws, "HS-0002", "2026-11-17", "never happened", "bo")
     assert _snapshot(ws) == before
