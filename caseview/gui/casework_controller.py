@@ -86,7 +86,8 @@ class CaseworkController(QObject):
 
         form = RecordForm(ws, self.window.actor, case_id, parent=self.window)
         if form.exec():
-            self.after_change(form.result.case_id, form.result.closing_suggestion)
+            self.after_change(form.result.case_id, " ".join(filter(None, (
+                self._after_as_of(form.result.date), form.result.closing_suggestion))))
 
     def add_person(self) -> None:
         ws = self._workspace()
@@ -96,7 +97,13 @@ class CaseworkController(QObject):
 
         form = RecordForm(ws, self.window.actor, None, parent=self.window)
         if form.exec():
-            self.after_change(form.result.case_id)
+            self.after_change(form.result.case_id, self._after_as_of(form.result.date))
+
+    def _after_as_of(self, date: str) -> str:
+        if date <= self.window.as_of.isoformat():
+            return ""
+        return (f"The contact of {date} is after the as-of date {self.window.as_of.isoformat()}: move the as-of "
+                "date to see it in the estimates.")
 
     def _current_version(self, case_id: str, date: str):
         from caseview.operations import casework
