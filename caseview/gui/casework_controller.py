@@ -99,6 +99,25 @@ class CaseworkController(QObject):
         if form.exec():
             self.after_change(form.result.case_id, self._after_as_of(form.result.date))
 
+    def _queue_state(self, loaded, row: int) -> tuple:
+        """(listed in the risk queue, flagged, overdue) of case ``row``; the queue is refilled when it changes."""
+        a = loaded.assessment
+        if a is None:
+            return (False, False, False)
+        listed_rows = getattr(self.window.risk_queue, "rows", np.zeros(0, dtype=np.int64))
+        flagged = bool(a.is_flagged[row])
+        listed = bool(np.any(np.asarray(listed_rows) == row))
+        if flagged and not listed:  # would it enter the listed top of the queue?
+            from . import risk_queue
+
+            limit = getattr(risk_queue, "QUEUE_LIMIT", None)
+            priority = np.asarray(a.priority)
+            ahead = int(np.count_nonzero(np.asarray(a.is_flagged) & (priority > priority[row])))
+            listed = limit is None or ahead < limit
+        due = int(a.next_contact_due_day[row])
+        overdue = flagged and 0 <= due <= loaded.scores.as_of_day
+        return (listed, flagged, overdue)
+
     def _after_as_of(self, date: str) -> str:
         if date <= self.window.as_of.isoformat():
             return ""
@@ -206,6 +225,7 @@ class CaseworkController(QObject):
         position = int(np.searchsorted(ids, case_id))
         was_present = position < ids.size and ids[position] == case_id
         was_flagged = bool(was_present and before.assessment is not None and before.assessment.is_flagged[position])
+        queue_before = self._queue_state(before, position) if was_present else None
         loaded, row = casework.rescore_case(ws, before, case_id, include_closed)
         self.last_splice_seconds = time.perf_counter() - started
         window.loaded = loaded
@@ -216,11 +236,10 @@ class CaseworkController(QObject):
                 window.case_view.show_rescored(loaded.scores, row)
             else:
                 window.caseload.select_case(case_id)  # shows it in the case pane
-            flagged = loaded.assessment is not None and bool(loaded.assessment.is_flagged[row])
-            if was_flagged or flagged:
+            if self._queue_state(loaded, row) != queue_before or queue_before[0]:
                 window.risk_queue.set_caseload(loaded)
-            else:
-                window.risk_queue.loaded = loaded  # the queue lists flagged cases only: nothing to redraw
+            else:  # not listed before or after, same flag and overdue state: nothing in the queue changes
+                window.risk_queue.loaded = loaded
         else:  # a case added or gone: the table's rows change
             window.case_view.set_scores(loaded.scores)
             window.caseload.set_caseload(loaded)
