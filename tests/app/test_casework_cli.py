@@ -48,6 +48,10 @@ def test_record_correct_void_contacts_close_reopen(ws, tmp_path):
                if r["date"] >= "2026-12-01"]
     assert changed == [("2026-12-01", "several", "superseded", "ann", "one fall, not several"),
                        ("2026-12-02", "one", "voided", "bo", "wrong case")]
+    exported = tmp_path / "export.csv"
+    run("export", ws, "--out", exported)
+    dates = {r["date"] for r in _rows(exported.read_text(encoding="utf-8")) if r["case_id"] == "HS-0004"}
+    assert dates and not dates & {"2026-12-01", "2026-12-02"}  # exports hold current contacts only
     current = _rows(run("contacts", ws, "HS-0004").stdout)
     assert {r["status"] for r in current} == {"current"} and all(r["date"] < "2026-12-01" for r in current)
 
