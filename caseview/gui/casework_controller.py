@@ -64,13 +64,13 @@ class CaseworkController(QObject):
     def update_case_actions(self) -> None:
         """Closing hint and buttons for the case on show (reads that case only)."""
         from caseview.operations import casework
-        from caseview.storage.casework_store import closed_cases
+        from caseview.storage.casework_store import case_closure
 
         ws, case_id = self.window.workspace(), self.current_case()
         if ws is None or not case_id:
             self.window.case_view.actions.show_case(case_id, "", None)
             return
-        closure = closed_cases(ws.connection).get(case_id)
+        closure = case_closure(ws.connection, case_id)
         self.window.case_view.actions.show_case(case_id, casework.closing_suggestion(ws, case_id), closure)
         self._contact_selected()  # a contact still selected in the refilled list stays the one acted on
 

@@ -162,7 +162,7 @@ def contact_form_defaults(ws, case_id: str, date=None) -> dict:
     coordinator = con.execute("SELECT coordinator FROM cases WHERE id = ?", (key,)).fetchone()[0]
     covariates = {k: v for k, v in (previous.covariates if previous else {}).items() if v is not None}
     return {"exists": True, "coordinator": coordinator, "covariates": covariates,
-            "previous_date": previous.date if previous else "", "closed": store.closed_cases(con).get(case_id)}
+            "previous_date": previous.date if previous else "", "closed": store.case_closure(con, case_id)}
 
 
 def case_estimate(ws, case_id: str, as_of, horizon_days: float = 90.0) -> CaseEstimate:
@@ -212,7 +212,7 @@ def closing_suggestion(ws, case_id: str) -> str:
     """A sentence offering to close the case when its latest contact records a stage with no way out."""
     model, _ = ws.current_model()
     history = store.contact_history(ws.connection, case_id)
-    if not history or not history[-1].stage_known or case_id in store.closed_cases(ws.connection):
+    if not history or not history[-1].stage_known or store.case_closure(ws.connection, case_id) is not None:
         return ""
     absorbing = {model.stages[i] for i in model.absorbing_stages}
     recorded = history[-1].stage_known.split("|")

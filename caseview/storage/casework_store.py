@@ -156,6 +156,14 @@ def closed_cases(connection) -> dict:
         " JOIN cases c ON c.id = k.case_id")}
 
 
+def case_closure(connection, case_code: str) -> CaseClosure | None:
+    """The closure of one case, or None when it is open (reads that case only)."""
+    row = connection.execute(
+        "SELECT k.closed_day, k.reason, k.closed_at, k.closed_by FROM case_closures k JOIN cases c ON c.id = k.case_id"
+        " WHERE c.case_code = ?", (case_code,)).fetchone()
+    return None if row is None else CaseClosure(case_code, int(row[0]), row[1], row[2], row[3])
+
+
 def open_case_mask(connection, case_codes, as_of_day: int | None) -> np.ndarray:
     """Which of ``case_codes`` are open on ``as_of_day`` (None: today and on, i.e. not closed at all).
 
