@@ -56,6 +56,10 @@ def run_fit(args) -> int:
     if args.starts < 1:
         raise InputError(f"--starts: expected a whole number >= 1, got {args.starts}")
     actor = actor_name(args)
+    if args.out:  # before the (long) fit: never a saved version and then a failed --out
+        from caseview.private_files import ensure_can_write
+
+        ensure_can_write(args.out)
     with open_workspace(args.workspace) as ws:
         model, version = ws.current_model()
         caseload = ws.load_caseload(model)
@@ -77,13 +81,16 @@ def run_fit(args) -> int:
         note = (f"fitted to {result.n_cases} cases from version {version.id}"
                 + (" (penalised)" if args.penalised else "")
                 + ("" if result.converged else " - DID NOT CONVERGE"))
-        new_id = ws.add_model_version(dump_model(result.model), note, actor, fit_summary=summary, make_current=True)
+        with ws.transaction():  # the version and the --out file: both or neither
+            new_id = ws.add_model_version(dump_model(result.model), note, actor, fit_summary=summary,
+                                          make_current=True)
+            if args.out:
+                save_model(result.model, args.out, extra={"fit": {k: summary[k] for k in
+                                                                   ("log_likelihood", "aic", "bic", "n_parameters",
+                                                                    "n_cases", "converged")}})
     print(result.format_table())
     print(f"\nsaved as model version {new_id} (now current for scoring; version {version.id} kept)")
     if args.out:
-        save_model(result.model, args.out, extra={"fit": {k: summary[k] for k in
-                                                           ("log_likelihood", "aic", "bic", "n_parameters",
-                                                            "n_cases", "converged")}})
         print(f"wrote {args.out}")
     print(ADVISORY_NOTICE)
     return 0 if result.converged else 1

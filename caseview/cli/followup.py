@@ -102,8 +102,11 @@ def run_flags(args) -> int:
 
     as_of = parse_date(args.as_of, "--as-of")
     with open_workspace(args.workspace) as ws:
+        if ws.read_only and not args.save:
+            print(f"caseview: note: {ws.path} is read-only: dismissed flags that would re-open are not re-opened",
+                  file=sys.stderr)
         a = assess_caseload(ws, as_of, args.horizon, save_snapshot=args.save, actor=actor_name(args),
-                            include_closed=args.include_closed)
+                            reopen=not ws.read_only, include_closed=args.include_closed)
     s = a.scores
     rows = a.order[a.is_flagged[a.order]]
     due = a.next_contact_due_day[rows]

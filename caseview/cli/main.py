@@ -26,6 +26,7 @@ COMMAND_MODULES = (
     "caseview.cli.followup",    # flags, review, forecast, rules
     "caseview.cli.reporting",   # report
     "caseview.cli.casework_commands",  # record, correct, void, contacts, close, reopen
+    "caseview.cli.outlook_commands",  # outlook, target
     "caseview.cli.window",      # gui
 )
 
@@ -54,7 +55,16 @@ def build_parser() -> argparse.ArgumentParser:
     return parser
 
 
+def _terminate_as_interrupt(signum, frame):
+    raise KeyboardInterrupt  # termination runs the same clean-up as Ctrl-C (partial files removed, rolled back)
+
+
 def main(argv=None) -> int:
+    import signal
+    import threading
+
+    if threading.current_thread() is threading.main_thread():
+        signal.signal(signal.SIGTERM, _terminate_as_interrupt)
     parser = build_parser()
     args = parser.parse_args(argv)
     if not getattr(args, "run", None):

@@ -277,6 +277,7 @@ def save_run(ws, assessment: CaseloadAssessment, actor: str) -> int:
     """Store the assessment's scores as a snapshot, with its audit entry, in one transaction."""
     from caseview.storage import followup_store as store
     from caseview.storage.audit import utc_now
+    from caseview.storage.row_digests import RowChanges
 
     scores = assessment.scores
     with ws.transaction():
@@ -286,5 +287,6 @@ def save_run(ws, assessment: CaseloadAssessment, actor: str) -> int:
         ws.audit_append(actor, "scores.snapshot", f"score_run:{run_id}",
                         {"run_id": run_id, "as_of": scores.as_of.isoformat(), "horizon_days": scores.horizon_days,
                          "model_version": scores.model_version, "n_cases": scores.n_cases,
-                         "n_flagged": int(assessment.is_flagged.sum()), "flag_counts": assessment.flag_counts()})
+                         "n_flagged": int(assessment.is_flagged.sum()), "flag_counts": assessment.flag_counts()},
+                        changes=RowChanges(rows={"score_runs": [run_id]}))
     return run_id

@@ -79,6 +79,10 @@ class MainWindow(QMainWindow):
         self.tabs.addTab(split, "Caseload")
         self.tabs.addTab(self.risk_queue, theme.icon("flag"), "Risk queue")
         self.tabs.addTab(self.model_panel, theme.icon("fit"), "Model")
+        from .outlook_panel import OutlookPanel
+
+        self.outlook_panel = OutlookPanel(self)
+        self.tabs.addTab(self.outlook_panel, "Outlook")
         central = QWidget()
         layout = QVBoxLayout(central)
         layout.setContentsMargins(6, 4, 6, 2)
@@ -230,6 +234,7 @@ class MainWindow(QMainWindow):
         self.case_view.set_scores(loaded.scores)
         self.caseload.set_caseload(loaded)
         self.risk_queue.set_caseload(loaded)
+        self.outlook_panel.caseload_loaded(loaded)
         if self._pending_case:
             if not self.caseload.select_case(self._pending_case):
                 self.statusBar().showMessage(f"Case {self._pending_case} is not in this caseload as of "
@@ -364,11 +369,15 @@ class MainWindow(QMainWindow):
         from PySide6.QtWidgets import QApplication
 
         QApplication.processEvents()
+        self.wait_for_jobs()  # a panel may start work when shown (the Outlook tab)
         if self.case_view.canvas is not None:
             self.case_view.canvas.draw()
         pixmap = self.grab()
-        if not pixmap.save(str(path), "PNG"):
-            raise WorkspaceError(f"{path}: cannot write the screenshot")
+        from caseview.private_files import private_output
+
+        with private_output(path) as temporary:  # the picture shows case IDs: owner-only
+            if not pixmap.save(str(temporary), "PNG"):
+                raise WorkspaceError(f"{path}: cannot write the screenshot")
         self.close()
         return 0
 

@@ -262,6 +262,9 @@ class RiskQueue(QWidget):
         except CaseviewError as exc:
             self.window.show_error(str(exc))
             return False
+        except Exception as exc:  # a failed write is never silent (issue 12, item 1)
+            self.window.show_error(f"review of {case_id} was not recorded: {type(exc).__name__}: {exc}")
+            return False
         new_status = getattr(row, "status", status)
         self.loaded.assessment.review_status[r] = new_status
         self.window.caseload.model.set_review_status(r, new_status)

@@ -9,6 +9,8 @@ extracted.
 
 from __future__ import annotations
 
+import io
+
 import numpy as np
 
 from caseview import ADVISORY_NOTICE, __version__
@@ -285,16 +287,22 @@ def write_pdf(data, path) -> int:
     from matplotlib.backends.backend_pdf import PdfPages
 
     with matplotlib.rc_context({"pdf.fonttype": 42, "font.family": "DejaVu Sans", "axes.linewidth": 0.6}):
-        pages = [_cover(data), _occupancy_page(data)] + _flag_pages(data) + _timeline_pages(data) + [_model_page(data)]
+        from .outlook_page import outlook_page
+
+        pages = ([_cover(data), _occupancy_page(data), outlook_page(data)] + _flag_pages(data)
+                 + _timeline_pages(data) + [_model_page(data)])
         as_of = data.dates.report_date_text(data.as_of)
         header_right = (f"as of {as_of}" if not data.dates.deidentified else as_of) + f" · {_scope(data)}"
         metadata = {"Title": "caseview caseload report", "Subject": "Advisory caseload stage summary",
                     "Creator": f"caseview {__version__}", "Author": "caseview"}
         if data.dates.deidentified:
             metadata["CreationDate"] = None
-        with PdfPages(path, metadata=metadata) as pdf:
+        buffer = io.BytesIO()  # built in memory: a full disk fails in one plain write below, not inside zlib
+        with PdfPages(buffer, metadata=metadata) as pdf:
             for number, page in enumerate(pages, start=1):
                 page.frame(f"caseview caseload report · {page.title}", header_right, ADVISORY_NOTICE, number,
                            len(pages))
                 pdf.savefig(page.figure)
+    with open(path, "wb") as handle:
+        handle.write(buffer.getbuffer())
     return len(pages)

@@ -146,6 +146,9 @@ def write_xlsx(data, path) -> int:
     _sheet(book, "Cases", columns, records, widths={"reasons": 60})
     _sheet(book, "Flags", *_flag_rows(data), widths={"message": 50, "recent_contacts_effect": 60})
     _sheet(book, "Reviews", *review_records(data))
+    from .outlook_page import outlook_sheet
+
+    _sheet(book, "Outlook", *outlook_sheet(data), widths={"stage": 26, "advisory": 40})
     notes = [["caution", ADVISORY_NOTICE],
              ["probabilities", "p_<stage>: probability of each stage on the as-of date; _at_horizon: the same "
                                "after the horizon if nothing new is observed."],
@@ -157,5 +160,7 @@ def write_xlsx(data, path) -> int:
     _sheet(book, "Notes", ["topic", "note"], notes, widths={"topic": 22, "note": 100})
     book.properties.title = "caseview caseload report"
     book.properties.creator = "caseview"
-    book.save(path)
+    from caseview.private_files import save_workbook
+
+    save_workbook(book, path)  # no traceback from openpyxl on a full disk
     return len(records)

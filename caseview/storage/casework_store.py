@@ -25,6 +25,7 @@ from ..errors import InputError
 from . import audit as _audit
 from .contact_writer import ContactBatch, encode_batch
 from .contacts import field_layout
+from .row_digests import RowChanges
 from .schema import BLANK_CODE
 
 CLOSE_REASONS = ("moved", "discharged", "died", "transferred", "other")
@@ -197,21 +198,25 @@ def latest_contact_before(connection, case_code: str, day: int) -> ContactVersio
 
 
 # ------------------------------------------------------------------ writing (each: rows + audit entry)
-def keep_earlier_versions(connection, keys, status: str, actor: str, reason: str) -> None:
+def keep_earlier_versions(connection, keys, status: str, actor: str, reason: str) -> list:
     """Move the current versions of contacts ``keys`` [(case id, day)] to ``contact_versions``.
 
-    The caller holds the write transaction and then deletes or replaces the rows in ``contacts``.
+    The caller holds the write transaction and then deletes or replaces the rows in ``contacts``;
+    the ids of the kept versions go to its audit entry (``RowChanges(rows={"contact_versions": ids})``).
     """
     at = _audit.utc_now()
+    ids = []
     for case_id, day in keys:
-        connection.execute(
+        cursor = connection.execute(
             "INSERT INTO contact_versions (case_id, day, observations, covariates, stage_known, coordinator_id,"
             " status, recorded_at, recorded_by, recorded_reason, ended_at, ended_by, reason)"
             " SELECT c.case_id, c.day, c.observations, c.covariates, c.stage_known, c.coordinator_id, ?,"
             " COALESCE(p.recorded_at, ''), COALESCE(p.recorded_by, ''), COALESCE(p.reason, 'import'), ?, ?, ?"
             " FROM contacts c LEFT JOIN contact_provenance p ON p.case_id = c.case_id AND p.day = c.day"
             " WHERE c.case_id = ? AND c.day = ?", (status, at, actor, reason, int(case_id), int(day)))
+        ids.append(int(cursor.lastrowid))
         connection.execute("DELETE FROM contact_provenance WHERE case_id = ? AND day = ?", (int(case_id), int(day)))
+    return ids
 
 
 def _closure_day(connection, case_id: int) -> int | None:
@@ -289,7 +294,7 @@ def record_contact(ws, batch: ContactBatch, actor: str, create_case: bool) -> di
         _update_case_coordinator(con, case_id)
         new = _as_version(con, code, day, _current_row(con, case_id, day), CURRENT)
         details = {"case_id": code, "date": _date(day), "case_created": bool(create_case), "old": None, "new": new}
-        _audit.append(con, actor, "contact.record", code, details)
+        _audit.append(con, actor, "contact.record", code, details, changes=_changes(con, code, case_id, [day]))
     return details
 
 
@@ -314,7 +319,7 @@ def correct_contact(ws, case_code: str, day: int, batch: ContactBatch, actor: st
         coordinator_id = _coordinator_id(con, coordinator) if coordinator else old_row[3]
         if (obs, cov, str(batch.stage_known[0]) or None, coordinator_id, new_day) == (*old_row[:4], day):
             raise InputError(f"case {case_code!r}, {_date(day)}: the correction changes nothing (nothing was stored)")
-        keep_earlier_versions(con, [(case_id, day)], SUPERSEDED, actor, reason)
+        kept = keep_earlier_versions(con, [(case_id, day)], SUPERSEDED, actor, reason)
         con.execute("DELETE FROM contacts WHERE case_id = ? AND day = ?", (case_id, day))
         con.execute("INSERT INTO contacts (case_id, day, observations, covariates, stage_known, coordinator_id)"
                     " VALUES (?, ?, ?, ?, ?, ?)", (case_id, new_day, obs, cov, str(batch.stage_known[0]) or None,
@@ -324,7 +329,8 @@ def correct_contact(ws, case_code: str, day: int, batch: ContactBatch, actor: st
         _update_case_coordinator(con, case_id)
         new = _as_version(con, case_code, new_day, _current_row(con, case_id, new_day), CURRENT)
         details = {"case_id": case_code, "date": _date(day), "reason": reason, "old": old, "new": new}
-        _audit.append(con, actor, "contact.correct", case_code, details)
+        _audit.append(con, actor, "contact.correct", case_code, details,
+                      changes=_changes(con, case_code, case_id, [day, new_day], kept))
     return details
 
 
@@ -336,12 +342,21 @@ def void_contact(ws, case_code: str, day: int, actor: str, reason: str) -> dict:
     with ws.transaction() as con:
         case_id = _existing_contact(con, case_code, day)
         old = _as_version(con, case_code, day, _current_row(con, case_id, day), VOIDED)
-        keep_earlier_versions(con, [(case_id, day)], VOIDED, actor, reason)
+        kept = keep_earlier_versions(con, [(case_id, day)], VOIDED, actor, reason)
         con.execute("DELETE FROM contacts WHERE case_id = ? AND day = ?", (case_id, day))
         _update_case_coordinator(con, case_id)
         details = {"case_id": case_code, "date": _date(day), "reason": reason, "old": old, "new": None}
-        _audit.append(con, actor, "contact.void", case_code, details)
+        _audit.append(con, actor, "contact.void", case_code, details,
+                      changes=_changes(con, case_code, case_id, [day], kept))
     return details
+
+
+def _changes(connection, case_code: str, case_id: int, days, version_ids=()) -> RowChanges:
+    """The protected rows a contact change touched: the case (its contacts), the provenance rows of
+    ``days``, the versions kept and the coordinators (one may have been added)."""
+    return RowChanges(cases=[case_code], all_rows=("coordinators",),
+                      rows={"contact_provenance": [f"{case_id}:{int(d)}" for d in days],
+                            "contact_versions": list(version_ids)})
 
 
 def _existing_contact(connection, case_code: str, day: int) -> int:
@@ -372,9 +387,12 @@ def close_case(ws, case_code: str, day: int, reason: str, actor: str) -> dict:
             raise InputError(f"case {case_code!r}: closing date {_date(day)} is before its latest contact "
                              f"({_date(last)}); expected a date on or after it (nothing was stored)")
         details = {"case_id": case_code, "closed_on": _date(day), "reason": reason}
-        entry = _audit.append(con, actor, "case.close", case_code, details)
+        at = _audit.utc_now()  # the row names its audit entry: written first, the entry follows (same lock)
+        con.execute("PRAGMA defer_foreign_keys = ON")  # checked at commit, when the entry exists
         con.execute("INSERT INTO case_closures (case_id, closed_day, reason, closed_at, closed_by, audit_id)"
-                    " VALUES (?, ?, ?, ?, ?, ?)", (case_id, int(day), reason, entry.at_utc, actor, entry.id))
+                    " VALUES (?, ?, ?, ?, ?, ?)", (case_id, int(day), reason, at, actor, _audit.next_entry_id(con)))
+        _audit.append(con, actor, "case.close", case_code, details, at_utc=at,
+                      changes=RowChanges(rows={"case_closures": [case_id]}))
     return details
 
 
@@ -391,5 +409,5 @@ def reopen_case(ws, case_code: str, actor: str) -> dict:
         details = {"case_id": case_code, "old": {"closed_on": _date(row[0]), "reason": row[1], "closed_at": row[2],
                                                  "closed_by": row[3]}, "new": None}
         con.execute("DELETE FROM case_closures WHERE case_id = ?", (case_id,))
-        _audit.append(con, actor, "case.reopen", case_code, details)
+        _audit.append(con, actor, "case.reopen", case_code, details, changes=RowChanges(rows={"case_closures": [case_id]}))
     return details

@@ -98,6 +98,8 @@ class FitResult:
             "mean_time_in_stage": rows(self.mean_time_in_stage),
             "next_stage_probabilities": rows(self.next_stage_probabilities),
             "history": [{k: _number(v) if k != "iteration" else v for k, v in h.items()} for h in self.history],
+            # unconstrained scale, order free_parameters; the outlook draws parameters from it
+            "covariance": [[_number(v) for v in row] for row in np.asarray(self.covariance)],
         }
 
     def format_table(self) -> str:

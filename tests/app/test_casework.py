@@ -252,3 +252,21 @@ def test_successive_one_case_rescores_reuse_buffers_and_stay_exact(ws):
         assert loaded.scores.caseload.raw_values[name].tolist() == column.tolist()
     assert np.allclose(loaded.scores.p_now, full.scores.p_now, atol=1e-12)
     assert loaded.assessment.flags.tolist() == full.flags.tolist()
+
+
+def test_row_digests_catch_versions_and_closures_changed_outside_caseview(ws):
+    """Every case-work write names its rows for the audit trail's row digests (the safety hook)."""
+    casework.record_contact(ws, "HS-0002", "2026-12-01", "ann", values={"falls": "several"})
+    casework.correct_contact(ws, "HS-0002", "2026-12-01", "one fall", "bo", values={"falls": "one"})
+    casework.close_case(ws, "HS-0002", "2026-12-02", "moved", "bo")
+    assert ws.audit_verify().ok
+    con = ws.connection
+    con.execute("DROP TRIGGER contact_versions_no_update")
+    con.execute("UPDATE contact_versions SET reason = 'rewritten'")
+    result = ws.audit_verify()
+    assert not result.ok and "contact_versions" in result.problem
+    con.execute("UPDATE contact_versions SET reason = 'one fall'")
+    assert ws.audit_verify().ok
+    con.execute("UPDATE case_closures SET reason = 'died'")
+    result = ws.audit_verify()
+    assert not result.ok and "case_closures" in result.problem

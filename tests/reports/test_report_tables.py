@@ -34,7 +34,7 @@ def test_workbook_sheets_caution_and_frozen_headers(calendar_reports):
     from openpyxl import load_workbook
 
     book = load_workbook(calendar_reports["xlsx"].path)
-    assert book.sheetnames == ["Summary", "Cases", "Flags", "Reviews", "Notes"]
+    assert book.sheetnames == ["Summary", "Cases", "Flags", "Reviews", "Outlook", "Notes"]
     for sheet in book.worksheets:
         assert sheet["A1"].value == ADVISORY_NOTICE
         assert sheet.freeze_panes in ("A3", "B3")

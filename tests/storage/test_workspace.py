@@ -78,6 +78,7 @@ def test_open_refuses_newer_version(ws):
 def test_migration_backs_up_first(ws, monkeypatch):
     path = ws.path
     ws.close()
+    before = schema.schema_version()
     migration_2 = "CREATE TABLE migration_two_marker (x INTEGER);"
     before = schema.schema_version()  # other migrations come and go; the test adds one after them
     monkeypatch.setattr(schema, "MIGRATIONS", schema.MIGRATIONS + [migration_2])
