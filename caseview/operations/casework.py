@@ -114,8 +114,11 @@ def _validated(ws, source: str, case_id: str, date, coordinator: str, values: di
     cells = [str(case_id), date if isinstance(date, str) else str(date), coordinator or "",
              *[str(values.get(name, "") or "") for name in channels],
              *[_number_text(covariates.get(name)) for name in model.covariates], stage_known or ""]
+    extra = {}
+    if "covariate_ranges" in getattr(Rules, "__dataclass_fields__", {}):  # the import's range check, once landed
+        extra["covariate_ranges"] = getattr(model, "range_of", {})
     rules = Rules(channels=channels, covariates=tuple(model.covariates), stages=tuple(model.stages),
-                  present=tuple(columns))
+                  present=tuple(columns), **extra)
     problems = Problems(source)
     validator = ChunkValidator(rules, problems, lambda line: "the contact")
     encoded = validator.validate(1, pd.DataFrame([cells], columns=list(range(len(columns))), dtype=object))
@@ -190,6 +193,15 @@ def _refuse_impossible(ws, case_id: str, source: str) -> None:
     from ..scoring import score_loaded
 
     model, _ = ws.current_model()
+    try:  # the import's contradiction rule, where it has landed (caseview.case_checks)
+        from ..case_checks import stored_contradictions
+    except ImportError:
+        stored_contradictions = None
+    if stored_contradictions is not None:
+        found = stored_contradictions(ws.connection, model, [case_id])
+        if found:
+            raise InputError(f"{source}: case {case_id!r}: {found[0].reason}; correct or void the contradicting "
+                             "contact instead (nothing was stored)")
     one = ws.load_case(model, case_id)
     if one.n_cases == 0:
         return

@@ -99,6 +99,7 @@ CREATE TABLE contact_versions (
   covariates BLOB NOT NULL,
   stage_known TEXT,
   coordinator_id INTEGER REFERENCES coordinators(id),
+  contact_kind TEXT NOT NULL DEFAULT 'scheduled',
   status TEXT NOT NULL CHECK (status IN ('superseded', 'voided')),
   recorded_at TEXT NOT NULL DEFAULT '',
   recorded_by TEXT NOT NULL DEFAULT '',
