@@ -35,6 +35,7 @@ class CaseworkController(QObject):
         actions.reopen_requested.connect(self.reopen_case)
         window.caseload.case_selected.connect(lambda _row: self.update_case_actions())
         window.caseload_loaded.connect(lambda _loaded: self.update_case_actions())
+        window.caseload.selection_cleared.connect(self.update_case_actions)
         window.case_view.contacts.itemSelectionChanged.connect(self._contact_selected)
         window.caseload.show_closed.toggled.connect(self.set_show_closed)
         self.action_record = QAction("Record contact…", window, shortcut=QKeySequence("Ctrl+Shift+R"),
@@ -229,11 +230,11 @@ class CaseworkController(QObject):
         loaded, row = casework.rescore_case(ws, before, case_id, include_closed)
         self.last_splice_seconds = time.perf_counter() - started
         window.loaded = loaded
+        window.case_view.set_scores(loaded.scores, loaded.assessment)
         if was_present and row >= 0:  # the same cases: update one row, the pane and (if it shows it) the queue
             window.caseload.update_case(loaded, row)
-            window.case_view.set_scores(loaded.scores)
             if window.caseload.current_case_id() == case_id:
-                window.case_view.show_rescored(loaded.scores, row)
+                window.case_view.show_rescored(row)
             else:
                 window.caseload.select_case(case_id)  # shows it in the case pane
             if self._queue_state(loaded, row) != queue_before or queue_before[0]:
@@ -241,11 +242,10 @@ class CaseworkController(QObject):
             else:  # not listed before or after, same flag and overdue state: nothing in the queue changes
                 window.risk_queue.loaded = loaded
         else:  # a case added or gone: the table's rows change
-            window.case_view.set_scores(loaded.scores)
-            window.caseload.set_caseload(loaded)
+            window.caseload.set_caseload(loaded)  # re-announces the selected case to the pane
             window.risk_queue.set_caseload(loaded)
-            if row >= 0 and window.caseload.select_case(case_id):
-                window.case_view.show_case(row)
+            if row >= 0:
+                window.caseload.select_case(case_id)
         self.update_case_actions()
         seconds = time.perf_counter() - started
         self.last_refresh_seconds = seconds

@@ -17,13 +17,21 @@ import numpy as np
 #: Room left at the end of each contact-row buffer, so later changes move rows instead of allocating.
 SPARE_ROWS = 4096
 
-#: Per-case fields of ``CaseloadScores`` (one row per scored case).
-_SCORE_FIELDS = ("case_ids", "coordinators", "first_contact_day", "last_contact_day", "days_since_contact",
-                 "n_contacts", "p_now", "most_likely_stage", "p_at_horizon", "p_reach", "p_follow_up_now",
-                 "p_reach_follow_up", "last_covariates", "log_likelihood")
-#: Per-case fields of ``CaseloadAssessment``.
-_ASSESSMENT_FIELDS = ("flags", "is_flagged", "reason_text", "next_contact_due_day", "review_status",
-                      "reviewed_by", "reviewed_at", "priority", "previous_p_follow_up", "explained")
+#: Fields of ``CaseloadScores`` that are not one row per case (or are rebuilt separately).
+_SCORE_OTHER = ("caseload", "timelines", "case_rows", "model")
+#: Fields of ``CaseloadAssessment`` that are not one row per case (or are spliced separately).
+_ASSESSMENT_OTHER = ("scores", "rules", "reasons", "evaluation")
+
+
+def _per_case_fields(obj, skip, n: int) -> list:
+    """Names of the dataclass fields of ``obj`` holding one row per case (arrays of length ``n``);
+    found rather than listed, so fields added later are spliced too."""
+    names = []
+    for f in dataclasses.fields(obj):
+        value = getattr(obj, f.name)
+        if f.name not in skip and isinstance(value, np.ndarray) and value.ndim >= 1 and value.shape[0] == n:
+            names.append(f.name)
+    return names
 
 
 class _Splice:
@@ -161,7 +169,7 @@ def rescore_one(ws, loaded, case_id: str, include_closed: bool = False):
                                                         scores.timelines.offsets),
                         timelines=timelines, raw_values=raw)
     changes = {name: splice.per_case(getattr(scores, name), getattr(fresh, name) if keep else None)
-               for name in _SCORE_FIELDS}
+               for name in _per_case_fields(scores, _SCORE_OTHER, scores.n_cases)}
     n = changes["case_ids"].shape[0]
     new_scores = dataclasses.replace(scores, caseload=caseload, timelines=timelines,
                                      case_rows=np.arange(n, dtype=np.int64), **changes)
@@ -184,8 +192,14 @@ def _reassess(ws, old, new_scores, fresh, splice: _Splice, case_id: str):
         one = assess_scores(fresh, old.rules, previous, old.previous_as_of,
                             followup_store.latest_reviews(ws.connection, case_id),
                             influence_contacts=old.influence_contacts, explain_reasons=True)
-    changes = {name: splice.per_case(getattr(old, name), getattr(one, name) if keep else None)
-               for name in _ASSESSMENT_FIELDS if getattr(old, name) is not None}
+    changes = {}
+    for name in _per_case_fields(old, _ASSESSMENT_OTHER, old.scores.n_cases):
+        value = getattr(one, name) if keep else None
+        if keep and value is None:  # the one-case assessment left it out: a blank row of the same kind
+            value = np.zeros((1,) + getattr(old, name).shape[1:], dtype=getattr(old, name).dtype)
+            if value.dtype == object:
+                value[...] = ""
+        changes[name] = splice.per_case(getattr(old, name), value)
     reasons = old.reasons  # a list: changed in place like the arrays
     if splice.present and keep:
         reasons[splice.row] = one.reasons[0]

@@ -14,12 +14,13 @@ import io
 import numpy as np
 
 from caseview import ADVISORY_NOTICE, __version__
+from caseview.followup.wording import plural
 
 from . import charts, style
 from .data import case_history
 from .layout import MARGIN, Column, Page
 from .model_summary import NOT_FITTED
-from .records import short_reasons
+from .records import review_note, short_reasons
 
 #: Most flagged cases drawn as small timelines (the rest are named as left out).
 MAX_TIMELINES = 24
@@ -100,9 +101,9 @@ def _cover(data) -> Page:
         page.heading("Changes since the previous date")
         page.paragraph("Not requested (use --since to compare with an earlier date).", colour=style.MUTED)
     page.heading("Reviews")
-    page.paragraph(f"{data.flagged_rows.size} flagged case(s): {data.reviews_done} reviewed by a supervisor "
+    page.paragraph(f"{plural(data.flagged_rows.size, 'flagged case')}: {data.reviews_done} reviewed by a supervisor "
                    f"(acknowledged, actioned or dismissed), {data.reviews_outstanding} outstanding. "
-                   f"Scored {s.n_cases} case(s) in the workspace in total.")
+                   f"Scored {plural(s.n_cases, 'case')} in the workspace in total.")
     if data.flagged_rows.size > MAX_LISTED_FLAGGED:
         page.caution_box(f"This PDF lists the {MAX_LISTED_FLAGGED:,} most urgent flagged cases. "
                          + _left_out_note(int(data.flagged_rows.size) - MAX_LISTED_FLAGGED))
@@ -141,13 +142,17 @@ def _flag_rows(data) -> list:
         k = int(s.most_likely_stage[r])
         due = int(a.next_contact_due_day[r])
         if due < 0:
-            due_text = "not within the schedule limit"
-        elif due <= s.as_of_day:
-            due_text = "now"
+            due_text = "no date"
+        elif due < s.as_of_day:
+            due_text = f"overdue by {plural(s.as_of_day - due, 'day')}"
+        elif due == s.as_of_day:
+            due_text = "due today"
         else:
-            due_text = f"{view.case_text(r, due)} (in {due - s.as_of_day} days)"
+            due_text = f"{view.case_text(r, due)} (in {plural(due - s.as_of_day, 'day')})"
         status = str(a.review_status[r] or "") or "not reviewed"
         who = str(a.reviewed_by[r] or "")
+        note = review_note(data, r)
+        who = who + (f": “{note}”" if note else "")
         rows.append([str(s.case_ids[r]), str(s.coordinators[r] or ""), f"{data.stages[k]} {_pct(s.p_now[r, k])}",
                      _pct(s.p_follow_up_now[r]), _pct(s.p_reach_follow_up[r]), short_reasons(data, r), due_text,
                      status + (f" by {who}" if who else "")])
@@ -155,8 +160,9 @@ def _flag_rows(data) -> list:
 
 
 def _left_out_note(left_out: int) -> str:
-    return (f"{left_out:,} more flagged case(s) are not listed in this PDF. Every flagged case is in the spreadsheet "
-            "or CSV report (caseview report ... --out FILE.xlsx), or list one coordinator's cases with "
+    verb = "is" if left_out == 1 else "are"
+    return (f"{plural(left_out, 'more flagged case')} {verb} not listed in this PDF. Every flagged case is in the "
+            "spreadsheet or CSV report (caseview report ... --out FILE.xlsx), or list one coordinator's cases with "
             "--coordinator. Do not take a case's absence here to mean it needs no follow-up.")
 
 

@@ -16,7 +16,7 @@ def test_failing_review_write_is_shown_and_stores_nothing(window, qtbot, workspa
     open_ws(window, qtbot, workspace_path)
     queue = window.risk_queue
     queue.table.selectRow(0)
-    case_id = queue.table.item(0, 0).text()
+    case_id = queue.model.text(queue.rows[0], 0)  # the queue is a table model (no 500-row cap)
     before = len(window.workspace().audit_entries())
 
     def damaged(*args, **kwargs):  # what SQLite raised in the reported session
