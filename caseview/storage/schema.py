@@ -90,8 +90,9 @@ CREATE TABLE settings (key TEXT PRIMARY KEY, value TEXT NOT NULL);
 #: same transaction. ``contact_provenance`` says who recorded a current contact, when and why (a
 #: contact imported from a file has no row: its import is in the audit trail). A case is closed from
 #: ``closed_day`` on while it has a ``case_closures`` row; reopening deletes the row (both audited).
+#: Written with IF NOT EXISTS so that it does not depend on where it lands among other migrations.
 CASEWORK_SCHEMA = """
-CREATE TABLE contact_versions (
+CREATE TABLE IF NOT EXISTS contact_versions (
   id INTEGER PRIMARY KEY,
   case_id INTEGER NOT NULL REFERENCES cases(id),
   day INTEGER NOT NULL,
@@ -108,19 +109,19 @@ CREATE TABLE contact_versions (
   ended_by TEXT NOT NULL,
   reason TEXT NOT NULL,
   audit_id INTEGER REFERENCES audit_log(id));
-CREATE INDEX contact_versions_case ON contact_versions(case_id, day);
-CREATE TRIGGER contact_versions_no_update BEFORE UPDATE ON contact_versions
+CREATE INDEX IF NOT EXISTS contact_versions_case ON contact_versions(case_id, day);
+CREATE TRIGGER IF NOT EXISTS contact_versions_no_update BEFORE UPDATE ON contact_versions
 BEGIN SELECT RAISE(ABORT, 'earlier contact versions are kept as recorded'); END;
-CREATE TRIGGER contact_versions_no_delete BEFORE DELETE ON contact_versions
+CREATE TRIGGER IF NOT EXISTS contact_versions_no_delete BEFORE DELETE ON contact_versions
 BEGIN SELECT RAISE(ABORT, 'earlier contact versions are kept as recorded'); END;
-CREATE TABLE contact_provenance (
+CREATE TABLE IF NOT EXISTS contact_provenance (
   case_id INTEGER NOT NULL REFERENCES cases(id),
   day INTEGER NOT NULL,
   recorded_at TEXT NOT NULL,
   recorded_by TEXT NOT NULL,
   reason TEXT NOT NULL DEFAULT '',
   PRIMARY KEY (case_id, day)) WITHOUT ROWID;
-CREATE TABLE case_closures (
+CREATE TABLE IF NOT EXISTS case_closures (
   case_id INTEGER PRIMARY KEY REFERENCES cases(id),
   closed_day INTEGER NOT NULL,
   reason TEXT NOT NULL CHECK (reason IN ('moved', 'discharged', 'died', 'transferred', 'other')),
