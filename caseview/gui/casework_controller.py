@@ -42,7 +42,14 @@ class CaseworkController(QObject):
                                      triggered=lambda: self.record_contact(self.current_case()))
         self.action_add = QAction("Add a person…", window, shortcut=QKeySequence("Ctrl+Shift+A"),
                                   triggered=self.add_person)
-        menu = window.menuBar().addMenu("&Case")
+        from PySide6.QtWidgets import QMenu
+
+        menu = QMenu("&Case", window)
+        help_menu = [a for a in window.menuBar().actions() if a.text().replace("&", "") == "Help"]
+        if help_menu:  # before Help, which stays last
+            window.menuBar().insertMenu(help_menu[0], menu)
+        else:
+            window.menuBar().addMenu(menu)
         for action in (self.action_record, self.action_add):
             menu.addAction(action)
 
