@@ -242,12 +242,12 @@ def run_history(args) -> int:
 
     as_of_day = to_day(parse_date(args.as_of, "--as-of")) if args.as_of else None
     with open_workspace(args.workspace) as ws:
+        case_id = ws.find_case(args.case_id)
         model, version = ws.current_model()
         caseload = ws.load_caseload(model, as_of_day=as_of_day)
-    hits = np.flatnonzero(caseload.case_ids == args.case_id)
+    hits = np.flatnonzero(caseload.case_ids == case_id)
     if not hits.size:
-        when = f" with a contact on or before {args.as_of}" if args.as_of else ""
-        raise InputError(f"case {args.case_id!r}: no such case in {args.workspace}{when}")
+        raise InputError(f"case {case_id}: no contact on or before {args.as_of} in {args.workspace}")
     case = int(hits[0])
     timelines = caseload.timelines.subset([case])
     rows = slice(caseload.timelines.offsets[case], caseload.timelines.offsets[case + 1])
@@ -255,7 +255,7 @@ def run_history(args) -> int:
     path = most_likely_path(model, timelines)
     n = timelines.n_contacts
     header = ["case_id", "date"]
-    columns = [[args.case_id] * n, format_days(caseload.contact_days[rows])]
+    columns = [[case_id] * n, format_days(caseload.contact_days[rows])]
     for channel in model.channels:
         header.append(channel.name)
         columns.append(list(caseload.raw_values[channel.name][rows]))
@@ -272,7 +272,7 @@ def run_history(args) -> int:
     columns.append([model.stages[i] for i in path])
     write_table(args.out, header, columns)
     if args.out != "-":
-        print(f"case {args.case_id}: {n} contacts (model version {version.id}); wrote {args.out}")
+        print(f"case {case_id}: {n} contacts (model version {version.id}); wrote {args.out}")
         print("path_stage is the most likely sequence of stages: an estimate, not a record.")
         print(ADVISORY_NOTICE)
     return 0

@@ -161,7 +161,7 @@ def run_review(args) -> int:
     actor = actor_name(args)
     with open_workspace(args.workspace) as ws:
         row = record_review(ws, args.case_id, args.status, args.note, actor, None, as_of)
-        audit = ws.audit_entries(case_id=args.case_id)
+        audit = ws.audit_entries(case_id=row.case_id)
     previous = audit[-1].details.get("from", "new") if audit else "new"
     p = "" if row.p_follow_up is None else f"; P(follow-up now) {row.p_follow_up:.2f} as of {row.as_of}"
     print(f"{row.case_id}: {previous} -> {row.status} by {row.actor} at {row.at_utc}{p} (audit entry {row.audit_id})")
@@ -172,7 +172,9 @@ def run_reviews(args) -> int:
     from caseview.storage import followup_store as store
 
     with open_workspace(args.workspace) as ws:
-        rows = store.review_rows(ws.connection, args.case, args.status, args.coordinator, latest_only=not args.all)
+        case_id = ws.find_case(args.case) if args.case is not None else None
+        coordinator = ws.find_coordinator(args.coordinator) if args.coordinator is not None else None
+        rows = store.review_rows(ws.connection, case_id, args.status, coordinator, latest_only=not args.all)
     header = ["case_id", "coordinator", "status", "reviewed_by", "reviewed_at", "note", "flags",
               "p_follow_up_now", "as_of", "audit_id"]
     if args.out:

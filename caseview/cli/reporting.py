@@ -5,7 +5,7 @@ Heavy libraries (matplotlib, openpyxl, the engine) are imported inside :func:`ru
 
 from __future__ import annotations
 
-from .basic import add_actor_option
+from .basic import actor_name, add_actor_option
 
 
 def register(subparsers) -> None:
@@ -41,6 +41,7 @@ def run_report(args) -> int:
     from caseview.storage import Workspace
 
     report_format(args.out)                      # fail on a bad extension before opening anything
+    actor = actor_name(args)                     # one line of text (the audit trail is listed line by line)
     as_of = parse_date(args.as_of, "--as-of")
     since = parse_date(args.since, "--since") if args.since else None
     if args.seed is not None and args.dates != "shifted":
@@ -50,7 +51,7 @@ def run_report(args) -> int:
             print(f"caseview: warning: {warning}", file=sys.stderr)
         result = build_report(ws, as_of, args.out, horizon_days=args.horizon, coordinator=args.coordinator,
                               flagged_only=args.flagged_only, since=since, dates=args.dates, seed=args.seed,
-                              actor=args.by, include_closed=args.include_closed)
+                              actor=actor, include_closed=args.include_closed)
     what = f"{result.count} page(s)" if result.format == "pdf" else f"{result.count} case row(s)"
     print(f"wrote {result.path} ({result.format}, {what}; sha256 {result.sha256})")
     print(f"audit chain head in the report: {result.audit_head}")

@@ -234,6 +234,23 @@ def run_check(args) -> int:
     return 0 if not problems else 4
 
 
+def _audited_case(ws, typed):
+    """(case ID to list entries about, note when no stored case has it): the stored case the typed ID
+    names (:meth:`Workspace.find_case`), else the typed ID normalised, since the trail outlives rows."""
+    from caseview.errors import InputError
+    from caseview.timeline_io.case_ids import normalise_case_id
+
+    if typed is None:
+        return None, None
+    try:
+        return ws.find_case(typed), None
+    except InputError as exc:
+        value, why = normalise_case_id(typed)
+        if why is not None:
+            raise
+        return value, str(exc)
+
+
 def run_audit_show(args) -> int:
     import datetime as _dt
     import json
@@ -247,7 +264,8 @@ def run_audit_show(args) -> int:
         except ValueError:
             raise InputError(f"--since {args.since!r}: expected a date as YYYY-MM-DD") from None
     with _open(args.workspace) as ws:
-        entries = ws.audit_entries(case_id=args.case, since_utc=since)
+        case_id, missing = _audited_case(ws, args.case)
+        entries = ws.audit_entries(case_id=case_id, since_utc=since)
         head = ws.audit_head()
     from caseview.textfiles import printable
 
@@ -258,4 +276,8 @@ def run_audit_show(args) -> int:
         fields = (e.id, e.entry_hash, e.at_utc, e.actor, e.action, e.target, details)
         print("\t".join(printable(f) for f in fields))
     print(f"{len(entries)} entries shown; chain head {head}")
+    if missing and not entries:
+        import sys
+
+        print(f"caseview: note: {missing}", file=sys.stderr)
     return 0

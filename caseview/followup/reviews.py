@@ -123,7 +123,7 @@ def record_review(ws, case_id: str, status: str, note: str, actor: str, assessme
     ----------
     ws : caseview.storage.Workspace
     case_id : str
-        The pseudonymous case code.
+        The pseudonymous case code as typed (found with :meth:`Workspace.find_case`).
     status : {"acknowledged", "actioned", "dismissed"}
     note : str
         Free text; required (non-empty) for a dismissal.
@@ -147,12 +147,11 @@ def record_review(ws, case_id: str, status: str, note: str, actor: str, assessme
 
     from caseview.textfiles import check_one_line
 
+    case_id = ws.find_case(case_id)  # the typed ID read like an imported one; InputError if no such case
     if not actor or not str(actor).strip():
         raise InputError(f"review of {case_id}: the actor name is empty; give one with --by NAME")
     check_one_line(actor, f"review of {case_id}: the name recorded (--by)")
     note = check_note(case_id, note or "")
-    if not store.case_exists(ws.connection, case_id):
-        raise InputError(f"case {case_id!r}: no such case in {ws.path}")
     # Validate against the stored status before the (possibly slow) scoring, then again inside
     # the write transaction so that a concurrent change cannot slip in between.
     previous = store.latest_reviews(ws.connection, case_id).get(case_id)

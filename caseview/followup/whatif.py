@@ -124,6 +124,7 @@ def whatif_forecast(ws_or_scores, case_id: str, as_of: dt.date | None = None, ho
         A workspace is scored as of ``as_of`` with ``horizon`` (both required then); scores are
         used as they are (``as_of`` and ``horizon`` default to theirs).
     case_id : str
+        As typed: read like an imported case ID (:func:`caseview.timeline_io.case_ids.match_case_id`).
     changes : dict[str, float]
         Covariate name -> value applied from the as-of date on.
 
@@ -138,9 +139,15 @@ def whatif_forecast(ws_or_scores, case_id: str, as_of: dt.date | None = None, ho
         scores = ws_or_scores
         if horizon is None:
             horizon = scores.horizon_days
+        if scores.row_of(case_id) < 0:
+            from caseview.timeline_io.case_ids import match_case_id
+
+            case_id = match_case_id(case_id, scores.case_ids,
+                                    f"the caseload with a contact on or before {scores.as_of.isoformat()}")
     else:
         if as_of is None:
             raise InputError("forecast: an as-of date is needed (--as-of YYYY-MM-DD)")
+        case_id = ws_or_scores.find_case(case_id)
         scores = score_caseload(ws_or_scores, as_of, 90.0 if horizon is None else horizon)
         if horizon is None:
             horizon = scores.horizon_days

@@ -74,7 +74,10 @@ class CaseloadTableModel(QAbstractTableModel):
         n = self._n = scores.n_cases
         self.horizon_days = scores.horizon_days
         self.case_ids = np.asarray(scores.case_ids, dtype=object)
-        self._case_ids_upper = np.char.upper(self.case_ids.astype(str)) if n else np.zeros(0, dtype=str)
+        from caseview.timeline_io.case_ids import search_key
+
+        self._case_id_keys = np.array([search_key(c) for c in self.case_ids.tolist()] + [""])[:-1] if n \
+            else np.zeros(0, dtype=str)
         self.coordinators = np.asarray(scores.coordinators, dtype=object)
         self.stage_names = np.asarray(scores.model.stages, dtype=object)
         self.most_likely = np.asarray(scores.most_likely_stage, dtype=np.int64)
@@ -334,9 +337,11 @@ class CaseloadTableModel(QAbstractTableModel):
             mask &= self.is_flagged
         if f["review"] is not None:
             mask &= self.review == f["review"]
-        text = f["search"].strip().upper()
+        from caseview.timeline_io.case_ids import search_key
+
+        text = search_key(f["search"])   # read like an imported case ID (dashes, full-width, letter case)
         if text and self._n:
-            mask &= np.char.find(self._case_ids_upper, text) >= 0
+            mask &= np.char.find(self._case_id_keys, text) >= 0
         return mask
 
     # -------------------------------------------------------------------- helpers

@@ -220,6 +220,22 @@ class MainWindow(QMainWindow):
         self.caseload.clear_filters()
         return self.caseload.select_case(case_id)
 
+    def _select_typed_case(self, typed: str, scores) -> bool:
+        """Select the case a person typed (``--case``), read like an imported case ID; the status bar
+        says why when there is no such case (with the case probably meant)."""
+        from caseview.errors import InputError
+        from caseview.timeline_io.case_ids import match_case_id
+
+        try:
+            case_id = match_case_id(typed, scores.case_ids, f"this caseload as of {self.as_of.isoformat()}")
+        except InputError as exc:
+            self.statusBar().showMessage(str(exc))
+            return False
+        if not self.caseload.select_case(case_id):
+            self.statusBar().showMessage(f"Case {case_id} is hidden by the caseload filters.")
+            return False
+        return True
+
     def reopen_risen_flags(self) -> list:
         """Re-open the dismissed flags whose risk rose (audited), then rescore to show them."""
         ws, loaded = self.workspace(), self.loaded
@@ -265,16 +281,14 @@ class MainWindow(QMainWindow):
         self.caseload.set_caseload(loaded)  # re-announces the selected case: the pane redraws from this run
         self.risk_queue.set_caseload(loaded)
         self.outlook_panel.caseload_loaded(loaded)
-        if self._pending_case:
-            if not self.caseload.select_case(self._pending_case):
-                self.statusBar().showMessage(f"Case {self._pending_case} is not in this caseload as of "
-                                             f"{self.as_of.isoformat()}.")
-            self._pending_case = None
-        notes = " ".join(loaded.notes)
+        pending, self._pending_case = self._pending_case, None
         from caseview.followup.wording import plural
 
+        notes = " ".join(loaded.notes)
         self.statusBar().showMessage(f"Scored {plural(loaded.scores.n_cases, 'case')} as of {self.as_of.isoformat()}, "
                                      f"horizon {self.horizon_days:g} days. {notes}")
+        if pending:
+            self._select_typed_case(pending, loaded.scores)
         self.caseload_loaded.emit(loaded)
         self._start_reasons(loaded)
 

@@ -133,8 +133,22 @@ def _validated(ws, source: str, case_id: str, date, coordinator: str, values: di
                         covariates=encoded.covariates, stage_known=encoded.stage_known)
 
 
+def _existing_case(ws, case_id: str, source: str) -> str:
+    """The stored case that a typed ID names (the workspace's one lookup, letter case ignored)."""
+    if hasattr(ws, "find_case"):
+        return ws.find_case(case_id)
+    return _case_code(ws, case_id, source)
+
+
 def _case_code(ws, case_id: str, source: str) -> str:
     """The case ID as the import would store it (checked and screened like an imported one)."""
+    if hasattr(ws, "find_case"):
+        from ..errors import InputError as _Missing
+
+        try:
+            return ws.find_case(case_id)  # an existing case, however it was typed
+        except _Missing:
+            pass  # a new case: checked below like an imported ID
     model, _ = ws.current_model()
     covariates = {name: 0 for name in model.covariates}
     batch = _validated(ws, source, case_id, "2000-01-01", "", {}, covariates, "")
@@ -144,7 +158,7 @@ def _case_code(ws, case_id: str, source: str) -> str:
 # ------------------------------------------------------------------ reading
 def list_contacts(ws, case_id: str, all_versions: bool = False) -> list[ContactVersion]:
     """The case's current contacts, or every version (current, superseded, voided), by date."""
-    code = _case_code(ws, case_id, "contacts")
+    code = _existing_case(ws, case_id, "contacts")
     if store.case_key(ws.connection, code) is None:
         raise InputError(f"case {code!r}: no such case in {ws.path.name}")
     return store.contact_history(ws.connection, code, all_versions)
@@ -322,7 +336,7 @@ def correct_contact(ws, case_id: str, date, reason: str, actor: str, new_date=No
     The earlier version stays stored (superseded) and listed; ``stage_known=''`` clears a known stage.
     """
     reason = _reason(reason, source)
-    code = _case_code(ws, case_id, source)
+    code = _existing_case(ws, case_id, source)
     day = _day(date)
     current = {v.day: v for v in store.contact_history(ws.connection, code)}
     if day not in current:
@@ -346,7 +360,7 @@ def correct_contact(ws, case_id: str, date, reason: str, actor: str, new_date=No
 def void_contact(ws, case_id: str, date, reason: str, actor: str, source: str = "void") -> ContactChange:
     """Void the contact of ``case_id`` on ``date`` (wrong case, or it never happened); it stays stored."""
     reason = _reason(reason, source)
-    code = _case_code(ws, case_id, source)
+    code = _existing_case(ws, case_id, source)
     details = store.void_contact(ws, code, _day(date), actor, reason)
     return ContactChange(code, "contact.void", details, case_estimate(ws, code, details["date"]),
                          closing_suggestion(ws, code))
@@ -354,13 +368,13 @@ def void_contact(ws, case_id: str, date, reason: str, actor: str, source: str = 
 
 def close_case(ws, case_id: str, date, reason: str, actor: str) -> dict:
     """Close a case from ``date`` for a reason in :data:`CLOSE_REASONS`; returns the audit details."""
-    code = _case_code(ws, case_id, "close")
+    code = _existing_case(ws, case_id, "close")
     return store.close_case(ws, code, _day(date), str(reason).strip().lower(), actor)
 
 
 def reopen_case(ws, case_id: str, actor: str) -> dict:
     """Reopen a closed case; returns the audit details (the closing it ended)."""
-    return store.reopen_case(ws, _case_code(ws, case_id, "reopen"), actor)
+    return store.reopen_case(ws, _existing_case(ws, case_id, "reopen"), actor)
 
 
 def rescore_case(ws, loaded, case_id: str, include_closed: bool = False):

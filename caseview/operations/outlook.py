@@ -36,12 +36,10 @@ def _check_int(value, what: str, low: int, high: int) -> int:
 def _check_coordinator(scores, coordinator):
     if coordinator is None:
         return None
-    known = sorted(set(np.asarray(scores.coordinators).astype(str)) - {""})
-    if str(coordinator) not in known:
-        raise InputError(f"--coordinator {coordinator}: no case with a contact on or before "
-                         f"{scores.as_of.isoformat()} has that coordinator "
-                         f"(coordinators: {', '.join(known) or 'none'})")
-    return str(coordinator)
+    from caseview.timeline_io.case_ids import match_coordinator_code
+
+    return match_coordinator_code(coordinator, np.asarray(scores.coordinators).astype(str),
+                                  f"the cases with a contact on or before {scores.as_of.isoformat()}")
 
 
 def run_outlook(ws, as_of: dt.date, months: int = 12, referrals="auto", uncertainty: str = "none", draws: int = 200,

@@ -133,6 +133,9 @@ def build_report(ws, as_of, out_path, *, horizon_days: float = 90, coordinator: 
         digest = hashlib.sha256(Path(temporary).read_bytes()).hexdigest()
         details = {"format": kind, "as_of": as_of.isoformat(), "options": data.options, "sha256": digest,
                    "count": int(count), "audit_head_in_report": data.audit_head}
-        entry = ws.audit_append(actor or _default_actor(), "report.create", out_path.name, details)
+        from caseview.timeline_io.importer import audited_file_name
+
+        entry = ws.audit_append(actor or _default_actor(), "report.create",
+                                audited_file_name(out_path.name, digest), details)
     progress(1.0)
     return ReportResult(out_path, kind, int(count), data.audit_head, digest, entry.id, entry.entry_hash)

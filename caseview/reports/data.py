@@ -159,11 +159,11 @@ def collect_report_data(ws, as_of: dt.date, *, horizon_days: float = 90.0, coord
     coordinators = np.asarray(scores.coordinators, dtype=object)
     in_scope = np.ones(scores.n_cases, dtype=bool)
     if coordinator:
+        from caseview.timeline_io.case_ids import match_coordinator_code
+
+        coordinator = match_coordinator_code(coordinator, coordinators,
+                                             f"the cases scored on {as_of.isoformat()}")
         in_scope = coordinators == coordinator
-        if not in_scope.any():
-            known = ", ".join(sorted({str(c) for c in coordinators if c})) or "none recorded"
-            raise InputError(f"--coordinator: no case of coordinator {coordinator!r} is scored on "
-                             f"{as_of.isoformat()} (coordinators: {known})")
     priority = np.asarray(assessment.priority, dtype=float)
     order = np.argsort(-priority, kind="stable")
     rows = order[in_scope[order]]

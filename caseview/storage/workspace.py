@@ -389,6 +389,21 @@ class Workspace:
 
         return open_case_mask(self.connection, case_codes, as_of_day)
 
+    def find_case(self, typed: str) -> str:
+        """The stored case ID that ``typed`` names (normalised and matched like an imported case ID,
+        letter case ignored); InputError with one line (``no case 'X' in WS; did you mean 'Y'?``)
+        otherwise. Every command or form that takes a case ID from a person calls this."""
+        from .case_lookup import find_case_code
+
+        return find_case_code(self.connection, typed, str(self.path))
+
+    def find_coordinator(self, typed: str) -> str:
+        """The stored coordinator code that ``typed`` names (same normalisation, letter case ignored);
+        InputError naming the known coordinators otherwise."""
+        from .case_lookup import find_coordinator_code
+
+        return find_coordinator_code(self.connection, typed, str(self.path))
+
     def case_count(self) -> int:
         return self.connection.execute("SELECT COUNT(*) FROM cases").fetchone()[0]
 

@@ -1,7 +1,10 @@
 """Case IDs: one spelling per person, whatever the keyboard or the spreadsheet did to it.
 
 Rules (applied by the importer to every case ID; :func:`normalise_case_id` is the one function
-for anything else that takes a case ID from a person, such as recording a single contact):
+for anything else that takes a case ID from a person, such as recording a single contact; a typed
+ID is looked up with :meth:`caseview.storage.Workspace.find_case`, which applies
+:func:`match_case_id`; coordinator codes follow rules 1-6 too, see :class:`CoordinatorBook`,
+:func:`match_coordinator_code` and :meth:`caseview.storage.Workspace.find_coordinator`):
 
 1. **Refused**: control characters (tab, line break, ...), or nothing left after the steps below.
 2. **Invisible characters removed**: zero-width spaces and joiners, the byte-order mark, soft
@@ -63,26 +66,121 @@ def normalise_case_id(text: str) -> tuple[str, str | None]:
     (str, str or None)
         The normalised ID ('' when refused) and the reason for refusing it.
     """
+    return _normalise_code(text, "case ID", "HS-0001")
+
+
+def normalise_coordinator_code(text: str) -> tuple[str, str | None]:
+    """A coordinator code as stored and why it is refused, or None: rules 1-5 of the module docstring,
+    exactly as for case IDs. Letter case is kept as first seen and ignored when matching (rule 6),
+    so ``c1`` typed or imported later is read as a stored ``C1``."""
+    return _normalise_code(text, "coordinator code", "C1")
+
+
+def _normalise_code(text: str, what: str, example: str) -> tuple[str, str | None]:
     text = str(text)
     if text.isascii():
         if not text.isprintable():
-            return "", "expected a case ID without control characters (tab, line break, ...)"
+            return "", f"expected a {what} without control characters (tab, line break, ...)"
         value = text.strip()
         if "  " in value:
             value = _SPACES.sub(" ", value)
     else:
         if any(unicodedata.category(c) == "Cc" for c in text):
-            return "", "expected a case ID without control characters (tab, line break, ...)"
+            return "", f"expected a {what} without control characters (tab, line break, ...)"
         kept = "".join(c for c in text if unicodedata.category(c) != "Cf")
         kept = unicodedata.normalize("NFKC", kept)
         kept = "".join("-" if unicodedata.category(c) == "Pd" or c == "\u2212" else c for c in kept)
         value = _SPACES.sub(" ", kept).strip()
         if any(unicodedata.category(c) in ("Cc", "Cf") for c in value):
-            return "", "expected a case ID without control or invisible characters"
+            return "", f"expected a {what} without control or invisible characters"
     if value == "":
-        return "", "nothing is left of the case ID once invisible characters and spaces are removed; " \
-                   "expected a code such as HS-0001"
+        return "", f"nothing is left of the {what} once invisible characters and spaces are removed; " \
+                   f"expected a code such as {example}"
     return value, None
+
+
+def search_key(text: str) -> str:
+    """``text`` as compared by a case-ID search (substring): rules 2-5 without refusing anything
+    (control characters are dropped), casefolded, so ``ｈｓ‐０００１`` finds ``HS-0001``."""
+    text = str(text)
+    if text.isascii() and text.isprintable():
+        return text.strip().casefold()
+    value, why = normalise_case_id("".join(c for c in text if unicodedata.category(c) != "Cc"))
+    return "" if why is not None else value.casefold()
+
+
+def match_case_id(typed: str, stored, where: str) -> str:
+    """The stored spelling of the case ``typed`` names (rules 1-6); InputError otherwise.
+
+    The one rule for a case ID a person types (a command-line argument, the window's ``--case``):
+    normalised like an imported cell and matched without regard to letter case. Storage calls it
+    through :meth:`caseview.storage.Workspace.find_case`; code holding scores calls it directly.
+
+    Parameters
+    ----------
+    typed : str
+        The ID as typed.
+    stored : iterable of str
+        The case IDs it may name, as stored.
+    where : str
+        Where they are, for the message ("team.cvw").
+
+    Raises
+    ------
+    InputError
+        The ID cannot be normalised (one line saying why); no such case (with ``did you mean
+        'HS-0007'?`` when a stored ID nearly matches, see the module docstring); or it matches
+        several stored IDs that differ only in letter case.
+    """
+    from ..errors import InputError
+
+    value, why = normalise_case_id(typed)
+    if why is not None:
+        raise InputError(f"case ID {str(typed)!r}: {why}")
+    codes = [str(c) for c in stored]
+    if value in codes:
+        return value
+    key = value.casefold()
+    same = [c for c in codes if c.casefold() == key]
+    if len(same) == 1:
+        return same[0]
+    if same:
+        raise InputError(f"case ID {str(typed)!r} matches {len(same)} cases in {where} that differ only in "
+                         f"letter case ({', '.join(repr(c) for c in same[:5])}); type one of them exactly")
+    near = CaseIdBook(codes).near_match(value)
+    hint = f"; did you mean {near[0]!r}? ({near[1]})" if near else ""
+    raise InputError(f"no case {str(typed)!r} in {where}{hint}")
+
+
+def match_coordinator_code(typed: str, known, where: str) -> str:
+    """The stored spelling of the coordinator ``typed`` names (normalised, letter case ignored);
+    InputError naming the known coordinators otherwise (the ``--coordinator`` filters).
+
+    Parameters
+    ----------
+    typed : str
+    known : iterable of str
+        Coordinator codes as stored ('' entries are ignored).
+    where : str
+        What was searched, for the message.
+    """
+    from ..errors import InputError
+
+    value, why = normalise_coordinator_code(typed)
+    if why is not None:
+        raise InputError(f"--coordinator {str(typed)!r}: {why}")
+    codes = sorted({str(c) for c in known} - {""})
+    if value in codes:
+        return value
+    same = [c for c in codes if c.casefold() == value.casefold()]
+    if len(same) == 1:
+        return same[0]
+    if same:
+        raise InputError(f"--coordinator {str(typed)!r} matches {', '.join(same)}, which differ only in letter "
+                         "case; type one of them exactly")
+    listed = ", ".join(codes[:20]) + (f" and {len(codes) - 20} more" if len(codes) > 20 else "")
+    raise InputError(f"--coordinator: no coordinator {str(typed)!r} in {where} (coordinators: "
+                     f"{listed or 'none recorded'})")
 
 
 def _skeleton(key: str) -> str:
@@ -138,18 +236,31 @@ class CaseIdBook:
                 self.stored.add(key)
                 self._index(str(code), key, check=False, line=0)
 
+    def _nearest(self, skeleton: str, deletions: set):
+        other = self._skeletons.get(skeleton)
+        if other is None:
+            other = self._deletions.get(skeleton)
+        if other is None:
+            for variant in deletions:
+                other = self._skeletons.get(variant) or self._deletions.get(variant)
+                if other is not None:
+                    break
+        return other
+
+    def near_match(self, value: str):
+        """(spelling, how) of a known ID that ``value`` (normalised) nearly matches, or None."""
+        key = value.casefold()
+        skeleton = _skeleton(key)
+        other = self._nearest(skeleton, _letter_deletions(skeleton))
+        if other is None or other.casefold() == key:
+            return None
+        return other, _how_near(value, other)
+
     def _index(self, value: str, key: str, check: bool, line: int) -> None:
         skeleton = _skeleton(key)
         deletions = _letter_deletions(skeleton)
         if check:
-            other = self._skeletons.get(skeleton)
-            if other is None:
-                other = self._deletions.get(skeleton)
-            if other is None:
-                for variant in deletions:
-                    other = self._skeletons.get(variant) or self._deletions.get(variant)
-                    if other is not None:
-                        break
+            other = self._nearest(skeleton, deletions)
             if other is not None and other.casefold() != key:
                 self.near_count += 1
                 if len(self.near) < NEAR_MATCHES_LISTED:
@@ -229,3 +340,43 @@ class CaseIdBook:
             return {}
         return {"near_matches": self.near_count,
                 "near_match_examples": [{"new": new, "existing": old, "how": how} for new, old, how, _ in self.near]}
+
+
+class CoordinatorBook:
+    """Spellings of coordinator codes of one import: stored ones first, then the file's in row order.
+
+    Coordinator codes are normalised like case IDs (:func:`normalise_coordinator_code`) and matched
+    without regard to letter case; the spelling kept is the one seen first (stored, else the file's
+    first), so ``c1`` and ``Ｃ１`` in a file are stored as a stored ``C1``.
+
+    Parameters
+    ----------
+    stored : iterable of str
+        The workspace's coordinator codes as stored.
+    """
+
+    def __init__(self, stored=()):
+        self.spelling: dict = {}
+        for code in stored:
+            self.spelling.setdefault(str(code).casefold(), str(code))
+        self.respelled: dict = {}         # (as read, kept) -> rows
+
+    def resolve(self, raw: str, rows: int) -> tuple[str, str | None]:
+        """The spelling to store for a distinct cell text seen on ``rows`` rows, and why it is refused."""
+        value, why = normalise_coordinator_code(raw)
+        if why is not None:
+            return "", why
+        kept = self.spelling.setdefault(value.casefold(), value)
+        if kept != raw.strip():
+            self.respelled[(raw.strip(), kept)] = self.respelled.get((raw.strip(), kept), 0) + rows
+        return kept, None
+
+    def notes(self, label: str) -> list:
+        """A summary line about coordinator codes read as another spelling."""
+        if not self.respelled:
+            return []
+        shown = sorted(self.respelled.items(), key=lambda item: -item[1])[:3]
+        examples = "; ".join(f"read {a!r} as {b!r} {n:,} time{'s' if n != 1 else ''}" for (a, b), n in shown)
+        more = len(self.respelled) - len(shown)
+        return [f"{label}: coordinator codes are normalised like case IDs and matched without regard to letter "
+                f"case: {examples}" + (f" (and {more:,} more spellings)" if more > 0 else "")]

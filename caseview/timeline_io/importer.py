@@ -217,7 +217,8 @@ def import_timelines(ws, path, actor: str, mapping: dict | None = None, drop=(),
     report(0.0)
     from ..textfiles import check_one_line
     from ..storage.contacts import stored_case_codes
-    from .case_ids import CaseIdBook
+    from ..storage.case_lookup import stored_coordinator_codes
+    from .case_ids import CaseIdBook, CoordinatorBook
     from .dates import check_date_format
 
     check_one_line(actor, "the name recorded in the audit trail (--by)")
@@ -237,7 +238,8 @@ def import_timelines(ws, path, actor: str, mapping: dict | None = None, drop=(),
                   stages=tuple(model.stages), present=tuple(targets), date_format=date_format)
     problems = Problems(facts.label)
     book = CaseIdBook(stored_case_codes(ws.connection))
-    validator = ChunkValidator(rules, problems, source.where, book)
+    coordinator_book = CoordinatorBook(stored_coordinator_codes(ws.connection))
+    validator = ChunkValidator(rules, problems, source.where, book, coordinator_book)
     parts = []
     rows_read = 0
     for first_line, frame in source.chunks():
@@ -254,7 +256,7 @@ def import_timelines(ws, path, actor: str, mapping: dict | None = None, drop=(),
     problems.raise_if_any()
     if not parts:
         raise InputError(f"{facts.label}: no contact rows after the header; nothing was imported")
-    notes = book.notes(facts.label) + validator.category_notes(facts.label)
+    notes = book.notes(facts.label) + coordinator_book.notes(facts.label) + validator.category_notes(facts.label)
     if "serial_dates" in source.notes:
         count, example = source.notes["serial_dates"]
         notes.append(f"{facts.label}: read {count:,} Excel day number{'s' if count != 1 else ''} in the date column "

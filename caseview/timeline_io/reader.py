@@ -11,7 +11,6 @@ import codecs
 import csv
 import datetime as _dt
 import hashlib
-import io
 import math
 from dataclasses import dataclass
 from pathlib import Path

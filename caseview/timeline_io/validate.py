@@ -133,13 +133,14 @@ def _first_lines(values: np.ndarray, lines: np.ndarray, seen) -> dict:
 class ChunkValidator:
     """Validate and encode chunks; remembers distinct codes already checked and screened."""
 
-    def __init__(self, rules: Rules, problems: Problems, where, case_ids=None):
-        from .case_ids import CaseIdBook
+    def __init__(self, rules: Rules, problems: Problems, where, case_ids=None, coordinators=None):
+        from .case_ids import CaseIdBook, CoordinatorBook
 
         self.rules = rules
         self.problems = problems
         self.where = where
         self.case_ids = case_ids if case_ids is not None else CaseIdBook()
+        self.coordinators = coordinators if coordinators is not None else CoordinatorBook()
         self.category_reads: dict = {}   # (channel, as written, category) -> rows
         self._checked = {"case_id": {}, "coordinator": {}, "stage_known": {}}
         self._screened_numbers = {k: set() for k in rules.covariates}
@@ -209,7 +210,7 @@ class ChunkValidator:
         case_codes, refused = self._case_ids(*factors["case_id"], lines)
         self._codes("case_id", case_codes, lines, True, "case_id", "case ID", refused)
         if "coordinator" in factors:
-            coordinators = values("coordinator")
+            coordinators = self._coordinator_codes(*factors["coordinator"], lines)
             self._codes("coordinator", coordinators, lines, False, "coordinator", "coordinator code")
         else:
             coordinators = np.full(n, "", dtype=object)
@@ -290,6 +291,27 @@ class ChunkValidator:
                 refused[u] = True
             kept[u] = value
         return kept[codes], refused[codes]
+
+    def _coordinator_codes(self, codes: np.ndarray, uniques: np.ndarray, lines: np.ndarray) -> np.ndarray:
+        """Coordinator codes of the rows as stored (normalised, first-seen spelling; '' when blank or
+        refused), shape (n,); refusals become problems."""
+        if uniques.size == 0:
+            return uniques[codes]
+        rows = np.bincount(codes, minlength=uniques.size)
+        first = np.full(uniques.size, -1, dtype=np.int64)
+        first[codes[::-1]] = np.arange(codes.size - 1, -1, -1)
+        kept = np.empty(uniques.size, dtype=object)
+        for u, raw in enumerate(uniques.tolist()):
+            if raw == "" or rows[u] == 0:
+                kept[u] = ""
+                continue
+            value, why = self.coordinators.resolve(raw, int(rows[u]))
+            if why is not None:
+                line = int(lines[first[u]])
+                self.problems.add(self.where(line), "coordinator",
+                                  f"value {shown(raw, 'coordinator', 'coordinator')}: {why}", line)
+            kept[u] = value
+        return kept[codes]
 
     def _categories(self, name: str, cats: tuple, codes: np.ndarray, uniques: np.ndarray) -> np.ndarray:
         """Category index per distinct text (-1 blank, -2 unknown), matched ignoring letter case."""

@@ -87,7 +87,7 @@ def test_new_case_and_closing_note(ws):
     (("void", "HS-0005", "--date", "2026-12-01", "--reason", ""), "reason is required"),
     (("close", "HS-0005", "--date", "2026-12-01", "--reason", "bored"), "invalid choice"),
     (("reopen", "HS-0005"), "not closed"),
-    (("contacts", "HS-NOPE"), "no such case"),
+    (("contacts", "HS-NOPE"), "no case 'HS-NOPE'"),  # the workspace's one case-ID lookup
 ])
 def test_errors_are_one_line_and_store_nothing(ws, args, fragment):
     before = run("audit", "verify", ws).stdout

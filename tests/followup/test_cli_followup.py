@@ -70,7 +70,7 @@ def test_review_then_flags_shows_it(ws_path, tmp_path, capsys):
     code, out, err = run(capsys, "review", ws_path, "HS-0001", "--status", "bogus", "--note", "x")
     assert code == 2
     code, out, err = run(capsys, "review", ws_path, "HS-0404", "--status", "acknowledged", "--note", "x")
-    assert code == 2 and "no such case" in err
+    assert code == 2 and "no case 'HS-0404'" in err
     out_csv = tmp_path / "flags.csv"
     run(capsys, "flags", ws_path, "--as-of", "2026-11-30", "--out", out_csv)
     table = pd.read_csv(out_csv).set_index("case_id")

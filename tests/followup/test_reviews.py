@@ -40,7 +40,7 @@ def test_transitions_and_audit(ws):
         record_review(ws, "HS-0001", "actioned", "called", "sup", None, LATE)
     with pytest.raises(InputError, match="cannot go from new to dismissed"):
         record_review(ws, "HS-0001", "dismissed", "fine", "sup", None, LATE)
-    with pytest.raises(InputError, match="no such case"):
+    with pytest.raises(InputError, match="no case 'HS-0099'"):
         record_review(ws, "HS-0099", "acknowledged", "", "sup", None, LATE)
     with pytest.raises(InputError, match="status must be one of"):
         record_review(ws, "HS-0001", "new", "", "sup", None, LATE)

@@ -77,7 +77,7 @@ def test_whatif_horizon_override(demo_model, scores):
     ("HS-0001", {"no_such": 1.0}, "not in the model"),
     ("HS-0001", {"balance_programme": float("nan")}, "finite"),
     ("HS-0001", {"balance_programme": "yes"}, "expected a number"),
-    ("HS-9999", {"balance_programme": 1.0}, "no such case"),
+    ("HS-9999", {"balance_programme": 1.0}, "no case 'HS-9999'"),
 ])
 def test_whatif_bad_input(scores, case_id, changes, words):
     with pytest.raises(InputError, match=words):

@@ -137,3 +137,21 @@ def test_settings_remember_horizon(window, qtbot, standin):
     again = MainWindow(as_of=AS_OF)
     qtbot.addWidget(again)
     assert again.horizon_spin.value() == 45
+
+
+def test_search_and_case_option_read_typed_ids_like_the_importer(window, qtbot, standin):
+    """Issue 12 item 4: full-width digits, Unicode dashes, invisible characters and letter case in the
+    search box or in ``--case`` find the stored case; a near miss says which case was probably meant."""
+    loaded = load(window, qtbot, standin)
+    model = window.caseload.model
+    window.caseload.search.setText("h\u200bs\u2010\uff10\uff10\uff10\uff10\uff11")  # keyClicks: ASCII only
+    ids = column_values(model, CASE)
+    assert ids and len(ids) == sum("HS-00001" in str(c) for c in loaded.scores.case_ids)
+    window.caseload.search.clear()
+    target = str(loaded.scores.case_ids[5])
+    with qtbot.waitSignal(window.caseload_loaded, timeout=60000):
+        window.set_source(standin, case_id=target.lower().replace("-", "\u2013"))
+    assert window.caseload.current_case_id() == target
+    with qtbot.waitSignal(window.caseload_loaded, timeout=60000):
+        window.set_source(standin, case_id=target.replace("-", ""))
+    assert f"did you mean '{target}'?" in window.statusBar().currentMessage()

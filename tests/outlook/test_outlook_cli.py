@@ -94,7 +94,7 @@ def test_outlook_csv_rows_columns_and_advisory(demo_ws, tmp_path, capsys):
     (["--draws", "2.5"], "--draws: expected a whole number"),
     (["--uncertainty", "maybe"], "--uncertainty: expected one of none, parameters"),
     (["--uncertainty", "parameters"], "was entered, not fitted"),
-    (["--coordinator", "C9"], "--coordinator C9: no case"),
+    (["--coordinator", "C9"], "--coordinator: no coordinator 'C9'"),
 ])
 def test_outlook_errors_are_one_line(demo_ws, tmp_path, capsys, options, message):
     out = tmp_path / "x.csv"

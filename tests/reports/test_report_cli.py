@@ -44,7 +44,7 @@ def test_cli_csv_report_is_audited(workspace_copy, tmp_path, capsys):
 @pytest.mark.parametrize("args, message", [
     (["--out", "{tmp}/r.docx"], "expected a file name ending in .pdf, .xlsx or .csv"),
     (["--out", "{tmp}/r.csv", "--since", "2026-12-31"], "--since: expected a date before the as-of date"),
-    (["--out", "{tmp}/r.csv", "--coordinator", "C9"], "no case of coordinator 'C9'"),
+    (["--out", "{tmp}/r.csv", "--coordinator", "C9"], "no coordinator 'C9'"),
     (["--out", "{tmp}/r.csv", "--horizon", "-5"], "--horizon"),
 ])
 def test_cli_errors_are_one_line_and_change_nothing(workspace_copy, tmp_path, capsys, args, message):
