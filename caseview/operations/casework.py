@@ -207,15 +207,6 @@ def _refuse_impossible(ws, case_id: str, source: str) -> None:
     from ..scoring import score_loaded
 
     model, _ = ws.current_model()
-    try:  # the import's contradiction rule, where it has landed (caseview.case_checks)
-        from ..case_checks import stored_contradictions
-    except ImportError:
-        stored_contradictions = None
-    if stored_contradictions is not None:
-        found = stored_contradictions(ws.connection, model, [case_id])
-        if found:
-            raise InputError(f"{source}: case {case_id!r}: {found[0].reason}; correct or void the contradicting "
-                             "contact instead (nothing was stored)")
     one = ws.load_case(model, case_id)
     if one.n_cases == 0:
         return
