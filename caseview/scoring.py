@@ -292,14 +292,22 @@ def score_loaded(caseload, model: StageModel, as_of_day: int, horizon_days: floa
 
 
 def score_caseload(workspace, as_of: dt.date, horizon_days: float = 90.0, model: StageModel | None = None,
-                   callback=None) -> CaseloadScores:
-    """Load the workspace's timelines up to ``as_of`` and score them with the current model."""
+                   callback=None, include_closed: bool = False) -> CaseloadScores:
+    """Load the workspace's timelines up to ``as_of`` and score them with the current model.
+
+    Cases closed on or before ``as_of`` are left out unless ``include_closed``
+    (:meth:`caseview.storage.Workspace.open_case_mask` decides which are open).
+    """
     version_id = None
     if model is None:
         model, version = workspace.current_model()
         version_id = version.id
     as_of_day = to_day(as_of)
     caseload = workspace.load_caseload(model, as_of_day=as_of_day)
+    if not include_closed:
+        from .storage.caseload import subset_caseload
+
+        caseload = subset_caseload(caseload, workspace.open_case_mask(caseload.case_ids, as_of_day))
     if callback:
         callback(0.05)
     return score_loaded(caseload, model, as_of_day, horizon_days, model_version=version_id, callback=callback)

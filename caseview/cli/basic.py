@@ -21,6 +21,7 @@ def register(sub) -> None:
     p.add_argument("--as-of", required=True, metavar="YYYY-MM-DD")
     p.add_argument("--horizon", type=float, default=90.0, metavar="DAYS", help="forecast horizon (default 90)")
     p.add_argument("--out", required=True, metavar="SCORES.csv", help="output CSV ('-' for standard output)")
+    p.add_argument("--include-closed", action="store_true", help="also cases closed on or before the as-of date")
     p.set_defaults(run=run_score)
 
     p = sub.add_parser("history", help="smoothed stage probabilities and most likely path at each contact",
@@ -201,9 +202,10 @@ def run_score(args) -> int:
         try:
             from caseview.followup import assess_caseload
         except ModuleNotFoundError:
-            scores = score_caseload(ws, as_of, args.horizon)
+            scores = score_caseload(ws, as_of, args.horizon, include_closed=args.include_closed)
         else:
-            assessment = assess_caseload(ws, as_of, args.horizon, reopen=False, explain_reasons=False)
+            assessment = assess_caseload(ws, as_of, args.horizon, reopen=False, explain_reasons=False,
+                                         include_closed=args.include_closed)
             scores, flags = assessment.scores, assessment.flags
     model = scores.model
     n = scores.n_cases

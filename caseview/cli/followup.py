@@ -30,6 +30,7 @@ def register(sub) -> None:
     p.add_argument("--out", required=True, metavar="FLAGS.csv", help="output CSV ('-' for standard output)")
     p.add_argument("--save", action="store_true",
                    help="store this run as a snapshot (the sharp_rise rule compares with the latest earlier one)")
+    p.add_argument("--include-closed", action="store_true", help="also cases closed on or before the as-of date")
     add_actor_option(p)
     p.set_defaults(run=run_flags)
 
@@ -79,6 +80,7 @@ def register(sub) -> None:
     p.add_argument("--as-of", required=True, metavar="YYYY-MM-DD")
     p.add_argument("--horizon", type=float, default=90.0, metavar="DAYS")
     p.add_argument("--set", action="append", required=True, metavar="NAME=VALUE", dest="changes")
+    p.add_argument("--include-closed", action="store_true", help="also cases closed on or before the as-of date")
     p.set_defaults(run=run_whatif)
 
     p = sub.add_parser("rules", help="show or change the workspace's follow-up rules",
@@ -107,7 +109,7 @@ def run_flags(args) -> int:
             print(f"caseview: note: {ws.path} is read-only: dismissed flags that would re-open are not re-opened",
                   file=sys.stderr)
         a = assess_caseload(ws, as_of, args.horizon, save_snapshot=args.save, actor=actor_name(args),
-                            reopen=not ws.read_only)
+                            reopen=not ws.read_only, include_closed=args.include_closed)
     s = a.scores
     rows = a.order[a.is_flagged[a.order]]
     due = a.next_contact_due_day[rows]
@@ -255,7 +257,7 @@ def run_whatif(args) -> int:
         model, _ = ws.current_model()
         changes = parse_changes(args.changes, model)
         rules = workspace_rules(ws)
-        scores = score_caseload(ws, as_of, args.horizon)
+        scores = score_caseload(ws, as_of, args.horizon, include_closed=args.include_closed)
     result = caseload_whatif(scores, changes, rules)
     text = ", ".join(f"{k}={v:g}" for k, v in changes.items())
     print(f"{result.n_cases} cases as of {as_of.isoformat()}, horizon {result.horizon_days:g} days; "

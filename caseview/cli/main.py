@@ -25,6 +25,7 @@ COMMAND_MODULES = (
     "caseview.cli.fitting",     # fit, models, goodness-of-fit, staff estimates
     "caseview.cli.followup",    # flags, review, forecast, rules
     "caseview.cli.reporting",   # report
+    "caseview.cli.casework_commands",  # record, correct, void, contacts, close, reopen
     "caseview.cli.outlook_commands",  # outlook, target
     "caseview.cli.window",      # gui
 )

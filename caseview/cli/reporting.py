@@ -26,6 +26,8 @@ def register(subparsers) -> None:
                         help="calendar (default); relative = days since each case's first contact (safer for "
                              "sharing); shifted = a random offset per case (NOT Safe Harbor de-identification)")
     parser.add_argument("--seed", type=int, metavar="N", help="seed for --dates shifted (default: random)")
+    parser.add_argument("--include-closed", action="store_true",
+                        help="also cases closed on or before the as-of date")
     add_actor_option(parser, "who is making the report, recorded in the audit trail")
     parser.set_defaults(run=run_report)
 
@@ -49,7 +51,7 @@ def run_report(args) -> int:
             print(f"caseview: warning: {warning}", file=sys.stderr)
         result = build_report(ws, as_of, args.out, horizon_days=args.horizon, coordinator=args.coordinator,
                               flagged_only=args.flagged_only, since=since, dates=args.dates, seed=args.seed,
-                              actor=actor)
+                              actor=actor, include_closed=args.include_closed)
     what = f"{result.count} page(s)" if result.format == "pdf" else f"{result.count} case row(s)"
     print(f"wrote {result.path} ({result.format}, {what}; sha256 {result.sha256})")
     print(f"audit chain head in the report: {result.audit_head}")

@@ -206,7 +206,8 @@ def assess_scores(scores, rules: RuleSet | None = None, previous_p_follow_up=Non
 
 def assess_caseload(ws, as_of: dt.date, horizon_days: float = 90.0, rules: RuleSet | None = None,
                     callback=None, save_snapshot: bool = False, reopen: bool = True,
-                    actor: str | None = None, explain_reasons: bool = True) -> CaseloadAssessment:
+                    actor: str | None = None, explain_reasons: bool = True,
+                    include_closed: bool = False) -> CaseloadAssessment:
     """Score the workspace's caseload as of ``as_of`` and assess it.
 
     Parameters
@@ -228,6 +229,8 @@ def assess_caseload(ws, as_of: dt.date, horizon_days: float = 90.0, rules: RuleS
     explain_reasons : bool
         Work out each flag's reasons and contact influence now (False: only which rules fired;
         reasons can be worked out later, case by case, with :meth:`CaseloadAssessment.explain_cases`).
+    include_closed : bool
+        Also assess cases closed on or before ``as_of`` (left out by default).
     """
     from caseview.scoring import score_caseload
     from caseview.storage import followup_store as store
@@ -239,7 +242,7 @@ def assess_caseload(ws, as_of: dt.date, horizon_days: float = 90.0, rules: RuleS
             callback(0.8 * fraction)
 
     rules = rules or workspace_rules(ws)
-    scores = score_caseload(ws, as_of, horizon_days, callback=scoring_progress)
+    scores = score_caseload(ws, as_of, horizon_days, callback=scoring_progress, include_closed=include_closed)
     previous_run = store.previous_run(ws.connection, as_of.isoformat())
     previous, previous_as_of = None, None
     if previous_run is not None:

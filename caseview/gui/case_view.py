@@ -84,6 +84,10 @@ class CaseView(QWidget):
         side_layout.setContentsMargins(0, 0, 0, 0)
         side_layout.addWidget(QLabel("Contacts (recorded values; the likely stage is an estimate)"))
         side_layout.addWidget(self.contacts, 1)
+        from .case_actions import CaseActions
+
+        self.actions = CaseActions()  # case work (record, correct, void, close); see casework_controller
+        side_layout.addWidget(self.actions)
         side_layout.addWidget(self.whatif_box)
         side_layout.addWidget(self.whatif_summary)
         splitter = QSplitter(Qt.Horizontal)
@@ -176,6 +180,27 @@ class CaseView(QWidget):
                 spin.setValue(float(last[k]))
                 spin.blockSignals(False)
         self.refresh()
+
+    def show_rescored(self, row: int) -> None:
+        """Like :meth:`show_case` after :meth:`set_scores`, but the chart is redrawn from the event loop,
+        so the new estimate (title, reasons, contacts) is on screen at once (one case recorded at
+        100,000 cases: see ``caseview.gui.casework_controller``)."""
+        from PySide6.QtCore import QTimer
+
+        if self.scores is None or not 0 <= row < self.scores.n_cases:
+            self.clear_case()
+            return
+        self.row = row
+        last = self.scores.last_covariates[row]
+        for k, spin in enumerate(self.whatif_inputs.values()):
+            spin.blockSignals(True)
+            spin.setValue(float(last[k]))
+            spin.blockSignals(False)
+        self.data = case_chart_data(self.scores, row, {})
+        self._fill_title()
+        self._fill_contacts()
+        data = self.data
+        QTimer.singleShot(0, lambda: self._draw() if self.data is data else None)
 
     def refresh(self) -> None:
         if self.scores is None or self.row < 0 or self.row >= self.scores.n_cases:

@@ -112,6 +112,55 @@ class CaseloadTableModel(QAbstractTableModel):
         self.order = self._sorted(np.flatnonzero(self._mask))
         self.endResetModel()
 
+    def update_case(self, loaded, row: int) -> bool:
+        """Show case ``row`` rescored in ``loaded`` (same cases as shown; only that row changed).
+
+        Updates the row's cached values and keys, then moves it to its place in the current sort
+        (a layout change, not a reset: the selection and scroll position stay). Returns False
+        (nothing changed) when the filters would now hide or reveal the row; then call
+        :meth:`set_caseload`.
+        """
+        scores, a = loaded.scores, loaded.assessment
+        if self.scores is None or scores.n_cases != self._n or (a is None) != (self.assessment is None):
+            return False
+        self.scores, self.assessment = scores, a
+        before = {COORDINATOR: self.coordinators[row], FLAGS: self.flag_names[row], REVIEW: self.review[row]}
+        self.case_ids[row] = scores.case_ids[row]
+        self.coordinators[row] = scores.coordinators[row]
+        self.most_likely[row] = int(scores.most_likely_stage[row])
+        self.most_likely_p[row] = scores.p_now[row, self.most_likely[row]]
+        if a is not None:
+            for name, source in (("flag_names", a.flags), ("is_flagged", a.is_flagged),
+                                 ("reason_text", a.reason_text), ("next_due", a.next_contact_due_day),
+                                 ("review", a.review_status), ("priority", a.priority)):
+                getattr(self, name)[row] = source[row]
+        else:
+            self.priority[row] = scores.p_reach_follow_up[row]
+        keys = self._keys
+        keys[LAST_CONTACT], keys[DAYS_SINCE] = scores.last_contact_day, scores.days_since_contact
+        keys[P_NOW], keys[P_REACH], keys[-1] = scores.p_follow_up_now, scores.p_reach_follow_up, self.priority
+        keys[STAGE][row] = self.most_likely[row] * 2.0 + self.most_likely_p[row]
+        keys[NEXT_DUE][row] = np.iinfo(np.int64).max if self.next_due[row] < 0 else self.next_due[row]
+        for column, values in ((COORDINATOR, self.coordinators), (FLAGS, self.flag_names), (REVIEW, self.review)):
+            if values[row] == before[column]:
+                continue
+            same = np.flatnonzero(values == values[row])
+            same = same[same != row]
+            if same.size:  # the text is shown elsewhere: the row takes its rank
+                keys[column] = np.array(keys[column], dtype=np.int64)
+                keys[column][row] = keys[column][same[0]]
+            else:
+                keys[column] = _ranks(values)
+        mask = self._compute_mask()
+        if not np.array_equal(mask, self._mask):
+            return False
+        self.layoutAboutToBeChanged.emit()
+        old_order = self.order
+        self.order = self._sorted(np.flatnonzero(self._mask))
+        self._remap_persistent(old_order)
+        self.layoutChanged.emit()
+        return True
+
     def clear(self) -> None:
         self.beginResetModel()
         self.scores = self.assessment = None
@@ -302,7 +351,8 @@ class CaseloadTableModel(QAbstractTableModel):
 
     def view_row_of_case(self, case_id: str) -> int:
         """Display row of ``case_id`` or -1 (hidden or unknown)."""
-        hits = np.flatnonzero(self.case_ids[self.order] == case_id) if self.order.size else []
+        rows = np.flatnonzero(self.case_ids == case_id) if self.order.size else []
+        hits = np.flatnonzero(self.order == rows[0]) if len(rows) else []
         return int(hits[0]) if len(hits) else -1
 
     def coordinator_names(self) -> list:

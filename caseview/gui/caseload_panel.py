@@ -56,13 +56,16 @@ class CaseloadPanel(QWidget):
         self.flagged.setAccessibleName("Show flagged cases only")
         self.review = QComboBox()
         self.review.setAccessibleName("Filter by review status")
+        self.show_closed = QCheckBox("Show closed")
+        self.show_closed.setAccessibleName("Also show closed cases")
+        self.show_closed.setToolTip("Closed cases leave the table, the risk queue, flags and reports; show them too")
         self.review.addItem("Any review status", ANY)
         for status in REVIEW_STATUSES:
             self.review.addItem(status or "not reviewed", status)
         self.count = QLabel("No caseload open")
         self.count.setAccessibleName("Number of cases shown")
         bar = QHBoxLayout()
-        for w in (self.search, self.coordinator, self.stage, self.flagged, self.review):
+        for w in (self.search, self.coordinator, self.stage, self.flagged, self.review, self.show_closed):
             bar.addWidget(w)
         bar.addStretch(1)
         bar.addWidget(self.count)
@@ -168,6 +171,16 @@ class CaseloadPanel(QWidget):
                                 "(every reason in the tooltip).")
         self.not_scored.setToolTip("\n".join(f"{c}: {r}" for c, r in zip(lost.case_ids[:50], lost.reasons[:50])))
         self.not_scored.show()
+
+    def update_case(self, loaded, row: int) -> None:
+        """One case of the shown caseload was rescored (see ``CaseloadTableModel.update_case``)."""
+        keep = self.current_case_id()
+        if not self.model.update_case(loaded, row):
+            self.set_caseload(loaded)
+            return
+        self._update_count()
+        if keep:
+            self.select_case(keep)
 
     def _fill_combo(self, combo, all_text, all_value, items):
         current = combo.currentData() if combo.count() else all_value

@@ -109,6 +109,7 @@ class WorkspaceSource:
         self.path = Path(path)
         self._workspace = Workspace.open(self.path)  # main-thread connection; raises WorkspaceError
         self.label = self.path.name
+        self.include_closed = False  # the window's "Show closed" filter
         self.warnings = list(getattr(self._workspace, "warnings", []) or [])
 
     def workspace(self):
@@ -128,13 +129,14 @@ class WorkspaceSource:
                 # (risk queue first) and on the spot for a case the user selects
                 # reopen=False: loading never writes (re-opening is the queue's explicit step)
                 assessment = followup.assess_caseload(ws, as_of, horizon_days, callback=callback,
-                                                      explain_reasons=False, reopen=False)
+                                                      explain_reasons=False, reopen=False,
+                                                      include_closed=self.include_closed)
                 from caseview.followup.reviews import pending_reopens
 
                 return LoadedCaseload(assessment.scores, assessment, notes, pending_reopens(ws, assessment))
             from caseview.scoring import score_caseload
 
-            scores = score_caseload(ws, as_of, horizon_days, callback=callback)
+            scores = score_caseload(ws, as_of, horizon_days, callback=callback, include_closed=self.include_closed)
             notes.append("Follow-up flags are not available yet; ordered by chance of reaching follow-up.")
             return LoadedCaseload(scores, None, notes)
 

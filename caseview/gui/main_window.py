@@ -46,6 +46,9 @@ class MainWindow(QMainWindow):
         self._build_body()
         window_chrome.build_status_bar(self)
         window_chrome.build_menus(self)
+        from .casework_controller import CaseworkController
+
+        self.casework = CaseworkController(self)
         self._restore_state()
 
     # ------------------------------------------------------------------ building

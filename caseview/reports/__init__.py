@@ -89,7 +89,7 @@ def _default_actor() -> str:
 
 def build_report(ws, as_of, out_path, *, horizon_days: float = 90, coordinator: str | None = None,
                  flagged_only: bool = False, since=None, dates: str = "calendar", seed=None,
-                 actor: str | None = None, callback=None, assess=None) -> ReportResult:
+                 actor: str | None = None, callback=None, assess=None, include_closed: bool = False) -> ReportResult:
     """Write a report and record it in the audit trail.
 
     Parameters
@@ -107,6 +107,8 @@ def build_report(ws, as_of, out_path, *, horizon_days: float = 90, coordinator: 
         Progress; raise from it to cancel.
     assess : callable, optional
         Replacement for :func:`caseview.followup.assess_caseload` (tests).
+    include_closed : bool
+        Also report cases closed on or before the as-of date (left out by default).
     """
     from .data import collect_report_data
 
@@ -119,6 +121,7 @@ def build_report(ws, as_of, out_path, *, horizon_days: float = 90, coordinator: 
     progress = callback or (lambda fraction: None)
     data = collect_report_data(ws, as_of, horizon_days=float(horizon_days), coordinator=coordinator,
                                flagged_only=flagged_only, since=since, dates=dates, seed=seed, assess=assess,
+                               include_closed=include_closed,
                                callback=lambda f: progress(0.7 * f))
     from caseview.private_files import private_output
 

@@ -115,7 +115,7 @@ class ReportData:
 
 def collect_report_data(ws, as_of: dt.date, *, horizon_days: float = 90.0, coordinator: str | None = None,
                         flagged_only: bool = False, since: dt.date | None = None, dates: str = "calendar",
-                        seed=None, assess=None, callback=None) -> ReportData:
+                        seed=None, assess=None, callback=None, include_closed: bool = False) -> ReportData:
     """Assess the caseload and gather the report's contents.
 
     Parameters
@@ -143,7 +143,8 @@ def collect_report_data(ws, as_of: dt.date, *, horizon_days: float = 90.0, coord
 
         def assess(ws, date, horizon_days, callback):
             # reopen=False: making a report never changes review state.
-            return assess_caseload(ws, date, horizon_days=horizon_days, callback=callback, reopen=False)
+            return assess_caseload(ws, date, horizon_days=horizon_days, callback=callback, reopen=False,
+                                   include_closed=include_closed)
     if not np.isfinite(horizon_days) or horizon_days <= 0:
         raise InputError(f"--horizon: expected a number of days > 0, got {horizon_days!r}")
     if since is not None and since >= as_of:
@@ -204,7 +205,8 @@ def collect_report_data(ws, as_of: dt.date, *, horizon_days: float = 90.0, coord
         occupancy=occupancy, model=summary, audit_head=ws.audit_head(),
         options={"horizon_days": float(horizon_days), "coordinator": coordinator or None,
                  "flagged_only": bool(flagged_only), "since": since.isoformat() if since else None,
-                 "dates": dates, "seed": "given" if seed is not None else None},
+                 "dates": dates, "seed": "given" if seed is not None else None,
+                 "include_closed": bool(include_closed)},
         outlook=outlook, outlook_note=outlook_note, not_scored=not_scored,
     )
 

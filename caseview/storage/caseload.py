@@ -8,7 +8,7 @@ import numpy as np
 
 from hmm import StageModel, Timelines
 
-from .contacts import (allowed_stages_for_model, covariates_for_model, fetch_contacts,
+from .contacts import (allowed_stages_for_model, covariates_for_model, fetch_case_contacts, fetch_contacts,
                        observation_codes_for_model)
 
 
@@ -60,3 +60,32 @@ def load_caseload(connection, model: StageModel, as_of_day: int | None = None) -
     )
     return Caseload(case_ids=stored.case_codes, coordinators=stored.case_coordinator,
                     contact_days=stored.days, timelines=timelines, raw_values=raw)
+
+
+def load_case(connection, model: StageModel, case_code: str, as_of_day: int | None = None) -> Caseload:
+    """One case's current contacts (optionally up to ``as_of_day``) coded for ``model``.
+
+    Reads only that case's rows through the primary key, so the cost does not grow with the
+    caseload (the window rescores one case after recording a contact). No contacts: zero cases.
+    """
+    stored = fetch_case_contacts(connection, case_code, as_of_day)
+    observations, raw = observation_codes_for_model(stored, model)
+    timelines = Timelines(offsets=stored.offsets, times=stored.days.astype(np.float64), observations=observations,
+                          allowed_stages=allowed_stages_for_model(stored.stage_known, model),
+                          covariates=covariates_for_model(stored, model))
+    return Caseload(case_ids=stored.case_codes, coordinators=stored.case_coordinator,
+                    contact_days=stored.days, timelines=timelines, raw_values=raw)
+
+
+def subset_caseload(caseload: Caseload, keep: np.ndarray) -> Caseload:
+    """The cases where ``keep`` (bool, shape (n_cases,)) is True, in the same order."""
+    keep = np.asarray(keep, dtype=bool)
+    if keep.all():
+        return caseload
+    cases = np.flatnonzero(keep)
+    offsets = caseload.timelines.offsets
+    counts = offsets[1:] - offsets[:-1]
+    rows = np.repeat(keep, counts)
+    return Caseload(case_ids=caseload.case_ids[cases], coordinators=caseload.coordinators[cases],
+                    contact_days=caseload.contact_days[rows], timelines=caseload.timelines.subset(cases),
+                    raw_values={k: v[rows] for k, v in caseload.raw_values.items()})

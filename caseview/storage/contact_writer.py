@@ -93,9 +93,16 @@ def _blobs(array: np.ndarray) -> list:
     return [data[i:i + width] for i in range(0, len(data), width)]
 
 
-def write_contacts(connection, batch: ContactBatch, replace: bool = False) -> WriteCounts:
-    """Store ``batch``; the caller holds a write transaction."""
-    layout = field_layout(connection)
+def encode_batch(layout, batch: ContactBatch) -> tuple[np.ndarray, np.ndarray]:
+    """The batch's values in the stored layout.
+
+    Returns
+    -------
+    observations : ndarray of uint8, shape (n, n_workspace_channels)
+        Workspace category codes, :data:`~caseview.storage.schema.BLANK_CODE` = blank.
+    covariates : ndarray of little-endian float64, shape (n, n_workspace_covariates)
+        NaN where the batch has no such covariate.
+    """
     n = batch.n_rows
     obs = np.full((n, len(layout.channels)), BLANK_CODE, dtype=np.uint8)
     for j, name in enumerate(batch.channel_names):
@@ -111,6 +118,19 @@ def write_contacts(connection, batch: ContactBatch, replace: bool = False) -> Wr
         if position is None:
             raise WorkspaceError(f"covariate {name!r} is not registered in the workspace")
         covs[:, position] = batch.covariates[:, k]
+    return obs, covs
+
+
+def write_contacts(connection, batch: ContactBatch, replace: bool = False, actor: str = "",
+                   reason: str = "") -> WriteCounts:
+    """Store ``batch``; the caller holds a write transaction.
+
+    With ``replace``, each stored contact that differs is replaced and its earlier version kept in
+    ``contact_versions`` (status superseded, ``reason``, ``actor``), never overwritten.
+    """
+    layout = field_layout(connection)
+    n = batch.n_rows
+    obs, covs = encode_batch(layout, batch)
 
     import pandas as pd
 
@@ -220,6 +240,10 @@ def write_contacts(connection, batch: ContactBatch, replace: bool = False) -> Wr
             f"INSERT INTO contacts (case_id, day, observations, covariates, stage_known, coordinator_id{kind_column})"
             f" VALUES (?, ?, ?, ?, ?, ?{', ?' if kind_column else ''})", zip(*columns))
     if updates:
+        from .casework_store import keep_earlier_versions
+
+        version_ids = keep_earlier_versions(connection, [(int(row_case[i]), int(batch.days[i])) for i, _ in updates],
+                                            "superseded", actor, reason or "replaced by an import")
         connection.executemany(
             "UPDATE contacts SET observations = ?, covariates = ?, stage_known = ?, coordinator_id = ?,"
             " contact_kind = ? WHERE case_id = ? AND day = ?",
@@ -232,7 +256,9 @@ def write_contacts(connection, batch: ContactBatch, replace: bool = False) -> Wr
         connection.execute("DELETE FROM _import_cases")
     changed_existing = sorted({str(batch.case_codes[i]) for i in insert_rows[~is_new_case[insert_rows]].tolist()}
                               | {str(batch.case_codes[i]) for i, _ in updates})
-    changes = RowChanges(cases=tuple(changed_existing), all_rows=("coordinators",),
+    kept = {"contact_versions": version_ids, "contact_provenance": [f"{int(row_case[i])}:{int(batch.days[i])}"
+                                                                    for i, _ in updates]} if updates else {}
+    changes = RowChanges(cases=tuple(changed_existing), all_rows=("coordinators",), rows=kept,
                          case_digests=_new_case_digests(batch, new_codes, last_coordinator if new_codes else {},
                                                         case_id, order, is_new_case, row_case, obs, covs))
     return WriteCounts(cases_added=len(new_codes), contacts_added=int(insert_rows.size),

@@ -308,6 +308,41 @@ def fetch_contacts(connection, as_of_day: int | None = None, row_by_row: bool = 
         stage_known=stage_known, coordinators=coordinators, layout=layout, unscheduled=unscheduled)
 
 
+def fetch_case_contacts(connection, case_code: str, as_of_day: int | None = None) -> StoredContacts:
+    """One case's current contacts (optionally only days <= ``as_of_day``), read by primary key.
+
+    Same layout as :func:`fetch_contacts` with one case (or none when it has no contacts).
+    """
+    layout = field_layout(connection)
+    n_channels, n_covariates = len(layout.channels), len(layout.covariates)
+    sql = ("SELECT c.day, c.observations, c.covariates, COALESCE(c.stage_known, ''), COALESCE(co.code, '')"
+           " FROM contacts c JOIN cases k ON k.id = c.case_id LEFT JOIN coordinators co ON co.id = c.coordinator_id"
+           " WHERE k.case_code = ?")
+    params = [case_code]
+    if as_of_day is not None:
+        sql += " AND c.day <= ?"
+        params.append(int(as_of_day))
+    rows = connection.execute(sql + " ORDER BY c.day", params).fetchall()
+    n = len(rows)
+    width = n_channels + 8 * n_covariates
+    packed = np.frombuffer(b"".join(r[1] + r[2] for r in rows), dtype=np.uint8)
+    if packed.size != n * width:
+        raise WorkspaceError("stored contacts do not match the workspace's channel/covariate registry; "
+                             "the workspace is damaged - restore a backup")
+    packed = packed.reshape(n, width)
+    coordinators = np.array([r[4] for r in rows] + [None], dtype=object)[:-1]
+    named = [c for c in coordinators.tolist() if c]
+    return StoredContacts(
+        case_codes=np.array([case_code] if n else [], dtype=object),
+        case_coordinator=np.array([named[-1] if named else ""] if n else [], dtype=object),
+        offsets=np.array([0, n] if n else [0], dtype=np.int64),
+        days=np.array([r[0] for r in rows], dtype=np.int64),
+        observations=packed[:, :n_channels],
+        covariates=np.ascontiguousarray(packed[:, n_channels:]).view(_NATIVE).astype(np.float64).reshape(n, n_covariates),
+        stage_known=np.array([r[3] for r in rows] + [None], dtype=object)[:-1],
+        coordinators=coordinators, layout=layout)
+
+
 def observation_codes_for_model(stored: StoredContacts, model: StageModel) -> tuple[np.ndarray, dict]:
     """Model-coded observations (n, n_model_channels) int16 and raw text per model channel."""
     n = stored.days.shape[0]

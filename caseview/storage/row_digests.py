@@ -48,6 +48,16 @@ ROW_TABLES = {
                    "channel_id || ':' || code"),
     "covariates": ("SELECT id, name, position FROM covariates", "id"),
     "coordinators": ("SELECT id, code FROM coordinators", "id"),
+    # case work (casework_store): earlier contact versions, who recorded current contacts, closed cases
+    "contact_versions": ("SELECT v.id, c.case_code, v.day, v.observations, v.covariates, v.stage_known, "
+                         "v.coordinator_id, v.status, v.recorded_at, v.recorded_by, v.recorded_reason, v.ended_at, "
+                         "v.ended_by, v.reason, v.audit_id FROM contact_versions v LEFT JOIN cases c ON c.id = v.case_id",
+                         "v.id"),
+    "contact_provenance": ("SELECT p.case_id || ':' || p.day, c.case_code, p.day, p.recorded_at, p.recorded_by, "
+                           "p.reason FROM contact_provenance p LEFT JOIN cases c ON c.id = p.case_id",
+                           "p.case_id || ':' || p.day"),
+    "case_closures": ("SELECT k.case_id, c.case_code, k.closed_day, k.reason, k.closed_at, k.closed_by, k.audit_id "
+                      "FROM case_closures k LEFT JOIN cases c ON c.id = k.case_id", "k.case_id"),
 }
 #: Every protected set, in the order :func:`check_rows` reports them.
 SETS = (CASES, *ROW_TABLES, SCORE_RUNS)

@@ -84,6 +84,52 @@ CREATE TABLE case_scores (run_id INTEGER NOT NULL REFERENCES score_runs(id) ON D
 CREATE TABLE settings (key TEXT PRIMARY KEY, value TEXT NOT NULL);
 """
 
+#: Case work (issue 15): earlier versions of contacts, who recorded the current ones, closed cases.
+#: ``contacts`` keeps holding only the current version of each contact (so the fast read is
+#: unchanged); a correction or a void moves the version it replaces to ``contact_versions`` in the
+#: same transaction. ``contact_provenance`` says who recorded a current contact, when and why (a
+#: contact imported from a file has no row: its import is in the audit trail). A case is closed from
+#: ``closed_day`` on while it has a ``case_closures`` row; reopening deletes the row (both audited).
+#: Written with IF NOT EXISTS so that it does not depend on where it lands among other migrations.
+CASEWORK_SCHEMA = """
+CREATE TABLE IF NOT EXISTS contact_versions (
+  id INTEGER PRIMARY KEY,
+  case_id INTEGER NOT NULL REFERENCES cases(id),
+  day INTEGER NOT NULL,
+  observations BLOB NOT NULL,
+  covariates BLOB NOT NULL,
+  stage_known TEXT,
+  coordinator_id INTEGER REFERENCES coordinators(id),
+  contact_kind TEXT NOT NULL DEFAULT 'scheduled',
+  status TEXT NOT NULL CHECK (status IN ('superseded', 'voided')),
+  recorded_at TEXT NOT NULL DEFAULT '',
+  recorded_by TEXT NOT NULL DEFAULT '',
+  recorded_reason TEXT NOT NULL DEFAULT '',
+  ended_at TEXT NOT NULL,
+  ended_by TEXT NOT NULL,
+  reason TEXT NOT NULL,
+  audit_id INTEGER REFERENCES audit_log(id));
+CREATE INDEX IF NOT EXISTS contact_versions_case ON contact_versions(case_id, day);
+CREATE TRIGGER IF NOT EXISTS contact_versions_no_update BEFORE UPDATE ON contact_versions
+BEGIN SELECT RAISE(ABORT, 'earlier contact versions are kept as recorded'); END;
+CREATE TRIGGER IF NOT EXISTS contact_versions_no_delete BEFORE DELETE ON contact_versions
+BEGIN SELECT RAISE(ABORT, 'earlier contact versions are kept as recorded'); END;
+CREATE TABLE IF NOT EXISTS contact_provenance (
+  case_id INTEGER NOT NULL REFERENCES cases(id),
+  day INTEGER NOT NULL,
+  recorded_at TEXT NOT NULL,
+  recorded_by TEXT NOT NULL,
+  reason TEXT NOT NULL DEFAULT '',
+  PRIMARY KEY (case_id, day)) WITHOUT ROWID;
+CREATE TABLE IF NOT EXISTS case_closures (
+  case_id INTEGER PRIMARY KEY REFERENCES cases(id),
+  closed_day INTEGER NOT NULL,
+  reason TEXT NOT NULL CHECK (reason IN ('moved', 'discharged', 'died', 'transferred', 'other')),
+  closed_at TEXT NOT NULL,
+  closed_by TEXT NOT NULL,
+  audit_id INTEGER REFERENCES audit_log(id));
+"""
+
 #: Digest of every protected record as last recorded in the audit trail (a locator only: the evidence is
 #: the trail; see caseview.storage.row_digests). Opening an older workspace records a baseline entry.
 ROW_DIGESTS = """
@@ -99,8 +145,7 @@ ALTER TABLE contacts ADD COLUMN contact_kind TEXT NOT NULL DEFAULT 'scheduled'
 """
 
 #: Forward migrations; ``MIGRATIONS[k - 1]`` takes version ``k - 1`` to ``k``.
-MIGRATIONS: list[str] = [SCHEMA_V1, ROW_DIGESTS]
-MIGRATIONS.append(CONTACT_KIND)
+MIGRATIONS: list[str] = [SCHEMA_V1, ROW_DIGESTS, CONTACT_KIND, CASEWORK_SCHEMA]
 
 
 def schema_version() -> int:

@@ -377,6 +377,18 @@ class Workspace:
     def load_caseload(self, model, as_of_day: int | None = None) -> Caseload:
         return load_caseload(self.connection, model, as_of_day)
 
+    def load_case(self, model, case_code: str, as_of_day: int | None = None) -> Caseload:
+        """One case's current contacts only (an empty caseload if none), read by its index."""
+        from .caseload import load_case
+
+        return load_case(self.connection, model, case_code, as_of_day)
+
+    def open_case_mask(self, case_codes, as_of_day: int | None):
+        """Which of ``case_codes`` are open on ``as_of_day`` (see :func:`.casework_store.open_case_mask`)."""
+        from .casework_store import open_case_mask
+
+        return open_case_mask(self.connection, case_codes, as_of_day)
+
     def find_case(self, typed: str) -> str:
         """The stored case ID that ``typed`` names (normalised and matched like an imported case ID,
         letter case ignored); InputError with one line (``no case 'X' in WS; did you mean 'Y'?``)
@@ -398,8 +410,10 @@ class Workspace:
     def contact_count(self) -> int:
         return self.connection.execute("SELECT COUNT(*) FROM contacts").fetchone()[0]
 
-    def write_contacts(self, batch, replace: bool = False):
-        """Store a validated :class:`~caseview.storage.contact_writer.ContactBatch` (inside a transaction)."""
+    def write_contacts(self, batch, replace: bool = False, actor: str = "", reason: str = ""):
+        """Store a validated :class:`~caseview.storage.contact_writer.ContactBatch` (inside a transaction).
+
+        Replaced contacts keep their earlier version (superseded, by ``actor`` for ``reason``)."""
         import gc
 
         from .contact_writer import write_contacts
@@ -408,7 +422,7 @@ class Workspace:
         gc.disable()  # the write creates millions of short-lived tuples
         try:
             with self.transaction() as con:
-                return write_contacts(con, batch, replace)
+                return write_contacts(con, batch, replace, actor, reason)
         finally:
             if gc_was_enabled:
                 gc.enable()

@@ -314,9 +314,10 @@ def import_timelines(ws, path, actor: str, mapping: dict | None = None, drop=(),
             _, now_version = ws.current_model()
             if now_version.id != version.id:
                 raise WorkspaceError("the current model changed while the file was being checked; import again")
-            counts = ws.write_contacts(batch, replace=replace)
-            _refuse_contacts_after_entry(ws, model, data, problems, source.where)
             file_name = audited_file_name(facts.path.name, facts.sha256)
+            counts = ws.write_contacts(batch, replace=replace, actor=actor,
+                                       reason=f"replaced by the import of {file_name}")
+            _refuse_contacts_after_entry(ws, model, data, problems, source.where)
             details = {"file": file_name, "sha256": facts.sha256, "bytes": facts.size, "rows_read": rows_read,
                        "cases_added": counts.cases_added, "contacts_added": counts.contacts_added,
                        "duplicates_skipped": counts.duplicates_skipped + in_file_duplicates,

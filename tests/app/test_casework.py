@@ -1,0 +1,272 @@
+"""Case work jobs (record, correct, void, contacts, close, reopen) on the invented demo caseload."""
+
+from __future__ import annotations
+
+import datetime as dt
+
+import numpy as np
+import pytest
+
+from caseview.errors import InputError
+from caseview.operations import casework
+from caseview.storage import Workspace
+
+
+@pytest.fixture
+def ws(tmp_path):
+    from caseview.cli.basic import create_demo_workspace
+
+    path = tmp_path / "demo.cvw"
+    create_demo_workspace(path, "tester")
+    workspace = Workspace.open(path)
+    yield workspace
+    workspace.close()
+
+
+def _snapshot(ws):
+    con = ws.connection
+    return [con.execute(f"SELECT COUNT(*) FROM {t}").fetchone()[0]
+            for t in ("cases", "contacts", "contact_versions", "contact_provenance", "case_closures", "audit_log")]
+
+
+def test_record_carries_covariates_over_and_is_audited(ws):
+    last = casework.list_contacts(ws, "HS-0002")[-1]
+    result = casework.record_contact(ws, "HS-0002", "2026-12-01", "ann", values={"mobility": "slow"})
+    assert result.carried_over == ("lives_alone", "balance_programme")
+    stored = casework.list_contacts(ws, "HS-0002")[-1]
+    assert stored.date == "2026-12-01" and stored.values["mobility"] == "slow" and stored.values["falls"] == ""
+    assert stored.covariates == last.covariates
+    assert stored.recorded_by == "ann" and stored.status == "current"
+    assert abs(sum(result.estimate.p_now.values()) - 1.0) < 1e-9
+    entry = ws.audit_entries()[-1]
+    assert entry.action == "contact.record" and entry.details["old"] is None
+    assert entry.details["new"]["values"]["mobility"] == "slow"
+    assert ws.audit_verify().ok
+
+
+def test_recorded_estimate_matches_scoring_the_whole_caseload(ws):
+    from caseview.scoring import score_caseload
+
+    result = casework.record_contact(ws, "HS-0002", "2026-12-01", "ann", values={"concern": "serious"})
+    scores = score_caseload(ws, dt.date(2026, 12, 1))
+    row = scores.row_of("HS-0002")
+    assert np.allclose(list(result.estimate.p_now.values()), scores.p_now[row], atol=1e-12)
+
+
+def test_new_case_needs_coordinator_and_covariates(ws):
+    before = _snapshot(ws)
+    with pytest.raises(InputError, match="coordinator"):
+        casework.record_contact(ws, "HS-9001", "2026-12-01", "ann")
+    with pytest.raises(InputError, match="lives_alone"):
+        casework.record_contact(ws, "HS-9001", "2026-12-01", "ann", coordinator="C2")
+    assert _snapshot(ws) == before
+    result = casework.add_case(ws, "HS-9001", "C2", "2026-12-01", "ann",
+                               covariates={"lives_alone": 1, "balance_programme": 0})
+    assert result.case_created and ws.case_count() == before[0] + 1
+    with pytest.raises(InputError, match="already exists"):
+        casework.add_case(ws, "HS-9001", "C2", "2026-12-02", "ann", covariates={"lives_alone": 1,
+                                                                                "balance_programme": 0})
+
+
+@pytest.mark.parametrize("kwargs, fragment", [
+    ({"date": "2026-02-30"}, "not a calendar date"),
+    ({"date": "2026-12-01", "values": {"mobility": "fast"}}, "unknown category"),
+    ({"date": "2026-12-01", "values": {"speed": "slow"}}, "unknown channel"),
+    ({"date": "2026-12-01", "covariates": {"lives_alone": "yes"}}, "expected a finite number"),
+    ({"date": "2026-12-01", "stage_known": "Asleep"}, "unknown stage"),
+    ({"date": "2026-11-16"}, "already has a contact"),
+])
+def test_bad_input_is_one_line_and_stores_nothing(ws, kwargs, fragment):
+    before = _snapshot(ws)
+    with pytest.raises(InputError, match=fragment) as caught:
+        casework.record_contact(ws, "HS-0002", actor="ann", **kwargs)
+    assert "\n" not in str(caught.value)
+    assert _snapshot(ws) == before
+
+
+def test_identifier_screen_and_formula_guard_as_import(ws):
+    before = _snapshot(ws)
+    with pytest.raises(InputError, match="identifier") as caught:
+        casework.record_contact(ws, "jo.bloggs@example.org", "2026-12-01", "ann", coordinator="C1",
+                                covariates={"lives_alone": 0, "balance_programme": 0})
+    assert "jo.bloggs" not in str(caught.value)  # the screen masks what it found
+    with pytest.raises(InputError, match="formula"):
+        casework.record_contact(ws, "=HS-1", "2026-12-01", "ann", coordinator="C1",
+                                covariates={"lives_alone": 0, "balance_programme": 0})
+    assert _snapshot(ws) == before
+
+
+def test_contact_after_a_recorded_move_is_refused(ws):
+    # HS-0001's last contact records the move to residential care (a stage with no way out)
+    assert "consider closing" in casework.closing_suggestion(ws, "HS-0001")
+    before = _snapshot(ws)
+    with pytest.raises(InputError, match="no way out"):
+        casework.record_contact(ws, "HS-0001", "2026-12-01", "ann", values={"mobility": "slow"})
+    assert _snapshot(ws) == before
+
+
+def test_correct_keeps_the_earlier_version_and_scoring_uses_the_new(ws):
+    from caseview.scoring import score_caseload
+
+    casework.record_contact(ws, "HS-0002", "2026-12-01", "ann", values={"falls": "several"})
+    change = casework.correct_contact(ws, "HS-0002", "2026-12-01", "falls were one", "bo",
+                                      values={"falls": "one"}, new_date="2026-12-02")
+    assert change.details["old"]["values"]["falls"] == "several"
+    assert change.details["new"]["values"]["falls"] == "one" and change.details["new"]["date"] == "2026-12-02"
+    current = casework.list_contacts(ws, "HS-0002")
+    assert [v.date for v in current][-1] == "2026-12-02" and "2026-12-01" not in [v.date for v in current]
+    every = casework.list_contacts(ws, "HS-0002", all_versions=True)
+    old = [v for v in every if v.status == "superseded"]
+    assert len(old) == 1 and old[0].values["falls"] == "several" and old[0].reason == "falls were one"
+    assert old[0].recorded_by == "ann" and old[0].ended_by == "bo"
+    # scoring sees only the current version
+    scores = score_caseload(ws, dt.date(2026, 12, 5))
+    row = scores.row_of("HS-0002")
+    assert scores.last_contact_day[row] == (dt.date(2026, 12, 2) - dt.date(1970, 1, 1)).days
+    assert ws.audit_entries()[-1].action == "contact.correct" and ws.audit_verify().ok
+
+
+def test_correct_that_changes_nothing_or_lacks_reason_is_refused(ws):
+    before = _snapshot(ws)
+    with pytest.raises(InputError, match="changes nothing"):
+        casework.correct_contact(ws, "HS-0002", "2026-11-16", "no change", "bo")
+    with pytest.raises(InputError, match="reason is required"):
+        casework.correct_contact(ws, "HS-0002", "2026-11-16", "  ", "bo", values={"falls": "one"})
+    with pytest.raises(InputError, match="identifier rule phone") as caught:
+        casework.void_contact(ws, "HS-0002", "2026-11-16", "daughter rang from 0207 946 0123", "bo")
+    assert "0207" not in str(caught.value)
+    with pytest.raises(InputError, match="no current contact on 2026-11-17"):
+        casework.void_contact(ws, "HS-0002", "2026-11-17", "never happened", "bo")
+    assert _snapshot(ws) == before
+
+
+def test_void_keeps_the_version_and_leaves_scoring(ws):
+    n_before = len(casework.list_contacts(ws, "HS-0002"))
+    change = casework.void_contact(ws, "HS-0002", "2026-11-16", "recorded under the wrong case", "bo")
+    assert change.details["old"]["date"] == "2026-11-16" and change.details["new"] is None
+    assert len(casework.list_contacts(ws, "HS-0002")) == n_before - 1
+    voided = [v for v in casework.list_contacts(ws, "HS-0002", all_versions=True) if v.status == "voided"]
+    assert len(voided) == 1 and voided[0].reason == "recorded under the wrong case"
+    stored = ws.stored_contacts()
+    assert stored.days.size == ws.contact_count()
+    # stored versions cannot be edited or deleted
+    import sqlite3
+
+    with pytest.raises(sqlite3.DatabaseError, match="kept as recorded"):
+        ws.connection.execute("DELETE FROM contact_versions")
+    assert ws.audit_verify().ok
+
+
+def test_import_replace_keeps_the_replaced_version(ws, tmp_path):
+    from caseview.timeline_io import import_timelines
+
+    path = tmp_path / "fix.csv"
+    path.write_text("case_id,date,coordinator,mobility,falls,concern,lives_alone,balance_programme,stage_known\n"
+                    "HS-0002,2026-11-16,C2,unable,none,none,1,1,\n", encoding="utf-8")
+    import_timelines(ws, path, actor="ann", replace=True)
+    every = casework.list_contacts(ws, "HS-0002", all_versions=True)
+    old = [v for v in every if v.status == "superseded"]
+    assert len(old) == 1 and old[0].date == "2026-11-16" and "fix.csv" in old[0].reason
+
+
+def test_close_and_reopen_decide_what_is_scored(ws):
+    from caseview.scoring import score_caseload
+
+    casework.close_case(ws, "HS-0002", "2026-11-20", "moved", "ann")
+    assert "HS-0002" not in score_caseload(ws, dt.date(2026, 11, 30)).case_ids
+    assert "HS-0002" in score_caseload(ws, dt.date(2026, 11, 19)).case_ids  # still open then
+    assert "HS-0002" in score_caseload(ws, dt.date(2026, 11, 30), include_closed=True).case_ids
+    mask = ws.open_case_mask(["HS-0002", "HS-0003"], None)
+    assert mask.tolist() == [False, True]
+    with pytest.raises(InputError, match="is closed since 2026-11-20"):
+        casework.record_contact(ws, "HS-0002", "2026-11-25", "ann")
+    with pytest.raises(InputError, match="already closed"):
+        casework.close_case(ws, "HS-0002", "2026-11-21", "moved", "ann")
+    casework.reopen_case(ws, "HS-0002", "ann")
+    assert "HS-0002" in score_caseload(ws, dt.date(2026, 11, 30)).case_ids
+    with pytest.raises(InputError, match="not closed"):
+        casework.reopen_case(ws, "HS-0002", "ann")
+    with pytest.raises(InputError, match="before its latest contact"):
+        casework.close_case(ws, "HS-0002", "2026-01-01", "moved", "ann")
+    with pytest.raises(InputError, match="expected one of moved"):
+        casework.close_case(ws, "HS-0002", "2026-12-01", "bored", "ann")
+    assert [e.action for e in ws.audit_entries()[-2:]] == ["case.close", "case.reopen"]
+    assert ws.audit_verify().ok
+
+
+@pytest.mark.parametrize("change", ["replace", "insert", "remove"])
+def test_rescoring_one_case_equals_rescoring_all(ws, change):
+    """The spliced caseload equals a full rescore, whatever happened to the case."""
+    from caseview.followup import assess_caseload
+    from caseview.gui.data_source import LoadedCaseload
+
+    as_of = dt.date(2026, 12, 5)
+    a = assess_caseload(ws, as_of, 90.0, reopen=False, explain_reasons=False)
+    loaded = LoadedCaseload(a.scores, a)
+    if change == "replace":
+        casework.record_contact(ws, "HS-0002", "2026-12-01", "ann", values={"concern": "serious"})
+        case = "HS-0002"
+    elif change == "insert":
+        casework.add_case(ws, "HS-0002b", "C2", "2026-12-01", "ann", values={"falls": "several"},
+                          covariates={"lives_alone": 1, "balance_programme": 0})
+        case = "HS-0002b"
+    else:
+        casework.close_case(ws, "HS-0002", "2026-12-01", "moved", "ann")
+        case = "HS-0002"
+    spliced, row = casework.rescore_case(ws, loaded, case)
+    full = assess_caseload(ws, as_of, 90.0, reopen=False, explain_reasons=False)
+    s, f = spliced.scores, full.scores
+    assert s.case_ids.tolist() == f.case_ids.tolist()
+    assert (row == -1) == (change == "remove") and (row < 0 or s.case_ids[row] == case)
+    for name in ("p_now", "p_reach", "p_follow_up_now", "last_contact_day", "n_contacts", "last_covariates"):
+        assert np.allclose(getattr(s, name), getattr(f, name), atol=1e-12), name
+    assert np.array_equal(s.timelines.offsets, f.timelines.offsets)
+    assert np.array_equal(s.timelines.observations, f.timelines.observations)
+    assert spliced.assessment.flags.tolist() == full.flags.tolist()
+    assert np.allclose(spliced.assessment.priority, full.priority)
+    assert spliced.assessment.evaluation.fired.shape == full.evaluation.fired.shape
+
+
+def test_successive_one_case_rescores_reuse_buffers_and_stay_exact(ws):
+    """Several changes in a row (the window's buffers gain spare rows, then rows move within them)."""
+    from caseview.followup import assess_caseload
+    from caseview.gui.data_source import LoadedCaseload
+
+    as_of = dt.date(2026, 12, 5)
+    a = assess_caseload(ws, as_of, 90.0, reopen=False, explain_reasons=False)
+    loaded = LoadedCaseload(a.scores, a)
+    steps = [lambda: casework.record_contact(ws, "HS-0002", "2026-12-01", "ann", values={"falls": "one"}),
+             lambda: casework.record_contact(ws, "HS-0003", "2026-12-02", "ann", values={"falls": "several"}),
+             lambda: casework.void_contact(ws, "HS-0002", "2026-11-16", "never happened", "ann"),
+             lambda: casework.record_contact(ws, "HS-0002", "2026-12-03", "ann", values={"concern": "serious"})]
+    cases = ["HS-0002", "HS-0003", "HS-0002", "HS-0002"]
+    for step, case in zip(steps, cases):
+        step()
+        loaded, _ = casework.rescore_case(ws, loaded, case)
+    full = assess_caseload(ws, as_of, 90.0, reopen=False, explain_reasons=False)
+    assert loaded.scores.timelines.offsets[-1] == full.scores.timelines.n_contacts
+    assert np.array_equal(loaded.scores.timelines.times, full.scores.timelines.times)
+    assert np.array_equal(loaded.scores.timelines.observations, full.scores.timelines.observations)
+    assert np.array_equal(loaded.scores.caseload.contact_days, full.scores.caseload.contact_days)
+    for name, column in full.scores.caseload.raw_values.items():
+        assert loaded.scores.caseload.raw_values[name].tolist() == column.tolist()
+    assert np.allclose(loaded.scores.p_now, full.scores.p_now, atol=1e-12)
+    assert loaded.assessment.flags.tolist() == full.flags.tolist()
+
+
+def test_row_digests_catch_versions_and_closures_changed_outside_caseview(ws):
+    """Every case-work write names its rows for the audit trail's row digests (the safety hook)."""
+    casework.record_contact(ws, "HS-0002", "2026-12-01", "ann", values={"falls": "several"})
+    casework.correct_contact(ws, "HS-0002", "2026-12-01", "one fall", "bo", values={"falls": "one"})
+    casework.close_case(ws, "HS-0002", "2026-12-02", "moved", "bo")
+    assert ws.audit_verify().ok
+    con = ws.connection
+    con.execute("DROP TRIGGER contact_versions_no_update")
+    con.execute("UPDATE contact_versions SET reason = 'rewritten'")
+    result = ws.audit_verify()
+    assert not result.ok and "contact_versions" in result.problem
+    con.execute("UPDATE contact_versions SET reason = 'one fall'")
+    assert ws.audit_verify().ok
+    con.execute("UPDATE case_closures SET reason = 'died'")
+    result = ws.audit_verify()
+    assert not result.ok and "case_closures" in result.problem
