@@ -10,9 +10,9 @@ from __future__ import annotations
 
 import numpy as np
 from PySide6.QtCore import Qt, Signal
-from PySide6.QtWidgets import (QAbstractItemView, QCheckBox, QHBoxLayout, QLabel, QListWidget, QListWidgetItem,
-                               QProgressBar, QPushButton, QSpinBox, QSplitter, QTableWidget, QTableWidgetItem,
-                               QTabWidget, QVBoxLayout, QWidget)
+from PySide6.QtWidgets import (QAbstractItemView, QCheckBox, QComboBox, QHBoxLayout, QLabel, QListWidget,
+                               QListWidgetItem, QProgressBar, QPushButton, QSpinBox, QSplitter, QTableWidget,
+                               QTableWidgetItem, QTabWidget, QVBoxLayout, QWidget)
 
 from .fit_preview import FitPreviewBox
 from .model_editor import ModelEditor
@@ -112,6 +112,11 @@ class ModelPanel(QWidget):
         self.starts.setPrefix("starts: ")
         self.starts.setAccessibleName("Number of fitting starts")
         self.penalised = QCheckBox("Penalised (gentle prior)")
+        self.intervals = QComboBox()
+        for label, kind in (("intervals: automatic", "auto"), ("intervals: profile", "profile"),
+                            ("intervals: Wald", "wald")):
+            self.intervals.addItem(label, kind)
+        self.intervals.setAccessibleName("Kind of 95% interval (automatic: profile likelihood below 5,000 cases)")
         self.progress = QProgressBar()
         self.progress.setRange(0, 100)
         self.progress.setAccessibleName("Fitting progress")
@@ -123,7 +128,7 @@ class ModelPanel(QWidget):
         self.fit_warnings.setWordWrap(True)
         self.fit_warnings.hide()
         fit_row = QHBoxLayout()
-        for w in (self.fit_button, self.starts, self.penalised, self.progress, self.cancel_button):
+        for w in (self.fit_button, self.starts, self.penalised, self.intervals, self.progress, self.cancel_button):
             fit_row.addWidget(w)
         self.preview = FitPreviewBox()
         self.preview.decided.connect(self.decide)
@@ -276,7 +281,8 @@ class ModelPanel(QWidget):
         inputs = self._inputs()
         ws = self.window.workspace()
         rules = workspace_rules(ws) if ws is not None else default_rules()
-        options = FitOptions(starts=self.starts.value(), penalised=self.penalised.isChecked())
+        options = FitOptions(starts=self.starts.value(), penalised=self.penalised.isChecked(),
+                             intervals=self.intervals.currentData())
         horizon = float(loaded.scores.horizon_days)
 
         def job(callback):
