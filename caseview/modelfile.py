@@ -221,7 +221,12 @@ def dump_model(model: StageModel, extra: dict | None = None) -> str:
 
 
 def save_model(model: StageModel, path, extra: dict | None = None) -> None:
-    Path(path).write_text(dump_model(model, extra), encoding="utf-8")
+    """Write the model file completely or not at all (InputError naming the file on failure)."""
+    from .private_files import private_text
+
+    text = dump_model(model, extra)
+    with private_text(path, newline="\n") as handle:
+        handle.write(text)
 
 
 # ---------------------------------------------------------------- helpers

@@ -54,6 +54,9 @@ class CaseloadScores:
         Probability of being in each stage at least once between the as-of date and the horizon.
     p_follow_up_now, p_reach_follow_up : ndarray, shape (n_cases,)
         The same for the follow-up stages taken together.
+    p_at_last_contact : ndarray, shape (n_cases, n_stages), or None
+        Stage probabilities at the last contact (filtered); the schedule uses them to date when a
+        case went over the follow-up threshold between that contact and the as-of date.
     """
 
     as_of: dt.date
@@ -78,6 +81,7 @@ class CaseloadScores:
     log_likelihood: np.ndarray
     caseload: object
     timelines: Timelines
+    p_at_last_contact: np.ndarray | None = None
 
     @property
     def n_cases(self) -> int:
@@ -161,6 +165,7 @@ def score_loaded(caseload, model: StageModel, as_of_day: int, horizon_days: floa
         log_likelihood=result.log_likelihood,
         caseload=caseload,
         timelines=timelines,
+        p_at_last_contact=result.filtered[last],
     )
 
 

@@ -55,10 +55,11 @@ def actor_name(args) -> str:
     return getattr(args, "by", None) or os_user()
 
 
-def open_workspace(path):
+def open_workspace(path, read_only: bool | None = None):
+    """Open a workspace for a command; read-only when asked, or when the file or folder cannot be written."""
     from caseview.storage import Workspace
 
-    ws = Workspace.open(path)
+    ws = Workspace.open(path, read_only=read_only)
     for warning in ws.warnings:
         print(f"caseview: warning: {warning}", file=sys.stderr)
     return ws
@@ -103,17 +104,10 @@ def write_table(out: str, header: list, columns: list, advisory: bool = True) ->
     if out == "-":
         write(sys.stdout)
         return
-    path = Path(out)
-    tmp = path.with_name(path.name + ".part")
-    try:
-        with open(tmp, "w", newline="", encoding="utf-8") as handle:
-            write(handle)
-        tmp.replace(path)
-    except OSError as exc:
-        from caseview.errors import InputError
+    from caseview.private_files import private_text
 
-        tmp.unlink(missing_ok=True)
-        raise InputError(f"{out}: cannot write ({exc.strerror})") from None
+    with private_text(Path(out)) as handle:  # owner-only, complete or not at all
+        write(handle)
 
 
 _NEEDS_QUOTES = (",", '"', "\n", "\r")
@@ -262,6 +256,7 @@ def run_history(args) -> int:
     write_table(args.out, header, columns)
     if args.out != "-":
         print(f"case {args.case_id}: {n} contacts (model version {version.id}); wrote {args.out}")
+        print("path_stage is the most likely sequence of stages: an estimate, not a record.")
         print(ADVISORY_NOTICE)
     return 0
 

@@ -63,7 +63,7 @@ def register(sub) -> None:
 def run_fit(args) -> int:
     from caseview.errors import Cancelled
     from caseview.modelfile import save_model
-    from caseview.operations.fitting import FitOptions, run_fit as fit_job
+    from caseview.operations.fitting import FitOptions, compute_fit, fit_inputs, save_fit
     from caseview.scoring import parse_date
 
     from .basic import actor_name, open_workspace, stderr_progress
@@ -73,17 +73,29 @@ def run_fit(args) -> int:
     options.check()
     as_of = None if args.as_of is None else parse_date(args.as_of, "--as-of")
     actor = actor_name(args)
+    if args.out:  # before the (long) fit: never a saved version and then a failed --out
+        from caseview.private_files import ensure_can_write
+
+        ensure_can_write(args.out)
     with open_workspace(args.workspace) as ws:
         progress = stderr_progress("fitting")
         try:
-            saved = fit_job(ws, options, actor, as_of=as_of, make_current=not args.keep_current, callback=progress)
+            outcome = compute_fit(fit_inputs(ws, as_of), options, callback=progress)
         except (KeyboardInterrupt, Cancelled):
             if sys.stderr.isatty():
                 print(file=sys.stderr)
             raise KeyboardInterrupt from None
         if sys.stderr.isatty():
             print("\rfitting: done   ", file=sys.stderr)
-    summary = saved.outcome.summary
+        summary = outcome.summary
+        with ws.transaction():  # the version and the --out file: both or neither
+            saved = save_fit(ws, outcome, actor, make_current=not args.keep_current)
+            if args.out:
+                save_model(outcome.result.model, args.out,
+                           extra={"fit": {"log_likelihood": summary.log_likelihood, "aic": summary.aic,
+                                          "bic": summary.bic, "n_parameters": summary.n_parameters,
+                                          "n_cases": summary.n_cases, "converged": summary.converged,
+                                          "intervals": summary.interval_kind}})
     print(summary.format_table())
     start = summary.fitted_from_version
     if saved.made_current:
@@ -92,10 +104,6 @@ def run_fit(args) -> int:
         print(f"\nsaved as model version {saved.version_id}; version {start} is still current "
               f"('caseview models {args.workspace} --use {saved.version_id}' makes the new one current)")
     if args.out:
-        save_model(saved.outcome.result.model, args.out,
-                   extra={"fit": {"log_likelihood": summary.log_likelihood, "aic": summary.aic, "bic": summary.bic,
-                                  "n_parameters": summary.n_parameters, "n_cases": summary.n_cases,
-                                  "converged": summary.converged, "intervals": summary.interval_kind}})
         print(f"wrote {args.out}")
     print(ADVISORY_NOTICE)
     return 0 if summary.converged else 1

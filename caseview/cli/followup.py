@@ -19,9 +19,11 @@ STATUS_CHOICES = ("acknowledged", "actioned", "dismissed")
 
 def register(sub) -> None:
     p = sub.add_parser("flags", help="cases flagged for follow-up, with reasons and next contact due",
-                       description="One row per flagged case: the rules that fired, why (numbers against "
-                                   "thresholds and the recent contacts that drove them), the next contact due "
-                                   "and the review status. " + ADVISORY_NOTICE)
+                       description="One row per flagged case: the rules that fired, why (the 'reason' column: "
+                                   "plain sentences with the chance against the rule's threshold and the recent "
+                                   "contact that moved it most; the numbers are also in their own columns), the "
+                                   "next contact due (a date for every case; before the as-of date means "
+                                   "overdue) and the review status. " + ADVISORY_NOTICE)
     p.add_argument("workspace", metavar="WS")
     p.add_argument("--as-of", required=True, metavar="YYYY-MM-DD")
     p.add_argument("--horizon", type=float, default=90.0, metavar="DAYS", help="forecast horizon (default 90)")
@@ -96,27 +98,33 @@ def run_flags(args) -> int:
     import numpy as np
 
     from caseview.followup import assess_caseload
+    from caseview.followup.wording import plural
     from caseview.scoring import parse_date
 
     as_of = parse_date(args.as_of, "--as-of")
     with open_workspace(args.workspace) as ws:
-        a = assess_caseload(ws, as_of, args.horizon, save_snapshot=args.save, actor=actor_name(args))
+        if ws.read_only and not args.save:
+            print(f"caseview: note: {ws.path} is read-only: dismissed flags that would re-open are not re-opened",
+                  file=sys.stderr)
+        a = assess_caseload(ws, as_of, args.horizon, save_snapshot=args.save, actor=actor_name(args),
+                            reopen=not ws.read_only)
     s = a.scores
     rows = a.order[a.is_flagged[a.order]]
     due = a.next_contact_due_day[rows]
     due_text = [d if day >= 0 else "" for d, day in zip(format_days(np.maximum(due, 0)), due)]
     header = ["case_id", "coordinator", "flags", "reason", "p_follow_up_now", "p_reach_follow_up",
-              "next_contact_due", "review_status", "reviewed_by", "reviewed_at", "most_likely_stage",
+              "next_contact_due", "review_status", "reviewed_by", "reviewed_at", "review_note", "most_likely_stage",
               "days_since_contact", "priority"]
     n = rows.size
     columns = [safe_text(s.case_ids[rows]), safe_text(s.coordinators[rows]), list(a.flags[rows]),
                safe_text(a.reason_text[rows]), format_probabilities(s.p_follow_up_now[rows]),
                format_probabilities(s.p_reach_follow_up[rows]), due_text, list(a.review_status[rows]),
-               safe_text(a.reviewed_by[rows]), list(a.reviewed_at[rows]), list(s.most_likely_stage_names[rows]),
+               safe_text(a.reviewed_by[rows]), list(a.reviewed_at[rows]), safe_text(a.review_note[rows]),
+               list(s.most_likely_stage_names[rows]),
                s.days_since_contact[rows].astype(str).tolist(), [f"{v:.4f}" for v in a.priority[rows]]]
     write_table(args.out, header, columns)
     out = sys.stderr if args.out == "-" else sys.stdout
-    print(f"{n} of {s.n_cases} cases flagged as of {as_of.isoformat()} (horizon {s.horizon_days:g} days)"
+    print(f"{n} of {plural(s.n_cases, 'case')} flagged as of {as_of.isoformat()} (horizon {s.horizon_days:g} days)"
           + (f"; wrote {args.out}" if args.out != "-" else ""), file=out)
     for rule in a.rules:
         state = "" if rule.enabled else " (switched off)"
@@ -128,11 +136,16 @@ def run_flags(args) -> int:
     if a.saved_run_id is not None:
         print(f"  saved score run {a.saved_run_id}", file=out)
     if n:
+        from caseview.followup.wording import due_words
+
         print("top by priority:", file=out)
-        print(f"  {'case_id':<12} {'P(f-u now)':>10} {'P(reach)':>9} {'next due':>10}  {'review':<12} flags", file=out)
-        for i, r in enumerate(rows[:10]):
-            print(f"  {s.case_ids[r]:<12} {s.p_follow_up_now[r]:>10.2f} {s.p_reach_follow_up[r]:>9.2f} "
-                  f"{due_text[i] or 'not soon':>10}  {a.review_status[r]:<12} {a.flags[r]}", file=out)
+        print(f"  {'case_id':<12} {'P(f-u now)':>10} {'P(reach)':>9}  {'next contact due':<26} {'review':<12} flags",
+              file=out)
+        for r in rows[:10]:
+            print(f"  {s.case_ids[r]:<12} {s.p_follow_up_now[r]:>10.2f} {s.p_reach_follow_up[r]:>9.2f}  "
+                  f"{due_words(a.next_contact_due_day[r], s.as_of_day):<26} {a.review_status[r]:<12} {a.flags[r]}",
+                  file=out)
+        print("why the first one is flagged: " + str(a.reason_text[rows[0]]), file=out)
     print(ADVISORY_NOTICE, file=out)
     return 0
 

@@ -25,6 +25,7 @@ COMMAND_MODULES = (
     "caseview.cli.fitting",     # fit, models, goodness-of-fit, staff estimates
     "caseview.cli.followup",    # flags, review, forecast, rules
     "caseview.cli.reporting",   # report
+    "caseview.cli.outlook_commands",  # outlook, target
     "caseview.cli.window",      # gui
 )
 
@@ -53,7 +54,16 @@ def build_parser() -> argparse.ArgumentParser:
     return parser
 
 
+def _terminate_as_interrupt(signum, frame):
+    raise KeyboardInterrupt  # termination runs the same clean-up as Ctrl-C (partial files removed, rolled back)
+
+
 def main(argv=None) -> int:
+    import signal
+    import threading
+
+    if threading.current_thread() is threading.main_thread():
+        signal.signal(signal.SIGTERM, _terminate_as_interrupt)
     parser = build_parser()
     args = parser.parse_args(argv)
     if not getattr(args, "run", None):

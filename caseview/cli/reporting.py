@@ -51,6 +51,7 @@ def run_report(args) -> int:
                               actor=args.by)
     what = f"{result.count} page(s)" if result.format == "pdf" else f"{result.count} case row(s)"
     print(f"wrote {result.path} ({result.format}, {what}; sha256 {result.sha256})")
-    print(f"audit chain head: {result.audit_head}")
+    print(f"audit chain head in the report: {result.audit_head}")
+    print(f"report recorded as audit entry {result.entry_id}; audit chain head now: {result.entry_hash}")
     print(ADVISORY_NOTICE)
     return 0

@@ -14,8 +14,10 @@ def register(subparsers) -> None:
     p.add_argument("--case", metavar="ID", help="select this case")
     p.add_argument("--as-of", metavar="DATE", help="as-of date YYYY-MM-DD (default today)")
     p.add_argument("--screenshot", metavar="PNG", help="render the window offscreen to this PNG and exit")
-    p.add_argument("--panel", choices=("caseload", "queue", "model"), default="caseload",
+    p.add_argument("--panel", choices=("caseload", "queue", "model", "outlook"), default="caseload",
                    help="panel to show in the screenshot (default caseload)")
+    p.add_argument("--dialog", choices=("glossary",),
+                   help="with --screenshot: render this dialog over the window instead (Help > Glossary)")
     p.add_argument("--size", metavar="WxH", default="1400x900", help="window size for --screenshot (default 1400x900)")
     p.set_defaults(run=run)
 
@@ -47,7 +49,8 @@ def run(args) -> int:
     from caseview.gui.launch import run_window
 
     return run_window(args.workspace, case_id=args.case, as_of=as_of, screenshot=args.screenshot,
-                      size=(width, height), panel=("caseload", "queue", "model").index(args.panel))
+                      size=(width, height), panel=("caseload", "queue", "model", "outlook").index(args.panel),
+                      dialog=args.dialog)
 
 
 def _demo_workspace(args):

@@ -1,4 +1,4 @@
-"""Workspace commands: ``init``, ``import``, ``export``, ``backup``, ``audit verify|show``.
+"""Workspace commands: ``init``, ``import``, ``export``, ``backup``, ``audit verify|show``, ``check``.
 
 The actor recorded in the audit trail is the operating-system user (``getpass.getuser()``) unless
 ``--by NAME`` is given. This is attribution, not authentication: caseview does not check who
@@ -59,8 +59,11 @@ def register(subparsers) -> None:
 
     p = subparsers.add_parser("audit", help="check or show the tamper-evident audit trail")
     audit_sub = p.add_subparsers(dest="audit_command", metavar="verify|show", parser_class=type(p))
-    v = audit_sub.add_parser("verify", help="recompute the hash chain; non-zero exit names the first bad entry")
+    v = audit_sub.add_parser("verify", help="recompute the hash chain and check every record against it; "
+                                            "non-zero exit names the first bad entry or record")
     v.add_argument("workspace", metavar="WS")
+    v.add_argument("--head", metavar="HASH", help="a chain head kept elsewhere (printed by an earlier command or "
+                                                  "report): say whether the trail still contains it")
     v.set_defaults(run=run_audit_verify)
     s = audit_sub.add_parser("show", help="list audit entries")
     s.add_argument("workspace", metavar="WS")
@@ -68,6 +71,13 @@ def register(subparsers) -> None:
     s.add_argument("--since", metavar="YYYY-MM-DD", help="only entries on or after this date (UTC)")
     s.set_defaults(run=run_audit_show)
     p.set_defaults(run=lambda args: (p.print_help(), 2)[1])
+
+    p = subparsers.add_parser("check", help="check a workspace: SQLite integrity and the full audit verification",
+                              description="Run SQLite's integrity check and the audit verification (hash chain and "
+                                          "every record against the trail); print a short report. Exit 0 when all "
+                                          "is well, 4 on any problem. Reads only (works on a read-only file).")
+    p.add_argument("workspace", metavar="WS")
+    p.set_defaults(run=run_check)
 
 
 def run_init(args) -> int:
@@ -137,6 +147,9 @@ def run_export(args) -> int:
 
     with _open(args.workspace) as ws:
         result = export_timelines(ws, args.out, _actor(args))
+        if not result.recorded:
+            print(f"caseview: warning: {ws.path} is read-only, so this export is not recorded in its audit trail",
+                  file=sys.stderr)
         print(f"exported {result.rows} contacts of {result.cases} cases to {result.file} (sha256 {result.sha256})")
         print(f"audit chain head: {result.audit_head}")
     return 0
@@ -153,11 +166,63 @@ def run_backup(args) -> int:
 def run_audit_verify(args) -> int:
     with _open(args.workspace) as ws:
         result = ws.audit_verify()
-    if result.ok:
-        print(f"audit trail intact: {result.n_entries} entries; chain head {result.head_hash}")
+        position = ws.audit_position(args.head) if args.head else None
+    if not result.ok:
+        print(f"caseview: error: {_problem(result)}", file=sys.stderr)
+        return 4
+    print(f"audit trail intact: {result.n_entries} entries; chain head {result.head_hash}")
+    print(f"records checked against the trail: {result.n_records} (all match)")
+    if position is None:
         return 0
-    print(f"caseview: error: audit trail broken at entry {result.first_bad_id}: {result.problem}", file=sys.stderr)
-    return 4
+    found, newest = position
+    if found is None:
+        print(f"caseview: error: the given head {args.head.strip()} is not in this audit trail (the history was "
+              "rewritten, or the head comes from another workspace)", file=sys.stderr)
+        return 4
+    if found == newest:
+        print(f"the given head matches the chain head (entry {found})")
+    else:
+        print(f"the given head is entry {found}; the chain has moved on {newest - found} "
+              f"entr{'y' if newest - found == 1 else 'ies'} since (now at entry {newest})")
+    return 0
+
+
+def _problem(result) -> str:
+    if result.first_bad_id is not None:
+        return f"audit trail broken at entry {result.first_bad_id}: {result.problem}"
+    return f"records do not match the audit trail: {result.problem}"
+
+
+def run_check(args) -> int:
+    import sqlite3
+
+    problems = []
+    with _open(args.workspace, read_only=True) as ws:
+        try:
+            integrity = ws.integrity_report()
+        except sqlite3.DatabaseError as exc:
+            integrity = [str(exc)]
+        print(f"integrity check (SQLite): {'ok' if integrity == ['ok'] else 'FAILED'}")
+        if integrity != ["ok"]:
+            problems.append("SQLite integrity check: " + "; ".join(integrity[:5])
+                            + (f" (and {len(integrity) - 5} more)" if len(integrity) > 5 else ""))
+        try:
+            result = ws.audit_verify()
+        except sqlite3.DatabaseError as exc:
+            result = None
+            problems.append(f"audit verification could not read the workspace ({exc})")
+    if result is not None:
+        if result.first_bad_id is None or result.ok:
+            print(f"audit chain: intact, {result.n_entries} entries, head {result.head_hash}")
+        if result.ok:
+            print(f"records: {result.n_records} checked, all match the audit trail")
+        else:
+            problems.append(_problem(result))
+    for problem in problems:
+        print(f"PROBLEM: {problem}")
+    print("workspace OK" if not problems else f"workspace has {len(problems)} problem(s); restore a backup or ask "
+          "your administrator (caseview backup makes verified copies)")
+    return 0 if not problems else 4
 
 
 def run_audit_show(args) -> int:
@@ -179,6 +244,6 @@ def run_audit_show(args) -> int:
         details = json.dumps(e.details, sort_keys=True, ensure_ascii=False)
         if len(details) > 300:
             details = details[:297] + "..."
-        print(f"{e.id}\t{e.at_utc}\t{e.actor}\t{e.action}\t{e.target}\t{details}")
+        print(f"{e.id}\t{e.entry_hash}\t{e.at_utc}\t{e.actor}\t{e.action}\t{e.target}\t{details}")
     print(f"{len(entries)} entries shown; chain head {head}")
     return 0

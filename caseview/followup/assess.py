@@ -18,7 +18,10 @@ import numpy as np
 
 from .flags import INFLUENCE_CONTACTS, RuleEvaluation, evaluate_rules, explain, explain_cases
 from .rules import SCHEDULE_RULE, RuleSet, default_rules, workspace_rules
-from .schedule import SEARCH_LIMIT_DAYS, next_contact_due_day
+
+#: The rule whose threshold (days since the last contact) is the longest a case waits for a contact.
+ROUTINE_RULE = "long_gap_uncertain"
+from .schedule import SEARCH_LIMIT_DAYS, contact_due_day
 
 
 @dataclass(frozen=True)
@@ -37,13 +40,17 @@ class CaseloadAssessment:
     reason_text : ndarray of object, shape (n_cases,)
         One readable line per case ('' when not flagged or not worked out yet).
     next_contact_due_day : ndarray of int64, shape (n_cases,)
-        Day (since 1970-01-01) the follow-up probability would reach the ``in_follow_up_now``
-        threshold if nothing new is observed; the as-of day when already over; -1 if not within
-        :data:`~caseview.followup.schedule.SEARCH_LIMIT_DAYS`.
+        Day (since 1970-01-01) the next contact is due, for every case: the day the follow-up
+        probability reaches the ``in_follow_up_now`` threshold if nothing new is observed (for a
+        case already over it, the day after its last contact when it got there: before the as-of
+        date means overdue), and at the latest the ``long_gap_uncertain`` threshold (16 weeks by
+        default) after the last contact; see :func:`~caseview.followup.schedule.contact_due_day`.
     review_status : ndarray of object, shape (n_cases,)
         '' (not flagged, never reviewed) | new | acknowledged | actioned | dismissed.
     reviewed_by, reviewed_at : ndarray of object, shape (n_cases,)
         Actor and UTC time of the latest review ('' when none).
+    review_note : ndarray of object, shape (n_cases,) or None
+        Note of the latest review ('' when none).
     priority : ndarray, shape (n_cases,)
         Higher = contact sooner: ``is_flagged + (p_follow_up_now + p_reach_follow_up) / 2``, so
         every flagged case ranks above every unflagged one and, within each group, cases rank by
@@ -82,6 +89,7 @@ class CaseloadAssessment:
     evaluation: RuleEvaluation | None = None
     explained: np.ndarray | None = None
     influence_contacts: int = INFLUENCE_CONTACTS
+    review_note: np.ndarray | None = None
 
     @property
     def reasons_pending(self) -> np.ndarray:
@@ -137,11 +145,13 @@ def _review_arrays(case_ids, is_flagged, latest: dict):
     status = np.where(is_flagged, "new", "").astype(object)
     by = np.full(n, "", dtype=object)
     at = np.full(n, "", dtype=object)
-    for i, code in enumerate(case_ids):
-        review = latest.get(str(code))
-        if review is not None:
-            status[i], by[i], at[i] = review.status, review.actor, review.at_utc
-    return status, by, at
+    note = np.full(n, "", dtype=object)
+    if latest:
+        for i, code in enumerate(case_ids):
+            review = latest.get(str(code))
+            if review is not None:
+                status[i], by[i], at[i], note[i] = review.status, review.actor, review.at_utc, review.note or ""
+    return status, by, at, note
 
 
 def _flag_names(fired: np.ndarray, names: np.ndarray) -> np.ndarray:
@@ -184,13 +194,14 @@ def assess_scores(scores, rules: RuleSet | None = None, previous_p_follow_up=Non
     else:  # only which rules fired (caseview score), or reasons later (the window: explain_cases)
         reasons, reason_text = [[] for _ in range(n)], np.full(n, "", dtype=object)
         explained = ~is_flagged
-    due = next_contact_due_day(scores.model, scores.p_now, scores.last_covariates,
-                               rules[SCHEDULE_RULE].threshold, scores.as_of_day, schedule_limit_days)
-    status, by, at = _review_arrays(scores.case_ids, is_flagged, latest_reviews or {})
+    due = contact_due_day(scores.model, scores.p_now, scores.last_covariates, rules[SCHEDULE_RULE].threshold,
+                          scores.as_of_day, scores.p_at_last_contact, scores.last_contact_day,
+                          rules[ROUTINE_RULE].threshold, schedule_limit_days)
+    status, by, at, note = _review_arrays(scores.case_ids, is_flagged, latest_reviews or {})
     priority = is_flagged.astype(float) + 0.5 * (scores.p_follow_up_now + scores.p_reach_follow_up)
     return CaseloadAssessment(scores, rules, flags, is_flagged, reasons, reason_text, due, status, by, at,
                               priority, previous_as_of, previous, evaluation=evaluation, explained=explained,
-                              influence_contacts=influence_contacts)
+                              influence_contacts=influence_contacts, review_note=note)
 
 
 def assess_caseload(ws, as_of: dt.date, horizon_days: float = 90.0, rules: RuleSet | None = None,
@@ -246,9 +257,10 @@ def assess_caseload(ws, as_of: dt.date, horizon_days: float = 90.0, rules: RuleS
             flags_by_case = dict(zip(map(str, scores.case_ids), assessment.flags))
             reopened = reopen_dismissed(ws, candidates, as_of, flags_by_case)
             if reopened:
-                status, by, at = _review_arrays(scores.case_ids, assessment.is_flagged,
-                                                store.latest_reviews(ws.connection))
-                assessment = _replace(assessment, review_status=status, reviewed_by=by, reviewed_at=at)
+                status, by, at, note = _review_arrays(scores.case_ids, assessment.is_flagged,
+                                                      store.latest_reviews(ws.connection))
+                assessment = _replace(assessment, review_status=status, reviewed_by=by, reviewed_at=at,
+                                      review_note=note)
     run_id = None
     if save_snapshot:
         run_id = save_run(ws, assessment, actor or _os_user())
@@ -274,6 +286,7 @@ def save_run(ws, assessment: CaseloadAssessment, actor: str) -> int:
     """Store the assessment's scores as a snapshot, with its audit entry, in one transaction."""
     from caseview.storage import followup_store as store
     from caseview.storage.audit import utc_now
+    from caseview.storage.row_digests import RowChanges
 
     scores = assessment.scores
     with ws.transaction():
@@ -283,5 +296,6 @@ def save_run(ws, assessment: CaseloadAssessment, actor: str) -> int:
         ws.audit_append(actor, "scores.snapshot", f"score_run:{run_id}",
                         {"run_id": run_id, "as_of": scores.as_of.isoformat(), "horizon_days": scores.horizon_days,
                          "model_version": scores.model_version, "n_cases": scores.n_cases,
-                         "n_flagged": int(assessment.is_flagged.sum()), "flag_counts": assessment.flag_counts()})
+                         "n_flagged": int(assessment.is_flagged.sum()), "flag_counts": assessment.flag_counts()},
+                        changes=RowChanges(rows={"score_runs": [run_id]}))
     return run_id

@@ -19,6 +19,7 @@ from hmm import MISSING, Timelines
 from hmm.forecasting import reach_probability, stage_probabilities_now
 from hmm.inference import forward
 
+from . import wording
 from .rules import RuleSet
 
 #: How many of the most recent contacts are tested by leaving them out.
@@ -53,6 +54,10 @@ class ContactInfluence:
         recorded = f" ({self.evidence})" if self.evidence else " (nothing recorded)"
         return f"{self.date.isoformat()}{recorded} {self.change:+.2f}"
 
+    def sentence(self, what: str = "this") -> str:
+        """Plain words: ``"The contact on 2026-11-07 (mobility unable) raised this by 3 points."``"""
+        return wording.contact_sentence(self.date, self.evidence, self.change).replace(" this ", f" {what} ", 1)
+
 
 @dataclass(frozen=True)
 class FlagReason:
@@ -62,7 +67,8 @@ class FlagReason:
     ----------
     rule : str
     message : str
-        The numbers against the threshold, for example ``"P(follow-up stage now) 0.62 >= 0.50"``.
+        One plain sentence with the numbers against the threshold, for example ``"Likely in a
+        follow-up stage now (62%; the threshold is 50%)."`` (see :mod:`caseview.followup.wording`).
     value, threshold : float
     contacts : list[ContactInfluence]
         The most recent contacts, most influential (largest rise) first.
@@ -274,8 +280,6 @@ def explain_cases(scores, rules: RuleSet, evaluation: RuleEvaluation, cases, pre
     previous = None if previous_p_follow_up is None else np.asarray(previous_p_follow_up, float)
     stage_names = scores.most_likely_stage_names
     certainty = scores.most_likely_probability
-    since = f" (run as of {previous_as_of.isoformat()})" if previous_as_of else ""
-    horizon = f"{scores.horizon_days:g}"
     all_reasons, all_text = [], []
     for i, case in enumerate(flagged):
         line, reasons = [], []
@@ -285,30 +289,27 @@ def explain_cases(scores, rules: RuleSet, evaluation: RuleEvaluation, cases, pre
             value, threshold = float(evaluation.values[case, j]), rule.threshold
             changes = change_now[i]
             if rule.name == "in_follow_up_now":
-                message = f"P(follow-up stage now) {value:.2f} >= {threshold:.2f}"
+                message = wording.in_follow_up_sentence(value, threshold)
             elif rule.name == "likely_to_reach_follow_up":
-                message = f"P(reach a follow-up stage within {horizon} days) {value:.2f} >= {threshold:.2f}"
+                message = wording.reach_sentence(value, threshold, scores.horizon_days)
                 changes = change_reach[i]
             elif rule.name == "long_gap_uncertain":
-                limit = rule.parameters["certainty_below"]
-                message = (f"{value:.0f} days since last contact >= {threshold:.0f} and the most likely stage "
-                           f"({stage_names[case]}) has only {certainty[case]:.2f} < {limit:.2f}")
+                message = wording.long_gap_sentence(value, threshold, str(stage_names[case]), float(certainty[case]),
+                                                    rule.parameters["certainty_below"])
             else:  # sharp_rise
-                before = float(previous[case])
-                message = (f"P(follow-up stage now) rose from {before:.2f}{since} to "
-                           f"{scores.p_follow_up_now[case]:.2f}: {value:+.2f} >= +{threshold:.2f}")
+                message = wording.sharp_rise_sentence(float(previous[case]), float(scores.p_follow_up_now[case]),
+                                                      threshold, previous_as_of)
             present = np.flatnonzero(days[i] >= 0)
             order = present[np.argsort(-changes[present], kind="stable")]
             contacts = [ContactInfluence(_EPOCH + dt.timedelta(days=int(days[i, k])), float(changes[k]),
                                          int(days[i, k]), evidence[i][k]) for k in order]
             reasons.append(FlagReason(rule.name, message, value, threshold, contacts))
-            line.append(f"{rule.name}: {message}")
-        influence = sorted((ContactInfluence(_EPOCH + dt.timedelta(days=int(days[i, k])), float(change_now[i, k]),
-                                             int(days[i, k]), evidence[i][k]) for k in np.flatnonzero(days[i] >= 0)),
-                           key=lambda c: -c.change)
-        if influence:
-            line.append("effect of recent contacts on P(follow-up now) (with minus without): "
-                        + "; ".join(c.describe() for c in influence))
+            line.append(message)
+        first = reasons[0] if reasons else None
+        top = wording.key_contact(first.contacts) if first is not None else None
+        if top is not None:
+            probability_rule = first.rule in ("in_follow_up_now", "likely_to_reach_follow_up")
+            line.append(top.sentence("this" if probability_rule else "the chance of a follow-up stage now"))
         all_reasons.append(reasons)
-        all_text.append(" | ".join(line))
+        all_text.append(" ".join(line))
     return flagged, all_reasons, all_text

@@ -142,10 +142,24 @@ def record_review(ws, case_id: str, status: str, note: str, actor: str, assessme
         check_change(case_id, current, status, note)
         details = {"from": current, "to": status, "note": note, "flags": flags,
                    "p_follow_up_now": _finite_or_none(p_follow_up), "as_of": as_of_text}
-        entry = ws.audit_append(actor, f"review.{status}", case_id, details)
-        store.insert_review(ws.connection, case_id, status, note, actor, entry.at_utc, flags,
-                            _finite_or_none(p_follow_up), as_of_text, entry.id)
+        _audited_review(ws, actor, f"review.{status}", case_id, details, status, note, flags,
+                        _finite_or_none(p_follow_up), as_of_text)
     return store.latest_reviews(ws.connection, case_id)[case_id]
+
+
+def _audited_review(ws, actor, action, case_id, details, status, note, flags, p_follow_up, as_of_text):
+    """Store one review row and then its audit entry (which records the row's digest); inside a transaction."""
+    from caseview.storage import followup_store as store
+    from caseview.storage.audit import utc_now
+    from caseview.storage.row_digests import RowChanges
+
+    entry_id, at = ws.next_audit_entry_id(), utc_now()  # the row names its entry; we hold the write lock
+    review_id = store.insert_review(ws.connection, case_id, status, note, actor, at, flags, p_follow_up, as_of_text,
+                                    entry_id)
+    entry = ws.audit_append(actor, action, case_id, details, changes=RowChanges(rows={"reviews": [review_id]}),
+                            at_utc=at)
+    assert entry.id == entry_id
+    return entry
 
 
 def reopen_candidates(latest: dict, case_ids, p_follow_up_now, as_of: dt.date, rise: float = REOPEN_RISE) -> list:
@@ -193,8 +207,37 @@ def reopen_dismissed(ws, candidates: list, as_of: dt.date, flags_by_case: dict) 
                     f"as of {as_of.isoformat()} (rise >= {REOPEN_RISE:.2f})")
             details = {"from": "dismissed", "to": "new", "note": note, "flags": flags_by_case.get(code, ""),
                        "p_follow_up_now": now, "p_follow_up_at_dismissal": before, "as_of": as_of.isoformat()}
-            entry = ws.audit_append(REOPEN_ACTOR, "review.reopened", code, details)
-            store.insert_review(ws.connection, code, "new", note, REOPEN_ACTOR, entry.at_utc,
-                                flags_by_case.get(code, ""), now, as_of.isoformat(), entry.id)
+            _audited_review(ws, REOPEN_ACTOR, "review.reopened", code, details, "new", note,
+                            flags_by_case.get(code, ""), now, as_of.isoformat())
             done.append(code)
     return done
+
+
+def pending_reopens(ws, assessment) -> list:
+    """Dismissed flags the assessment would re-open (read only; nothing is written).
+
+    Returns
+    -------
+    list of (case_id, value_at_dismissal, value_now), as :func:`reopen_candidates`.
+    """
+    from caseview.storage import followup_store as store
+
+    scores = assessment.scores
+    return reopen_candidates(store.latest_reviews(ws.connection), scores.case_ids, scores.p_follow_up_now,
+                             scores.as_of)
+
+
+def reopen_risen(ws, assessment) -> list:
+    """The explicit, audited step that re-opens dismissed flags whose risk rose (window and CLI).
+
+    Loading a caseload never writes; this is what a person asks for (the window's risk queue
+    offers it when :func:`pending_reopens` finds any).
+
+    Returns
+    -------
+    list[str]
+        Case IDs set back to ``new`` (one ``review.reopened`` audit entry each).
+    """
+    candidates = pending_reopens(ws, assessment)
+    flags_by_case = dict(zip(map(str, assessment.scores.case_ids), assessment.flags))
+    return reopen_dismissed(ws, candidates, assessment.scores.as_of, flags_by_case)

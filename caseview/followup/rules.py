@@ -26,7 +26,8 @@ capacity, they are starting points, not validated cut-offs):
     probability < 0.60.
     112 days = 16 weeks, the longest usual interval between contacts in the service (SCENARIO.md,
     "every 2 to 16 weeks"); with the most likely stage under 0.60 the model cannot say with any
-    confidence where the person is, so the only way to know is to get in touch.
+    confidence where the person is, so the only way to know is to get in touch. The same number of
+    days is the latest a next contact is ever scheduled after the last one (``assess.ROUTINE_RULE``).
 ``sharp_rise`` - P(follow-up stage now) minus its value in the most recent saved score run before
     this as-of date >= 0.20.
     Propagation alone cannot move the probability fast: the largest total rate from a

@@ -148,3 +148,52 @@ def next_contact_due_day(model, probabilities, covariates, threshold: float, as_
     """
     offsets = days_until_threshold(model, probabilities, covariates, threshold, limit_days)
     return np.where(offsets >= 0, int(as_of_day) + offsets, NEVER).astype(np.int64)
+
+
+def contact_due_day(model, p_now, covariates, threshold: float, as_of_day: int, p_at_last_contact=None,
+                    last_contact_day=None, routine_days: float | None = None,
+                    limit_days: int = SEARCH_LIMIT_DAYS) -> np.ndarray:
+    """A next-contact date for every case: when the follow-up chance reaches the threshold, or the
+    routine limit after the last contact, whichever comes first.
+
+    * A case under the threshold on the as-of date: the day it would reach it with nothing new
+      observed (as :func:`next_contact_due_day`).
+    * A case already over it: the first day after its last contact on which it got there (the
+      chance carried forward from the last contact with the covariates recorded there); the case
+      is overdue by the days since. Without ``p_at_last_contact`` the as-of date is used.
+    * ``routine_days`` after the last contact at the latest (a person is due a contact anyway when
+      not seen for that long), so no case goes without a date; without it a case that never reaches
+      the threshold within ``limit_days`` keeps -1.
+
+    Parameters
+    ----------
+    p_now : ndarray, shape (n_cases, n_stages)
+    covariates : ndarray, shape (n_cases, n_covariates)
+        Last recorded covariates.
+    p_at_last_contact : ndarray, shape (n_cases, n_stages), optional
+    last_contact_day : ndarray of int, shape (n_cases,), optional
+    routine_days : float, optional
+
+    Returns
+    -------
+    ndarray of int64, shape (n_cases,)
+        Calendar day (days since 1970-01-01); before ``as_of_day`` means overdue.
+    """
+    due = next_contact_due_day(model, p_now, covariates, threshold, as_of_day, limit_days)
+    if last_contact_day is None:
+        return due
+    last = np.asarray(last_contact_day, dtype=np.int64)
+    if p_at_last_contact is not None:
+        over = np.flatnonzero(due == int(as_of_day))
+        gaps = int(as_of_day) - last[over]
+        if over.size and gaps.max(initial=0) > 0:
+            covariates = np.asarray(covariates, dtype=float).reshape(np.asarray(p_now).shape[0], -1)
+            offsets = days_until_threshold(model, np.asarray(p_at_last_contact)[over], covariates[over], threshold,
+                                           int(gaps.max()))
+            # over on the as-of date, so the first crossing is within the gap (-1 only from rounding)
+            found = np.where((offsets >= 0) & (offsets <= gaps), offsets, gaps)
+            due[over] = last[over] + found
+    if routine_days is not None:
+        routine = last + int(round(routine_days))
+        due = np.where(due >= 0, np.minimum(due, routine), routine)
+    return due.astype(np.int64)

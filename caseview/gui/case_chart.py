@@ -52,10 +52,12 @@ class CaseChartData:
     whatif_changes: dict
     as_of_day: int
     horizon_days: float
+    whatif_forecast: object | None = None   # caseview.followup.whatif.WhatIf (same as `caseview forecast`)
 
     @property
-    def reach_follow_up(self) -> float:
-        """P(follow-up at the horizon) read from the forecast curve (occupancy, not first passage)."""
+    def follow_up_at_horizon(self) -> float:
+        """P(in a follow-up stage on the horizon day) read from the forecast curve (occupancy; not
+        "reach", which means at least once within the horizon)."""
         return float(self.ahead[-1, self.follow_up].sum()) if self.follow_up.any() else 0.0
 
     @property
@@ -93,13 +95,16 @@ def case_chart_data(scores, row: int, changes: dict | None = None, n_points: int
     now = occupancy_over_time(model, filtered_last, covariates_last, now_offsets)[0]
     p_now = now[-1][None, :]
     ahead = occupancy_over_time(model, p_now, covariates_last, ahead_offsets)[0]
-    whatif = None
+    whatif, forecast_pair = None, None
     changes = dict(changes or {})
     if changes:
-        changed = covariates_last.copy()
-        for name, value in changes.items():
-            changed[0, model.covariates.index(name)] = float(value)
-        whatif = occupancy_over_time(model, p_now, changed, ahead_offsets)[0]
+        from caseview.followup.whatif import changed_covariates, check_changes, whatif_forecast
+
+        changes = check_changes(changes, model)
+        whatif = occupancy_over_time(model, p_now, changed_covariates(covariates_last, model, changes),
+                                     ahead_offsets)[0]
+        # the summary numbers from the one what-if function the command line uses too
+        forecast_pair = whatif_forecast(scores, str(scores.case_ids[row]), changes=changes)
     caseload = scores.caseload
     case_row = int(scores.case_rows[row])
     full = caseload.timelines
@@ -112,4 +117,4 @@ def case_chart_data(scores, row: int, changes: dict | None = None, n_points: int
         covariates=one.covariates, now_days=last_day + now_offsets, now=now,
         ahead_days=as_of_day + ahead_offsets, ahead=ahead,
         spread=np.concatenate([_entropy(now), _entropy(ahead)]), whatif=whatif, whatif_changes=changes,
-        as_of_day=as_of_day, horizon_days=horizon)
+        as_of_day=as_of_day, horizon_days=horizon, whatif_forecast=forecast_pair)

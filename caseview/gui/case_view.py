@@ -3,6 +3,7 @@
 from __future__ import annotations
 
 import functools
+import html
 
 import numpy as np
 from PySide6.QtCore import Qt, Signal
@@ -10,6 +11,7 @@ from PySide6.QtWidgets import (QCheckBox, QDoubleSpinBox, QFormLayout, QGroupBox
                                QPushButton, QSplitter, QTableWidget, QTableWidgetItem, QToolTip,
                                QVBoxLayout, QWidget)
 
+from caseview.followup.wording import chance_words, days_ago, due_words, percent
 from caseview.scoring import from_day
 
 from . import theme
@@ -25,20 +27,34 @@ def _uncertainty_shade():
     return LinearSegmentedColormap.from_list("uncertainty_shade", [(grey, grey, grey, 0.04), (grey, grey, grey, 0.26)])
 
 
+PLACEHOLDER = "Select a case in the table to see its timeline."
+
+
 class CaseView(QWidget):
-    """Chart (matplotlib, created on first use) + contact list + what-if covariates."""
+    """Chart (matplotlib, created on first use) + contact list + what-if covariates.
+
+    Anything that changes a case's data calls :meth:`refresh_case` (by case ID) after the new
+    scores are in (:meth:`set_scores`); :meth:`clear_case` empties the pane.
+    """
 
     whatif_changed = Signal()
 
     def __init__(self, parent=None):
         super().__init__(parent)
         self.scores = None
+        self.assessment = None
         self.row = -1
         self.data = None
-        self.title = QLabel("Select a case in the table to see its timeline.")
+        self.title = QLabel(PLACEHOLDER)
         self.title.setObjectName("caseTitle")
         self.title.setWordWrap(True)
         self.title.setTextFormat(Qt.RichText)
+        self.why = QLabel("")
+        self.why.setObjectName("caseReasons")
+        self.why.setAccessibleName("Why this case is flagged, in plain words")
+        self.why.setWordWrap(True)
+        self.why.setTextFormat(Qt.RichText)
+        self.why.setTextInteractionFlags(Qt.TextSelectableByMouse)
         self.chart_holder = QVBoxLayout()
         self.canvas = None
         self.figure = None
@@ -61,11 +77,12 @@ class CaseView(QWidget):
         chart_layout = QVBoxLayout(chart_widget)
         chart_layout.setContentsMargins(0, 0, 0, 0)
         chart_layout.addWidget(self.title)
+        chart_layout.addWidget(self.why)
         chart_layout.addLayout(self.chart_holder, 1)
         side = QWidget()
         side_layout = QVBoxLayout(side)
         side_layout.setContentsMargins(0, 0, 0, 0)
-        side_layout.addWidget(QLabel("Contacts (recorded values)"))
+        side_layout.addWidget(QLabel("Contacts (recorded values; the likely stage is an estimate)"))
         side_layout.addWidget(self.contacts, 1)
         side_layout.addWidget(self.whatif_box)
         side_layout.addWidget(self.whatif_summary)
@@ -80,9 +97,14 @@ class CaseView(QWidget):
         layout.addWidget(splitter)
 
     # ------------------------------------------------------------------ inputs
-    def set_scores(self, scores) -> None:
-        """A new scoring run; rebuild the what-if inputs if the covariates changed."""
+    def set_scores(self, scores, assessment=None) -> None:
+        """A new scoring run; rebuild the what-if inputs if the covariates changed.
+
+        The pane keeps its case but does not redraw: call :meth:`refresh_case` (the window does,
+        after the table has the same run) so the pane never shows an old estimate.
+        """
         self.scores = scores
+        self.assessment = assessment
         names = tuple(scores.model.covariates) if scores is not None else ()
         if names != tuple(self.whatif_inputs):
             while self.whatif_form.rowCount():
@@ -109,7 +131,42 @@ class CaseView(QWidget):
                 out[name] = spin.value()
         return out
 
+    @property
+    def case_id(self) -> str | None:
+        """ID of the case shown, or None."""
+        return None if self.data is None else self.data.case_id
+
+    def refresh_case(self, case_id: str | None = None) -> bool:
+        """Show ``case_id`` (default: the case shown now) from the current scores, redrawn.
+
+        The one entry point for "this case's data changed": after an import, a recorded or
+        corrected contact, a new as-of date or horizon. Clears the pane and returns False when the
+        case is not in the current scores.
+        """
+        case_id = self.case_id if case_id is None else case_id
+        row = -1 if self.scores is None or case_id is None else self.scores.row_of(str(case_id))
+        if row < 0:
+            self.clear_case()
+            return False
+        self.show_case(row)
+        return True
+
+    def clear_case(self) -> None:
+        """Empty the pane (no case selected, or the selected case was filtered out)."""
+        self.row = -1
+        self.data = None
+        self.title.setText(PLACEHOLDER)
+        self.why.setText("")
+        self.whatif_summary.setText("")
+        self.contacts.setRowCount(0)
+        if self.figure is not None:
+            self.figure.clear()
+            self.canvas.draw_idle()
+
     def show_case(self, row: int) -> None:
+        if self.scores is None or not 0 <= row < self.scores.n_cases:
+            self.clear_case()
+            return
         self.row = row
         self.data = None
         if self.scores is not None and 0 <= row < self.scores.n_cases:
@@ -134,20 +191,40 @@ class CaseView(QWidget):
     def _fill_title(self) -> None:
         s, r, d = self.scores, self.row, self.data
         stage = s.model.stages[int(s.most_likely_stage[r])]
+        reach = float(s.p_reach_follow_up[r])
         self.title.setText(
             f"<b>{d.case_id}</b> · coordinator {s.coordinators[r] or '-'} · last contact "
-            f"{from_day(s.last_contact_day[r]).isoformat()} ({int(s.days_since_contact[r])} days ago) · "
-            f"most likely now: <b>{stage}</b> ({s.p_now[r].max() * 100:.0f}%) · reaches a follow-up stage "
-            f"within {s.horizon_days:g} days: <b>{s.p_reach_follow_up[r] * 100:.0f}%</b>")
-        if d.whatif is not None:
+            f"{from_day(s.last_contact_day[r]).isoformat()} ({days_ago(s.days_since_contact[r])}) · "
+            f"most likely now: <b>{stage}</b> ({percent(s.p_now[r].max())}) · a follow-up stage within "
+            f"{s.horizon_days:g} days is {chance_words(reach)} (<b>{percent(reach)}</b>)")
+        self.why.setText(self._why_text(r))
+        if d.whatif is not None and d.whatif_forecast is not None:
+            w = d.whatif_forecast
             changes = ", ".join(f"{k.replace('_', ' ')} = {v:g}" for k, v in d.whatif_changes.items())
             self.whatif_summary.setText(
                 f"What-if ({changes}): chance of being in a follow-up stage on day {s.horizon_days:g} "
-                f"{d.reach_follow_up * 100:.0f}% → {d.whatif_follow_up * 100:.0f}%.")
+                f"{percent(w.unchanged.p_follow_up_at_horizon)} → {percent(w.changed.p_follow_up_at_horizon)}; "
+                f"of being in one at some time before then {percent(w.unchanged.p_reach_follow_up)} → "
+                f"{percent(w.changed.p_reach_follow_up)}. Advisory estimate, not a plan of care.")
         elif self.whatif_box.isChecked():
             self.whatif_summary.setText("Change a value to see the what-if forecast.")
         else:
             self.whatif_summary.setText("")
+
+    def _why_text(self, r: int) -> str:
+        """Next contact due and, for a flagged case, why (plain sentences from the assessment)."""
+        a = self.assessment
+        if a is None:
+            return ""
+        due = f"Next contact due: <b>{due_words(a.next_contact_due_day[r], self.scores.as_of_day)}</b>."
+        if not a.is_flagged[r]:
+            return due + " Not flagged by the follow-up rules."
+        if not a.has_reasons(r):
+            a.explain_cases([r])  # one case, a few milliseconds (the background job may not be here yet)
+        note = str(a.review_note[r]) if a.review_note is not None else ""
+        review = str(a.review_status[r] or "new")
+        review_text = f" Review: {review}" + (f" — “{note}”" if note else "") + "."
+        return f"{due} Flagged: {html.escape(str(a.reason_text[r]))}{html.escape(review_text)}"
 
     def _fill_contacts(self) -> None:
         d = self.data
@@ -226,6 +303,8 @@ class CaseView(QWidget):
         strip.set_yticklabels([s if len(s) < 14 else s[:12] + "…" for s in d.stages], fontsize=7)
         strip.set_ylim(len(d.stages) - 0.5, -0.5)
         strip.set_ylabel("most likely\npath", color=fg, fontsize=8)
+        strip.set_title("most likely stage at each contact: an estimate, not a record", fontsize=7, color=fg,
+                        loc="left")
         ticks = np.linspace(min(x_contacts[0], d.as_of_day), d.ahead_days[-1], 6)
         strip.set_xticks(ticks)
         strip.set_xticklabels([from_day(int(t)).strftime("%Y-%m-%d") for t in ticks], fontsize=8)
@@ -243,7 +322,8 @@ class CaseView(QWidget):
             QToolTip.hideText()
             return
         values = ", ".join(f"{k}: {v or '–'}" for k, v in d.raw[i].items())
-        text = f"{from_day(d.contact_days[i]).isoformat()}\n{values}\nmost likely: {d.stages[int(d.path[i])]}"
+        text = (f"{from_day(d.contact_days[i]).isoformat()}\n{values}\nmost likely stage (an estimate, not a "
+                f"record): {d.stages[int(d.path[i])]}")
         from PySide6.QtGui import QCursor
 
         QToolTip.showText(QCursor.pos(), text, self.canvas)

@@ -11,6 +11,7 @@ from __future__ import annotations
 import numpy as np
 from PySide6.QtCore import QAbstractTableModel, QModelIndex, Qt
 
+from caseview.followup.wording import due_words
 from caseview.scoring import from_day
 
 COLUMNS = ("Case", "Coordinator", "Last contact", "Days since", "Likely stage now",
@@ -85,6 +86,8 @@ class CaseloadTableModel(QAbstractTableModel):
             self.reason_text = np.asarray(a.reason_text, dtype=object)
             self.next_due = np.asarray(a.next_contact_due_day, dtype=np.int64)
             self.review = np.array(a.review_status, dtype=object)
+            self.review_note = (np.asarray(a.review_note, dtype=object) if a.review_note is not None
+                                else np.full(n, "", dtype=object))
             self.priority = np.asarray(a.priority, dtype=float)
         else:
             self.flag_names = np.full(n, "", dtype=object)
@@ -92,6 +95,7 @@ class CaseloadTableModel(QAbstractTableModel):
             self.reason_text = np.full(n, "", dtype=object)
             self.next_due = np.full(n, -1, dtype=np.int64)
             self.review = np.full(n, "", dtype=object)
+            self.review_note = np.full(n, "", dtype=object)
             self.priority = np.asarray(scores.p_reach_follow_up, dtype=float)
         due_key = np.where(self.next_due < 0, np.iinfo(np.int64).max, self.next_due)
         self._keys = {
@@ -157,6 +161,10 @@ class CaseloadTableModel(QAbstractTableModel):
                 return self.reasons_of(row) or None
             if column in PROBABILITY_COLUMNS:
                 return "Advisory estimate from the stage model, not a diagnosis."
+            if column == REVIEW and self.review_note[row]:
+                return f"Review note: {self.review_note[row]}"
+            if column == NEXT_DUE and self.next_due[row] >= 0:
+                return from_day(int(self.next_due[row])).isoformat()
         return None
 
     def reasons_of(self, row: int) -> str:
@@ -199,8 +207,8 @@ class CaseloadTableModel(QAbstractTableModel):
         if column == NEXT_DUE:
             day = int(self.next_due[row])
             if day < 0:
-                return "-" if self.assessment is None else "not within limit"
-            return "now" if day <= s.as_of_day else from_day(day).isoformat()
+                return "-"
+            return due_words(day, s.as_of_day)
         if column == FLAGS:
             return str(self.flag_names[row]).replace("_", " ").replace(";", ", ")
         if column == REVIEW:
@@ -295,9 +303,10 @@ class CaseloadTableModel(QAbstractTableModel):
     def coordinator_names(self) -> list:
         return sorted({str(c) for c in self.coordinators if c}) if self.scores is not None else []
 
-    def set_review_status(self, case_row: int, status: str) -> None:
-        """Show a new review status for one case (after :func:`record_review`)."""
+    def set_review_status(self, case_row: int, status: str, note: str = "") -> None:
+        """Show a new review status (and its note) for one case (after :func:`record_review`)."""
         self.review[case_row] = status
+        self.review_note[case_row] = note
         self._keys[REVIEW] = _ranks(self.review)
         position = np.flatnonzero(self.order == case_row)
         if position.size:
@@ -313,7 +322,9 @@ _HEADER_TIPS = {
     STAGE: "Most likely stage on the as-of date and its probability (advisory)",
     P_NOW: "Chance of being in a follow-up stage on the as-of date (advisory)",
     P_REACH: "Chance of being in a follow-up stage at least once within the horizon (advisory)",
-    NEXT_DUE: "When the follow-up chance would cross the rule threshold if nothing new is observed",
+    NEXT_DUE: ("When the next contact is due: the day the chance of a follow-up stage reaches the rule's threshold "
+               "if nothing new is observed, at the latest 16 weeks after the last contact; 'overdue by N days' "
+               "when that day has passed. Sorting puts the most overdue first."),
     FLAGS: "Follow-up rules that fired; hover for the reasons",
-    REVIEW: "Supervisor review status of the flag",
+    REVIEW: "Supervisor review status of the flag (hover for the note)",
 }

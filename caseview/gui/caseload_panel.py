@@ -7,6 +7,8 @@ from PySide6.QtGui import QColor, QKeySequence, QShortcut
 from PySide6.QtWidgets import (QAbstractItemView, QCheckBox, QComboBox, QHBoxLayout, QHeaderView, QLabel,
                                QLineEdit, QStyledItemDelegate, QTableView, QVBoxLayout, QWidget)
 
+from caseview.followup.wording import plural
+
 from . import theme
 from .caseload_model import P_NOW, P_REACH, PROBABILITY_ROLE, REVIEW_STATUSES, STAGE, CaseloadTableModel
 
@@ -34,9 +36,11 @@ class ProbabilityDelegate(QStyledItemDelegate):
 
 
 class CaseloadPanel(QWidget):
-    """Filter bar + table. Emits ``case_selected(case_row)`` (row into the scores arrays)."""
+    """Filter bar + table. Emits ``case_selected(case_row)`` (row into the scores arrays) and
+    ``selection_cleared()`` when no case is selected any more (for example filtered out)."""
 
     case_selected = Signal(int)
+    selection_cleared = Signal()
 
     def __init__(self, parent=None):
         super().__init__(parent)
@@ -83,9 +87,11 @@ class CaseloadPanel(QWidget):
         header.setSectionsClickable(True)
         header.setSortIndicatorShown(True)
         header.setSortIndicator(-1, Qt.DescendingOrder)
-        header.sectionClicked.connect(self._header_clicked)
+        # the header flips its own indicator on a click (same column: reverse; new column: ascending);
+        # sort on the indicator's change, never flip a second time ourselves
+        header.sortIndicatorChanged.connect(self._sort_indicator_changed)
         header.setStretchLastSection(True)
-        for column, width in enumerate((100, 95, 100, 85, 170, 110, 165, 130, 200, 110)):
+        for column, width in enumerate((95, 95, 100, 80, 170, 110, 165, 185, 190, 110)):
             self.table.setColumnWidth(column, width)
         delegate = ProbabilityDelegate(self.table)
         for column in (STAGE, P_NOW, P_REACH):
@@ -98,6 +104,7 @@ class CaseloadPanel(QWidget):
         layout.addWidget(self.table, 1)
 
         self.search.textChanged.connect(lambda text: self._filter(search=text))
+        self.search.returnPressed.connect(lambda: self.table.setFocus(Qt.OtherFocusReason))
         self.coordinator.currentIndexChanged.connect(lambda _: self._filter(coordinator=self.coordinator.currentData()))
         self.stage.currentIndexChanged.connect(lambda _: self._filter(stage=int(self.stage.currentData())))
         self.flagged.toggled.connect(lambda on: self._filter(flagged_only=bool(on)))
@@ -106,20 +113,40 @@ class CaseloadPanel(QWidget):
         QShortcut(QKeySequence.Find, self, activated=self.focus_search)
         QShortcut(QKeySequence("Ctrl+Shift+P"), self, activated=self.sort_by_priority)
         self._last_case_row = -1
+        self._quiet = False  # True while the table is rebuilt: one signal at the end, not one per step
 
     # --------------------------------------------------------------------- loading
     def set_caseload(self, loaded) -> None:
+        """Show a new scoring run; the selected case stays selected and is announced again
+        (``case_selected``) so the case pane shows its new estimate, never the old one."""
         keep = self.current_case_id()
-        self.model.set_caseload(loaded)
-        self._fill_combo(self.coordinator, "All coordinators", "", [(c, c) for c in self.model.coordinator_names()])
-        self._fill_combo(self.stage, "Any likely stage", -1, [(s, i) for i, s in enumerate(loaded.scores.model.stages)])
-        self.flagged.setEnabled(loaded.assessment is not None)
-        self.review.setEnabled(loaded.assessment is not None)
-        self._update_count()
-        if keep and self.select_case(keep):
-            return
-        if self.model.rowCount() and not self.table.currentIndex().isValid():
-            self.table.selectRow(0)
+        self._quiet = True
+        try:
+            self.model.set_caseload(loaded)
+            self._fill_combo(self.coordinator, "All coordinators", "",
+                             [(c, c) for c in self.model.coordinator_names()])
+            self._fill_combo(self.stage, "Any likely stage", -1,
+                             [(s, i) for i, s in enumerate(loaded.scores.model.stages)])
+            self.flagged.setEnabled(loaded.assessment is not None)
+            self.review.setEnabled(loaded.assessment is not None)
+            self._update_count()
+            if not (keep and self.select_case(keep)) and self.model.rowCount():
+                self.table.selectRow(0)
+        finally:
+            self._quiet = False
+        self._announce(force=True)
+
+    def _announce(self, force: bool = False) -> None:
+        """Tell the case pane what is selected now (``force``: even if it is the same row)."""
+        index = self.table.currentIndex()
+        if index.isValid() and self.table.selectionModel().isRowSelected(index.row(), index.parent()):
+            row = self.model.case_row(index.row())
+            if force or row != self._last_case_row:
+                self._last_case_row = row
+                self.case_selected.emit(row)
+        elif force or self._last_case_row != -1:
+            self._last_case_row = -1
+            self.selection_cleared.emit()
 
     def _fill_combo(self, combo, all_text, all_value, items):
         current = combo.currentData() if combo.count() else all_value
@@ -138,31 +165,69 @@ class CaseloadPanel(QWidget):
         self.search.selectAll()
 
     def sort_by_priority(self) -> None:
-        self.model.sort_by_priority()
-        self.table.horizontalHeader().setSortIndicator(-1, Qt.DescendingOrder)
+        header = self.table.horizontalHeader()
+        if header.sortIndicatorSection() == -1:
+            self.model.sort_by_priority()
+        else:
+            header.setSortIndicator(-1, Qt.DescendingOrder)  # sorts through _sort_indicator_changed
+
+    def _sort_indicator_changed(self, column: int, order) -> None:
+        if column < 0:
+            self.model.sort_by_priority()
+        else:
+            self.model.sort(column, order)
+        index = self.table.currentIndex()
+        if index.isValid():
+            self.table.scrollTo(index)
 
     def _header_clicked(self, column: int) -> None:
+        """What a click on a column header does (same column: reverse; another: ascending)."""
         header = self.table.horizontalHeader()
-        if self.model.sort_column == column:
+        if header.sortIndicatorSection() == column:
             order = Qt.AscendingOrder if header.sortIndicatorOrder() == Qt.DescendingOrder else Qt.DescendingOrder
         else:
             order = Qt.AscendingOrder
         header.setSortIndicator(column, order)
-        self.model.sort(column, order)
 
     def _filter(self, **change) -> None:
+        """Apply a filter. The selected case stays selected while it is shown; a search selects its
+        first match; a filter that hides the selected case clears the selection (and the pane)."""
         keep = self.current_case_id()
-        self.model.set_filters(**change)
-        self._update_count()
-        if keep:
-            self.select_case(keep)
+        self._quiet = True
+        try:
+            self.model.set_filters(**change)
+            self._update_count()
+            kept = bool(keep) and self.select_case(keep)
+            if not kept:
+                self.table.clearSelection()
+                self.table.setCurrentIndex(self.model.index(-1, -1))
+                if "search" in change and change["search"].strip() and self.model.rowCount():
+                    self.table.selectRow(0)
+                    self.table.scrollTo(self.model.index(0, 0))
+        finally:
+            self._quiet = False
+        self._announce()
+
+    def clear_filters(self) -> None:
+        """Show every case again (search, coordinator, stage, flagged-only and review filters off)."""
+        for w in (self.search, self.coordinator, self.stage, self.flagged, self.review):
+            w.blockSignals(True)
+        self.search.clear()
+        for combo in (self.coordinator, self.stage, self.review):
+            combo.setCurrentIndex(0)
+        self.flagged.setChecked(False)
+        for w in (self.search, self.coordinator, self.stage, self.flagged, self.review):
+            w.blockSignals(False)
+        self._filter(coordinator="", stage=-1, flagged_only=False, review=None, search="")
 
     def _update_count(self) -> None:
         shown, total = self.model.rowCount(), self.model._n
         flagged = int(self.model.is_flagged.sum()) if self.model.scores is not None else 0
-        self.count.setText(f"{shown:,} of {total:,} cases shown · {flagged:,} flagged")
+        self.count.setText(f"{shown:,} of {plural(total, 'case')} shown · {flagged:,} flagged")
 
     def _current_changed(self, current, _previous) -> None:
+        if self._quiet:
+            return
         if current.isValid():
             row = self.model.case_row(current.row())
             if row != self._last_case_row:
@@ -181,5 +246,7 @@ class CaseloadPanel(QWidget):
         if view_row < 0:
             return False
         self.table.selectRow(view_row)
+        if not self._quiet:
+            self._announce()
         self.table.scrollTo(self.model.index(view_row, 0), QAbstractItemView.PositionAtCenter)
         return True

@@ -29,11 +29,15 @@ class LoadedCaseload:
         None when follow-up rules are not available (then priority = P(reach follow-up)).
     notes : list[str]
         Plain messages for the status bar (for example "follow-up rules not available yet").
+    reopen_candidates : list of (case_id, value_at_dismissal, value_now)
+        Dismissed flags whose risk rose enough to re-open them; loading does not re-open them (it
+        never writes), the risk queue offers the explicit step.
     """
 
     scores: object
     assessment: object | None = None
     notes: list = field(default_factory=list)
+    reopen_candidates: list = field(default_factory=list)
 
 
 @contextmanager
@@ -122,9 +126,12 @@ class WorkspaceSource:
             if followup is not None:
                 # flags now, reasons later: the window explains flagged cases in a second job
                 # (risk queue first) and on the spot for a case the user selects
+                # reopen=False: loading never writes (re-opening is the queue's explicit step)
                 assessment = followup.assess_caseload(ws, as_of, horizon_days, callback=callback,
-                                                      explain_reasons=False)
-                return LoadedCaseload(assessment.scores, assessment, notes)
+                                                      explain_reasons=False, reopen=False)
+                from caseview.followup.reviews import pending_reopens
+
+                return LoadedCaseload(assessment.scores, assessment, notes, pending_reopens(ws, assessment))
             from caseview.scoring import score_caseload
 
             scores = score_caseload(ws, as_of, horizon_days, callback=callback)

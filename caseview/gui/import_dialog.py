@@ -109,6 +109,10 @@ class ImportDialog(QDialog):
         self.checked_ok = False
         self.import_button.setEnabled(False)
         self.problems.clear()
+        ws = getattr(self.source, "workspace", lambda: None)()
+        if hasattr(ws, "is_own_file") and ws.is_own_file(path):  # reading it with open() would drop our SQLite locks
+            self.summary.setText(f"{path} is the workspace file itself, not a timeline file.")
+            return
         try:
             header, rows = read_preview(path)
         except (OSError, ValueError) as exc:

@@ -5,7 +5,8 @@ from __future__ import annotations
 import sys
 
 
-def run_window(workspace=None, case_id=None, as_of=None, screenshot=None, size=(1400, 900), panel: int = 0) -> int:
+def run_window(workspace=None, case_id=None, as_of=None, screenshot=None, size=(1400, 900), panel: int = 0,
+               dialog: str | None = None) -> int:
     """Show the window (or render it to ``screenshot`` offscreen and return)."""
     from .app import create_application
 
@@ -15,7 +16,7 @@ def run_window(workspace=None, case_id=None, as_of=None, screenshot=None, size=(
     window = MainWindow(as_of=as_of)
     window.resize(*size)
     if screenshot is not None:
-        return window.render_screenshot(screenshot, workspace, case_id, size, tab=panel)
+        return window.render_screenshot(screenshot, workspace, case_id, size, tab=panel, dialog=dialog)
     window.show()
     if workspace:
         window.open_workspace(workspace, case_id=case_id)

@@ -58,6 +58,7 @@ class MainWindow(QMainWindow):
         self.caseload = CaseloadPanel()
         self.case_view = CaseView()
         self.caseload.case_selected.connect(self.case_view.show_case)
+        self.caseload.selection_cleared.connect(self.case_view.clear_case)
         split = QSplitter(Qt.Vertical)
         split.setObjectName("caseloadSplit")
         split.addWidget(self.caseload)
@@ -70,12 +71,19 @@ class MainWindow(QMainWindow):
         from .risk_queue import RiskQueue
 
         self.risk_queue = RiskQueue(self)
+        self.risk_queue.review_saved.connect(self._review_saved)
+        self.risk_queue.open_case_requested.connect(self.show_case)
+        self.risk_queue.reopen_requested.connect(self.reopen_risen_flags)
         self.model_panel = ModelPanel(self)
         self.tabs = QTabWidget()
         self.tabs.setObjectName("mainTabs")
         self.tabs.addTab(split, "Caseload")
         self.tabs.addTab(self.risk_queue, theme.icon("flag"), "Risk queue")
         self.tabs.addTab(self.model_panel, theme.icon("fit"), "Model")
+        from .outlook_panel import OutlookPanel
+
+        self.outlook_panel = OutlookPanel(self)
+        self.tabs.addTab(self.outlook_panel, "Outlook")
         central = QWidget()
         layout = QVBoxLayout(central)
         layout.setContentsMargins(6, 4, 6, 2)
@@ -201,6 +209,32 @@ class MainWindow(QMainWindow):
         self.model_panel.set_source(source)
         self.rescore()
 
+    def show_case(self, case_id: str) -> bool:
+        """Bring the caseload tab forward with ``case_id`` selected (filters cleared if they hide it)."""
+        self.tabs.setCurrentIndex(0)
+        if self.caseload.select_case(case_id):
+            return True
+        self.caseload.clear_filters()
+        return self.caseload.select_case(case_id)
+
+    def reopen_risen_flags(self) -> list:
+        """Re-open the dismissed flags whose risk rose (audited), then rescore to show them."""
+        ws, loaded = self.workspace(), self.loaded
+        if ws is None or loaded is None or loaded.assessment is None:
+            return []
+        from caseview.followup.reviews import reopen_risen
+        from caseview.followup.wording import plural
+
+        done = reopen_risen(ws, loaded.assessment)
+        self.statusBar().showMessage(f"Re-opened {plural(len(done), 'dismissed flag')}: {', '.join(done)}.")
+        self.rescore()
+        return done
+
+    def _review_saved(self, case_row: int, status: str, note: str) -> None:
+        self.caseload.model.set_review_status(case_row, status, note)
+        if self.case_view.row == case_row:
+            self.case_view.refresh_case()
+
     # ------------------------------------------------------------------ scoring
     def rescore(self) -> None:
         if self.source is None:
@@ -224,16 +258,19 @@ class MainWindow(QMainWindow):
     def _scored(self, loaded) -> None:
         self._job_ended()
         self.loaded = loaded
-        self.case_view.set_scores(loaded.scores)
-        self.caseload.set_caseload(loaded)
+        self.case_view.set_scores(loaded.scores, loaded.assessment)
+        self.caseload.set_caseload(loaded)  # re-announces the selected case: the pane redraws from this run
         self.risk_queue.set_caseload(loaded)
+        self.outlook_panel.caseload_loaded(loaded)
         if self._pending_case:
             if not self.caseload.select_case(self._pending_case):
                 self.statusBar().showMessage(f"Case {self._pending_case} is not in this caseload as of "
                                              f"{self.as_of.isoformat()}.")
             self._pending_case = None
         notes = " ".join(loaded.notes)
-        self.statusBar().showMessage(f"Scored {loaded.scores.n_cases:,} cases as of {self.as_of.isoformat()}, "
+        from caseview.followup.wording import plural
+
+        self.statusBar().showMessage(f"Scored {plural(loaded.scores.n_cases, 'case')} as of {self.as_of.isoformat()}, "
                                      f"horizon {self.horizon_days:g} days. {notes}")
         self.caseload_loaded.emit(loaded)
         self._start_reasons(loaded)
@@ -253,7 +290,9 @@ class MainWindow(QMainWindow):
             return
         from .data_source import REASONS_PER_STEP, full_collections_postponed, reason_steps
 
-        first = self.risk_queue.rows if self.risk_queue.loaded is loaded else []
+        from .risk_queue import FIRST_REASONS
+
+        first = self.risk_queue.rows[:FIRST_REASONS] if self.risk_queue.loaded is loaded else []
         steps = reason_steps(a, first, self.REASONS_PER_STEP or REASONS_PER_STEP)
         if not steps:
             return
@@ -348,7 +387,9 @@ class MainWindow(QMainWindow):
             QApplication.processEvents()
         return not self.jobs.busy()
 
-    def render_screenshot(self, path, workspace=None, case_id=None, size=(1400, 900), tab: int = 0) -> int:
+    def render_screenshot(self, path, workspace=None, case_id=None, size=(1400, 900), tab: int = 0,
+                          dialog: str | None = None) -> int:
+        """Render the window (or, with ``dialog="glossary"``, the glossary dialog) to a PNG offscreen."""
         from caseview.errors import WorkspaceError
 
         self.setProperty("quiet", True)
@@ -361,11 +402,20 @@ class MainWindow(QMainWindow):
         from PySide6.QtWidgets import QApplication
 
         QApplication.processEvents()
+        self.wait_for_jobs()  # a panel may start work when shown (the Outlook tab)
         if self.case_view.canvas is not None:
             self.case_view.canvas.draw()
         pixmap = self.grab()
-        if not pixmap.save(str(path), "PNG"):
-            raise WorkspaceError(f"{path}: cannot write the screenshot")
+        if dialog == "glossary":
+            shown = window_chrome.show_glossary(self)
+            QApplication.processEvents()
+            pixmap = shown.grab()
+            shown.close()
+        from caseview.private_files import private_output
+
+        with private_output(path) as temporary:  # the picture shows case IDs: owner-only
+            if not pixmap.save(str(temporary), "PNG"):
+                raise WorkspaceError(f"{path}: cannot write the screenshot")
         self.close()
         return 0
 

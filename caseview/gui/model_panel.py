@@ -90,8 +90,12 @@ class ModelPanel(QWidget):
         self.editor = ModelEditor()
         self.editor.save_requested.connect(self._save_edited)
         self.editor.staff.clicked.connect(self._staff_estimates)
+        from .model_summary_view import ModelSummaryView
+
+        self.summary_view = ModelSummaryView()
         self.details = QTabWidget()
         self.details.setUsesScrollButtons(True)
+        self.details.addTab(self.summary_view, "In plain words")
         self.details.addTab(self.sojourn, "Time in stage")
         self.details.addTab(self.hazards, "Hazard ratios")
         self.details.addTab(self.emissions, "Observation probabilities")
@@ -175,6 +179,7 @@ class ModelPanel(QWidget):
             fitted += f" ({summary.interval_label()})"
         self.heading.setText(f"<b>{self.model.name}</b> — {label}, {fitted}. Rates and probabilities are "
                              "estimates; advisory only.")
+        self.summary_view.set_model(self.model, self.version)
         self._fill_sojourn(summary)
         self._fill_hazards(summary)
         self._fill_emissions()

@@ -1,43 +1,80 @@
-"""Risk queue: flagged cases in priority order with reasons, reviews, and the supervisor's view."""
+"""Risk queue: flagged cases with reasons and reviews, filters, and the supervisor's counts.
+
+Every flagged case is listed (no cap): the table is a model over an index array
+(:mod:`caseview.gui.risk_queue_model`). Order and counts come from :mod:`caseview.followup.queue`
+(unreviewed flags first, then acknowledged, then closed; most urgent first within each). The panel
+shows state and emits signals; the window updates the caseload table and opens cases.
+"""
 
 from __future__ import annotations
 
+import html
+
 import numpy as np
 from PySide6.QtCore import Qt, Signal
-from PySide6.QtWidgets import (QAbstractItemView, QGroupBox, QHBoxLayout, QInputDialog, QLabel, QLineEdit,
-                               QListWidget, QPushButton, QSplitter, QTableWidget, QTableWidgetItem,
-                               QVBoxLayout, QWidget)
+from PySide6.QtWidgets import (QAbstractItemView, QCheckBox, QComboBox, QGroupBox, QHBoxLayout, QHeaderView,
+                               QInputDialog, QLabel, QLineEdit, QListWidget, QPushButton, QSplitter, QTableView,
+                               QTableWidget, QTableWidgetItem, QVBoxLayout, QWidget)
 
-from caseview.scoring import from_day
+from caseview.followup.queue import QUEUE_STATUSES, counts_by_coordinator, overdue_mask, queue_rows
+from caseview.followup.wording import plural
 
-QUEUE_LIMIT = 500  # rows shown in the queue; the caseload table shows every flagged case
-COLUMNS = ("Case", "Coordinator", "Follow-up now", "Reach follow-up", "Next contact due", "Review", "Rules that fired")
+from .risk_queue_model import COLUMNS, RULES, RiskQueueModel
+
+ALL = "*"  # combo data meaning "no filter" (never None: see caseload_panel.ProbabilityDelegate)
+#: The queue's first rows get their reasons worked out first, as one step of the window's reasons job
+#: (a few screenfuls; the rest follow in priority order, and a selected case is explained at once).
+FIRST_REASONS = 500
 
 
 class RiskQueue(QWidget):
     """Needs ``caseview.followup`` and a workspace; shows a calm placeholder otherwise."""
 
-    review_recorded = Signal(str, str)  # case ID, new status
+    review_recorded = Signal(str, str)        # case ID, new status
+    review_saved = Signal(int, str, str)      # case row, new status, note (the window updates the table)
+    open_case_requested = Signal(str)         # case ID (double click)
+    reopen_requested = Signal()               # re-open the dismissed flags whose risk rose (explicit, audited)
 
     def __init__(self, window, parent=None):
         super().__init__(parent)
-        self.window = window
+        self.window = window  # for the workspace, the actor and error messages only
         self.loaded = None
-        self.rows = np.zeros(0, dtype=np.int64)
+        self.model = RiskQueueModel(self)
         self.placeholder = QLabel("Follow-up flags are not available yet: open a workspace to see flagged cases.")
         self.placeholder.setWordWrap(True)
-        self.table = QTableWidget(0, len(COLUMNS))
+        self.coordinator = QComboBox()
+        self.coordinator.setAccessibleName("Show the flags of one coordinator")
+        self.status = QComboBox()
+        self.status.setAccessibleName("Show flags with one review status")
+        self.status.addItem("Any review status", ALL)
+        for status in QUEUE_STATUSES:
+            self.status.addItem("new (not reviewed)" if status == "new" else status, status)
+        self.overdue_only = QCheckBox("Overdue only")
+        self.overdue_only.setAccessibleName("Show only overdue flags nobody has reviewed")
+        for combo in (self.coordinator, self.status):
+            combo.setSizeAdjustPolicy(QComboBox.AdjustToContents)
+            combo.currentIndexChanged.connect(lambda _: self.apply_filters())
+        self.overdue_only.toggled.connect(lambda _: self.apply_filters())
+        filters = QHBoxLayout()
+        for w in (self.coordinator, self.status, self.overdue_only):
+            filters.addWidget(w)
+        filters.addStretch(1)
+
+        self.table = QTableView()
         self.table.setObjectName("riskQueueTable")
-        self.table.setAccessibleName("Flagged cases in priority order")
-        self.table.setHorizontalHeaderLabels(COLUMNS)
+        self.table.setAccessibleName("Flagged cases, unreviewed first, most urgent first")
+        self.table.setModel(self.model)
         self.table.verticalHeader().hide()
+        self.table.verticalHeader().setSectionResizeMode(QHeaderView.Fixed)  # uniform rows: O(1) at any size
+        self.table.verticalHeader().setDefaultSectionSize(self.fontMetrics().height() + 10)
         self.table.setEditTriggers(QAbstractItemView.NoEditTriggers)
         self.table.setSelectionBehavior(QAbstractItemView.SelectRows)
         self.table.setSelectionMode(QAbstractItemView.SingleSelection)
         self.table.horizontalHeader().setStretchLastSection(True)
         self.table.setWordWrap(False)
-        self.table.verticalHeader().setDefaultSectionSize(self.fontMetrics().height() + 10)
-        self.table.itemSelectionChanged.connect(self._selection_changed)
+        for column, width in enumerate((88, 88, 105, 120, 140, 90, 130, 200)):
+            self.table.setColumnWidth(column, width)
+        self.table.selectionModel().selectionChanged.connect(lambda *_: self._selection_changed())
         self.table.doubleClicked.connect(self._open_case)
         self.reasons = QLabel("")
         self.reasons.setWordWrap(True)
@@ -57,37 +94,51 @@ class RiskQueue(QWidget):
         for b in (self.acknowledge, self.action, self.dismiss):
             buttons.addWidget(b)
         self.audit_list = QListWidget()
-        self.audit_list.setAccessibleName("Audit entries of the selected case")
+        self.audit_list.setAccessibleName("Audit entries of the selected case, with review notes")
 
         left = QWidget()
         left_layout = QVBoxLayout(left)
         left_layout.setContentsMargins(0, 0, 0, 0)
         self.heading = QLabel("")
+        self.heading.setWordWrap(True)
         left_layout.addWidget(self.heading)
+        left_layout.addLayout(filters)
         left_layout.addWidget(self.placeholder)
         left_layout.addWidget(self.table, 1)
         left_layout.addWidget(self.reasons)
         left_layout.addLayout(buttons)
-        left_layout.addWidget(QLabel("Audit trail of this case"))
+        left_layout.addWidget(QLabel("Audit trail of this case (reviews with their notes)"))
         left_layout.addWidget(self.audit_list)
 
         supervisor = QGroupBox("Supervisor view")
         sup = QVBoxLayout(supervisor)
-        self.by_coordinator = QTableWidget(0, 5)
-        self.by_coordinator.setAccessibleName("Reviews by coordinator and status")
-        self.by_coordinator.setHorizontalHeaderLabels(["Coordinator", "new", "acknowledged", "actioned", "dismissed"])
+        self.by_coordinator = QTableWidget(0, 2 + len(QUEUE_STATUSES))
+        self.by_coordinator.setAccessibleName("Flags by coordinator and review status; select a row to list them")
+        self.by_coordinator.setHorizontalHeaderLabels(["Coordinator", *QUEUE_STATUSES, "overdue"])
         self.by_coordinator.verticalHeader().hide()
         self.by_coordinator.setEditTriggers(QAbstractItemView.NoEditTriggers)
+        self.by_coordinator.setSelectionBehavior(QAbstractItemView.SelectRows)
+        self.by_coordinator.cellClicked.connect(self._coordinator_clicked)
+        self.by_coordinator.horizontalHeader().setSectionResizeMode(QHeaderView.ResizeToContents)
+        self.by_coordinator.horizontalHeader().setSectionResizeMode(0, QHeaderView.Stretch)
         self.overdue = QLabel("")
         self.overdue.setWordWrap(True)
+        self.overdue.setTextFormat(Qt.RichText)
+        self.overdue.setAccessibleName("Overdue flags (click to list them)")
+        self.overdue.linkActivated.connect(lambda _: self.show_overdue())
+        self.reopen_button = QPushButton("")
+        self.reopen_button.setAccessibleName("Re-open dismissed flags whose risk rose")
+        self.reopen_button.clicked.connect(self.reopen_requested.emit)
+        self.reopen_button.hide()
         self.audit_status = QLabel("Audit trail: not checked yet")
         self.audit_status.setWordWrap(True)
         self.audit_status.setAccessibleName("Audit verification result")
         verify = QPushButton("Verify audit trail")
         verify.clicked.connect(self.verify_audit)
-        sup.addWidget(QLabel("Flag reviews by coordinator and status"))
+        sup.addWidget(QLabel("Flags by coordinator and review status (click a row to list them)"))
         sup.addWidget(self.by_coordinator, 1)
         sup.addWidget(self.overdue)
+        sup.addWidget(self.reopen_button)
         sup.addWidget(self.audit_status)
         sup.addWidget(verify)
 
@@ -96,14 +147,21 @@ class RiskQueue(QWidget):
         split.addWidget(supervisor)
         split.setStretchFactor(0, 3)
         split.setStretchFactor(1, 1)
-        supervisor.setMinimumWidth(430)
+        supervisor.setMinimumWidth(440)
+        split.setSizes([940, 440])
         layout = QVBoxLayout(self)
         layout.addWidget(split)
         self._set_available(False)
 
+    @property
+    def rows(self) -> np.ndarray:
+        """Case rows listed now, in order (shape (m,))."""
+        return self.model.rows
+
     def _set_available(self, on: bool) -> None:
         self.placeholder.setVisible(not on)
-        for w in (self.table, self.acknowledge, self.action, self.dismiss, self.note):
+        for w in (self.table, self.acknowledge, self.action, self.dismiss, self.note, self.coordinator,
+                  self.status, self.overdue_only):
             w.setEnabled(on)
 
     # -------------------------------------------------------------------- filling
@@ -114,112 +172,125 @@ class RiskQueue(QWidget):
             self.placeholder.setText("Follow-up flags are not available yet; the caseload table is ordered by "
                                      "the chance of reaching a follow-up stage.")
             self._set_available(False)
-            self.table.setRowCount(0)
+            self.model.set_rows(None, [])
             return
         self._set_available(True)
-        flagged = np.flatnonzero(np.asarray(a.is_flagged, dtype=bool))
-        order = flagged[np.argsort(-np.asarray(a.priority)[flagged], kind="stable")]
-        self.rows = order[:QUEUE_LIMIT]
-        more = f" (showing the first {QUEUE_LIMIT})" if order.size > QUEUE_LIMIT else ""
-        self.heading.setText(f"<b>{order.size:,} flagged cases</b>, most urgent first{more}. "
-                             "Select one to see why it is flagged and record a review.")
-        self.table.setRowCount(self.rows.size)
-        for i, r in enumerate(self.rows):
-            self._fill_row(i, int(r))
-        self.table.resizeColumnsToContents()
-        
+        self.coordinator.blockSignals(True)
+        current = self.coordinator.currentData() if self.coordinator.count() else ALL
+        self.coordinator.clear()
+        self.coordinator.addItem("All coordinators", ALL)
+        for name in sorted({str(c) for c in a.scores.coordinators[np.asarray(a.is_flagged, dtype=bool)]}):
+            self.coordinator.addItem(name or "-", name)
+        self.coordinator.setCurrentIndex(max(0, self.coordinator.findData(current)))
+        self.coordinator.blockSignals(False)
         self._fill_supervisor()
-        if self.rows.size:
-            self.table.selectRow(0)
+        n = len(loaded.reopen_candidates)
+        self.reopen_button.setText(f"Re-open {plural(n, 'dismissed flag')} whose risk rose since dismissal…")
+        self.reopen_button.setToolTip(", ".join(f"{c}: {before:.0%} → {now:.0%}"
+                                                for c, before, now in loaded.reopen_candidates[:20]))
+        self.reopen_button.setVisible(n > 0)
+        self.apply_filters()
 
-    def _fill_row(self, i: int, r: int) -> None:
-        a, s = self.loaded.assessment, self.loaded.scores
-        due = int(a.next_contact_due_day[r])
-        due_text = "not within limit" if due < 0 else ("now" if due <= s.as_of_day else from_day(due).isoformat())
-        values = (s.case_ids[r], s.coordinators[r] or "-", f"{s.p_follow_up_now[r] * 100:.0f}%",
-                  f"{s.p_reach_follow_up[r] * 100:.0f}%", due_text, a.review_status[r] or "new",
-                  str(a.flags[r]).replace("_", " ").replace(";", ", "))
-        for j, v in enumerate(values):
-            item = QTableWidgetItem(str(v))
-            if j == len(values) - 1:
-                item.setToolTip(self._reason_tip(r))
-            self.table.setItem(i, j, item)
-
-    def _reason_tip(self, r: int) -> str:
-        a = self.loaded.assessment
-        if _has_reasons(a, r):
-            return str(a.reason_text[r])
-        return "Working out why this case is flagged… select it to see the reasons now."
-
-    def _update_tips(self, case_rows) -> None:
-        last = len(COLUMNS) - 1
-        for i in np.flatnonzero(np.isin(self.rows, case_rows)):
-            item = self.table.item(int(i), last)
-            if item is not None:
-                item.setToolTip(self._reason_tip(int(self.rows[i])))
+    def apply_filters(self) -> None:
+        """List the flagged cases that pass the filters (all of them, in queue order)."""
+        a = self.loaded.assessment if self.loaded is not None else None
+        if a is None:
+            return
+        keep = self.selected_row()
+        coordinator = self.coordinator.currentData()
+        status = self.status.currentData()
+        rows = queue_rows(a, None if coordinator == ALL else coordinator, None if status == ALL else status,
+                          self.overdue_only.isChecked())
+        self.model.set_rows(a, rows)
+        total = int(np.count_nonzero(a.is_flagged))
+        shown = "all of them" if rows.size == total else f"{rows.size:,} shown"
+        self.heading.setText(f"<b>{plural(total, 'flagged case')}</b> ({shown}): not yet reviewed first, then "
+                             "acknowledged, then actioned or dismissed; most urgent first within each. Select one "
+                             "to see why it is flagged and record a review.")
+        i = self.model.view_row_of(keep) if keep >= 0 else -1
+        if i >= 0 or rows.size:
+            self.table.selectRow(max(i, 0))
+        else:
+            self.reasons.setText("No flagged case matches these filters.")
 
     def reasons_arrived(self, case_rows) -> None:
         """Reasons for ``case_rows`` were just worked out (by the window's background job)."""
         if self.loaded is None or self.loaded.assessment is None or not self.rows.size:
             return
-        self._update_tips(case_rows)
+        self.model.dataChanged.emit(self.model.index(0, RULES), self.model.index(self.model.rowCount() - 1, RULES))
         selected = self.selected_row()
         if selected >= 0 and selected in set(np.asarray(case_rows).tolist()):
             self._selection_changed()
 
     def _fill_supervisor(self) -> None:
         a, s = self.loaded.assessment, self.loaded.scores
-        flagged = np.asarray(a.is_flagged, dtype=bool)
-        status = np.where(np.asarray(a.review_status, dtype=object) == "", "new", a.review_status)
-        coordinators = sorted({str(c) for c in s.coordinators[flagged]})
-        self.by_coordinator.setRowCount(len(coordinators))
-        for i, c in enumerate(coordinators):
-            mine = flagged & (s.coordinators == c)
-            self.by_coordinator.setItem(i, 0, QTableWidgetItem(c or "-"))
-            for j, st in enumerate(("new", "acknowledged", "actioned", "dismissed")):
-                item = QTableWidgetItem(str(int((status[mine] == st).sum())))
-                item.setTextAlignment(Qt.AlignRight | Qt.AlignVCenter)
-                self.by_coordinator.setItem(i, j + 1, item)
-        due = np.asarray(a.next_contact_due_day)
-        overdue = flagged & (due >= 0) & (due <= s.as_of_day) & np.isin(status, ["new"])
-        self.overdue.setText(f"<b>{int(overdue.sum()):,} overdue flags</b>: a contact is due on or before "
-                             f"{s.as_of.isoformat()} and nobody has reviewed the flag yet.")
-        self.by_coordinator.resizeColumnsToContents()
+        counts = counts_by_coordinator(a)
+        self.by_coordinator.setRowCount(len(counts))
+        for i, c in enumerate(counts):
+            item = QTableWidgetItem(c.coordinator or "-")
+            item.setData(Qt.UserRole, c.coordinator)
+            self.by_coordinator.setItem(i, 0, item)
+            for j, value in enumerate([c.by_status[st] for st in QUEUE_STATUSES] + [c.overdue]):
+                cell = QTableWidgetItem(f"{value:,}")
+                cell.setTextAlignment(Qt.AlignRight | Qt.AlignVCenter)
+                self.by_coordinator.setItem(i, j + 1, cell)
+        n_overdue = int(np.count_nonzero(overdue_mask(a)))
+        self.overdue.setText(f"<a href='overdue'><b>{plural(n_overdue, 'overdue flag')}</b></a>: the next contact "
+                             f"was due before {s.as_of.isoformat()} (or is due that day) and nobody has reviewed "
+                             "the flag yet. Click to list them.")
+
+    def show_overdue(self) -> None:
+        """List the overdue, unreviewed flags (every coordinator)."""
+        for combo in (self.coordinator, self.status):
+            combo.blockSignals(True)
+            combo.setCurrentIndex(0)
+            combo.blockSignals(False)
+        if self.overdue_only.isChecked():
+            self.apply_filters()
+        else:
+            self.overdue_only.setChecked(True)
+
+    def _coordinator_clicked(self, row: int, _column: int) -> None:
+        item = self.by_coordinator.item(row, 0)
+        if item is not None:
+            self.coordinator.setCurrentIndex(max(0, self.coordinator.findData(item.data(Qt.UserRole))))
 
     # -------------------------------------------------------------------- actions
     def selected_row(self) -> int:
         items = self.table.selectionModel().selectedRows() if self.table.selectionModel() else []
-        return int(self.rows[items[0].row()]) if items else -1
+        return self.model.case_row(items[0].row()) if items else -1
+
+    def select_case_row(self, r: int) -> bool:
+        i = self.model.view_row_of(r)
+        if i >= 0:
+            self.table.selectRow(i)
+        return i >= 0
 
     def _selection_changed(self) -> None:
         r = self.selected_row()
         if r < 0 or self.loaded is None or self.loaded.assessment is None:
             return
         a = self.loaded.assessment
-        if not _has_reasons(a, r):
+        if not a.has_reasons(r):
             a.explain_cases([r])  # one case: a few milliseconds; the background job may not have got here yet
-            self._update_tips([r])
-        lines = [f"<b>{self.loaded.scores.case_ids[r]}</b> — why flagged:"]
-        contacts, seen_dates = [], set()
+            self.model.case_changed(r)
+        lines = [f"<b>{html.escape(str(self.loaded.scores.case_ids[r]))}</b> — why flagged:"]
         for reason in a.reasons[r]:
-            lines.append(f"• {reason.rule.replace('_', ' ')}: {reason.message}")
-            for c in reason.contacts:
-                if getattr(c, "date", None) in seen_dates:
-                    continue
-                seen_dates.add(getattr(c, "date", None))
-                contacts.append(c.describe() if hasattr(c, "describe") else str(c))
+            lines.append(f"• {html.escape(reason.message)}")
+        contacts = a.reasons[r][0].contacts if a.reasons[r] else []
         if contacts:
-            lines.append("Effect of each of the last contacts, largest first (chance of follow-up with that contact "
-                         "minus without it): " + "; ".join(contacts[:4]))
+            lines.append("Each of the last contacts (the chance with it, compared with leaving it out): "
+                         + " ".join(html.escape(c.sentence()) for c in contacts[:3]))
+        note = "" if a.review_note is None else str(a.review_note[r] or "")
+        if note:
+            lines.append(f"Latest review note ({html.escape(str(a.reviewed_by[r]))}): “{html.escape(note)}”")
         self.reasons.setText("<br>".join(lines))
         self._update_buttons(a.review_status[r] or "new")
         self._fill_audit(str(self.loaded.scores.case_ids[r]))
 
     def _update_buttons(self, current: str) -> None:
-        try:
-            from caseview.followup import ALLOWED_CHANGES
-        except ImportError:
-            ALLOWED_CHANGES = {}
+        from caseview.followup import ALLOWED_CHANGES
+
         allowed = ALLOWED_CHANGES.get(current, ())
         self.acknowledge.setEnabled("acknowledged" in allowed)
         self.action.setEnabled("actioned" in allowed)
@@ -236,7 +307,7 @@ class RiskQueue(QWidget):
             self.audit_list.addItem("(no audit entries for this case yet)")
         for e in entries:
             note = e.details.get("note", "") if isinstance(e.details, dict) else ""
-            self.audit_list.addItem(f"{e.at_utc}  {e.actor}  {e.action}" + (f"  — {note}" if note else ""))
+            self.audit_list.addItem(f"{e.at_utc[:19]}  {e.actor}  {e.action}" + (f"  — “{note}”" if note else ""))
 
     def review_selected(self, status: str, note: str | None = None) -> bool:
         """Record a review of the selected case (asks for a reason when dismissing)."""
@@ -259,17 +330,24 @@ class RiskQueue(QWidget):
         except CaseviewError as exc:
             self.window.show_error(str(exc))
             return False
-        new_status = getattr(row, "status", status)
-        self.loaded.assessment.review_status[r] = new_status
-        self.window.caseload.model.set_review_status(r, new_status)
-        i = int(np.flatnonzero(self.rows == r)[0])
-        self._fill_row(i, r)
+        except Exception as exc:  # a failed write is never silent (issue 12, item 1)
+            self.window.show_error(f"review of {case_id} was not recorded: {type(exc).__name__}: {exc}")
+            return False
+        new_status = row.status
+        a = self.loaded.assessment
+        a.review_status[r] = new_status
+        a.reviewed_by[r], a.reviewed_at[r] = row.actor, row.at_utc
+        if a.review_note is not None:
+            a.review_note[r] = row.note or ""
+        self.model.case_changed(r)
         self._fill_supervisor()
         self._update_buttons(new_status)
         self._fill_audit(case_id)
         self.note.clear()
         self.window.statusBar().showMessage(f"Review recorded: {case_id} is now {new_status}.")
+        self.review_saved.emit(r, new_status, row.note or "")
         self.review_recorded.emit(case_id, new_status)
+        self._selection_changed()
         return True
 
     def verify_audit(self) -> None:
@@ -279,17 +357,11 @@ class RiskQueue(QWidget):
             return
         result = ws.audit_verify()
         if result.ok:
-            self.audit_status.setText(f"Audit trail intact: {result.n_entries:,} entries, head {result.head_hash[:12]}…")
+            self.audit_status.setText(f"Audit trail intact: {plural(result.n_entries, 'entry', 'entries')}, "
+                                      f"head {result.head_hash[:12]}…")
         else:
-            self.audit_status.setText(f"<b>Audit trail check FAILED</b> at entry {result.first_bad_id}: {result.problem}")
+            self.audit_status.setText(f"<b>Audit trail check FAILED</b> at entry {result.first_bad_id}: "
+                                      f"{result.problem}")
 
     def _open_case(self, index) -> None:
-        r = int(self.rows[index.row()])
-        self.window.tabs.setCurrentIndex(0)
-        self.window.caseload.select_case(str(self.loaded.scores.case_ids[r]))
-
-
-def _has_reasons(assessment, r: int) -> bool:
-    """True when the reasons of case row ``r`` are worked out (always, for assessments without lazy reasons)."""
-    has = getattr(assessment, "has_reasons", None)
-    return True if has is None else has(r)
+        self.open_case_requested.emit(str(self.loaded.scores.case_ids[self.model.case_row(index.row())]))

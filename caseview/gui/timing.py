@@ -79,14 +79,15 @@ def measure_reasons(loaded) -> dict:
     """
     import numpy as np
 
+    from caseview.followup.queue import queue_rows
+
     from .data_source import reason_steps
-    from .risk_queue import QUEUE_LIMIT
+    from .risk_queue import FIRST_REASONS
 
     a = loaded.assessment
     if a is None or not hasattr(a, "explain_cases"):
         return {}
-    pending = a.reasons_pending
-    queue = pending[np.argsort(-np.asarray(a.priority)[pending], kind="stable")][:QUEUE_LIMIT]
+    queue = queue_rows(a)[:FIRST_REASONS]  # the window's first step: the top of the risk queue
     result = {"n_flagged": int(np.count_nonzero(a.is_flagged))}
     start = time.perf_counter()
     for i, rows in enumerate(reason_steps(a, queue)):

@@ -16,7 +16,12 @@ from . import theme
 
 
 def build_top_bar(window, as_of: dt.date) -> None:
-    """The toolbar: workspace actions, the as-of date and horizon (a change rescores after 0.4 s)."""
+    """The toolbar: workspace actions, the as-of date and horizon.
+
+    The as-of date and horizon rescore when editing finishes (Enter, leaving the field, the
+    calendar, an arrow step), never on each keystroke (keyboard tracking off); arrow steps in a
+    row are gathered for 0.4 s.
+    """
     bar = QToolBar("Workspace")
     bar.setObjectName("topBar")
     bar.setMovable(False)
@@ -54,7 +59,8 @@ def build_top_bar(window, as_of: dt.date) -> None:
     window.as_of_edit.setCalendarPopup(True)
     window.as_of_edit.setDisplayFormat("yyyy-MM-dd")
     window.as_of_edit.setAccessibleName("As-of date")
-    window.as_of_edit.setToolTip("Estimates use contacts on or before this date")
+    window.as_of_edit.setToolTip("Estimates use contacts on or before this date (press Enter to rescore)")
+    window.as_of_edit.setKeyboardTracking(False)
     bar.addWidget(window.as_of_edit)
     bar.addWidget(QLabel("  Horizon "))
     window.horizon_spin = QSpinBox()
@@ -62,6 +68,7 @@ def build_top_bar(window, as_of: dt.date) -> None:
     window.horizon_spin.setValue(90)
     window.horizon_spin.setSuffix(" days")
     window.horizon_spin.setAccessibleName("Forecast horizon in days")
+    window.horizon_spin.setKeyboardTracking(False)
     bar.addWidget(window.horizon_spin)
     bar.addAction(window.action_rescore)
     window.workspace_label = QLabel("  No workspace open")
@@ -109,6 +116,23 @@ def build_menus(window) -> None:
     view.addAction(QAction("Find case", window, shortcut=QKeySequence.Find, triggered=window.caseload.focus_search))
     view.addAction(QAction("Sort by priority", window, shortcut="Ctrl+Shift+P",
                            triggered=window.caseload.sort_by_priority))
-    for i, name in enumerate(("Caseload", "Risk queue", "Model")):
-        view.addAction(QAction(name, window, shortcut=f"Ctrl+{i + 1}",
+    for i in range(min(window.tabs.count(), 9)):   # every tab, whichever panels this build has
+        view.addAction(QAction(window.tabs.tabText(i), window, shortcut=f"Ctrl+{i + 1}",
                                triggered=lambda _=False, i=i: window.tabs.setCurrentIndex(i)))
+    help_menu = window.menuBar().addMenu("&Help")
+    window.action_glossary = QAction("Glossary of terms", window, shortcut=QKeySequence.HelpContents,
+                                     triggered=lambda: show_glossary(window))
+    window.action_glossary.setToolTip("What the words in this window mean (F1)")
+    help_menu.addAction(window.action_glossary)
+
+
+def show_glossary(window):
+    """Open (or bring forward) the glossary dialog; returns it."""
+    from .glossary import GlossaryDialog
+
+    dialog = getattr(window, "glossary", None)
+    if dialog is None:
+        dialog = window.glossary = GlossaryDialog(window)
+    dialog.show()
+    dialog.raise_()
+    return dialog

@@ -10,6 +10,7 @@ the same slot (for example "score") cancels the old one; closing the window canc
 
 from __future__ import annotations
 
+import sys
 import threading
 import traceback
 
@@ -97,6 +98,12 @@ class Job(QRunnable):
             self.signals.done.emit()
 
 
+def _print_failure(name: str):
+    def report(message: str) -> None:
+        print(f"caseview: {name} failed: {message}", file=sys.stderr)
+    return report
+
+
 class JobRunner(QObject):
     """Starts jobs on a thread pool; one live job per slot name."""
 
@@ -116,6 +123,8 @@ class JobRunner(QObject):
         old = self.jobs.get(name)
         if old is not None and not old.is_done:
             old.cancel()
+        if on_failed is None:  # a failure is never silent: the window's error message, else stderr
+            on_failed = getattr(self.parent(), "show_error", None) or _print_failure(name)
         job = Job(function, name, publishes=on_partial is not None)
         for signal, slot in ((job.signals.finished, on_finished), (job.signals.failed, on_failed),
                              (job.signals.progress, on_progress), (job.signals.cancelled, on_cancelled),

@@ -14,8 +14,6 @@ from __future__ import annotations
 
 import datetime as dt
 import hashlib
-import os
-import tempfile
 from dataclasses import dataclass
 from pathlib import Path
 
@@ -37,9 +35,12 @@ class ReportResult:
     count : int
         Pages (PDF) or case rows (XLSX Cases sheet, CSV).
     audit_head : str
-        Audit chain head after the report was recorded.
+        The audit chain head printed inside the report (the newest entry before the report's own).
     sha256 : str
         Hash of the written file (also in the audit entry).
+    entry_id, entry_hash : int, str
+        The report's own audit entry (it cannot be inside the report: it holds the report's hash);
+        ``entry_hash`` is the chain head after the report was recorded.
     """
 
     path: Path
@@ -47,6 +48,8 @@ class ReportResult:
     count: int
     audit_head: str
     sha256: str
+    entry_id: int = 0
+    entry_hash: str = ""
 
     @property
     def n_pages(self) -> int | None:
@@ -113,9 +116,9 @@ def build_report(ws, as_of, out_path, *, horizon_days: float = 90, coordinator: 
     data = collect_report_data(ws, as_of, horizon_days=float(horizon_days), coordinator=coordinator,
                                flagged_only=flagged_only, since=since, dates=dates, seed=seed, assess=assess,
                                callback=lambda f: progress(0.7 * f))
-    handle, temporary = tempfile.mkstemp(prefix=".caseview-report-", suffix=out_path.suffix, dir=out_path.parent)
-    os.close(handle)
-    try:
+    from caseview.private_files import private_output
+
+    with private_output(out_path) as temporary:  # 0600, moved into place only when complete
         if kind == "pdf":
             from .pdf import write_pdf as writer
         elif kind == "xlsx":
@@ -126,11 +129,7 @@ def build_report(ws, as_of, out_path, *, horizon_days: float = 90, coordinator: 
         progress(0.95)
         digest = hashlib.sha256(Path(temporary).read_bytes()).hexdigest()
         details = {"format": kind, "as_of": as_of.isoformat(), "options": data.options, "sha256": digest,
-                   "count": int(count)}
-        ws.audit_append(actor or _default_actor(), "report.create", out_path.name, details)
-        os.replace(temporary, out_path)
-    finally:
-        if os.path.exists(temporary):
-            os.unlink(temporary)
+                   "count": int(count), "audit_head_in_report": data.audit_head}
+        entry = ws.audit_append(actor or _default_actor(), "report.create", out_path.name, details)
     progress(1.0)
-    return ReportResult(out_path, kind, int(count), ws.audit_head(), digest)
+    return ReportResult(out_path, kind, int(count), data.audit_head, digest, entry.id, entry.entry_hash)

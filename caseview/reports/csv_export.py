@@ -14,8 +14,9 @@ from caseview import ADVISORY_NOTICE
 
 from .records import case_columns, case_records, escape_text
 
-#: Columns of the spreadsheet's Cases sheet left out of the CSV to keep it a compact stage summary.
-_DROP = ("reasons", "horizon_days", "n_contacts", "reviewed_by", "reviewed_at", "reviewed_at_day_relative")
+#: Columns of the spreadsheet's Cases sheet left out of the CSV to keep it a compact stage summary
+#: (the plain-language ``reasons`` and the latest ``review_note`` stay: text columns after the numbers).
+_DROP = ("horizon_days", "n_contacts", "reviewed_by", "reviewed_at", "reviewed_at_day_relative")
 
 
 def _text(value) -> str:

@@ -104,6 +104,8 @@ class ReportData:
     model: ModelSummary
     audit_head: str
     options: dict = field(default_factory=dict)
+    outlook: object | None = None   # caseview.followup.outlook.Outlook (reports/outlook_page.py)
+    outlook_note: str = ""
 
     @property
     def scores(self):
@@ -182,6 +184,9 @@ def collect_report_data(ws, as_of: dt.date, *, horizon_days: float = 90.0, coord
     progress(0.95)
     model, version = ws.current_model()
     summary = summarise_model(scores.model, version)
+    from .outlook_page import collect_outlook
+
+    outlook, outlook_note = collect_outlook(scores, version, as_of, coordinator or None)
     view = DateView(dates, scores.first_contact_day, seed=seed)
     return ReportData(
         assessment=assessment, as_of=as_of, horizon_days=float(horizon_days), coordinator=coordinator or None,
@@ -193,6 +198,7 @@ def collect_report_data(ws, as_of: dt.date, *, horizon_days: float = 90.0, coord
         options={"horizon_days": float(horizon_days), "coordinator": coordinator or None,
                  "flagged_only": bool(flagged_only), "since": since.isoformat() if since else None,
                  "dates": dates, "seed": "given" if seed is not None else None},
+        outlook=outlook, outlook_note=outlook_note,
     )
 
 

@@ -9,15 +9,18 @@ extracted.
 
 from __future__ import annotations
 
+import io
+
 import numpy as np
 
 from caseview import ADVISORY_NOTICE, __version__
+from caseview.followup.wording import plural
 
 from . import charts, style
 from .data import case_history
 from .layout import MARGIN, Column, Page
 from .model_summary import NOT_FITTED
-from .records import short_reasons
+from .records import review_note, short_reasons
 
 #: Most flagged cases drawn as small timelines (the rest are named as left out).
 MAX_TIMELINES = 24
@@ -98,9 +101,9 @@ def _cover(data) -> Page:
         page.heading("Changes since the previous date")
         page.paragraph("Not requested (use --since to compare with an earlier date).", colour=style.MUTED)
     page.heading("Reviews")
-    page.paragraph(f"{data.flagged_rows.size} flagged case(s): {data.reviews_done} reviewed by a supervisor "
+    page.paragraph(f"{plural(data.flagged_rows.size, 'flagged case')}: {data.reviews_done} reviewed by a supervisor "
                    f"(acknowledged, actioned or dismissed), {data.reviews_outstanding} outstanding. "
-                   f"Scored {s.n_cases} case(s) in the workspace in total.")
+                   f"Scored {plural(s.n_cases, 'case')} in the workspace in total.")
     if data.flagged_rows.size > MAX_LISTED_FLAGGED:
         page.caution_box(f"This PDF lists the {MAX_LISTED_FLAGGED:,} most urgent flagged cases. "
                          + _left_out_note(int(data.flagged_rows.size) - MAX_LISTED_FLAGGED))
@@ -139,13 +142,17 @@ def _flag_rows(data) -> list:
         k = int(s.most_likely_stage[r])
         due = int(a.next_contact_due_day[r])
         if due < 0:
-            due_text = "not within the schedule limit"
-        elif due <= s.as_of_day:
-            due_text = "now"
+            due_text = "no date"
+        elif due < s.as_of_day:
+            due_text = f"overdue by {plural(s.as_of_day - due, 'day')}"
+        elif due == s.as_of_day:
+            due_text = "due today"
         else:
-            due_text = f"{view.case_text(r, due)} (in {due - s.as_of_day} days)"
+            due_text = f"{view.case_text(r, due)} (in {plural(due - s.as_of_day, 'day')})"
         status = str(a.review_status[r] or "") or "not reviewed"
         who = str(a.reviewed_by[r] or "")
+        note = review_note(data, r)
+        who = who + (f": “{note}”" if note else "")
         rows.append([str(s.case_ids[r]), str(s.coordinators[r] or ""), f"{data.stages[k]} {_pct(s.p_now[r, k])}",
                      _pct(s.p_follow_up_now[r]), _pct(s.p_reach_follow_up[r]), short_reasons(data, r), due_text,
                      status + (f" by {who}" if who else "")])
@@ -153,8 +160,9 @@ def _flag_rows(data) -> list:
 
 
 def _left_out_note(left_out: int) -> str:
-    return (f"{left_out:,} more flagged case(s) are not listed in this PDF. Every flagged case is in the spreadsheet "
-            "or CSV report (caseview report ... --out FILE.xlsx), or list one coordinator's cases with "
+    verb = "is" if left_out == 1 else "are"
+    return (f"{plural(left_out, 'more flagged case')} {verb} not listed in this PDF. Every flagged case is in the "
+            "spreadsheet or CSV report (caseview report ... --out FILE.xlsx), or list one coordinator's cases with "
             "--coordinator. Do not take a case's absence here to mean it needs no follow-up.")
 
 
@@ -285,16 +293,22 @@ def write_pdf(data, path) -> int:
     from matplotlib.backends.backend_pdf import PdfPages
 
     with matplotlib.rc_context({"pdf.fonttype": 42, "font.family": "DejaVu Sans", "axes.linewidth": 0.6}):
-        pages = [_cover(data), _occupancy_page(data)] + _flag_pages(data) + _timeline_pages(data) + [_model_page(data)]
+        from .outlook_page import outlook_page
+
+        pages = ([_cover(data), _occupancy_page(data), outlook_page(data)] + _flag_pages(data)
+                 + _timeline_pages(data) + [_model_page(data)])
         as_of = data.dates.report_date_text(data.as_of)
         header_right = (f"as of {as_of}" if not data.dates.deidentified else as_of) + f" · {_scope(data)}"
         metadata = {"Title": "caseview caseload report", "Subject": "Advisory caseload stage summary",
                     "Creator": f"caseview {__version__}", "Author": "caseview"}
         if data.dates.deidentified:
             metadata["CreationDate"] = None
-        with PdfPages(path, metadata=metadata) as pdf:
+        buffer = io.BytesIO()  # built in memory: a full disk fails in one plain write below, not inside zlib
+        with PdfPages(buffer, metadata=metadata) as pdf:
             for number, page in enumerate(pages, start=1):
                 page.frame(f"caseview caseload report · {page.title}", header_right, ADVISORY_NOTICE, number,
                            len(pages))
                 pdf.savefig(page.figure)
+    with open(path, "wb") as handle:
+        handle.write(buffer.getbuffer())
     return len(pages)

@@ -12,14 +12,19 @@ import re
 
 import numpy as np
 
+from caseview.followup.wording import points
+
 from .deidentify import rewrite_dates
 
 _SHORT = {
-    "in_follow_up_now": "in follow-up now",
-    "likely_to_reach_follow_up": "likely to reach follow-up",
-    "long_gap_uncertain": "{value:.0f} days since contact, stage uncertain",
-    "sharp_rise": "sharp rise {value:+.2f}",
+    "in_follow_up_now": "in a follow-up stage now",
+    "likely_to_reach_follow_up": "likely to reach a follow-up stage",
+    "long_gap_uncertain": "not seen for {value:.0f} days, stage uncertain",
+    "sharp_rise": "sharp rise ({points})",
 }
+
+#: What a de-identified report shows instead of a review note (free text may name people or dates).
+NOTE_LEFT_OUT = "(note left out of a de-identified report)"
 
 #: Leading characters a spreadsheet may treat as a formula (OWASP "CSV injection"; tab and
 #: carriage return included as OWASP recommends).
@@ -54,6 +59,14 @@ def reason_text(data, r: int) -> str:
     return rewrite_dates(str(_column(data.assessment.reason_text, r)), data.dates, r)
 
 
+def review_note(data, r: int) -> str:
+    """The latest review note of case row ``r`` ('' when none; left out when the report is de-identified)."""
+    note = str(_column(getattr(data.assessment, "review_note", None), r) or "")
+    if note and data.dates.deidentified:
+        return NOTE_LEFT_OUT
+    return note
+
+
 def contact_day(contact) -> int:
     """Day number (since 1970-01-01) of a ContactInfluence."""
     day = int(getattr(contact, "day", 0) or 0)
@@ -75,14 +88,16 @@ def short_reasons(data, r: int) -> str:
     for reason in reasons:
         template = _SHORT.get(getattr(reason, "rule", ""))
         try:
-            lines.append(template.format(value=float(reason.value), threshold=float(reason.threshold)))
+            lines.append(template.format(value=float(reason.value), threshold=float(reason.threshold),
+                                         points=points(float(reason.value))))
         except (AttributeError, TypeError, ValueError):
             lines.append(rewrite_dates(str(getattr(reason, "message", reason)), data.dates, r))
     contacts = [c for c in (getattr(reasons[0], "contacts", None) or []) if getattr(c, "change", 0) > 0.005]
     if contacts:
         top = contacts[0]
         evidence = f": {top.evidence.replace('=', ' ')}" if getattr(top, "evidence", "") else ""
-        lines.append(f"key contact {data.dates.case_text(r, contact_day(top))} {top.change:+.2f}{evidence}")
+        lines.append(f"the contact on {data.dates.case_text(r, contact_day(top))} raised it by "
+                     f"{points(top.change)}{evidence}")
     return "; ".join(lines)
 
 
@@ -96,7 +111,7 @@ def case_columns(data) -> list:
             + [f"p_{n}_at_horizon" for n in names]
             + ["p_follow_up_now", "p_reach_follow_up", "horizon_days", "flags", "reasons",
                view.column_name("next_contact_due"), "review_status", "reviewed_by",
-               view.column_name("reviewed_at")])
+               view.column_name("reviewed_at"), "review_note"])
 
 
 def case_records(data, rows=None) -> list:
@@ -117,7 +132,7 @@ def case_records(data, rows=None) -> list:
                str(_column(a.flags, r)), reason_text(data, r),
                view.case_value(r, due if due >= 0 else None),
                str(_column(a.review_status, r)), str(_column(a.reviewed_by, r)),
-               view.case_timestamp_value(r, _column(a.reviewed_at, r, None))])
+               view.case_timestamp_value(r, _column(a.reviewed_at, r, None)), review_note(data, r)])
     return records
 
 
@@ -128,12 +143,13 @@ def review_records(data) -> tuple:
     flagged = np.asarray(a.is_flagged, dtype=bool)
     chosen = [int(r) for r in data.rows if flagged[r] or str(status[r] or "")]
     columns = ["case_id", "coordinator", "flagged_now", "flags", "review_status", "review_done",
-               "reviewed_by", view.column_name("reviewed_at")]
+               "reviewed_by", view.column_name("reviewed_at"), "review_note"]
     rows = []
     for r in chosen:
         state = str(status[r] or "")
         rows.append([str(s.case_ids[r]), str(s.coordinators[r] or ""), "yes" if flagged[r] else "no",
                      str(_column(a.flags, r)), state or "not reviewed",
                      "yes" if state in ("acknowledged", "actioned", "dismissed") else "no",
-                     str(_column(a.reviewed_by, r)), view.case_timestamp_value(r, _column(a.reviewed_at, r, None))])
+                     str(_column(a.reviewed_by, r)), view.case_timestamp_value(r, _column(a.reviewed_at, r, None)),
+                     review_note(data, r)])
     return columns, rows

@@ -12,7 +12,10 @@ import datetime as dt
 from caseview import ADVISORY_NOTICE, __version__
 
 from .deidentify import rewrite_dates
-from .records import case_columns, case_records, contact_day, escape_text, reason_text, review_records
+from caseview.followup.wording import CHANCE_BANDS, points
+
+from .records import (case_columns, case_records, contact_day, escape_text, reason_text, review_note,
+                      review_records)
 from .model_summary import NOT_FITTED
 
 _HEADER_FILL = "DDEAF5"   # pale tint of Okabe-Ito blue
@@ -109,29 +112,32 @@ def _summary_rows(data) -> list:
 def _flag_rows(data) -> tuple:
     a, s, view = data.assessment, data.scores, data.dates
     columns = ["case_id", "coordinator", "rule", "message", "value", "threshold", "recent_contacts_effect",
-               view.column_name("next_contact_due"), "review_status"]
+               view.column_name("next_contact_due"), "review_status", "review_note"]
     rows = []
     for r in data.flagged_rows:
         r = int(r)
         due = int(a.next_contact_due_day[r])
         due_value = view.case_value(r, due if due >= 0 else None)
         status = str(a.review_status[r] or "") or "not reviewed"
+        note = review_note(data, r)
         reasons = list(a.reasons[r]) if getattr(a, "reasons", None) is not None else []
         if not reasons:
             rows.append([str(s.case_ids[r]), str(s.coordinators[r] or ""), str(a.flags[r]), reason_text(data, r),
-                         None, None, "", due_value, status])
+                         None, None, "", due_value, status, note])
         for reason in reasons:
             value = getattr(reason, "value", None)
             threshold = getattr(reason, "threshold", None)
-            contacts = "; ".join(
-                f"{view.case_text(r, contact_day(c))}"
-                + (f" ({c.evidence})" if getattr(c, "evidence", "") else "") + f" {c.change:+.2f}"
+            contacts = " ".join(
+                f"The contact on {view.case_text(r, contact_day(c))}"
+                + (f" ({c.evidence.replace('=', ' ')})" if getattr(c, "evidence", "") else "")
+                + (f" {'raised' if c.change > 0 else 'lowered'} it by {points(c.change)}."
+                   if abs(c.change) >= 0.005 else " changed it by less than 1 point.")
                 for c in (getattr(reason, "contacts", None) or []))
             rows.append([str(s.case_ids[r]), str(s.coordinators[r] or ""), str(getattr(reason, "rule", "")),
                          rewrite_dates(str(getattr(reason, "message", "")), view, r),
                          float(value) if isinstance(value, (int, float)) else None,
                          float(threshold) if isinstance(threshold, (int, float)) else None,
-                         contacts, due_value, status])
+                         contacts, due_value, status, note])
     return columns, rows
 
 
@@ -146,16 +152,26 @@ def write_xlsx(data, path) -> int:
     _sheet(book, "Cases", columns, records, widths={"reasons": 60})
     _sheet(book, "Flags", *_flag_rows(data), widths={"message": 50, "recent_contacts_effect": 60})
     _sheet(book, "Reviews", *review_records(data))
+    from .outlook_page import outlook_sheet
+
+    _sheet(book, "Outlook", *outlook_sheet(data), widths={"stage": 26, "advisory": 40})
     notes = [["caution", ADVISORY_NOTICE],
              ["probabilities", "p_<stage>: probability of each stage on the as-of date; _at_horizon: the same "
                                "after the horizon if nothing new is observed."],
              ["p_reach_follow_up", "Probability of being in a follow-up stage at least once before the horizon."],
-             ["next_contact_due", "Day the chance of a follow-up stage would reach the rule threshold with no "
-                                  "new contact; blank if not within the limit."]]
+             ["next_contact_due", "Day the next contact is due: the chance of a follow-up stage would reach the "
+                                  "rule threshold with no new contact, at the latest 16 weeks after the last "
+                                  "contact. A day before the as-of date means overdue."],
+             ["reasons", "Plain sentences; the numbers are also in their own columns (value, threshold, "
+                         "p_ columns). Chance words are caseview's own bands: "
+                         + "; ".join(f"{w} from {lo * 100:.0f}%" for lo, w in CHANCE_BANDS) + "."],
+             ["review_note", "The latest supervisor review note (left out of de-identified reports)."]]
     if data.dates.caveat():
         notes.append(["dates", data.dates.caveat()])
     _sheet(book, "Notes", ["topic", "note"], notes, widths={"topic": 22, "note": 100})
     book.properties.title = "caseview caseload report"
     book.properties.creator = "caseview"
-    book.save(path)
+    from caseview.private_files import save_workbook
+
+    save_workbook(book, path)  # no traceback from openpyxl on a full disk
     return len(records)

@@ -9,6 +9,11 @@ evidence of tampering comes from the chain. A chain alone cannot reveal a comple
 removal of the newest entries, which is why every export and report prints the chain head: an
 outside copy of the head later proves that history up to it was not rewritten.
 
+Records protected beyond the chain: an entry whose write changed protected rows carries, under
+``details["row_digests"]``, set digests of the rows it added and removed
+(:mod:`caseview.storage.row_digests`); :func:`verify` replays them and checks every stored record
+(:mod:`caseview.storage.row_check`). Writers pass ``changes=RowChanges(...)`` to :func:`append`.
+
 The actor is a name (the operating-system user unless given), i.e. attribution, not
 authentication.
 """
@@ -46,6 +51,8 @@ class AuditVerification:
     first_bad_id: int | None
     problem: str
     head_hash: str
+    n_records: int = 0          # protected records checked against the trail (0 = not checked)
+    rows_checked: bool = False
 
 
 def canonical_json(value) -> str:
@@ -64,12 +71,35 @@ def utc_now() -> str:
     return _dt.datetime.now(_dt.timezone.utc).strftime("%Y-%m-%dT%H:%M:%S.%fZ")
 
 
-def append(connection, actor: str, action: str, target: str, details: dict) -> AuditEntry:
-    """Append one entry; the caller holds a write transaction (BEGIN IMMEDIATE)."""
+def next_entry_id(connection) -> int:
+    """The id the next appended entry will get (stable while the caller holds the write transaction)."""
+    row = connection.execute("SELECT MAX(id) FROM audit_log").fetchone()
+    return (row[0] or 0) + 1
+
+
+def append(connection, actor: str, action: str, target: str, details: dict, changes=None,
+           at_utc: str | None = None) -> AuditEntry:
+    """Append one entry; the caller holds a write transaction (BEGIN IMMEDIATE).
+
+    Parameters
+    ----------
+    changes : caseview.storage.row_digests.RowChanges, optional
+        The protected rows this write added, changed or removed. Call ``append`` AFTER writing them,
+        in the same transaction: their digests go into ``details["row_digests"]``.
+    at_utc : str, optional
+        The entry's time (default now), for a row that stores its entry's time.
+    """
+    details = dict(details or {})
+    if changes is not None:
+        from .row_digests import record_row_changes
+
+        rows = record_row_changes(connection, changes)
+        if rows:
+            details["row_digests"] = rows
     row = connection.execute("SELECT id, entry_hash FROM audit_log ORDER BY id DESC LIMIT 1").fetchone()
     entry_id, prev = (row[0] + 1, row[1]) if row else (1, GENESIS_HASH)
-    at = utc_now()
-    details_json = canonical_json(details or {})
+    at = at_utc or utc_now()
+    details_json = canonical_json(details)
     digest = entry_hash(entry_id, at, actor, action, target, details_json, prev)
     connection.execute(
         "INSERT INTO audit_log (id, at_utc, actor, action, target, details_json, prev_hash, entry_hash)"
@@ -113,8 +143,27 @@ def entries(connection, case_id: str | None = None, since_utc: str | None = None
     return out
 
 
-def verify(connection) -> AuditVerification:
-    """Recompute the chain from the first entry; stop at the first entry that fails."""
+def verify(connection, rows: bool = True) -> AuditVerification:
+    """Recompute the chain from the first entry (stop at the first that fails); then, with ``rows``,
+    check every protected record against the trail (:func:`caseview.storage.row_check.check_rows`)."""
+    chain = _verify_chain(connection)
+    if not chain.ok or not rows:
+        return chain
+    from .row_check import check_rows
+
+    result = check_rows(connection, ((e.id, e.details) for e in entries(connection)))
+    return AuditVerification(result.ok, chain.n_entries, None, result.problem, chain.head_hash,
+                             n_records=result.n_records, rows_checked=True)
+
+
+def position_of(connection, entry_hash_text: str) -> tuple[int | None, int]:
+    """(id of the entry with this hash or None, id of the newest entry)."""
+    row = connection.execute("SELECT id FROM audit_log WHERE entry_hash = ?", (entry_hash_text.strip().lower(),)).fetchone()
+    newest = connection.execute("SELECT MAX(id) FROM audit_log").fetchone()[0] or 0
+    return (row[0] if row else None), newest
+
+
+def _verify_chain(connection) -> AuditVerification:
     prev = GENESIS_HASH
     expected_id = 1
     n = 0

@@ -16,6 +16,7 @@ import numpy as np
 
 from ..errors import WorkspaceError
 from .contacts import field_layout
+from .row_digests import RowChanges, case_digests_from_arrays
 from .schema import BLANK_CODE
 
 
@@ -64,6 +65,7 @@ class WriteCounts:
     duplicates_skipped: int
     replaced: int
     replaced_details: list  # [{"case_id", "day", "old_sha256", "new_sha256"}]
+    row_changes: RowChanges | None = None  # give to the audit entry of this write (audit.append(changes=...))
 
 
 def _row_digest(obs: bytes, cov: bytes, stage: str | None, coordinator: str) -> str:
@@ -209,5 +211,25 @@ def write_contacts(connection, batch: ContactBatch, replace: bool = False) -> Wr
             " ON co.id = c.coordinator_id WHERE c.case_id = cases.id ORDER BY c.day DESC LIMIT 1), '')"
             " WHERE id IN (SELECT id FROM _import_cases)")
         connection.execute("DELETE FROM _import_cases")
+    changed_existing = sorted({str(batch.case_codes[i]) for i in insert_rows[~is_new_case[insert_rows]].tolist()}
+                              | {str(batch.case_codes[i]) for i, _ in updates})
+    changes = RowChanges(cases=tuple(changed_existing), all_rows=("coordinators",),
+                         case_digests=_new_case_digests(batch, new_codes, last_coordinator if new_codes else {},
+                                                        case_id, order, is_new_case, row_case, obs, covs))
     return WriteCounts(cases_added=len(new_codes), contacts_added=int(insert_rows.size),
-                       duplicates_skipped=len(duplicates), replaced=len(updates), replaced_details=replaced_details)
+                       duplicates_skipped=len(duplicates), replaced=len(updates), replaced_details=replaced_details,
+                       row_changes=changes)
+
+
+def _new_case_digests(batch, new_codes, last_coordinator, case_id, order, is_new_case, row_case, obs, covs) -> dict:
+    """Digests of the new cases from the batch arrays (no read-back); see :mod:`.row_digests`."""
+    if not new_codes:
+        return {}
+    rows = order[is_new_case[order]]  # sorted by case (ids in code order), then day
+    first_id = case_id[new_codes[0]]
+    counts = np.bincount(row_case[rows] - first_id, minlength=len(new_codes))
+    offsets = np.concatenate([[0], np.cumsum(counts)])
+    digests = case_digests_from_arrays(
+        new_codes, [last_coordinator.get(case_id[c], "") for c in new_codes], offsets, batch.days[rows],
+        obs[rows], covs[rows], batch.stage_known[rows], batch.coordinators[rows])
+    return dict(zip(new_codes, digests))

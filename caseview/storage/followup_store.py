@@ -82,7 +82,12 @@ def review_rows(connection, case_code: str | None = None, status: str | None = N
 
 def insert_review(connection, case_code: str, status: str, note: str, actor: str, at_utc: str,
                   flags: str, p_follow_up: float | None, as_of: str | None, audit_id: int | None) -> int:
-    """Store one review change; returns its id. The case must exist."""
+    """Store one review change; returns its id. The case must exist.
+
+    ``audit_id`` may name the entry appended right after this row in the same transaction (the entry
+    records the row's digest), so the foreign key is checked at commit.
+    """
+    connection.execute("PRAGMA defer_foreign_keys = ON")
     cursor = connection.execute(
         "INSERT INTO reviews (case_id, status, note, actor, at_utc, flags, p_follow_up, as_of, audit_id) "
         "SELECT id, ?, ?, ?, ?, ?, ?, ?, ? FROM cases WHERE case_code = ?",

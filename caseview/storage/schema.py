@@ -84,8 +84,15 @@ CREATE TABLE case_scores (run_id INTEGER NOT NULL REFERENCES score_runs(id) ON D
 CREATE TABLE settings (key TEXT PRIMARY KEY, value TEXT NOT NULL);
 """
 
+#: Digest of every protected record as last recorded in the audit trail (a locator only: the evidence is
+#: the trail; see caseview.storage.row_digests). Opening an older workspace records a baseline entry.
+ROW_DIGESTS = """
+CREATE TABLE row_digests (set_name TEXT NOT NULL, key TEXT NOT NULL, digest TEXT NOT NULL,
+  PRIMARY KEY (set_name, key)) WITHOUT ROWID;
+"""
+
 #: Forward migrations; ``MIGRATIONS[k - 1]`` takes version ``k - 1`` to ``k``.
-MIGRATIONS: list[str] = [SCHEMA_V1]
+MIGRATIONS: list[str] = [SCHEMA_V1, ROW_DIGESTS]
 
 
 def schema_version() -> int:

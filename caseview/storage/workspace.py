@@ -28,8 +28,8 @@ from . import schema as _schema
 from .caseload import Caseload, load_caseload
 from .contacts import register_model_fields
 from .filesystem import network_warning
+from .row_digests import LAYOUT_TABLES, RowChanges
 
-SQLITE_MAGIC = b"SQLite format 3\x00"
 DEFAULT_BUSY_TIMEOUT_MS = 5000
 
 
@@ -47,6 +47,22 @@ def _busy_message(path) -> str:
     return f"workspace busy: another caseview process is writing to {path}; try again when it finishes"
 
 
+def _disk_hint(path, exc) -> str:
+    """' - the disk is full' when SQLite's error comes from a full disk (SQLITE_FULL, or an I/O error
+    while the folder has almost no space left), else ''."""
+    text = str(exc).lower()
+    if "disk is full" in text:
+        return "; the disk is full (no space left on device)"
+    if "disk i/o error" in text:
+        try:
+            stats = os.statvfs(Path(path).absolute().parent)
+        except OSError:
+            return ""
+        if stats.f_bavail * stats.f_frsize < 1 << 20:
+            return "; the disk is full (no space left on device)"
+    return ""
+
+
 def _is_busy(exc: sqlite3.OperationalError) -> bool:
     text = str(exc).lower()
     return "locked" in text or "busy" in text
@@ -55,8 +71,10 @@ def _is_busy(exc: sqlite3.OperationalError) -> bool:
 class Workspace:
     """An open workspace. Use :meth:`create` or :meth:`open`; close with :meth:`close` or ``with``."""
 
-    def __init__(self, path, busy_timeout_ms: int | None = None):
+    def __init__(self, path, busy_timeout_ms: int | None = None, read_only: bool = False):
         self.path = Path(path)
+        self.read_only = bool(read_only)
+        self._immutable = False
         if busy_timeout_ms is None:
             busy_timeout_ms = int(os.environ.get("CASEVIEW_BUSY_TIMEOUT_MS", DEFAULT_BUSY_TIMEOUT_MS))
         self.busy_timeout_ms = int(busy_timeout_ms)
@@ -70,18 +88,40 @@ class Workspace:
     # ------------------------------------------------------------ connections
     def _connect(self) -> sqlite3.Connection:
         try:
-            con = sqlite3.connect(str(self.path), isolation_level=None, check_same_thread=False,
-                                  timeout=self.busy_timeout_ms / 1000.0)
+            if self.read_only:
+                con = self._connect_read_only()
+            else:
+                con = sqlite3.connect(str(self.path), isolation_level=None, check_same_thread=False,
+                                      timeout=self.busy_timeout_ms / 1000.0)
             con.execute(f"PRAGMA busy_timeout = {self.busy_timeout_ms}")
             con.execute("PRAGMA foreign_keys = ON")
             con.execute("PRAGMA synchronous = FULL")
         except sqlite3.OperationalError as exc:
             if _is_busy(exc):
                 raise WorkspaceBusy(_busy_message(self.path)) from None
-            raise WorkspaceError(f"{self.path}: cannot open workspace ({exc})") from None
+            raise WorkspaceError(f"{self.path}: cannot open workspace ({exc}){_disk_hint(self.path, exc)}") from None
         except sqlite3.DatabaseError as exc:
             raise WorkspaceError(f"{self.path}: not a caseview workspace ({exc})") from None
         return con
+
+    def _connect_read_only(self) -> sqlite3.Connection:
+        """``mode=ro``; when SQLite cannot even make the shared-memory file (a read-only folder with no
+        -shm beside the file), ``immutable=1``: nothing can change a file nobody can write."""
+        from urllib.parse import quote
+
+        base = "file:" + quote(str(self.path.absolute()))
+        for query in (("?mode=ro&immutable=1",) if self._immutable else ("?mode=ro", "?mode=ro&immutable=1")):
+            con = sqlite3.connect(base + query, uri=True, isolation_level=None, check_same_thread=False,
+                                  timeout=self.busy_timeout_ms / 1000.0)
+            try:
+                con.execute("SELECT COUNT(*) FROM sqlite_master").fetchone()
+                self._immutable = "immutable" in query
+                return con
+            except sqlite3.OperationalError as exc:
+                con.close()
+                if "immutable" in query or "unable to open" not in str(exc):
+                    raise
+        raise AssertionError("unreachable")
 
     @property
     def connection(self) -> sqlite3.Connection:
@@ -127,6 +167,9 @@ class Workspace:
         if not path.parent.exists():
             raise WorkspaceError(f"{path.parent}: folder does not exist")
         parse_model(model_json, source="model")  # InputError before any file is made
+        from ..private_files import create_private_file
+
+        create_private_file(path)  # 0600 from the start; SQLite gives -wal/-shm the same mode
         ws = cls(path, busy_timeout_ms)
         try:
             con = ws.connection
@@ -149,46 +192,68 @@ class Workspace:
         return ws
 
     @classmethod
-    def open(cls, path, busy_timeout_ms: int | None = None) -> "Workspace":
-        """Open an existing workspace, migrating it forward (after a backup) if it is older."""
+    def open(cls, path, busy_timeout_ms: int | None = None, read_only: bool | None = None) -> "Workspace":
+        """Open an existing workspace, migrating it forward (after a backup) if it is older.
+
+        ``read_only``: True opens it for reading only (SQLite ``mode=ro``; writes are refused); None
+        (default) does so when the file or its folder cannot be written (a read-only file system or
+        permissions), False never.
+        """
         path = Path(path)
         if not path.exists():
             raise WorkspaceError(f"{path}: no such workspace (create one with 'caseview init')")
         if not path.is_file():
             raise WorkspaceError(f"{path}: not a file, so not a caseview workspace")
-        try:
-            with open(path, "rb") as fh:
-                head = fh.read(100)
-        except OSError as exc:
-            raise WorkspaceError(f"{path}: cannot read ({exc.strerror})") from None
-        if len(head) < 100 or not head.startswith(SQLITE_MAGIC):
-            raise WorkspaceError(f"{path}: not a caseview workspace (not an SQLite database file)")
-        ws = cls(path, busy_timeout_ms)
+        if read_only is None:
+            read_only = not (os.access(path, os.W_OK) and os.access(path.absolute().parent, os.W_OK))
+        # The header is read through SQLite, never with a plain open(): closing any descriptor of the
+        # file drops every POSIX lock this process holds on it, so another process would think it
+        # is the last user and delete the WAL under our other connections (SQLite, "How To Corrupt
+        # An SQLite Database File", section 2.2). In WAL mode the newest header may also sit in the -wal.
+        ws = cls(path, busy_timeout_ms, read_only=read_only)
         try:
             con = ws.connection
-            # read through SQLite: in WAL mode the newest header may still sit in the -wal file
-            if con.execute("PRAGMA application_id").fetchone()[0] != _schema.APPLICATION_ID:
+            try:
+                application_id = con.execute("PRAGMA application_id").fetchone()[0]
+            except sqlite3.DatabaseError as exc:
+                if "not a database" in str(exc) or "file is encrypted" in str(exc):
+                    raise WorkspaceError(f"{path}: not a caseview workspace (not an SQLite database file)") from None
+                raise
+            if application_id != _schema.APPLICATION_ID:
                 raise WorkspaceError(f"{path}: not a caseview workspace (an SQLite file of another program)")
             version = con.execute("PRAGMA user_version").fetchone()[0]
             current = _schema.schema_version()
             if version > current:
                 raise WorkspaceError(f"{path}: workspace was written by a newer caseview (schema version {version}; "
                                      f"this caseview understands up to {current}); update caseview")
+            if version < current and read_only:
+                raise WorkspaceError(f"{path}: this workspace must be upgraded (schema version {version} to {current}) "
+                                     "and it is read-only here; open it once with write access (nothing was changed)")
             if version < current:
                 ws._migrate(version)
             mode = con.execute("PRAGMA journal_mode").fetchone()[0]
-            if str(mode).lower() != "wal":
+            if str(mode).lower() != "wal" and not read_only:
                 con.execute("PRAGMA journal_mode = WAL")
         except sqlite3.DatabaseError as exc:
             ws.close()
             if isinstance(exc, sqlite3.OperationalError) and _is_busy(exc):
                 raise WorkspaceBusy(_busy_message(path)) from None
-            raise WorkspaceError(f"{path}: cannot use workspace ({exc})") from None
+            raise WorkspaceError(f"{path}: cannot use workspace ({exc}){_disk_hint(path, exc)}") from None
         except BaseException:
             ws.close()
             raise
         ws._check_network()
         return ws
+
+    def is_own_file(self, path) -> bool:
+        """True when ``path`` is this workspace's file or its -wal/-shm/-journal (compared with stat, never opened)."""
+        for suffix in ("", "-wal", "-shm", "-journal"):
+            try:
+                if os.path.samefile(path, str(self.path) + suffix):
+                    return True
+            except OSError:
+                continue
+        return False
 
     def _check_network(self) -> None:
         warning = network_warning(self.path)
@@ -203,6 +268,7 @@ class Workspace:
             con.execute(f"PRAGMA user_version = {number}")
 
     def _migrate(self, from_version: int) -> None:
+        digests_from = _schema.MIGRATIONS.index(_schema.ROW_DIGESTS) + 1
         stamp = _dt.datetime.now(_dt.timezone.utc).strftime("%Y%m%dT%H%M%SZ")
         backup_path = self.path.with_name(f"{self.path.name}.v{from_version}-backup-{stamp}")
         self.backup(backup_path, actor=None)
@@ -211,6 +277,9 @@ class Workspace:
             _audit.append(self.connection, "caseview", "workspace.migrate", self.path.name,
                           {"from_version": from_version, "to_version": _schema.schema_version(),
                            "backup": backup_path.name})
+            if from_version < digests_from:  # records made before row digests: the trail takes them as they are
+                _audit.append(self.connection, "caseview", "audit.baseline", self.path.name,
+                              {"note": "baseline digest of existing rows"}, changes=RowChanges.everything())
         self.warnings.append(f"workspace upgraded from schema version {from_version} to "
                              f"{_schema.schema_version()}; the old file was kept as {backup_path}")
 
@@ -219,6 +288,9 @@ class Workspace:
     def transaction(self):
         """``BEGIN IMMEDIATE`` ... ``COMMIT`` (``ROLLBACK`` on any exception); nested calls join."""
         con = self.connection
+        if self.read_only:
+            raise WorkspaceError(f"{self.path}: the workspace is open read-only (the file or its folder cannot be "
+                                 "written); nothing was changed")
         if self._local.depth:
             self._local.depth += 1
             try:
@@ -235,10 +307,16 @@ class Workspace:
         self._local.depth = 1
         try:
             yield con
+        except sqlite3.DatabaseError as exc:  # never a silent or raw SQLite error for the user
+            self._local.depth = 0
+            self._rollback(con)
+            if isinstance(exc, sqlite3.OperationalError) and _is_busy(exc):
+                raise WorkspaceBusy(_busy_message(self.path)) from None
+            raise WorkspaceError(f"{self.path}: write failed, nothing was changed ({exc}){_disk_hint(self.path, exc)}"
+                                 ) from None
         except BaseException:
             self._local.depth = 0
-            if con.in_transaction:
-                con.execute("ROLLBACK")
+            self._rollback(con)
             raise
         self._local.depth = 0
         try:
@@ -248,28 +326,68 @@ class Workspace:
                 con.execute("ROLLBACK")
             if _is_busy(exc):
                 raise WorkspaceBusy(_busy_message(self.path)) from None
-            raise WorkspaceError(f"{self.path}: write failed, nothing was changed ({exc})") from None
+            raise WorkspaceError(f"{self.path}: write failed, nothing was changed ({exc}){_disk_hint(self.path, exc)}"
+                                 ) from None
+
+    @staticmethod
+    def _rollback(con) -> None:
+        if con.in_transaction:
+            try:
+                con.execute("ROLLBACK")
+            except sqlite3.Error:  # SQLite already rolled back (e.g. after a disk error)
+                pass
 
     # ------------------------------------------------------------ backup
     def backup(self, destination, actor: str | None = None) -> Path:
-        """Copy the workspace with SQLite's online backup API (consistent while others read)."""
+        """Copy the workspace with SQLite's online backup API (consistent while others read).
+
+        The copy is written to a 0600 partial file, checked with ``PRAGMA integrity_check`` and only
+        then moved to ``destination``; the audit entry (with ``actor``) is written after that, so a
+        failed or interrupted backup leaves neither a file nor an entry.
+        """
+        from ..private_files import create_private_file, describe_os_error, partial_path
+
         destination = Path(destination)
-        if destination.exists():
+        if destination.exists() or destination.is_symlink():
             raise WorkspaceError(f"{destination} already exists; choose a new backup path")
-        if actor is not None:
-            self.audit_append(actor, "workspace.backup", self.path.name, {"destination": str(destination)})
+        if not destination.parent.is_dir():
+            raise WorkspaceError(f"{destination.parent}: folder does not exist")
+        if actor is not None and self.read_only:
+            raise WorkspaceError(f"{self.path}: the workspace is open read-only, so a backup cannot be recorded in "
+                                 "its audit trail; nothing was changed")
+        temporary = partial_path(destination)
+        placed = done = False
         try:
-            target = sqlite3.connect(str(destination))
+            temporary.unlink(missing_ok=True)
+            create_private_file(temporary)
+            target = sqlite3.connect(str(temporary))
             try:
                 self.connection.backup(target)
+                check = target.execute("PRAGMA integrity_check").fetchall()
             finally:
                 target.close()
+            if check != [("ok",)]:
+                raise WorkspaceError(f"backup to {destination} failed: the copy did not pass SQLite's integrity "
+                                     f"check ({check[0][0]}); nothing was kept")
+            os.replace(temporary, destination)
+            placed = True
+            if actor is not None:
+                self.audit_append(actor, "workspace.backup", self.path.name,
+                                  {"destination": str(destination), "integrity_check": "ok"})
+            done = True
         except sqlite3.Error as exc:
-            try:
-                destination.unlink()
-            except OSError:
-                pass
-            raise WorkspaceError(f"backup to {destination} failed ({exc})") from None
+            raise WorkspaceError(f"backup to {destination} failed ({exc}); nothing was kept") from None
+        except OSError as exc:
+            raise WorkspaceError(describe_os_error(destination, exc)) from None
+        finally:
+            leftovers = [str(temporary) + suffix for suffix in ("", "-wal", "-shm", "-journal")]
+            if placed and not done:  # the entry could not be written: the copy goes too
+                leftovers.append(str(destination))
+            for name in leftovers:
+                try:
+                    os.unlink(name)
+                except OSError:
+                    pass
         return destination
 
     # ------------------------------------------------------------ models
@@ -303,7 +421,11 @@ class Workspace:
         model = parse_model(json_text, source="model")
         summary = _audit.canonical_json(fit_summary) if fit_summary is not None else None
         with self.transaction() as con:
+            width = con.execute("SELECT (SELECT COUNT(*) FROM channels), (SELECT COUNT(*) FROM covariates)").fetchone()
             register_model_fields(con, model)
+            widened = width != con.execute("SELECT (SELECT COUNT(*) FROM channels), "
+                                           "(SELECT COUNT(*) FROM covariates)").fetchone()
+            old = con.execute("SELECT id FROM model_versions WHERE is_current = 1").fetchone()
             version_id = con.execute(
                 "INSERT INTO model_versions (created_utc, note, json_text, fit_summary, is_current) "
                 "VALUES (?, ?, ?, ?, 0)", (_audit.utc_now(), note or "", json_text, summary)).lastrowid
@@ -314,8 +436,10 @@ class Workspace:
                        "model_sha256": hashlib.sha256(json_text.encode("utf-8")).hexdigest()}
             if fit_summary is not None:
                 details["fit_summary"] = fit_summary
+            changes = RowChanges(rows={"model_versions": [version_id] + ([old[0]] if old else [])},
+                                 all_rows=LAYOUT_TABLES, all_cases=widened)  # new fields widen every contact
             _audit.append(con, actor, "model.fit" if fit_summary is not None else "model.add",
-                          f"model:{version_id}", details)
+                          f"model:{version_id}", details, changes=changes)
         return version_id
 
     def set_current_model(self, version_id: int, actor: str) -> None:
@@ -328,7 +452,8 @@ class Workspace:
             con.execute("UPDATE model_versions SET is_current = 0 WHERE is_current = 1")
             con.execute("UPDATE model_versions SET is_current = 1 WHERE id = ?", (int(version_id),))
             _audit.append(con, actor, "model.current", f"model:{version_id}",
-                          {"version": int(version_id), "previous": old[0] if old else None})
+                          {"version": int(version_id), "previous": old[0] if old else None},
+                          changes=RowChanges(rows={"model_versions": [int(version_id)] + ([old[0]] if old else [])}))
 
     # ------------------------------------------------------------ contacts
     def load_caseload(self, model, as_of_day: int | None = None) -> Caseload:
@@ -364,16 +489,39 @@ class Workspace:
     def integrity_check(self) -> str:
         return self.connection.execute("PRAGMA integrity_check").fetchone()[0]
 
+    def integrity_report(self, max_problems: int = 100) -> list:
+        """SQLite's ``PRAGMA integrity_check``: ``["ok"]`` or up to ``max_problems`` descriptions."""
+        return [row[0] for row in self.connection.execute(f"PRAGMA integrity_check({int(max_problems)})")]
+
     # ------------------------------------------------------------ audit
-    def audit_append(self, actor: str, action: str, target: str, details: dict) -> _audit.AuditEntry:
+    def audit_append(self, actor: str, action: str, target: str, details: dict, changes: RowChanges | None = None,
+                     at_utc: str | None = None) -> _audit.AuditEntry:
+        """Append an audit entry; ``changes`` names the protected rows this write changed (see
+        :class:`caseview.storage.row_digests.RowChanges`; call after writing them, same transaction)."""
         with self.transaction() as con:
-            return _audit.append(con, actor, action, target, details)
+            return _audit.append(con, actor, action, target, details, changes=changes, at_utc=at_utc)
+
+    def next_audit_entry_id(self) -> int:
+        """Id the next audit entry will get (stable inside a write transaction)."""
+        return _audit.next_entry_id(self.connection)
 
     def audit_entries(self, case_id: str | None = None, since_utc: str | None = None) -> list[_audit.AuditEntry]:
         return _audit.entries(self.connection, case_id, since_utc)
 
-    def audit_verify(self) -> _audit.AuditVerification:
-        return _audit.verify(self.connection)
+    def audit_verify(self, rows: bool = True) -> _audit.AuditVerification:
+        """The chain and (with ``rows``) every protected record against the trail, in one read snapshot."""
+        con = self.connection
+        if con.in_transaction:
+            return _audit.verify(con, rows)
+        con.execute("BEGIN")  # one consistent snapshot while others write
+        try:
+            return _audit.verify(con, rows)
+        finally:
+            con.execute("COMMIT")
+
+    def audit_position(self, entry_hash: str) -> tuple[int | None, int]:
+        """(id of the entry with ``entry_hash`` or None, id of the newest entry)."""
+        return _audit.position_of(self.connection, entry_hash)
 
     def audit_head(self) -> str:
         return _audit.head(self.connection)
@@ -390,7 +538,8 @@ class Workspace:
             con.execute("INSERT INTO settings (key, value) VALUES (?, ?) "
                         "ON CONFLICT(key) DO UPDATE SET value = excluded.value", (key, text))
             _audit.append(con, actor, "setting.change", f"setting:{key}",
-                          {"key": key, "old": json.loads(row[0]) if row else None, "new": value})
+                          {"key": key, "old": json.loads(row[0]) if row else None, "new": value},
+                          changes=RowChanges(rows={"settings": [key]}))
 
 
 def _split_sql(script: str) -> list[str]:

@@ -8,7 +8,6 @@ the importer never accepts such codes, so this only matters for odd model catego
 from __future__ import annotations
 
 import hashlib
-import os
 from dataclasses import dataclass
 from pathlib import Path
 
@@ -26,6 +25,7 @@ class ExportResult:
     cases: int
     sha256: str
     audit_head: str
+    recorded: bool = True  # False: the workspace was read-only, so no audit entry
 
 
 def escape_text(values: np.ndarray) -> np.ndarray:
@@ -81,16 +81,25 @@ def timeline_table(ws):
 
 
 def export_timelines(ws, out_path, actor: str) -> ExportResult:
-    """Write the timelines to ``out_path`` (.csv or .xlsx), record the export, return the chain head."""
+    """Write the timelines to ``out_path`` (.csv or .xlsx), record the export, return the chain head.
+
+    The file is written owner-only (0600) to a partial file and moved into place when complete
+    (:func:`caseview.private_files.private_output`). On a read-only workspace the export is written
+    but cannot be recorded (``ExportResult.recorded`` is False).
+    """
+    from ..private_files import private_output
+
     out_path = Path(out_path)
     suffix = out_path.suffix.lower()
     if suffix not in (".csv", ".xlsx"):
         raise InputError(f"{out_path}: expected an output file ending in .csv or .xlsx")
     if not out_path.parent.exists():
         raise InputError(f"{out_path.parent}: folder does not exist")
+    if ws.is_own_file(out_path):
+        raise InputError(f"{out_path}: this is the workspace file itself; choose another output file")
     table, n_cases = timeline_table(ws)
-    temporary = out_path.with_name(f".{out_path.name}.partial-{os.getpid()}")
-    try:
+    recorded = not ws.read_only
+    with private_output(out_path) as temporary:
         if suffix == ".csv":
             table.to_csv(temporary, index=False, encoding="utf-8", lineterminator="\n")
         else:
@@ -99,16 +108,12 @@ def export_timelines(ws, out_path, actor: str) -> ExportResult:
         with open(temporary, "rb") as fh:
             for block in iter(lambda: fh.read(1 << 20), b""):
                 digest.update(block)
-        entry = ws.audit_append(actor, "export", out_path.name,
-                                {"file": out_path.name, "rows": int(len(table)), "cases": n_cases,
-                                 "sha256": digest.hexdigest()})
-        os.replace(temporary, out_path)
-    except OSError as exc:
-        raise InputError(f"{out_path}: cannot write ({exc.strerror})") from None
-    finally:
-        if temporary.exists():
-            temporary.unlink()
-    return ExportResult(str(out_path), int(len(table)), n_cases, digest.hexdigest(), entry.entry_hash)
+        head = ws.audit_head()
+        if recorded:  # the entry commits just before the file is moved into place
+            head = ws.audit_append(actor, "export", out_path.name,
+                                   {"file": out_path.name, "rows": int(len(table)), "cases": n_cases,
+                                    "sha256": digest.hexdigest()}).entry_hash
+    return ExportResult(str(out_path), int(len(table)), n_cases, digest.hexdigest(), head, recorded)
 
 
 def _write_xlsx(table, path) -> None:
@@ -132,4 +137,6 @@ def _write_xlsx(table, path) -> None:
                 cell.data_type = "s"  # text, never a formula
                 cells.append(cell)
         sheet.append(cells)
-    book.save(path)
+    from caseview.private_files import save_workbook
+
+    save_workbook(book, path)  # no traceback from openpyxl on a full disk

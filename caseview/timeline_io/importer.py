@@ -159,6 +159,8 @@ def import_timelines(ws, path, actor: str, mapping: dict | None = None, drop=(),
 
     report = progress or (lambda fraction: None)
     report(0.0)
+    if ws.is_own_file(path):  # reading it with open() would drop this process's SQLite locks on it
+        raise InputError(f"{path}: this is the workspace file itself, not a timeline file; nothing was imported")
     facts = scan_file(path)
     report(0.05)
     model, version = ws.current_model()
@@ -212,7 +214,8 @@ def import_timelines(ws, path, actor: str, mapping: dict | None = None, drop=(),
                 details["case_ids"] = sorted({d["case_id"] for d in counts.replaced_details})
             if check_only:
                 raise _RollBack()
-            entry = ws.audit_append(actor, "import.replace" if counts.replaced else "import", facts.path.name, details)
+            entry = ws.audit_append(actor, "import.replace" if counts.replaced else "import", facts.path.name, details,
+                                    changes=counts.row_changes)
     except _RollBack:
         entry = None
     except ContactConflicts as conflict:

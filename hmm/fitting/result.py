@@ -18,6 +18,11 @@ from .summary import FitIteration, FitSummary
 __all__ = ["FitResult", "StartResult", "FitProgress"]
 
 
+def _finite(value) -> float | None:
+    value = float(value)
+    return value if np.isfinite(value) else None
+
+
 @dataclass(frozen=True)
 class StartResult:
     """Where one start of the optimiser ended.
@@ -150,7 +155,8 @@ class FitResult:
             hazard_ratios=tuple(self.hazard_ratios), mean_time_in_stage=tuple(self.mean_time_in_stage),
             next_stage_probabilities=tuple(self.next_stage_probabilities), history=tuple(self.history),
             interval_kind=self.interval_kind, interval_reason=self.interval_reason,
-            condition_number=self.condition_number)
+            condition_number=self.condition_number,
+            covariance=tuple(tuple(_finite(v) for v in row) for row in np.asarray(self.covariance, dtype=float)))
 
     def format_table(self) -> str:
         """A plain-text table for a terminal: estimates with 95% intervals, then fit statistics."""

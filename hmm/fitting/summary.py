@@ -72,6 +72,9 @@ class FitSummary:
         ISO date: the fit used contacts up to and including it; None: every stored contact.
     fitted_from_version : int or None
         The model version the fit started from.
+    covariance : tuple of tuple of (float or None), or None
+        Inverse observed information on the unconstrained scale, order ``free_parameters`` (None when
+        not computed; non-finite entries None). The outlook draws parameters from it.
     format_version : int
     """
 
@@ -99,6 +102,7 @@ class FitSummary:
     condition_number: float | None = None
     contacts_as_of: str | None = None
     fitted_from_version: int | None = None
+    covariance: tuple | None = None
     format_version: int = field(default=SUMMARY_FORMAT_VERSION)
 
     # ------------------------------------------------------------ reading
@@ -171,6 +175,8 @@ class FitSummary:
             "interval_kind": self.interval_kind, "interval_reason": self.interval_reason,
             "condition_number": _number(self.condition_number),
             "contacts_as_of": self.contacts_as_of, "fitted_from_version": self.fitted_from_version,
+            # unconstrained scale, order free_parameters; the outlook draws parameters from it
+            "covariance": None if self.covariance is None else [[_number(v) for v in row] for row in self.covariance],
         }
 
     @classmethod
@@ -222,6 +228,8 @@ class FitSummary:
                 contacts_as_of=data.get("contacts_as_of"),
                 fitted_from_version=None if data.get("fitted_from_version") is None
                 else int(data["fitted_from_version"]),
+                covariance=None if data.get("covariance") is None
+                else tuple(tuple(_number(v) for v in row) for row in data["covariance"]),
             )
         except (KeyError, TypeError, ValueError) as exc:
             raise ValueError(f"fit summary is not readable ({type(exc).__name__}: {exc})") from None

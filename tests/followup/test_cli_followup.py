@@ -48,8 +48,12 @@ def test_flags_csv_and_summary(ws_path, tmp_path, capsys):
     assert set(table["review_status"]) == {"new"}
     assert (table["advisory"] == ADVISORY_NOTICE).all()
     assert all("in_follow_up_now" in f.split(";") for f in table["flags"])
-    assert table["reason"].str.contains("P\\(follow-up stage now\\) 0\\.\\d\\d >= 0\\.50").all()
-    assert (table["next_contact_due"] == "2026-11-30").all()  # already over: due now
+    # plain sentences in the reason column; the numbers stay in their own columns
+    assert table["reason"].str.contains(r"in a follow-up stage now \(\d+%; the threshold is 50%\)\.").all()
+    assert table["reason"].str.contains(r"The contact on 2026-11-2\d \(.*\) raised this by \d+ points?\.").all()
+    # already over the threshold: due on the day it got there (after the last contact), so overdue
+    due = dict(zip(table["case_id"], table["next_contact_due"]))
+    assert "2026-11-20" <= due["HS-0001"] < "2026-11-30" and "2026-11-25" <= due["HS-0003"] < "2026-11-30"
     assert out.rstrip().endswith(ADVISORY_NOTICE)
     assert "2 of 3 cases flagged" in out and "saved score run" in out
     with Workspace.open(ws_path) as ws:
@@ -72,6 +76,7 @@ def test_review_then_flags_shows_it(ws_path, tmp_path, capsys):
     table = pd.read_csv(out_csv).set_index("case_id")
     assert table.loc["HS-0001", "review_status"] == "acknowledged"
     assert table.loc["HS-0001", "reviewed_by"] == "sup1"
+    assert table.loc["HS-0001", "review_note"] == "seen"   # the note travels with the flag
     code, out, err = run(capsys, "reviews", ws_path, "--status", "acknowledged")
     assert code == 0 and "HS-0001" in out and "sup1" in out
     code, out, err = run(capsys, "reviews", ws_path, "--coordinator", "C2")

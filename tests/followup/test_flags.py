@@ -64,7 +64,9 @@ def test_in_follow_up_now_fires_exactly_over_threshold(demo_model, demo_scores):
     assert expected[[0, 2, 5]].all() and not expected[[1, 3, 4]].any()  # the construction works
     reason = a.reasons[0][0]
     assert reason.rule == "in_follow_up_now" and reason.threshold == 0.5
-    assert reason.message == f"P(follow-up stage now) {demo_scores.p_follow_up_now[0]:.2f} >= 0.50"
+    p = demo_scores.p_follow_up_now[0]
+    assert reason.message.endswith(f"in a follow-up stage now ({p * 100:.0f}%; the threshold is 50%).")
+    assert reason.value == pytest.approx(p)
     assert a.reason_text[1] == "" and a.flags[1] == ""
 
 
@@ -115,7 +117,7 @@ def test_long_gap_uncertain(demo_model, demo_scores):
     assert demo_scores.p_now[4, demo_model.stage_index("Moved to residential care")] == pytest.approx(1.0)
     gap = day(AS_OF) - day("2026-05-01")
     message = a.reasons[3][0].message
-    assert message.startswith(f"{gap} days since last contact >= 112") and "< 0.60" in message
+    assert message.startswith(f"Not seen for {gap} days (the limit is 112)") and "(under 60%)" in message
     # Raising the day threshold past the gap switches it off; certainty 0.2 also does.
     stricter = default_rules().with_changes([f"long_gap_uncertain.threshold={gap + 1}"])
     assert not fired(assess_scores(demo_scores, stricter), "long_gap_uncertain").any()
@@ -130,7 +132,8 @@ def test_sharp_rise_needs_a_previous_value_and_a_big_enough_rise(demo_scores):
     np.testing.assert_array_equal(fired(a, "sharp_rise"), [True, False, False, False, False, True])
     reason = next(r for r in a.reasons[0] if r.rule == "sharp_rise")
     assert reason.value == pytest.approx(0.30)
-    assert f"from {previous[0]:.2f}" in reason.message and "+0.30 >= +0.20" in reason.message
+    assert f"(from {previous[0] * 100:.0f}% to {p[0] * 100:.0f}%" in reason.message
+    assert "rose by 30 points" in reason.message and "a rise of 20 points" in reason.message
     assert not fired(assess_scores(demo_scores, default_rules()), "sharp_rise").any()  # no previous run
 
 

@@ -5,6 +5,7 @@ from __future__ import annotations
 
 import numpy as np
 import pytest
+from PySide6.QtCore import Qt
 
 from caseview.gui.main_window import MainWindow
 
@@ -35,11 +36,11 @@ def test_reasons_arrive_after_the_table_and_match_the_cli(window, qtbot, workspa
     flagged = np.flatnonzero(a.is_flagged)
     assert flagged.size and all(a.reason_text[r] for r in flagged)
     # the risk queue's tooltips and the table's tooltip show them
-    last = window.risk_queue.table.columnCount() - 1
-    assert window.risk_queue.table.item(0, last).toolTip() == a.reason_text[window.risk_queue.rows[0]]
+    queue_model = window.risk_queue.model
+    last = queue_model.columnCount() - 1
+    assert queue_model.data(queue_model.index(0, last), Qt.ToolTipRole) == a.reason_text[window.risk_queue.rows[0]]
     model = window.caseload.model
     from caseview.gui.caseload_model import FLAGS
-    from PySide6.QtCore import Qt
 
     view_row = model.view_row_of_case(str(a.scores.case_ids[flagged[0]]))
     assert model.data(model.index(view_row, FLAGS), Qt.ToolTipRole) == a.reason_text[flagged[0]]
@@ -52,17 +53,16 @@ def test_selected_case_is_explained_on_the_spot(window, qtbot, workspace_path):
         assert window.open_workspace(workspace_path)
     a = window.loaded.assessment
     queue = window.risk_queue
-    assert queue.table.rowCount() > 1
+    assert queue.model.rowCount() > 1
     second = int(queue.rows[1])
     assert not a.has_reasons(second)
-    last = queue.table.columnCount() - 1
-    assert "select it" in queue.table.item(1, last).toolTip()
+    last = queue.model.columnCount() - 1
+    assert "select it" in queue.model.data(queue.model.index(1, last), Qt.ToolTipRole)
     queue.table.selectRow(1)
     assert a.has_reasons(second) and "why flagged" in queue.reasons.text()
     assert a.reasons[second] and a.reasons[second][0].message in queue.reasons.text()
     # the caseload table's tooltip works it out too
     from caseview.gui.caseload_model import FLAGS
-    from PySide6.QtCore import Qt
 
     model = window.caseload.model
     third = int(queue.rows[2]) if queue.rows.size > 2 else second

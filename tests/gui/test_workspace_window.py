@@ -18,12 +18,13 @@ def test_review_flag_writes_audit_entry(window, qtbot, workspace_path):
     pytest.importorskip("caseview.followup")
     loaded = open_ws(window, qtbot, workspace_path)
     queue = window.risk_queue
-    assert loaded.assessment is not None and queue.table.rowCount() > 0
+    assert loaded.assessment is not None and queue.model.rowCount() > 0
     queue.table.selectRow(0)
-    case_id = queue.table.item(0, 0).text()
+    case_id = queue.model.text(queue.rows[0], 0)
     assert "why flagged" in queue.reasons.text()
     assert queue.acknowledge.isEnabled() and not queue.dismiss.isEnabled()  # new -> acknowledged only
     queue.note.setText("seen at the team meeting")
+    assert queue.model.text(queue.rows[0], 5) == "new"
     with qtbot.waitSignal(queue.review_recorded, timeout=10000) as blocker:
         queue.acknowledge.click()
     assert blocker.args == [case_id, "acknowledged"]

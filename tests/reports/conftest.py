@@ -57,7 +57,9 @@ def report_workspace(tmp_path_factory):
     path = tmp_path_factory.mktemp("reports") / "simulated.cvw"
     ws = Workspace.create(path, model_text, "tester")
     model, _ = ws.current_model()
-    ws.write_contacts(_simulated_batch(model, np.random.default_rng(20261130)))
+    with ws.transaction():  # audited like an import, so the audit trail covers the rows
+        counts = ws.write_contacts(_simulated_batch(model, np.random.default_rng(20261130)))
+        ws.audit_append("tester", "import", "simulated timelines", {}, changes=counts.row_changes)
     assessment = assess_caseload(ws, AS_OF, 90.0)
     flagged = [str(c) for c, f in zip(assessment.scores.case_ids, assessment.is_flagged) if f]
     assert len(flagged) >= 3, "the simulated caseload should have some flagged cases"

@@ -131,3 +131,17 @@ def test_unknown_date_mode_is_an_input_error():
 
     with pytest.raises(InputError, match="calendar, relative, shifted"):
         DateView("blurred", np.zeros(1, dtype=np.int64))
+
+
+def test_review_notes_are_left_out_of_deidentified_reports(relative_reports, calendar_reports):
+    # a note is free text a supervisor typed: it may name a person or a date, so a de-identified
+    # report shows that a note exists, never its words
+    from caseview.reports.records import NOTE_LEFT_OUT
+
+    relative = pd.read_csv(relative_reports["csv"].path)
+    calendar = pd.read_csv(calendar_reports["csv"].path)
+    assert (calendar["review_note"] == "seen at meeting").sum() == 1
+    assert "seen at meeting" not in relative_reports["csv"].path.read_text(encoding="utf-8")
+    assert (relative["review_note"] == NOTE_LEFT_OUT).sum() == 1
+    pdf_text = " ".join(pdf_page_texts(relative_reports["pdf"].path))
+    assert "seen at meeting" not in pdf_text

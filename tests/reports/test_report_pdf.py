@@ -38,6 +38,7 @@ def test_flagged_case_ids_and_review_status_in_text(calendar_reports, assessment
         assert case_id in flat
     # The one review recorded in the fixture is counted as done.
     assert re.search(r"\b1 reviewed by a supervisor", flat)
+    assert "seen at meeting" in flat  # the review's note is shown beside its status
     assert f"{len(flagged) - 1} outstanding" in flat
     assert "rates not fitted to this caseload" in flat.lower()
 
@@ -113,7 +114,9 @@ def test_flag_table_cap_lists_the_most_urgent_and_says_where_the_rest_are(report
     texts = pdf_page_texts(result.path)
     flat = squash(" ".join(texts))
     assert f"the 3 most urgent of {flagged.size:,}" in flat
-    assert f"{flagged.size - 3:,} more flagged case(s) are not listed in this PDF" in flat
+    left_out = flagged.size - 3
+    assert f"{left_out:,} more flagged case{'' if left_out == 1 else 's'} {'is' if left_out == 1 else 'are'} " \
+           "not listed in this PDF" in flat
     assert "Do not take a case's absence here to mean it needs no follow-up" in flat
     table = squash(" ".join(t for t in texts if "Flagged cases" in t))
     for r in urgent_first[:3]:

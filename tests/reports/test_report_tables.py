@@ -34,7 +34,7 @@ def test_workbook_sheets_caution_and_frozen_headers(calendar_reports):
     from openpyxl import load_workbook
 
     book = load_workbook(calendar_reports["xlsx"].path)
-    assert book.sheetnames == ["Summary", "Cases", "Flags", "Reviews", "Notes"]
+    assert book.sheetnames == ["Summary", "Cases", "Flags", "Reviews", "Outlook", "Notes"]
     for sheet in book.worksheets:
         assert sheet["A1"].value == ADVISORY_NOTICE
         assert sheet.freeze_panes in ("A3", "B3")
@@ -98,6 +98,15 @@ def test_flags_and_reviews_sheets(calendar_reports, scores):
     status = {r[0]: r[4] for r in reviews[1:]}
     assert list(status.values()).count("acknowledged") == 1
     assert reviews[0][4] == "review_status"
+    # the review note is in the report (issue 15 item 7), beside its status
+    assert reviews[0][-1] == "review_note"
+    notes = {r[0]: r[-1] for r in reviews[1:]}
+    acknowledged = next(c for c, st in status.items() if st == "acknowledged")
+    assert notes[acknowledged] == "seen at meeting"
+    # reasons are sentences; the numbers are in the value and threshold columns
+    message = header.index("message")
+    assert all(r[message].endswith(".") and ">=" not in r[message] for r in rows)
+    assert all(isinstance(r[header.index("value")], (int, float)) for r in rows)
 
 
 def test_csv_columns_and_values(calendar_reports, scores):
@@ -105,7 +114,8 @@ def test_csv_columns_and_values(calendar_reports, scores):
     expected = (["case_id", "coordinator", "as_of", "last_contact", "days_since_contact"]
                 + [f"p_{s}" for s in STAGE_COLUMNS] + ["most_likely_stage"]
                 + [f"p_{s}_at_horizon" for s in STAGE_COLUMNS]
-                + ["p_follow_up_now", "p_reach_follow_up", "flags", "next_contact_due", "review_status", "advisory"])
+                + ["p_follow_up_now", "p_reach_follow_up", "flags", "reasons", "next_contact_due", "review_status",
+                   "review_note", "advisory"])
     assert list(frame.columns) == expected
     assert len(frame) == scores.n_cases
     assert (frame["advisory"] == ADVISORY_NOTICE).all()

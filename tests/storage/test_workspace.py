@@ -78,18 +78,19 @@ def test_open_refuses_newer_version(ws):
 def test_migration_backs_up_first(ws, monkeypatch):
     path = ws.path
     ws.close()
+    before = schema.schema_version()
     migration_2 = "CREATE TABLE migration_two_marker (x INTEGER);"
     monkeypatch.setattr(schema, "MIGRATIONS", schema.MIGRATIONS + [migration_2])
     with Workspace.open(path) as upgraded:
-        assert upgraded.connection.execute("PRAGMA user_version").fetchone()[0] == 2
+        assert upgraded.connection.execute("PRAGMA user_version").fetchone()[0] == before + 1
         assert any("upgraded" in w for w in upgraded.warnings)
         actions = [e.action for e in upgraded.audit_entries()]
         assert actions[-1] == "workspace.migrate"
         assert upgraded.audit_verify().ok
-    backups = list(path.parent.glob(path.name + ".v1-backup-*"))
+    backups = list(path.parent.glob(path.name + f".v{before}-backup-*"))
     assert len(backups) == 1
     old = sqlite3.connect(backups[0])
-    assert old.execute("PRAGMA user_version").fetchone()[0] == 1
+    assert old.execute("PRAGMA user_version").fetchone()[0] == before
     assert old.execute("SELECT name FROM sqlite_master WHERE name = 'migration_two_marker'").fetchone() is None
     assert old.execute("PRAGMA integrity_check").fetchone()[0] == "ok"
     old.close()
