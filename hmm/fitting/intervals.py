@@ -176,7 +176,8 @@ def _profiled(table, problem: ProfileProblem, wald: list, callback) -> list:
                                note="estimated at the boundary with no standard error: weakly identified"))
             continue
         wald_se = _link_standard_error(estimate, links[j])
-        if wald_se > HOPELESS_STANDARD_ERROR:
+        # (no Wald interval at all - a flat direction elsewhere - is no reason to skip: the profile may be fine)
+        if math.isfinite(wald_se) and wald_se > HOPELESS_STANDARD_ERROR:
             out.append(replace(estimate, lower=None, upper=None, interval_kind=None, weakly_identified=True,
                                note=f"weakly identified: standard error {wald_se:.0f} on the "
                                     f"{links[j] if links[j] != 'identity' else 'log hazard ratio'} scale"))
