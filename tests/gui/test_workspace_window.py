@@ -133,11 +133,11 @@ def test_fit_in_worker_previews_then_asks_before_the_new_version_becomes_current
     assert fitted.fit_summary["fitted_from_version"] == current_before[0]
     entry = ws.audit_entries()[-1]
     assert entry.action == "model.fit" and entry.details["make_current"] is False
-    assert panel.preview.isVisible() and "stored but not current" in panel.preview.text.text()
+    assert not panel.preview.isHidden() and "stored but not current" in panel.preview.text.text()
     assert "flag" in panel.preview.text.text() and "Advisory only" in panel.preview.text.text()
     with qtbot.waitSignal(panel.fit_decided, timeout=10000) as decided:
         panel.use_fitted.click()
-    assert decided.args == [True] and not panel.preview.isVisible()
+    assert decided.args == [True] and panel.preview.isHidden()
     assert [v.id for v in ws.model_versions() if v.is_current] == [fitted.id]
     assert ws.audit_entries()[-1].action == "model.current"
     # the panel now shows fitted mean times in stage with intervals and their kind
