@@ -168,6 +168,7 @@ def model_from_dict(data: Any, source: str = "model") -> StageModel:
     exact = _string_list(p, data, "exact_entry_stages")
     for j, s in enumerate(exact):
         stage_ref(f"exact_entry_stages[{j}]", s)
+    _check_model_names(p, stages, channels, covariates)
     try:
         return StageModel(
             stages=tuple(stages), initial=init, transitions=tuple(transitions), channels=tuple(channels),
@@ -276,6 +277,15 @@ def _number(p: _Path, where: str, value, low: float | None = None, high: float |
     if high is not None and value > high:
         p.fail(where, f"must be <= {high:g}, got {value!r}")
     return float(value)
+
+
+def _check_model_names(p: _Path, stages: list, channels: list, covariates: list) -> None:
+    """The one naming rule (:mod:`caseview.model_names`); the first problem names its JSON path."""
+    from .model_names import model_name_problems
+
+    problems = model_name_problems(stages, [(c.name, c.categories) for c in channels], covariates)
+    if problems:
+        p.fail(*problems[0])
 
 
 def _bool(p: _Path, where: str, value) -> bool:

@@ -65,6 +65,10 @@ def estimates_from_dict(data: Any, source: str = "staff estimates") -> dict:
 
     stages = _string_list(p, data, "stages", required=True)
     _no_duplicates(p, "stages", stages)
+    from .model_names import model_name_problems
+
+    for where, message in model_name_problems(stages, [], [])[:1]:
+        p.fail(where, message)
 
     stays = {}
     for stage, value in _object(p, data, "typical_stay_days", "each stage's typical stay in days").items():

@@ -51,8 +51,10 @@ def add_actor_option(parser, what: str = "who is recorded in the audit trail") -
 def actor_name(args) -> str:
     """The name recorded in the audit trail: ``--by`` or the operating-system user (attribution only)."""
     from caseview.attribution import os_user
+    from caseview.textfiles import check_one_line
 
-    return getattr(args, "by", None) or os_user()
+    given = getattr(args, "by", None)
+    return check_one_line(given, "--by") if given else os_user()
 
 
 def open_workspace(path, read_only: bool | None = None):
@@ -82,15 +84,20 @@ def write_table(out: str, header: list, columns: list, advisory: bool = True) ->
     """Write columns (equal-length sequences of already formatted text) as CSV to a path or '-'.
 
     With ``advisory`` (the default) a last column ``advisory`` repeats the advisory notice on every
-    row, so the caution travels with any row copied out of the file.
+    row, so the caution travels with any row copied out of the file. Headers and text cells that a
+    spreadsheet would run as a formula are neutralised (:mod:`caseview.cell_text`), whatever the caller
+    passed in.
     """
     import csv
     import itertools
+
+    from caseview.cell_text import neutralise
 
     if advisory and columns:
         header = [*header, "advisory"]
         columns = [*columns, itertools.repeat(ADVISORY_NOTICE, len(columns[0]))]
     columns = [list(column) for column in columns]  # read once, whichever way they are written
+    header = [neutralise(str(name)) for name in header]   # a header is never a number
     body = _csv_body(columns)
 
     def write(handle):
@@ -99,7 +106,8 @@ def write_table(out: str, header: list, columns: list, advisory: bool = True) ->
         if body is not None:
             handle.write(body)
         else:
-            writer.writerows(zip(*columns) if columns else iter(()))
+            rows = zip(*columns) if columns else iter(())
+            writer.writerows([neutralise(v, keep_numbers=True) for v in row] for row in rows)
 
     if out == "-":
         write(sys.stdout)
@@ -124,6 +132,8 @@ def _csv_body(columns):
     import csv
     import io
 
+    from caseview.cell_text import neutralise_all, risky_joined
+
     if len(columns) < 2:
         return None
     cells = []
@@ -134,6 +144,9 @@ def _csv_body(columns):
             return None
         if joined.count("\x00") != max(len(column) - 1, 0):
             return None
+        if risky_joined(joined):
+            column = neutralise_all(column, keep_numbers=True)
+            joined = "\x00".join(column)
         if any(mark in joined for mark in _NEEDS_QUOTES):
             buffer = io.StringIO()
             writer = csv.writer(buffer, lineterminator="\n")
@@ -170,8 +183,10 @@ def format_days(days):
 
 
 def safe_text(values):
-    """Text cells that a spreadsheet could run as a formula get a leading apostrophe."""
-    return [("'" + v) if v[:1] in ("=", "+", "-", "@") else v for v in map(str, values)]
+    """Text cells that a spreadsheet could run as a formula get a leading apostrophe (:mod:`caseview.cell_text`)."""
+    from caseview.cell_text import neutralise_all
+
+    return neutralise_all([str(v) for v in values])
 
 
 # ---------------------------------------------------------------- score

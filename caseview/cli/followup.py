@@ -184,9 +184,12 @@ def run_reviews(args) -> int:
             return 0
     which = "review changes" if args.all else "reviewed cases"
     print(f"{len(rows)} {which}")
+    from caseview.textfiles import printable
+
     for r in rows:
         p = "    " if r.p_follow_up is None else f"{r.p_follow_up:.2f}"
-        print(f"  {r.case_id:<12} {r.coordinator:<6} {r.status:<12} {p}  {r.actor:<14} {r.at_utc[:19]}  {r.note}")
+        print(f"  {printable(r.case_id):<12} {printable(r.coordinator):<6} {r.status:<12} {p}  "
+              f"{printable(r.actor):<14} {r.at_utc[:19]}  {printable(r.note)}")
     return 0
 
 

@@ -42,6 +42,11 @@ def register(subparsers) -> None:
     p.add_argument("--check", action="store_true",
                    help="check the whole file (and clashes with stored contacts) and say what an import would do; "
                         "store nothing")
+    p.add_argument("--date-format", metavar="FORMAT",
+                   help="how the date column is written, as a strptime format, e.g. %%d/%%m/%%Y "
+                        "(default YYYY-MM-DD; date cells of a workbook are always read as dates)")
+    p.add_argument("--header-row", type=int, default=1, metavar="N",
+                   help="the row holding the column names (default 1); rows above it are ignored")
     add_actor_option(p)
     p.set_defaults(run=run_import)
 
@@ -120,20 +125,24 @@ def _mapping(pairs) -> dict:
 
 
 def run_import(args) -> int:
+    from pathlib import Path
+
     from caseview.timeline_io import import_timelines
 
     mapping = _mapping(args.map)
     with _open(args.workspace) as ws:
         result = import_timelines(ws, args.file, _actor(args), mapping=mapping, drop=args.drop, replace=args.replace,
-                                  check_only=args.check)
+                                  check_only=args.check, date_format=args.date_format, header_row=args.header_row)
         for warning in result.warnings:
             print(f"caseview: warning: {warning}", file=sys.stderr)
+        for note in result.notes:
+            print(f"caseview: note: {note}", file=sys.stderr)
         if result.check_only:
-            print(f"checked {result.file} (sha256 {result.sha256}, {result.rows_read} rows read): every row is valid; "
+            print(f"checked {Path(result.file).name} (sha256 {result.sha256}, {result.rows_read} rows read): every row is valid; "
                   "nothing was stored")
             verb = "would be "
         else:
-            print(f"imported {result.file} (sha256 {result.sha256}, {result.rows_read} rows read)")
+            print(f"imported {Path(result.file).name} (sha256 {result.sha256}, {result.rows_read} rows read)")
             verb = ""
         print(f"cases {verb}added: {result.cases_added}")
         print(f"contacts {verb}added: {result.contacts_added}")
@@ -240,10 +249,13 @@ def run_audit_show(args) -> int:
     with _open(args.workspace) as ws:
         entries = ws.audit_entries(case_id=args.case, since_utc=since)
         head = ws.audit_head()
+    from caseview.textfiles import printable
+
     for e in entries:
         details = json.dumps(e.details, sort_keys=True, ensure_ascii=False)
         if len(details) > 300:
             details = details[:297] + "..."
-        print(f"{e.id}\t{e.entry_hash}\t{e.at_utc}\t{e.actor}\t{e.action}\t{e.target}\t{details}")
+        fields = (e.id, e.entry_hash, e.at_utc, e.actor, e.action, e.target, details)
+        print("\t".join(printable(f) for f in fields))
     print(f"{len(entries)} entries shown; chain head {head}")
     return 0

@@ -10,9 +10,14 @@ allowed from the current status)::
     dismissed     -> new                          (automatic re-open only, actor "caseview")
 
 A case without any review has status ``new`` (when flagged). A dismissal needs a non-empty note
-giving the reason. Each change is stored in ONE transaction with its audit entry (action
-``review.<status>``, target the case ID; details: previous status, note, flags, P(follow-up now),
-as-of date). The actor is the operating-system user unless ``--by`` names someone: attribution,
+giving the reason. Notes and actor names are one line of plain text (no tabs, line breaks or other
+control characters: they would let a listing print a forged line), and a note goes through the
+identifier screen (:mod:`caseview.privacy`) like every imported value: a note that looks like it
+holds a direct identifier (a name with a title, a phone number, an address, a full date, ...) is
+refused, not masked, because a masked note would no longer say what its author meant; the
+message says what it looks like without repeating it. Each change is stored in ONE transaction
+with its audit entry (action ``review.<status>``, target the case ID; details: previous status,
+note, flags, P(follow-up now), as-of date). The actor is the operating-system user unless ``--by`` names someone: attribution,
 not authentication.
 
 Re-opening: a dismissed case whose P(follow-up stage now) at a later assessment (as-of date on or
@@ -57,6 +62,20 @@ def check_change(case_id: str, current: str, status: str, note: str) -> None:
                          f"from {current} the allowed status is {' or '.join(allowed)}")
     if status == "dismissed" and not (note or "").strip():
         raise InputError(f"review of {case_id}: a dismissal needs a reason; give it with --note TEXT")
+
+
+def check_note(case_id: str, note: str) -> str:
+    """The note, stripped; InputError when it has control characters or looks like it holds an identifier."""
+    from caseview import privacy
+    from caseview.textfiles import check_one_line
+
+    note = check_one_line(note, f"review of {case_id}: the note").strip()
+    finding = privacy.screen_value(note, "other") if note else None
+    if finding is not None:
+        raise InputError(f"review of {case_id}: the note {finding.description} (identifier rule {finding.rule}); "
+                         "notes are kept in the workspace and its audit trail for good, so they must not hold direct "
+                         "identifiers - describe the reason without them")
+    return note
 
 
 def _finite_or_none(value):
@@ -126,11 +145,14 @@ def record_review(ws, case_id: str, status: str, note: str, actor: str, assessme
     """
     from caseview.storage import followup_store as store
 
+    from caseview.textfiles import check_one_line
+
     if not actor or not str(actor).strip():
         raise InputError(f"review of {case_id}: the actor name is empty; give one with --by NAME")
+    check_one_line(actor, f"review of {case_id}: the name recorded (--by)")
+    note = check_note(case_id, note or "")
     if not store.case_exists(ws.connection, case_id):
         raise InputError(f"case {case_id!r}: no such case in {ws.path}")
-    note = (note or "").strip()
     # Validate against the stored status before the (possibly slow) scoring, then again inside
     # the write transaction so that a concurrent change cannot slip in between.
     previous = store.latest_reviews(ws.connection, case_id).get(case_id)

@@ -36,7 +36,7 @@ def write_csv(data, path) -> int:
     records = case_records(data)
     with open(path, "w", newline="", encoding="utf-8") as handle:
         writer = csv.writer(handle)
-        writer.writerow([columns[j] for j in keep] + ["advisory"])
+        writer.writerow([escape_text(columns[j]) for j in keep] + ["advisory"])
         for values in records:
             writer.writerow([_text(values[j]) for j in keep] + [ADVISORY_NOTICE])
     return len(records)

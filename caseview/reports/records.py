@@ -8,7 +8,6 @@ them ``<name>_day_relative`` and fills them with days since the case's first con
 from __future__ import annotations
 
 import datetime as dt
-import re
 
 import numpy as np
 
@@ -26,24 +25,22 @@ _SHORT = {
 #: What a de-identified report shows instead of a review note (free text may name people or dates).
 NOTE_LEFT_OUT = "(note left out of a de-identified report)"
 
-#: Leading characters a spreadsheet may treat as a formula (OWASP "CSV injection"; tab and
-#: carriage return included as OWASP recommends).
-FORMULA_START = ("=", "+", "-", "@", "\t", "\r")
+FORMULA_START = ("=", "+", "-", "@", "\t", "\r")   # kept for importers; the rule is caseview.cell_text
 
 
 def escape_text(value):
-    """Prefix formula-like text with an apostrophe so spreadsheets show it instead of running it.
+    """Formula-like text neutralised (the one rule: :func:`caseview.cell_text.neutralise`)."""
+    from caseview.cell_text import neutralise
 
-    Non-text values pass through unchanged (numbers stay numbers).
-    """
-    if isinstance(value, str) and value.startswith(FORMULA_START):
-        return "'" + value
-    return value
+    return neutralise(value)
 
 
 def stage_column(stage: str) -> str:
-    """``"Moved to residential care"`` -> ``"moved_to_residential_care"``."""
-    return re.sub(r"[^0-9a-z]+", "_", stage.lower()).strip("_") or "stage"
+    """``"Moved to residential care"`` -> ``"moved_to_residential_care"`` (:func:`caseview.model_names.column_key`,
+    which model loading uses to refuse two stages that would share a column)."""
+    from caseview.model_names import column_key
+
+    return column_key(stage)
 
 
 def _column(values, r, default=""):

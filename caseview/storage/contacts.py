@@ -349,3 +349,8 @@ def allowed_stages_for_model(stage_known: np.ndarray, model: StageModel) -> np.n
             masks[i, model.stages.index(name)] = True
     allowed[known] = masks[inverse.reshape(-1)]
     return allowed
+
+
+def stored_case_codes(connection) -> list:
+    """Every stored case ID, in the order the cases were added (the importer matches new IDs to them)."""
+    return [code for (code,) in connection.execute("SELECT case_code FROM cases ORDER BY id")]

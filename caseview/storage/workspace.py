@@ -29,6 +29,7 @@ from .caseload import Caseload, load_caseload
 from .contacts import register_model_fields
 from .filesystem import network_warning
 from .row_digests import LAYOUT_TABLES, RowChanges
+from .workspace_files import backup_workspace, connect_read_only, disk_hint
 
 DEFAULT_BUSY_TIMEOUT_MS = 5000
 
@@ -45,22 +46,6 @@ class ModelVersion:
 
 def _busy_message(path) -> str:
     return f"workspace busy: another caseview process is writing to {path}; try again when it finishes"
-
-
-def _disk_hint(path, exc) -> str:
-    """' - the disk is full' when SQLite's error comes from a full disk (SQLITE_FULL, or an I/O error
-    while the folder has almost no space left), else ''."""
-    text = str(exc).lower()
-    if "disk is full" in text:
-        return "; the disk is full (no space left on device)"
-    if "disk i/o error" in text:
-        try:
-            stats = os.statvfs(Path(path).absolute().parent)
-        except OSError:
-            return ""
-        if stats.f_bavail * stats.f_frsize < 1 << 20:
-            return "; the disk is full (no space left on device)"
-    return ""
 
 
 def _is_busy(exc: sqlite3.OperationalError) -> bool:
@@ -89,7 +74,7 @@ class Workspace:
     def _connect(self) -> sqlite3.Connection:
         try:
             if self.read_only:
-                con = self._connect_read_only()
+                con = connect_read_only(self)
             else:
                 con = sqlite3.connect(str(self.path), isolation_level=None, check_same_thread=False,
                                       timeout=self.busy_timeout_ms / 1000.0)
@@ -99,29 +84,10 @@ class Workspace:
         except sqlite3.OperationalError as exc:
             if _is_busy(exc):
                 raise WorkspaceBusy(_busy_message(self.path)) from None
-            raise WorkspaceError(f"{self.path}: cannot open workspace ({exc}){_disk_hint(self.path, exc)}") from None
+            raise WorkspaceError(f"{self.path}: cannot open workspace ({exc}){disk_hint(self.path, exc)}") from None
         except sqlite3.DatabaseError as exc:
             raise WorkspaceError(f"{self.path}: not a caseview workspace ({exc})") from None
         return con
-
-    def _connect_read_only(self) -> sqlite3.Connection:
-        """``mode=ro``; when SQLite cannot even make the shared-memory file (a read-only folder with no
-        -shm beside the file), ``immutable=1``: nothing can change a file nobody can write."""
-        from urllib.parse import quote
-
-        base = "file:" + quote(str(self.path.absolute()))
-        for query in (("?mode=ro&immutable=1",) if self._immutable else ("?mode=ro", "?mode=ro&immutable=1")):
-            con = sqlite3.connect(base + query, uri=True, isolation_level=None, check_same_thread=False,
-                                  timeout=self.busy_timeout_ms / 1000.0)
-            try:
-                con.execute("SELECT COUNT(*) FROM sqlite_master").fetchone()
-                self._immutable = "immutable" in query
-                return con
-            except sqlite3.OperationalError as exc:
-                con.close()
-                if "immutable" in query or "unable to open" not in str(exc):
-                    raise
-        raise AssertionError("unreachable")
 
     @property
     def connection(self) -> sqlite3.Connection:
@@ -238,7 +204,7 @@ class Workspace:
             ws.close()
             if isinstance(exc, sqlite3.OperationalError) and _is_busy(exc):
                 raise WorkspaceBusy(_busy_message(path)) from None
-            raise WorkspaceError(f"{path}: cannot use workspace ({exc}){_disk_hint(path, exc)}") from None
+            raise WorkspaceError(f"{path}: cannot use workspace ({exc}){disk_hint(path, exc)}") from None
         except BaseException:
             ws.close()
             raise
@@ -312,7 +278,7 @@ class Workspace:
             self._rollback(con)
             if isinstance(exc, sqlite3.OperationalError) and _is_busy(exc):
                 raise WorkspaceBusy(_busy_message(self.path)) from None
-            raise WorkspaceError(f"{self.path}: write failed, nothing was changed ({exc}){_disk_hint(self.path, exc)}"
+            raise WorkspaceError(f"{self.path}: write failed, nothing was changed ({exc}){disk_hint(self.path, exc)}"
                                  ) from None
         except BaseException:
             self._local.depth = 0
@@ -326,7 +292,7 @@ class Workspace:
                 con.execute("ROLLBACK")
             if _is_busy(exc):
                 raise WorkspaceBusy(_busy_message(self.path)) from None
-            raise WorkspaceError(f"{self.path}: write failed, nothing was changed ({exc}){_disk_hint(self.path, exc)}"
+            raise WorkspaceError(f"{self.path}: write failed, nothing was changed ({exc}){disk_hint(self.path, exc)}"
                                  ) from None
 
     @staticmethod
@@ -339,56 +305,8 @@ class Workspace:
 
     # ------------------------------------------------------------ backup
     def backup(self, destination, actor: str | None = None) -> Path:
-        """Copy the workspace with SQLite's online backup API (consistent while others read).
-
-        The copy is written to a 0600 partial file, checked with ``PRAGMA integrity_check`` and only
-        then moved to ``destination``; the audit entry (with ``actor``) is written after that, so a
-        failed or interrupted backup leaves neither a file nor an entry.
-        """
-        from ..private_files import create_private_file, describe_os_error, partial_path
-
-        destination = Path(destination)
-        if destination.exists() or destination.is_symlink():
-            raise WorkspaceError(f"{destination} already exists; choose a new backup path")
-        if not destination.parent.is_dir():
-            raise WorkspaceError(f"{destination.parent}: folder does not exist")
-        if actor is not None and self.read_only:
-            raise WorkspaceError(f"{self.path}: the workspace is open read-only, so a backup cannot be recorded in "
-                                 "its audit trail; nothing was changed")
-        temporary = partial_path(destination)
-        placed = done = False
-        try:
-            temporary.unlink(missing_ok=True)
-            create_private_file(temporary)
-            target = sqlite3.connect(str(temporary))
-            try:
-                self.connection.backup(target)
-                check = target.execute("PRAGMA integrity_check").fetchall()
-            finally:
-                target.close()
-            if check != [("ok",)]:
-                raise WorkspaceError(f"backup to {destination} failed: the copy did not pass SQLite's integrity "
-                                     f"check ({check[0][0]}); nothing was kept")
-            os.replace(temporary, destination)
-            placed = True
-            if actor is not None:
-                self.audit_append(actor, "workspace.backup", self.path.name,
-                                  {"destination": str(destination), "integrity_check": "ok"})
-            done = True
-        except sqlite3.Error as exc:
-            raise WorkspaceError(f"backup to {destination} failed ({exc}); nothing was kept") from None
-        except OSError as exc:
-            raise WorkspaceError(describe_os_error(destination, exc)) from None
-        finally:
-            leftovers = [str(temporary) + suffix for suffix in ("", "-wal", "-shm", "-journal")]
-            if placed and not done:  # the entry could not be written: the copy goes too
-                leftovers.append(str(destination))
-            for name in leftovers:
-                try:
-                    os.unlink(name)
-                except OSError:
-                    pass
-        return destination
+        """Copy the workspace: complete, checked, then recorded (see :func:`.workspace_files.backup_workspace`)."""
+        return backup_workspace(self, destination, actor)
 
     # ------------------------------------------------------------ models
     def _version(self, row) -> ModelVersion:

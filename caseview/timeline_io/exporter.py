@@ -15,7 +15,6 @@ import numpy as np
 
 from ..errors import InputError
 
-_FORMULA_START = ("=", "+", "-", "@", "\t", "\r")
 
 
 @dataclass(frozen=True)
@@ -29,14 +28,12 @@ class ExportResult:
 
 
 def escape_text(values: np.ndarray) -> np.ndarray:
-    """Prefix formula-like text cells with an apostrophe; shape (n,) object."""
+    """Formula-like text cells neutralised (:func:`caseview.cell_text.neutralise`); shape (n,) object."""
+    from ..cell_text import neutralise_all
+
     out = values.astype(object)
     if out.size:
-        risky = np.fromiter((isinstance(v, str) and v.startswith(_FORMULA_START) for v in out.tolist()),
-                            dtype=bool, count=out.size)
-        if risky.any():
-            out = out.copy()
-            out[risky] = np.array(["'" + v for v in out[risky].tolist()], dtype=object)
+        out = np.array(neutralise_all(out.tolist()) + [None], dtype=object)[:-1]
     return out
 
 
@@ -75,8 +72,10 @@ def timeline_table(ws):
         columns[name] = (_number_text(stored.covariates[:, position]) if position is not None
                          else np.full(stored.days.shape[0], "", dtype=object))
     columns["stage_known"] = escape_text(stored.stage_known)
-    table = pd.DataFrame(columns)
-    table.attrs["covariates"] = list(model.covariates)
+    from ..cell_text import neutralise
+
+    table = pd.DataFrame({neutralise(name): values for name, values in columns.items()})
+    table.attrs["covariates"] = [neutralise(name) for name in model.covariates]
     return table, int(counts.size)
 
 
@@ -110,8 +109,11 @@ def export_timelines(ws, out_path, actor: str) -> ExportResult:
                 digest.update(block)
         head = ws.audit_head()
         if recorded:  # the entry commits just before the file is moved into place
-            head = ws.audit_append(actor, "export", out_path.name,
-                                   {"file": out_path.name, "rows": int(len(table)), "cases": n_cases,
+            from .importer import audited_file_name
+
+            name = audited_file_name(out_path.name, digest.hexdigest())
+            head = ws.audit_append(actor, "export", name,
+                                   {"file": name, "rows": int(len(table)), "cases": n_cases,
                                     "sha256": digest.hexdigest()}).entry_hash
     return ExportResult(str(out_path), int(len(table)), n_cases, digest.hexdigest(), head, recorded)
 

@@ -41,18 +41,45 @@ class ImportResult:
     warnings: list = field(default_factory=list)
     audit_id: int | None = None
     check_only: bool = False
+    notes: list = field(default_factory=list)   # what was read differently from how it was written
 
 
 class _RollBack(Exception):
     """Raised inside the write transaction of a check-only import so that it rolls back."""
 
 
+def _header_name(name: str) -> str:
+    """A column name as it may appear in a message: masked when it looks like an identifier."""
+    from .. import privacy
+
+    finding = privacy.screen_value(name, "other")
+    return repr(name) if finding is None else f"{privacy.mask(name)} (masked: {finding.description})"
+
+
 def _parse_header(source: TimelineSource, model, mapping: dict, drop) -> tuple[list, list]:
-    """Target column name per file column (None = dropped) and warnings; InputError on problems."""
+    """Target column name per file column (None = dropped) and warnings; InputError on problems.
+
+    A row none of whose cells (after ``mapping``) is a column caseview knows is probably data, not
+    a header: its cells are never repeated in the message (they may be a person's details).
+    """
+    from ..cell_text import neutralise
+
     raw = source.header()
     names = [str(h).strip() for h in raw]
-    problems = Problems(str(source.facts.path))
-    where = source.where(1)
+    known = {neutralise(n): n for n in ("case_id", "date", "coordinator", *(c.name for c in model.channels),
+                                        *model.covariates, "stage_known")}
+    names = [known.get(n, n) if n.startswith("'") else n for n in names]   # headers of caseview's own exports
+    problems = Problems(source.facts.label)
+    where = source.where(source.header_row)
+    channel_names = [c.name for c in model.channels]
+    allowed = ["case_id", "date", "coordinator", *channel_names, *model.covariates, "stage_known"]
+    provided = {mapping.get(n, n) for n in names if n not in set(drop or ())}
+    if not (provided & set(allowed)):
+        raise InputError(
+            f"{source.facts.label}: {where}: does not look like a header row (none of its {len(names)} cells is "
+            "a column name caseview knows; they are not repeated here in case they hold a person's details); the file "
+            "needs a row of column names (case_id, date, ...) - if they are on a later row, give its number "
+            "with --header-row N; if they are named differently, use --map SOURCE=TARGET")
     seen = {}
     for i, name in enumerate(names):
         if name == "":
@@ -60,16 +87,15 @@ def _parse_header(source: TimelineSource, model, mapping: dict, drop) -> tuple[l
         elif name in seen:
             problems.add(where, name, f"the column name appears twice (columns {seen[name] + 1} and {i + 1})")
         seen.setdefault(name, i)
+    listed = ", ".join(_header_name(n) for n in names)
     for source_name in mapping:
         if source_name not in seen:
             problems.add(where, None, f"--map {source_name}=...: no column {source_name!r} in the file "
-                                      f"(columns: {', '.join(names)})")
+                                      f"(columns: {listed})")
     drop = set(drop or ())
     for name in drop:
         if name not in seen:
-            problems.add(where, None, f"--drop {name}: no column {name!r} in the file (columns: {', '.join(names)})")
-    channel_names = [c.name for c in model.channels]
-    allowed = ["case_id", "date", "coordinator", *channel_names, *model.covariates, "stage_known"]
+            problems.add(where, None, f"--drop {name}: no column {name!r} in the file (columns: {listed})")
     targets = []
     for name in names:
         if name in drop:
@@ -95,14 +121,15 @@ def _parse_header(source: TimelineSource, model, mapping: dict, drop) -> tuple[l
                             "caseview never stores direct identifiers")
             except ImportError:
                 pass
-            problems.add(where, names[i], f"unknown column{hint}; expected: {', '.join(allowed)} "
-                                          "(rename with --map SOURCE=TARGET or leave out with --drop COLUMN)")
+            problems.add(where, None, f"column {i + 1} {_header_name(names[i])}: unknown column{hint}; expected: "
+                                      f"{', '.join(allowed)} (rename with --map SOURCE=TARGET or leave out with "
+                                      "--drop COLUMN)")
     for required in ("case_id", "date", *model.covariates):
         if required not in counts:
             problems.add(where, None, f"required column {required!r} is missing "
-                                      f"(file columns: {', '.join(n for n in names if n) or 'none'})")
+                                      f"(file columns: {', '.join(_header_name(n) for n in names if n) or 'none'})")
     problems.raise_if_any()
-    warnings = [f"{source.facts.path}: no column for channel {c!r}; every contact records it as not observed"
+    warnings = [f"{source.facts.label}: no column for channel {c!r}; every contact records it as not observed"
                 for c in channel_names if c not in counts]
     return targets, warnings
 
@@ -139,8 +166,29 @@ def _duplicates_in_file(data: dict, problems: Problems, where) -> np.ndarray:
     return keep
 
 
+def audited_file_name(name: str, sha256: str) -> str:
+    """The file name as the audit trail keeps it: the name itself, or ``file <sha256 prefix><suffix>
+    (name withheld)`` when the name may hold an identifier (the trail is append-only: nothing written
+    there can be removed). Withheld: anything the identifier screen flags in the name, two capitalised
+    words in a row (``Mary Smith visits.csv``; a harmless false alarm for ``Team Export.csv``), and
+    control characters. The SHA-256 in the entry still identifies the file exactly."""
+    import re
+    from pathlib import PurePath
+
+    from .. import privacy
+
+    stem, suffix = PurePath(name).stem, PurePath(name).suffix
+    words = re.sub(r"[_.]+", " ", stem)
+    flagged = (privacy.screen_value(stem, "other") or privacy.screen_value(words, "other")
+               or re.search(r"\b[A-Z][a-z]+[\s_.-]+[A-Z][a-z]+\b", stem))
+    if flagged or not name.isprintable():
+        return f"file {sha256[:12]}{suffix if suffix.isascii() and suffix.isprintable() else ''} (name withheld)"
+    return name
+
+
 def import_timelines(ws, path, actor: str, mapping: dict | None = None, drop=(), replace: bool = False,
-                     chunk_rows: int = CHUNK_ROWS, progress=None, check_only: bool = False) -> ImportResult:
+                     chunk_rows: int = CHUNK_ROWS, progress=None, check_only: bool = False,
+                     date_format: str | None = None, header_row: int = 1) -> ImportResult:
     """Import a CSV/XLSX timeline file into ``ws`` (all rows or none).
 
     Parameters
@@ -154,22 +202,42 @@ def import_timelines(ws, path, actor: str, mapping: dict | None = None, drop=(),
     progress : callable(fraction) or None; raising from it cancels (nothing written)
     check_only : run every check, including the comparison with stored contacts, and report what an
         import would add, skip and replace, but roll the write back: nothing is stored or audited
+    date_format : ``strptime`` format of the date column (e.g. ``"%d/%m/%Y"``); default YYYY-MM-DD.
+        Date cells of a workbook are read as dates, and plain numbers in its date column as Excel
+        serial day numbers (both reported in ``notes``)
+    header_row : the line (CSV) or sheet row (XLSX) with the column names; rows above it are ignored
+
+    Case IDs follow :mod:`caseview.timeline_io.case_ids` (normalised, matched ignoring letter case,
+    near matches warned); categories are matched ignoring letter case and surrounding spaces. What
+    was read differently from how it was written is listed in ``ImportResult.notes``.
     """
     from ..storage import ContactBatch, ContactConflicts
 
     report = progress or (lambda fraction: None)
     report(0.0)
+    from ..textfiles import check_one_line
+    from ..storage.contacts import stored_case_codes
+    from .case_ids import CaseIdBook
+    from .dates import check_date_format
+
+    check_one_line(actor, "the name recorded in the audit trail (--by)")
+    date_format = check_date_format(date_format)
     if ws.is_own_file(path):  # reading it with open() would drop this process's SQLite locks on it
-        raise InputError(f"{path}: this is the workspace file itself, not a timeline file; nothing was imported")
+        raise InputError(f"{Path(path).name}: this is the workspace file itself, not a timeline file; "
+                         "nothing was imported")
     facts = scan_file(path)
     report(0.05)
     model, version = ws.current_model()
-    source = TimelineSource(facts, chunk_rows)
+    source = TimelineSource(facts, chunk_rows, header_row=header_row)
     targets, warnings = _parse_header(source, model, dict(mapping or {}), drop)
+    source.id_columns = frozenset(i for i, t in enumerate(targets) if t == "case_id")
+    source.date_columns = frozenset(i for i, t in enumerate(targets) if t == "date")
+    source.date_format = date_format
     rules = Rules(channels={c.name: tuple(c.categories) for c in model.channels}, covariates=tuple(model.covariates),
-                  stages=tuple(model.stages), present=tuple(targets))
-    problems = Problems(str(facts.path))
-    validator = ChunkValidator(rules, problems, source.where)
+                  stages=tuple(model.stages), present=tuple(targets), date_format=date_format)
+    problems = Problems(facts.label)
+    book = CaseIdBook(stored_case_codes(ws.connection))
+    validator = ChunkValidator(rules, problems, source.where, book)
     parts = []
     rows_read = 0
     for first_line, frame in source.chunks():
@@ -181,9 +249,16 @@ def import_timelines(ws, path, actor: str, mapping: dict | None = None, drop=(),
             parts = []  # keep validating for messages, stop keeping rows
         expected_rows = max(facts.lines, rows_read, 1)
         report(0.05 + 0.65 * min(1.0, rows_read / expected_rows))
+    for line, message in book.number_cell_problems():
+        problems.add(source.where(line), "case_id", message, line)
     problems.raise_if_any()
     if not parts:
-        raise InputError(f"{facts.path}: no contact rows after the header; nothing was imported")
+        raise InputError(f"{facts.label}: no contact rows after the header; nothing was imported")
+    notes = book.notes(facts.label) + validator.category_notes(facts.label)
+    if "serial_dates" in source.notes:
+        count, example = source.notes["serial_dates"]
+        notes.append(f"{facts.label}: read {count:,} Excel day number{'s' if count != 1 else ''} in the date column "
+                     f"as dates (e.g. {example})")
     data = {name: np.concatenate([getattr(p, name) for p in parts]) for name in
             ("lines", "case_codes", "days", "coordinators", "channel_values", "covariates", "stage_known")}
     del parts
@@ -204,17 +279,20 @@ def import_timelines(ws, path, actor: str, mapping: dict | None = None, drop=(),
             if now_version.id != version.id:
                 raise WorkspaceError("the current model changed while the file was being checked; import again")
             counts = ws.write_contacts(batch, replace=replace)
-            details = {"file": facts.path.name, "sha256": facts.sha256, "bytes": facts.size, "rows_read": rows_read,
+            file_name = audited_file_name(facts.path.name, facts.sha256)
+            details = {"file": file_name, "sha256": facts.sha256, "bytes": facts.size, "rows_read": rows_read,
                        "cases_added": counts.cases_added, "contacts_added": counts.contacts_added,
                        "duplicates_skipped": counts.duplicates_skipped + in_file_duplicates,
                        "replaced": counts.replaced, "model_version": version.id,
-                       "mapping": dict(mapping or {}), "dropped": sorted(drop or ())}
+                       "mapping": dict(mapping or {}), "dropped": sorted(drop or ()), **book.audit_details()}
+            if date_format is not None or header_row != 1:
+                details["options"] = {"date_format": date_format, "header_row": header_row}
             if counts.replaced:
                 details["replaced_contacts"] = counts.replaced_details
                 details["case_ids"] = sorted({d["case_id"] for d in counts.replaced_details})
             if check_only:
                 raise _RollBack()
-            entry = ws.audit_append(actor, "import.replace" if counts.replaced else "import", facts.path.name, details,
+            entry = ws.audit_append(actor, "import.replace" if counts.replaced else "import", file_name, details,
                                     changes=counts.row_changes)
     except _RollBack:
         entry = None
@@ -231,4 +309,4 @@ def import_timelines(ws, path, actor: str, mapping: dict | None = None, drop=(),
                         cases_added=counts.cases_added, contacts_added=counts.contacts_added,
                         duplicates_skipped=counts.duplicates_skipped + in_file_duplicates,
                         replaced=counts.replaced, warnings=warnings, audit_id=entry.id if entry else None,
-                        check_only=check_only)
+                        check_only=check_only, notes=notes)

@@ -15,15 +15,13 @@ from dataclasses import dataclass, field
 import numpy as np
 
 from ..errors import InputError
+from .dates import FIRST_DAY, LAST_DAY, date_format_hint, date_format_text, parse_dates  # noqa: F401
 
 PROBLEM_CAP = 50
 MAX_CODE_LENGTH = 64
-FIRST_DAY = -25567   # 1900-01-01 as days since 1970-01-01
-LAST_DAY = 84005     # 2199-12-31
 DATE_RANGE_TEXT = "1900-01-01 to 2199-12-31"
 FORMULA_START = ("=", "+", "-", "@")
 _CONTROL = re.compile(r"[\x00-\x1f\x7f-\x9f\u2028\u2029]")
-_DATE_SHAPE = r"^\d{4}-\d{2}-\d{2}$"
 
 BASE_COLUMNS = ("case_id", "date", "coordinator", "stage_known")
 
@@ -96,6 +94,7 @@ class Rules:
     covariates: tuple
     stages: tuple
     present: tuple            # target column names in the file, in file order
+    date_format: str | None = None   # strptime format of the date column (None: YYYY-MM-DD)
 
 
 @dataclass
@@ -134,10 +133,14 @@ def _first_lines(values: np.ndarray, lines: np.ndarray, seen) -> dict:
 class ChunkValidator:
     """Validate and encode chunks; remembers distinct codes already checked and screened."""
 
-    def __init__(self, rules: Rules, problems: Problems, where):
+    def __init__(self, rules: Rules, problems: Problems, where, case_ids=None):
+        from .case_ids import CaseIdBook
+
         self.rules = rules
         self.problems = problems
         self.where = where
+        self.case_ids = case_ids if case_ids is not None else CaseIdBook()
+        self.category_reads: dict = {}   # (channel, as written, category) -> rows
         self._checked = {"case_id": {}, "coordinator": {}, "stage_known": {}}
         self._screened_numbers = {k: set() for k in rules.covariates}
 
@@ -161,9 +164,10 @@ class ChunkValidator:
                               "use a pseudonymous code or leave the value out")
         return set(findings)
 
-    def _codes(self, column: str, values: np.ndarray, lines, required: bool, role: str, what: str) -> None:
+    def _codes(self, column: str, values: np.ndarray, lines, required: bool, role: str, what: str,
+               refused=False) -> None:
         if required:
-            self._report_all(lines, values == "", column, values,
+            self._report_all(lines, (values == "") & ~refused, column, values,
                              lambda v: f"empty {what}; expected a code such as HS-0001")
         cache = self._checked[column]
         first = _first_lines(values, lines, cache)
@@ -202,8 +206,8 @@ class ChunkValidator:
             codes, uniques = factors[name]
             return uniques[codes]
 
-        case_codes = values("case_id")
-        self._codes("case_id", case_codes, lines, True, "case_id", "case ID")
+        case_codes, refused = self._case_ids(*factors["case_id"], lines)
+        self._codes("case_id", case_codes, lines, True, "case_id", "case ID", refused)
         if "coordinator" in factors:
             coordinators = values("coordinator")
             self._codes("coordinator", coordinators, lines, False, "coordinator", "coordinator code")
@@ -212,18 +216,12 @@ class ChunkValidator:
 
         # dates (per distinct value): shape, then a real calendar date inside the supported range
         codes, uniques = factors["date"]
-        text = pd.Series(uniques, dtype=object)
-        shape_ok = text.str.match(_DATE_SHAPE).fillna(False).to_numpy(dtype=bool)
-        parsed = pd.to_datetime(text.where(shape_ok, None), format="%Y-%m-%d", errors="coerce")
-        as_days = parsed.to_numpy(dtype="datetime64[D]")
-        valid_u = ~np.isnat(as_days)
-        day_u = np.where(valid_u, as_days.astype(np.int64), 0)
-        valid_u &= (day_u >= FIRST_DAY) & (day_u <= LAST_DAY)
-        day_u = np.where(valid_u, day_u, 0)
+        valid_u, day_u = parse_dates(uniques, self.rules.date_format)
+        expected = date_format_text(self.rules.date_format)
         self._report_all(lines, ~valid_u[codes], "date", uniques[codes], lambda v: (
-            "empty date; expected a date as YYYY-MM-DD" if v == "" else
-            f"value {shown(v, 'date', 'date')}: not a calendar date in {DATE_RANGE_TEXT}; "
-            "expected YYYY-MM-DD, e.g. 2025-03-14"))
+            f"empty date; expected a date as {expected}" if v == "" else
+            f"value {shown(v, 'date', 'date')}: not a calendar date in {DATE_RANGE_TEXT} written as "
+            f"{expected}{date_format_hint(v, self.rules.date_format)}"))
         days = day_u[codes]
 
         channel_names = list(self.rules.channels)
@@ -233,13 +231,11 @@ class ChunkValidator:
                 continue
             cats = self.rules.channels[name]
             codes, uniques = factors[name]
-            index = {c: k for k, c in enumerate(cats)}
-            index[""] = -1
-            coded_u = np.array([index.get(u, -2) for u in uniques.tolist()], dtype=np.int16)
+            coded_u = self._categories(name, cats, codes, uniques)
             coded = coded_u[codes]
             self._report_all(lines, coded == -2, name, uniques[codes], lambda v, cats=cats, name=name: (
                 f"value {shown(v, 'channel', name)}: unknown category; expected one of "
-                f"{', '.join(cats)} or blank (not observed); categories are case-sensitive"))
+                f"{', '.join(cats)} or blank (not observed); letter case and surrounding spaces are ignored"))
             channel_values[:, j] = np.where(coded == -2, -1, coded)
 
         covariates = np.zeros((n, len(self.rules.covariates)))
@@ -272,13 +268,66 @@ class ChunkValidator:
         return EncodedChunk(lines=lines, case_codes=case_codes, days=days, coordinators=coordinators,
                             channel_values=channel_values, covariates=covariates, stage_known=stage_known)
 
+    def _case_ids(self, codes: np.ndarray, uniques: np.ndarray, lines: np.ndarray) -> tuple:
+        """Case IDs of the rows as stored (normalised, first-seen spelling) and the rows whose ID was
+        refused (shape (n,) each); refusals become problems."""
+        refused = np.zeros(uniques.size, dtype=bool)
+        if uniques.size == 0:
+            return uniques[codes], refused[codes]
+        rows = np.bincount(codes, minlength=uniques.size)
+        first = np.full(uniques.size, -1, dtype=np.int64)
+        first[codes[::-1]] = np.arange(codes.size - 1, -1, -1)
+        kept = np.empty(uniques.size, dtype=object)
+        for u, raw in enumerate(uniques.tolist()):
+            line = int(lines[first[u]]) if first[u] >= 0 else 0
+            if raw == "":
+                kept[u] = ""
+                continue
+            value, why = self.case_ids.resolve(raw, int(rows[u]), line)
+            if why is not None:
+                self.problems.add(self.where(line), "case_id", f"value {shown(raw, 'case_id', 'case_id')}: {why}",
+                                  line)
+                refused[u] = True
+            kept[u] = value
+        return kept[codes], refused[codes]
+
+    def _categories(self, name: str, cats: tuple, codes: np.ndarray, uniques: np.ndarray) -> np.ndarray:
+        """Category index per distinct text (-1 blank, -2 unknown), matched ignoring letter case."""
+        from ..cell_text import neutralise
+
+        index = {c: k for k, c in enumerate(cats)}
+        index.update({neutralise(c): k for k, c in enumerate(cats) if neutralise(c) not in index})  # exports
+        folded = {c.strip().casefold(): k for k, c in enumerate(cats)}
+        index[""] = -1
+        coded_u = np.array([index.get(u, folded.get(u.casefold(), -2)) for u in uniques.tolist()], dtype=np.int16)
+        respelled = [u for u, k in enumerate(coded_u.tolist()) if k >= 0 and uniques[u] != cats[k]]
+        if respelled:
+            rows = np.bincount(codes, minlength=uniques.size)
+            for u in respelled:
+                key = (name, uniques[u], cats[coded_u[u]])
+                self.category_reads[key] = self.category_reads.get(key, 0) + int(rows[u])
+        return coded_u
+
+    def category_notes(self, label: str) -> list:
+        """``read 'Slow' as 'slow' 12 times`` lines for the import summary, one per channel."""
+        by_channel: dict = {}
+        for (name, written, category), n in self.category_reads.items():
+            times = f"{n:,} time{'s' if n != 1 else ''}"
+            by_channel.setdefault(name, []).append(f"read {written!r} as {category!r} {times}")
+        return [f"{label}: column {name!r}: {'; '.join(parts)}" for name, parts in by_channel.items()]
+
     def _stage_text(self, value: str) -> tuple[str, str | None]:
         if value == "":
             return "", None
+        from ..cell_text import neutralise
+
+        if value.startswith("'") and neutralise(value[1:]) == value:   # caseview's own export
+            value = value[1:]
         names = [part.strip() for part in value.split("|")]
         unknown = [p for p in names if p not in self.rules.stages]
         if unknown or not names:
-            return "", (f"unknown stage {unknown[0]!r}; expected a stage ({', '.join(self.rules.stages)}) "
+            part = f" {shown(unknown[0], 'stage_known', 'stage_known')}" if unknown[0] != value else ""
+            return "", (f"unknown stage{part}; expected a stage ({', '.join(self.rules.stages)}) "
                         "or several joined with '|', or blank")
         chosen = set(names)
         return "|".join(s for s in self.rules.stages if s in chosen), None

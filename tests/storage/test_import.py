@@ -45,7 +45,7 @@ def test_import_counts_and_idempotent_reimport(ws, small_csv):
     ("date", "05/01/2025", "YYYY-MM-DD"),
     ("date", "", "empty date"),
     ("date", "1850-01-01", "not a calendar date"),
-    ("mobility", "Unable", "unknown category"),
+    ("mobility", "Unabel", "unknown category"),
     ("lives_alone", "yes", "expected a finite number"),
     ("lives_alone", "", "blank value"),
     ("balance_programme", "inf", "expected a finite number"),
@@ -71,7 +71,7 @@ def test_all_problems_reported_with_cap(ws, tmp_path):
     with pytest.raises(InputError) as info:
         import_timelines(ws, path, "tester")
     lines = str(info.value).splitlines()
-    assert lines[0].startswith(f"{path}: 120 problems found")
+    assert lines[0].startswith(f"{path.name}: 120 problems found")
     assert len(lines) == 1 + 50 + 1 and lines[-1] == "... and 70 more"
 
 
