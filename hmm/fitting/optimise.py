@@ -194,6 +194,8 @@ def fit_model(model: StageModel, timelines: Timelines, *, starts: int = 3, rng: 
     else:
         covariance = information = np.zeros((0, 0))
     kind, reason = choose_interval_kind(intervals, timelines.n_cases, information if spec.n_free else None)
+    if kind == "profile" and intervals == "auto" and not converged:
+        kind, reason = "wald", "the fit did not converge, and a profile needs the maximum"
     if not np.isfinite(value):
         kind, reason = "none", "the log-likelihood is not finite"
     if spec.n_free == 0:
