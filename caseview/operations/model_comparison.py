@@ -95,7 +95,7 @@ def compare_versions(ws, first: int, second: int, bootstrap: int = 0, seed: int 
     diff = information_criteria_difference(a, b)
     (low_id, low, low_model), (high_id, high, high_model) = sorted(
         [(first, a, model_a), (second, b, model_b)], key=lambda item: item[1].n_parameters)
-    nest = nesting(low_model, high_model)
+    nest = nesting(low_model, high_model, low.free_parameters, high.free_parameters)
     statistic = df = p_chi = p_boot = None
     if nest.nested:
         test = likelihood_ratio_test(low, high)

@@ -149,8 +149,13 @@ class Nesting:
     boundary: tuple = ()
 
 
-def nesting(restricted, general) -> Nesting:
-    """Is the :class:`~hmm.model.StageModel` ``restricted`` nested in ``general``? (module docstring)"""
+def nesting(restricted, general, restricted_free=None, general_free=None) -> Nesting:
+    """Is the :class:`~hmm.model.StageModel` ``restricted`` nested in ``general``? (module docstring)
+
+    ``restricted_free`` / ``general_free`` name the parameters each fit estimated (the stored fit
+    summary's ``free_parameters``); without them they are read from the models, where an estimate
+    that came out exactly 0 would look like a structural zero and hide the nesting.
+    """
     if tuple(restricted.stages) != tuple(general.stages):
         return Nesting(False, "the two models have different stages")
     if tuple(restricted.covariates) != tuple(general.covariates):
@@ -158,12 +163,14 @@ def nesting(restricted, general) -> Nesting:
     if [(c.name, tuple(c.categories)) for c in restricted.channels] != \
             [(c.name, tuple(c.categories)) for c in general.channels]:
         return Nesting(False, "the two models have different observation channels or categories")
-    free_r, free_g = set(parameter_spec(restricted).names), set(parameter_spec(general).names)
+    names_r = tuple(restricted_free) if restricted_free else parameter_spec(restricted).names
+    names_g = tuple(general_free) if general_free else parameter_spec(general).names
+    free_r, free_g = set(names_r), set(names_g)
     only_r = sorted(free_r - free_g)
     if only_r:
         return Nesting(False, f"the first model estimates {only_r[0]!r}, which the second holds fixed or does "
                               "not have" + (f" (and {len(only_r) - 1} more)" if len(only_r) > 1 else ""))
-    extra = tuple(n for n in parameter_spec(general).names if n not in free_r)
+    extra = tuple(n for n in names_g if n not in free_r)
     if not extra:
         return Nesting(False, "both models estimate the same parameters")
     boundary = []

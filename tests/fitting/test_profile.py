@@ -130,6 +130,8 @@ def test_an_effect_the_data_cannot_bound_is_flagged_and_warned():
     truth = three_stage_model()
     rng = np.random.default_rng(7)
     t = truth.transitions
+    # the covariate is 0/1: declaring it lets the model hold an effect of -40 (hmm.model.rate_limit_problem)
+    truth = dataclasses.replace(truth, covariate_ranges=((0.0, 1.0),))
     sim = simulate(dataclasses.replace(truth, transitions=(dataclasses.replace(t[0], effects={"alone": -40.0}),
                                                            t[1], t[2])), rng, n_cases=80, n_contacts=5)
     result = fit_model(truth, sim.timelines, starts=1, intervals="profile")
