@@ -139,7 +139,7 @@ def build_report(ws, as_of, out_path, *, horizon_days: float = 90, coordinator: 
                    "count": int(count), "audit_head_in_report": data.audit_head}
         if data.not_scored:
             details["cannot_be_scored"] = len(data.not_scored)
-        from caseview.timeline_io.importer import audited_file_name
+        from caseview.privacy.file_names import audited_file_name
 
         entry = ws.audit_append(actor or _default_actor(), "report.create",
                                 audited_file_name(out_path.name, digest), details)

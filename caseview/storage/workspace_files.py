@@ -81,8 +81,17 @@ def backup_workspace(ws, destination, actor: str | None = None) -> Path:
         os.replace(temporary, destination)
         placed = True
         if actor is not None:
+            # the trail is append-only: the copy's name only (folders can name people), withheld when it may
+            # hold an identifier, with the copy's SHA-256 to identify it exactly
+            import hashlib
+
+            from ..privacy.file_names import audited_file_name
+
+            with open(destination, "rb") as copy:   # the copy, not a live workspace (no locks to lose)
+                digest = hashlib.file_digest(copy, "sha256").hexdigest()
             ws.audit_append(actor, "workspace.backup", ws.path.name,
-                              {"destination": str(destination), "integrity_check": "ok"})
+                            {"destination": audited_file_name(destination.name, digest), "sha256": digest,
+                             "integrity_check": "ok"})
         done = True
     except sqlite3.Error as exc:
         raise WorkspaceError(f"backup to {destination} failed ({exc}); nothing was kept") from None

@@ -118,7 +118,7 @@ def export_timelines(ws, out_path, actor: str) -> ExportResult:
                 digest.update(block)
         head = ws.audit_head()
         if recorded:  # the entry commits just before the file is moved into place
-            from .importer import audited_file_name
+            from ..privacy.file_names import audited_file_name
 
             name = audited_file_name(out_path.name, digest.hexdigest())
             head = ws.audit_append(actor, "export", name,

@@ -26,6 +26,7 @@ import numpy as np
 
 from ..case_checks import stored_contradictions
 from ..errors import InputError, WorkspaceError
+from ..privacy.file_names import audited_file_name
 from .reader import CHUNK_ROWS, TimelineSource, scan_file
 from .validate import BASE_COLUMNS, ChunkValidator, Problems, Rules
 
@@ -196,26 +197,6 @@ def _refuse_contacts_after_entry(ws, model, data: dict, problems: Problems, wher
             "that has entered it has no later contacts unless they record that stage - correct the date or "
             "the stage, or leave the row out"))
     problems.raise_if_any("nothing was imported")
-
-
-def audited_file_name(name: str, sha256: str) -> str:
-    """The file name as the audit trail keeps it: the name itself, or ``file <sha256 prefix><suffix>
-    (name withheld)`` when the name may hold an identifier (the trail is append-only: nothing written
-    there can be removed). Withheld: anything the identifier screen flags in the name, two capitalised
-    words in a row (``Mary Smith visits.csv``; a harmless false alarm for ``Team Export.csv``), and
-    control characters. The SHA-256 in the entry still identifies the file exactly."""
-    import re
-    from pathlib import PurePath
-
-    from .. import privacy
-
-    stem, suffix = PurePath(name).stem, PurePath(name).suffix
-    words = re.sub(r"[_.]+", " ", stem)
-    flagged = (privacy.screen_value(stem, "other") or privacy.screen_value(words, "other")
-               or re.search(r"\b[A-Z][a-z]+[\s_.-]+[A-Z][a-z]+\b", stem))
-    if flagged or not name.isprintable():
-        return f"file {sha256[:12]}{suffix if suffix.isascii() and suffix.isprintable() else ''} (name withheld)"
-    return name
 
 
 def import_timelines(ws, path, actor: str, mapping: dict | None = None, drop=(), replace: bool = False,

@@ -137,3 +137,18 @@ def _factory(connect, cls):
         kwargs.setdefault("factory", cls)
         return connect(*args, **kwargs)
     return make
+
+
+def test_backup_entry_keeps_no_folder_and_withholds_a_name_that_may_identify(filled_path, tmp_path):
+    # the audit trail is append-only: a folder or file name naming a person must never reach it
+    folder = tmp_path / "Mary Smith"
+    folder.mkdir()
+    with Workspace.open(filled_path) as ws:
+        ws.backup(folder / "Mary Smith notes.cvw", actor="lead")
+        ws.backup(folder / "weekly.cvw", actor="lead")
+        first, second = [e for e in ws.audit_entries() if e.action == "workspace.backup"]
+        assert ws.audit_verify().ok
+    text = repr(first.details) + repr(second.details)
+    assert "Mary" not in text and "Smith" not in text and str(tmp_path) not in text
+    assert first.details["destination"].endswith("(name withheld)")
+    assert second.details["destination"] == "weekly.cvw" and len(second.details["sha256"]) == 64
