@@ -270,3 +270,69 @@ def test_row_digests_catch_versions_and_closures_changed_outside_caseview(ws):
     con.execute("UPDATE case_closures SET reason = 'died'")
     result = ws.audit_verify()
     assert not result.ok and "case_closures" in result.problem
+
+
+def _kinds(ws, code):
+    return {v.date: v.contact_kind for v in casework.list_contacts(ws, code, all_versions=True)}
+
+
+def test_record_and_correct_carry_the_contact_kind(ws):
+    """record stores the kind (default scheduled); correct changes it or keeps it; versions keep the old one."""
+    casework.record_contact(ws, "HS-0002", "2026-12-01", "ann", values={"falls": "one"}, contact_kind="unscheduled")
+    casework.record_contact(ws, "HS-0002", "2026-12-03", "ann", values={"falls": "none"})
+    current = {v.date: v.contact_kind for v in casework.list_contacts(ws, "HS-0002")}
+    assert current["2026-12-01"] == "unscheduled" and current["2026-12-03"] == "scheduled"
+    stored = ws.stored_contacts()
+    day = int(np.datetime64("2026-12-01", "D").astype(int))
+    assert stored.unscheduled[(stored.case_codes.repeat(np.diff(stored.offsets)) == "HS-0002") & (stored.days == day)].all()
+    casework.correct_contact(ws, "HS-0002", "2026-12-01", "was planned", "bo", contact_kind="scheduled")
+    casework.correct_contact(ws, "HS-0002", "2026-12-01", "one fall more", "bo", values={"falls": "several"})
+    versions = [v for v in casework.list_contacts(ws, "HS-0002", all_versions=True) if v.date == "2026-12-01"]
+    assert [(v.status, v.contact_kind) for v in versions] == [("current", "scheduled"), ("superseded", "scheduled"),
+                                                              ("superseded", "unscheduled")]
+    with pytest.raises(InputError, match="contact kind 'sometimes'"):
+        casework.record_contact(ws, "HS-0002", "2026-12-04", "ann", contact_kind="sometimes")
+    assert ws.audit_verify().ok
+
+
+def test_one_case_rescore_equals_full_rescore_with_unscheduled_contacts(ws):
+    """The demo model has an unscheduled_contacts block: the one-case read must carry the kinds."""
+    from caseview.followup import assess_caseload
+    from caseview.gui.data_source import LoadedCaseload
+
+    assert ws.current_model()[0].unscheduled_contacts is not None
+    as_of = dt.date(2026, 12, 5)
+    a = assess_caseload(ws, as_of, 90.0, reopen=False, explain_reasons=False)
+    loaded = LoadedCaseload(a.scores, a)
+    casework.record_contact(ws, "HS-0002", "2026-12-01", "ann", values={"falls": "one"}, contact_kind="unscheduled")
+    spliced, _ = casework.rescore_case(ws, loaded, "HS-0002")
+    full = assess_caseload(ws, as_of, 90.0, reopen=False, explain_reasons=False)
+    assert full.scores.timelines.unscheduled is not None and full.scores.timelines.unscheduled.any()
+    assert np.array_equal(spliced.scores.timelines.unscheduled_mask, full.scores.timelines.unscheduled_mask)
+    for name in ("p_now", "p_reach", "p_follow_up_now"):
+        assert np.allclose(getattr(spliced.scores, name), getattr(full.scores, name), atol=1e-12), name
+
+
+def test_contact_after_recorded_absorbing_entry_uses_the_import_wording(ws, tmp_path):
+    """record and import refuse a contact after a recorded exact entry into a stage with no way out alike."""
+    import csv
+
+    from caseview.timeline_io import import_timelines
+
+    before = _snapshot(ws)
+    with pytest.raises(InputError) as recorded:
+        casework.record_contact(ws, "HS-0001", "2026-12-01", "ann", values={"mobility": "slow"})
+    assert _snapshot(ws) == before
+    model, _ = ws.current_model()
+    header = ["case_id", "date", "coordinator", *[c.name for c in model.channels], *model.covariates, "stage_known"]
+    path = tmp_path / "late.csv"
+    with path.open("w", newline="", encoding="utf-8") as f:
+        csv.writer(f).writerows([header, ["HS-0001", "2026-12-01", "", "slow", *[""] * (len(model.channels) - 1),
+                                          *["0"] * len(model.covariates), ""]])
+    with pytest.raises(InputError) as imported:
+        import_timelines(ws, path, "ann")
+    core = "comes after the recorded entry into absorbing stage 'Moved to residential care' on "
+    assert core in str(recorded.value) and core in str(imported.value)
+    tail = "; a case that has entered it has no later contacts unless they record that stage"
+    assert tail in str(recorded.value) and tail in str(imported.value)
+    assert _snapshot(ws) == before
