@@ -34,6 +34,8 @@ def register(sub) -> None:
     p.add_argument("--time-bins", type=int, default=12, metavar="N",
                    help="calendar-time bins for the occupancy table (default 12)")
     p.add_argument("--out", metavar="TABLE.csv", help="write the observed/expected table ('-' for standard output)")
+    p.add_argument("--as-of", metavar="YYYY-MM-DD",
+                   help="check against contacts on or before this date (default: every stored contact)")
     p.add_argument("--occupancy-out", metavar="OCC.csv",
                    help="write observed versus expected occupancy of each category over calendar time")
     add_actor_option(p)
@@ -43,10 +45,6 @@ def register(sub) -> None:
 def _check_options(args) -> None:
     from caseview.errors import InputError
 
-    for option, value, least in (("--bootstrap", args.bootstrap, 0), ("--gap-bands", args.gap_bands, 1),
-                                 ("--time-bins", args.time_bins, 1)):
-        if value < least:
-            raise InputError(f"{option}: expected a whole number >= {least}, got {value}")
     if args.out == "-" and args.occupancy_out == "-":
         raise InputError("--out and --occupancy-out cannot both be '-' (standard output); give one a file name")
 
@@ -55,42 +53,35 @@ def run_check_fit(args) -> int:
     import numpy as np
 
     from caseview.errors import Cancelled, InputError
-    from hmm.fitting import goodness_of_fit
+    from caseview.operations.fitting import FitCheckOptions, run_fit_check
+    from caseview.scoring import parse_date
 
     from .basic import actor_name, format_days, open_workspace, stderr_progress, write_table
 
     _check_options(args)
+    for option, value, least in (("--bootstrap", args.bootstrap, 0), ("--gap-bands", args.gap_bands, 1),
+                                 ("--time-bins", args.time_bins, 1)):
+        if value < least:
+            raise InputError(f"{option}: expected a whole number >= {least}, got {value}")
+    options = FitCheckOptions(channel=args.channel, group_by=args.group_by, gap_bands=args.gap_bands,
+                              covariate_groups=not args.no_covariate_groups, bootstrap=args.bootstrap,
+                              refit=args.refit, seed=args.seed, time_bins=args.time_bins)
+    as_of = None if args.as_of is None else parse_date(args.as_of, "--as-of")
     actor = actor_name(args)
     with open_workspace(args.workspace) as ws:
-        model, version = ws.current_model()
-        names = [c.name for c in model.channels]
-        if args.channel is not None and args.channel not in names:
-            raise InputError(f"--channel: no channel {args.channel!r} in the current model "
-                             f"(channels: {', '.join(names) or 'none'})")
-        caseload = ws.load_caseload(model)
-        if caseload.timelines.n_cases == 0:
-            raise InputError(f"{args.workspace}: no contacts to check; import timelines first")
-        from caseview.operations.fit_guards import refuse_unscorable_cases
-
-        refuse_unscorable_cases(caseload, model)   # the same refusal as `caseview fit`
-        if not version.fit_summary:
-            print(f"caseview: note: model version {version.id} was entered, not fitted; the check compares the "
-                  "caseload with the values as entered", file=sys.stderr)
         progress = stderr_progress("checking fit")
-
         try:
-            result = goodness_of_fit(model, caseload.timelines, channel=args.channel, group_by=args.group_by,
-                                     gap_bands=args.gap_bands, covariate_groups=not args.no_covariate_groups,
-                                     bootstrap=args.bootstrap, refit=args.refit, rng=np.random.default_rng(args.seed),
-                                     time_bins=args.time_bins, callback=progress)
+            outcome = run_fit_check(ws, options, actor, as_of=as_of, callback=progress)
         except (KeyboardInterrupt, Cancelled):
             if sys.stderr.isatty():
                 print(file=sys.stderr)
             raise KeyboardInterrupt from None
-        except ValueError as exc:
-            raise InputError(f"{args.workspace}: cannot check the fit: {exc}") from None
         if sys.stderr.isatty():
             print("\rchecking fit: done   ", file=sys.stderr)
+        if outcome.inputs.entered_not_fitted:
+            print(f"caseview: note: model version {outcome.inputs.version_id} was entered, not fitted; the check "
+                  "compares the caseload with the values as entered", file=sys.stderr)
+        result = outcome.result
 
         if args.out:
             write_table(args.out, ["channel", "from", "gap_band", "covariates", "to", "observed", "expected",
@@ -109,12 +100,6 @@ def run_check_fit(args) -> int:
                         [np.repeat(occupancy.channel, n_bins).tolist(), np.repeat(occupancy.category, n_bins).tolist(),
                          starts * n_series, ends * n_series, [str(v) for v in occupancy.n_contacts.reshape(-1)],
                          number(occupancy.observed), number(occupancy.expected), number(occupancy.standard_error)])
-        ws.audit_append(actor, "model.fit_check", f"model:{version.id}",
-                        {"statistic": round(result.statistic, 6),
-                         "p_value": None if not result.n_bootstrap else round(result.p_value, 6),
-                         "bootstrap": result.n_bootstrap, "refit": result.refit, "seed": args.seed,
-                         "channel": args.channel, "group_by": args.group_by, "gap_bands": args.gap_bands,
-                         "cells": len(result.observed), "pairs": result.n_pairs})
     if args.out != "-":
         print(result.format_table())
         print(_occupancy_summary(occupancy))

@@ -1,9 +1,12 @@
-"""``caseview fit`` and ``caseview models``: fit the stage model to the caseload, list and compare versions."""
+"""``caseview fit`` and ``caseview models``: fit the stage model to the caseload, list and compare versions.
+
+Both call the application layer (:mod:`caseview.operations.fitting`, :mod:`caseview.operations.model_comparison`),
+the same functions the window calls.
+"""
 
 from __future__ import annotations
 
 import sys
-from types import SimpleNamespace
 
 from caseview import ADVISORY_NOTICE
 
@@ -22,15 +25,28 @@ def register(sub) -> None:
     p.add_argument("--penalised", action="store_true",
                    help="weakly informative priors for small caseloads (see README)")
     p.add_argument("--max-iterations", type=int, default=500, metavar="N")
+    p.add_argument("--intervals", choices=("auto", "profile", "wald"), default="auto",
+                   help="95%% intervals: profile likelihood or Wald (delta method); default auto = profile below "
+                        "5,000 cases or when the observed information is ill-conditioned")
+    p.add_argument("--as-of", metavar="YYYY-MM-DD",
+                   help="fit to contacts on or before this date (default: every stored contact)")
+    p.add_argument("--keep-current", action="store_true",
+                   help="store the fitted version without making it current (make it current later with "
+                        "'models --use')")
     add_actor_option(p)
     p.set_defaults(run=run_fit)
 
     p = sub.add_parser("models", help="list model versions; compare two; choose the current one",
                        description="Without options: list the workspace's model versions. --compare A B: "
-                                   "likelihood-ratio test (when nested) and AIC/BIC difference of two fitted "
-                                   "versions. --use ID: make a version current for scoring.")
+                                   "AIC/BIC difference of two fitted versions and, when one is nested in the other, "
+                                   "a likelihood-ratio test (chi-squared; --bootstrap B for a parametric-bootstrap "
+                                   "p-value). Penalised fits are refused. --use ID: make a version current for scoring.")
     p.add_argument("workspace", metavar="WS")
     p.add_argument("--compare", nargs=2, type=int, metavar=("A", "B"))
+    p.add_argument("--bootstrap", type=int, default=0, metavar="B",
+                   help="with --compare: parametric-bootstrap p-value from B caseloads simulated from the "
+                        "restricted fit (both models refitted to each; slow)")
+    p.add_argument("--seed", type=int, default=1, metavar="S", help="seed for --bootstrap (default 1)")
     p.add_argument("--use", type=int, metavar="ID")
     add_actor_option(p)
     p.set_defaults(run=run_models)
@@ -45,102 +61,57 @@ def register(sub) -> None:
 
 
 def run_fit(args) -> int:
-    import numpy as np
-
-    from caseview.errors import Cancelled, InputError
-    from caseview.modelfile import dump_model, save_model
-    from caseview.scoring import observation_end_day
-    from caseview.operations.fit_guards import fitted_model_to_save, refuse_unscorable_cases, run_guarded
-    from hmm.fitting import fit_model
+    from caseview.errors import Cancelled
+    from caseview.modelfile import save_model
+    from caseview.operations.fitting import FitOptions, compute_fit, fit_inputs, save_fit
+    from caseview.scoring import parse_date
 
     from .basic import actor_name, open_workspace, stderr_progress
 
-    if args.starts < 1:
-        raise InputError(f"--starts: expected a whole number >= 1, got {args.starts}")
+    options = FitOptions(starts=args.starts, seed=args.seed, penalised=args.penalised, intervals=args.intervals,
+                         max_iterations=args.max_iterations)
+    options.check()
+    as_of = None if args.as_of is None else parse_date(args.as_of, "--as-of")
     actor = actor_name(args)
     if args.out:  # before the (long) fit: never a saved version and then a failed --out
         from caseview.private_files import ensure_can_write
 
         ensure_can_write(args.out)
     with open_workspace(args.workspace) as ws:
-        model, version = ws.current_model()
-        caseload = ws.load_caseload(model)
-        if caseload.timelines.n_cases == 0:
-            raise InputError(f"{args.workspace}: no contacts to fit; import timelines first")
-        refuse_unscorable_cases(caseload, model)
         progress = stderr_progress("fitting")
-
         try:
-            result = run_guarded(lambda: fit_model(
-                model, caseload.timelines, starts=args.starts, rng=np.random.default_rng(args.seed),
-                penalised=args.penalised, callback=progress, max_iterations=args.max_iterations,
-                observed_until=observation_end_day(caseload.timelines)))
+            outcome = compute_fit(fit_inputs(ws, as_of), options, callback=progress)
         except (KeyboardInterrupt, Cancelled):
             if sys.stderr.isatty():
                 print(file=sys.stderr)
             raise KeyboardInterrupt from None
         if sys.stderr.isatty():
             print("\rfitting: done   ", file=sys.stderr)
-        summary = result.to_summary()
-        summary["fitted_from_version"] = version.id
-        note = (f"fitted to {result.n_cases} cases from version {version.id}"
-                + (" (penalised)" if args.penalised else "")
-                + ("" if result.converged else " - DID NOT CONVERGE"))
-        to_save = fitted_model_to_save(result, caseload.timelines)
+        summary = outcome.summary
         with ws.transaction():  # the version and the --out file: both or neither
-            new_id = ws.add_model_version(dump_model(to_save), note, actor, fit_summary=summary,
-                                          make_current=True)
+            saved = save_fit(ws, outcome, actor, make_current=not args.keep_current)
             if args.out:
-                save_model(to_save, args.out, extra={"fit": {k: summary[k] for k in
-                                                             ("log_likelihood", "aic", "bic", "n_parameters",
-                                                              "n_cases", "converged")}})
-    print(result.format_table())
-    print(f"\nsaved as model version {new_id} (now current for scoring; version {version.id} kept)")
+                save_model(saved.model, args.out,
+                           extra={"fit": {"log_likelihood": summary.log_likelihood, "aic": summary.aic,
+                                          "bic": summary.bic, "n_parameters": summary.n_parameters,
+                                          "n_cases": summary.n_cases, "converged": summary.converged,
+                                          "intervals": summary.interval_kind}})
+    print(summary.format_table())
+    start = summary.fitted_from_version
+    if saved.made_current:
+        print(f"\nsaved as model version {saved.version_id} (now current for scoring; version {start} kept)")
+    else:
+        print(f"\nsaved as model version {saved.version_id}; version {start} is still current "
+              f"('caseview models {args.workspace} --use {saved.version_id}' makes the new one current)")
     if args.out:
         print(f"wrote {args.out}")
     print(ADVISORY_NOTICE)
-    return 0 if result.converged else 1
-
-
-def _number(value):
-    """A finite float, or None (a failed fit stored None, -inf or nan)."""
-    import math
-
-    try:
-        value = float(value)
-    except (TypeError, ValueError):
-        return None
-    return value if math.isfinite(value) else None
-
-
-def _summary_fit(version):
-    """The fit statistics of a version, or None when it was not fitted or its fit failed."""
-    s = version.fit_summary or {}
-    numbers = {key: _number(s.get(key)) for key in ("log_likelihood", "aic", "bic", "n_parameters")}
-    if any(value is None for value in numbers.values()):
-        return None
-    return SimpleNamespace(log_likelihood=numbers["log_likelihood"], n_parameters=int(numbers["n_parameters"]),
-                           n_cases=s.get("n_cases"), n_contacts=s.get("n_contacts"), aic=numbers["aic"],
-                           bic=numbers["bic"], names=set(s.get("free_parameters", [])))
-
-
-def _fit_state(version) -> str:
-    """'-' for a version never fitted, 'failed' for a fit whose statistics are not numbers."""
-    return "failed" if version.fit_summary and "log_likelihood" in version.fit_summary else "-"
-
-
-def _timing_comparison(first, second, first_fit, second_fit):
-    """:func:`hmm.fitting.compare.timing_comparison` for two stored model versions."""
-    from caseview.modelfile import parse_model
-    from hmm.fitting.compare import contact_timing_of, timing_comparison
-
-    kinds = [contact_timing_of(parse_model(v.json_text, source=f"model version {v.id}")) for v in (first, second)]
-    return timing_comparison(kinds[0], kinds[1], first_fit.names, second_fit.names)
+    return 0 if summary.converged else 1
 
 
 def run_models(args) -> int:
     from caseview.errors import InputError
-    from hmm.fitting.compare import information_criteria_difference, likelihood_ratio_test
+    from caseview.operations.fitting import make_version_current
 
     from .basic import actor_name, open_workspace
 
@@ -149,53 +120,64 @@ def run_models(args) -> int:
         if args.use is not None:
             if args.use not in versions:
                 raise InputError(f"--use: no model version {args.use} (versions: {', '.join(map(str, versions))})")
-            ws.set_current_model(args.use, actor_name(args))
+            make_version_current(ws, args.use, actor_name(args))
             print(f"model version {args.use} is now current for scoring")
             return 0
         if args.compare:
-            fits = []
-            for vid in args.compare:
-                if vid not in versions:
-                    raise InputError(f"--compare: no model version {vid}")
-                fit = _summary_fit(versions[vid])
-                if fit is None:
-                    why = "its fit failed" if _fit_state(versions[vid]) == "failed" else "it was not fitted"
-                    raise InputError(f"--compare: model version {vid} has no log-likelihood to compare ({why})")
-                fits.append(fit)
-            a, b = fits
-            timing = _timing_comparison(versions[args.compare[0]], versions[args.compare[1]], a, b)
-            if not timing.comparable:
-                print(timing.explanation)
-                return 0
-            if timing.explanation:
-                print(timing.explanation)
-            diff = information_criteria_difference(a, b)
-            print(f"version {args.compare[0]}: logL {a.log_likelihood:.3f}, {a.n_parameters} parameters, "
-                  f"AIC {a.aic:.2f}, BIC {a.bic:.2f}")
-            print(f"version {args.compare[1]}: logL {b.log_likelihood:.3f}, {b.n_parameters} parameters, "
-                  f"AIC {b.aic:.2f}, BIC {b.bic:.2f}")
-            print(f"difference (second - first): AIC {diff['aic']:+.2f}, BIC {diff['bic']:+.2f} "
-                  "(negative favours the second)")
-            restricted, general = (a, b) if a.n_parameters < b.n_parameters else (b, a)
-            nested = (restricted.names <= general.names or timing.nested) and \
-                restricted.n_parameters < general.n_parameters
-            if nested:
-                try:
-                    test = likelihood_ratio_test(restricted, general)
-                except ValueError as exc:
-                    print(f"likelihood-ratio test not possible: {exc}")
-                else:
-                    print(f"likelihood-ratio test: statistic {test.statistic:.3f} on {test.df} df, "
-                          f"p = {test.p_value:.4g} (chi-squared reference; nested models on the same data)")
-            else:
-                print("likelihood-ratio test not applicable: the free parameters of one model are not a subset "
-                      "of the other's; compare AIC/BIC instead")
-            return 0
+            return _print_comparison(ws, args)
+        if args.bootstrap:
+            raise InputError("--bootstrap: only with --compare A B")
         print(f"{'id':>4}  {'created (UTC)':<20}  {'current':<7}  {'logL':>12}  {'AIC':>10}  {'BIC':>10}  note")
         for v in versions.values():
-            fit = _summary_fit(v)
-            state = _fit_state(v)
-            numbers = (f"{fit.log_likelihood:>12.2f}  {fit.aic:>10.1f}  {fit.bic:>10.1f}" if fit else
-                       f"{state:>12}  {'-':>10}  {'-':>10}")
-            print(f"{v.id:>4}  {v.created_utc[:19]:<20}  {'yes' if v.is_current else '':<7}  {numbers}  {v.note}")
+            print(f"{v.id:>4}  {v.created_utc[:19]:<20}  {'yes' if v.is_current else '':<7}  {_numbers(v)}  {v.note}")
+    return 0
+
+
+def _numbers(version) -> str:
+    """logL, AIC and BIC columns of one version ('-' when entered, not fitted or not finite)."""
+    from caseview.errors import InputError
+    from caseview.operations.fitting import stored_fit_summary
+
+    try:
+        fit = stored_fit_summary(version)
+    except InputError:
+        return f"{'unreadable':>12}  {'-':>10}  {'-':>10}"
+    if fit is None:
+        return f"{'-':>12}  {'-':>10}  {'-':>10}"
+    cell = lambda value, width, places: f"{value:>{width}.{places}f}" if value is not None else f"{'-':>{width}}"  # noqa: E731
+    text = f"{cell(fit.log_likelihood, 12, 2)}  {cell(fit.aic, 10, 1)}  {cell(fit.bic, 10, 1)}"
+    return text + ("  (penalised)" if fit.penalised else "")
+
+
+def _print_comparison(ws, args) -> int:
+    from caseview.operations.model_comparison import compare_versions
+
+    from .basic import stderr_progress
+
+    c = compare_versions(ws, *args.compare, bootstrap=args.bootstrap, seed=args.seed,
+                         callback=stderr_progress("bootstrap") if args.bootstrap else None)
+    if args.bootstrap and sys.stderr.isatty():
+        print("\rbootstrap: done   ", file=sys.stderr)
+    for vid, s in ((c.first, c.first_summary), (c.second, c.second_summary)):
+        print(f"version {vid}: logL {s.log_likelihood:.3f}, {s.n_parameters} parameters, AIC {s.aic:.2f}, "
+              f"BIC {s.bic:.2f}")
+    print(f"difference (second - first): AIC {c.aic_difference:+.2f}, BIC {c.bic_difference:+.2f} "
+          "(negative favours the second)")
+    if not c.nested:
+        print(f"likelihood-ratio test refused: the versions are not nested ({c.not_nested_reason}); "
+              "compare AIC/BIC instead")
+        return 0
+    print(f"nested: version {c.restricted} is version {c.general} with {len(c.extra_parameters)} parameter"
+          f"{'s' if len(c.extra_parameters) != 1 else ''} held fixed ({'; '.join(c.extra_parameters)})")
+    print(f"likelihood-ratio test: statistic {c.statistic:.3f} on {c.df} df, chi-squared p = "
+          f"{c.chi_squared_p_value:.4g}")
+    if c.boundary_parameters:
+        print(f"caution: the restriction holds {'; '.join(c.boundary_parameters)} at 0, on the boundary of the "
+              "parameter space; the chi-squared p-value is then conservative (too large; the reference is a "
+              "chi-bar-squared mixture, Self & Liang 1987)"
+              + ("" if c.bootstrap_p_value is not None else "; use --bootstrap B for a parametric-bootstrap "
+                 "p-value"))
+    if c.bootstrap_p_value is not None:
+        print(f"parametric bootstrap: p = {c.bootstrap_p_value:.4g} from {c.bootstrap_replicates} caseloads "
+              f"simulated from version {c.restricted} at the observed contact times (seed {c.seed})")
     return 0

@@ -1,7 +1,7 @@
 """The model panel's "Fit check": goodness of fit computed in a worker, drawn as observed versus expected occupancy.
 
 :class:`FitCheckArea` holds the controls (check, cancel, number of simulated caseloads, progress)
-and runs :func:`hmm.fitting.goodness_of_fit` in a background job. :class:`FitCheckChart` draws
+and runs :func:`caseview.operations.fitting.compute_fit_check` in a background job. :class:`FitCheckChart` draws
 the result: for each observation channel, the share of contacts in each calendar-time bin that
 recorded each category (dots) against the share the model predicted from each case's earlier
 contacts (line, with a band of two standard errors). The view only draws; all numbers come from
@@ -15,11 +15,13 @@ from PySide6.QtCore import Signal
 from PySide6.QtWidgets import (QHBoxLayout, QLabel, QProgressBar, QPushButton, QScrollArea, QSpinBox, QVBoxLayout,
                                QWidget)
 
+from caseview.operations.fitting import WINDOW_SEED
+
 from . import theme
 from .workers import JobRunner
 
 #: Seed of the simulated caseloads, so a check repeated on the same data gives the same p-value.
-CHECK_SEED = 1
+CHECK_SEED = WINDOW_SEED   # the command line's default seed too
 
 
 def summary_text(result) -> str:
@@ -104,8 +106,9 @@ class FitCheckArea(QWidget):
 
     Parameters
     ----------
-    inputs : callable() -> (StageModel, Timelines) or None
-        What to check; called when the check starts (None: nothing loaded yet).
+    inputs : callable() -> caseview.operations.fitting.FitInputs or None
+        What to check; called when the check starts (None: nothing loaded yet). The check itself is
+        :func:`caseview.operations.fitting.compute_fit_check`, the command line's too.
     """
 
     finished = Signal(object)   # GoodnessOfFit
@@ -117,6 +120,7 @@ class FitCheckArea(QWidget):
         self.inputs = inputs
         self.jobs = JobRunner(self, max_threads=1)
         self.result = None
+        self.outcome = None   # caseview.operations.fitting.FitCheckOutcome of the last check
         self.check_button = QPushButton("Check fit")
         self.check_button.setAccessibleName("Check how well the model fits the caseload")
         self.check_button.clicked.connect(self.start)
@@ -149,22 +153,20 @@ class FitCheckArea(QWidget):
 
     def start(self) -> None:
         inputs = self.inputs()
-        if inputs is None or inputs[0] is None or inputs[1] is None:
+        if inputs is None:
             self.summary.setText("Open and score a caseload first.")
             return
-        from hmm.fitting import goodness_of_fit
+        from caseview.operations.fitting import FitCheckOptions, compute_fit_check
 
-        model, timelines = inputs
-        replicates = self.bootstrap.value()
+        options = FitCheckOptions(bootstrap=self.bootstrap.value(), seed=CHECK_SEED)
         self.progress.setValue(0)
         self.check_button.setEnabled(False)
         self.cancel_button.setEnabled(True)
-        self.summary.setText(f"Checking the fit on {timelines.n_cases:,} cases with {replicates} simulated "
-                             "caseloads…")
-        self.jobs.start("fit check", lambda callback: goodness_of_fit(
-            model, timelines, bootstrap=replicates, rng=np.random.default_rng(CHECK_SEED), callback=callback),
-            on_finished=self._finished, on_failed=self._failed, on_cancelled=self._cancelled,
-            on_progress=lambda f: self.progress.setValue(int(100 * f)))
+        self.summary.setText(f"Checking the fit on {inputs.timelines.n_cases:,} cases ({inputs.contacts_text}) with "
+                             f"{options.bootstrap} simulated caseloads…")
+        self.jobs.start("fit check", lambda callback: compute_fit_check(inputs, options, callback=callback),
+                        on_finished=self._finished, on_failed=self._failed, on_cancelled=self._cancelled,
+                        on_progress=lambda f: self.progress.setValue(int(100 * f)))
 
     def cancel(self) -> None:
         self.jobs.cancel("fit check")
@@ -184,9 +186,10 @@ class FitCheckArea(QWidget):
         self.check_button.setEnabled(True)
         self.cancel_button.setEnabled(False)
 
-    def _finished(self, result) -> None:
+    def _finished(self, outcome) -> None:
         self._done()
-        self.result = result
+        self.outcome = outcome
+        result = self.result = outcome.result
         self.progress.setValue(100)
         self.summary.setText(summary_text(result))
         # the summary already says whether the parameters were re-estimated

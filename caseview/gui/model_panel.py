@@ -1,13 +1,20 @@
-"""Model panel: diagram, mean time in stage, hazard ratios, observation probabilities, fit, versions."""
+"""Model panel: diagram, mean time in stage, hazard ratios, observation probabilities, fit, versions.
+
+Fitting and the fit check go through :mod:`caseview.operations.fitting` (the command line's functions):
+the fit runs in a worker on the contacts up to the window's as-of date, is stored as a new version that
+is *not* current yet, and a before/after preview (flags gained and lost, the biggest changes in
+P(follow-up now)) asks whether to make it current.
+"""
 
 from __future__ import annotations
 
 import numpy as np
 from PySide6.QtCore import Qt, Signal
-from PySide6.QtWidgets import (QAbstractItemView, QCheckBox, QHBoxLayout, QLabel, QListWidget, QListWidgetItem,
-                               QProgressBar, QPushButton, QSpinBox, QSplitter, QTableWidget, QTableWidgetItem,
-                               QTabWidget, QVBoxLayout, QWidget)
+from PySide6.QtWidgets import (QAbstractItemView, QCheckBox, QComboBox, QHBoxLayout, QLabel, QListWidget,
+                               QListWidgetItem, QProgressBar, QPushButton, QSpinBox, QSplitter, QTableWidget,
+                               QTableWidgetItem, QTabWidget, QVBoxLayout, QWidget)
 
+from .fit_preview import FitPreviewBox
 from .model_editor import ModelEditor
 from .transition_diagram import TransitionDiagram
 from .workers import JobRunner
@@ -38,21 +45,16 @@ def _short(name: str) -> str:
     return text[:-len(" (days)")] if text.endswith(" (days)") else text
 
 
-def _interval(item: dict, fmt="{:,.1f}") -> str:
-    if item.get("fixed"):
-        return "fixed"
-    lo, hi = item.get("lower"), item.get("upper")
-    if lo is None or hi is None:
-        return "–"
-    if not item.get("informative", True):
-        return "too wide to use (data say little)"
-    return f"{fmt.format(lo)} – {fmt.format(hi)}"
+def _interval(estimate, fmt=lambda v: f"{v:,.1f}") -> str:
+    """A fitted estimate's interval cell: the range and its kind (profile or Wald), or why there is none."""
+    return estimate.interval_text(fmt)
 
 
 class ModelPanel(QWidget):
     """Shows the current model; fits it in a worker (progress, cancel) and stores new versions."""
 
-    fit_finished = Signal(object)   # FitResult
+    fit_finished = Signal(object)   # hmm.fitting.FitResult (the fitted version is stored, not yet current)
+    fit_decided = Signal(bool)      # True: the fitted version was made current
     fit_cancelled = Signal()
     fit_failed = Signal(str)
 
@@ -63,12 +65,12 @@ class ModelPanel(QWidget):
         self.model = None
         self.version = None
         self.jobs = JobRunner(self, max_threads=1)
-        self._last_fit = None  # (version id, history) of the fit made in this window
+        self._pending = None   # the SavedFit whose preview is shown
         self.diagram = TransitionDiagram()
         self.heading = QLabel("No model loaded")
         self.heading.setWordWrap(True)
-        self.sojourn = _table(["Stage", "Mean time in stage (days)", "95% interval"])
-        self.hazards = _table(["Effect", "Hazard ratio", "95% interval"])
+        self.sojourn = _table(["Stage", "Mean time in stage (days)", "95% interval (kind)"])
+        self.hazards = _table(["Effect", "Hazard ratio", "95% interval (kind)"])
         self.emissions = _table(["Channel", "Stage", "Probabilities"])
         self.contact_rates = _table(["Stage", "Unscheduled contacts per year", "95% interval"])
         self.fit_chart_holder = QVBoxLayout()
@@ -116,6 +118,11 @@ class ModelPanel(QWidget):
         self.starts.setPrefix("starts: ")
         self.starts.setAccessibleName("Number of fitting starts")
         self.penalised = QCheckBox("Penalised (gentle prior)")
+        self.intervals = QComboBox()
+        for label, kind in (("intervals: automatic", "auto"), ("intervals: profile", "profile"),
+                            ("intervals: Wald", "wald")):
+            self.intervals.addItem(label, kind)
+        self.intervals.setAccessibleName("Kind of 95% interval (automatic: profile likelihood below 5,000 cases)")
         self.progress = QProgressBar()
         self.progress.setRange(0, 100)
         self.progress.setAccessibleName("Fitting progress")
@@ -127,8 +134,11 @@ class ModelPanel(QWidget):
         self.fit_warnings.setWordWrap(True)
         self.fit_warnings.hide()
         fit_row = QHBoxLayout()
-        for w in (self.fit_button, self.starts, self.penalised, self.progress, self.cancel_button):
+        for w in (self.fit_button, self.starts, self.penalised, self.intervals, self.progress, self.cancel_button):
             fit_row.addWidget(w)
+        self.preview = FitPreviewBox()
+        self.preview.decided.connect(self.decide)
+        self.use_fitted, self.keep_current = self.preview.use_fitted, self.preview.keep_current
 
         left = QWidget()
         lv = QVBoxLayout(left)
@@ -137,6 +147,7 @@ class ModelPanel(QWidget):
         lv.addLayout(fit_row)
         lv.addWidget(self.fit_message)
         lv.addWidget(self.fit_warnings)
+        lv.addWidget(self.preview)
         split = QSplitter(Qt.Horizontal)
         split.addWidget(left)
         split.addWidget(self.details)
@@ -145,17 +156,6 @@ class ModelPanel(QWidget):
         self.details.setMinimumWidth(540)
         layout = QVBoxLayout(self)
         layout.addWidget(split)
-        if not self._fitting_available():
-            self.fit_button.setEnabled(False)
-            self.fit_message.setText("Fitting is not available yet in this build.")
-
-    @staticmethod
-    def _fitting_available() -> bool:
-        try:
-            import hmm.fitting  # noqa: F401
-            return True
-        except ImportError:
-            return False
 
     # ------------------------------------------------------------------ showing
     def set_source(self, source) -> None:
@@ -174,9 +174,11 @@ class ModelPanel(QWidget):
         self._fill_versions(versions)
         if self.model is None:
             return
-        summary = getattr(self.version, "fit_summary", None)
+        summary = self._summary()
         label = f"version {self.version.id}" if self.version is not None else "in memory"
         fitted = "fitted" if summary else "not fitted to this caseload yet (values as entered)"
+        if summary is not None:
+            fitted += f" ({summary.interval_label()})"
         self.heading.setText(f"<b>{self.model.name}</b> — {label}, {fitted}. Rates and probabilities are "
                              "estimates; advisory only.")
         self.summary_view.set_model(self.model, self.version)
@@ -190,9 +192,21 @@ class ModelPanel(QWidget):
 
         self.editor.set_text(self.version.json_text if self.version is not None else dump_model(self.model))
 
+    def _summary(self):
+        """The current version's FitSummary (None when entered, not fitted, or unreadable)."""
+        from caseview.errors import InputError
+        from caseview.operations.fitting import stored_fit_summary
+
+        if self.version is None:
+            return None
+        try:
+            return stored_fit_summary(self.version)
+        except InputError:
+            return None
+
     def _fill_sojourn(self, summary) -> None:
-        if summary and summary.get("mean_time_in_stage"):
-            rows = [(_short(i["name"]), f"{i['estimate']:,.1f}", _interval(i)) for i in summary["mean_time_in_stage"]]
+        if summary is not None and summary.mean_time_in_stage:
+            rows = [(e.stage or e.name, f"{e.estimate:,.1f}", _interval(e)) for e in summary.mean_time_in_stage]
         else:
             q = self.model.generator()
             rows = [(s, f"{-1 / q[r, r]:,.1f}" if q[r, r] < 0 else "no way out", "–")
@@ -200,8 +214,8 @@ class ModelPanel(QWidget):
         _fill(self.sojourn, rows)
 
     def _fill_hazards(self, summary) -> None:
-        if summary and summary.get("hazard_ratios"):
-            rows = [(i["name"], f"{i['estimate']:.2f}", _interval(i, "{:.2f}")) for i in summary["hazard_ratios"]]
+        if summary is not None and summary.hazard_ratios:
+            rows = [(e.name, f"{e.estimate:.2f}", _interval(e, lambda v: f"{v:.2f}")) for e in summary.hazard_ratios]
         else:
             m = self.model
             rows = [(f"{name} on {m.stages[t.source]} → {m.stages[t.target]}", f"{np.exp(beta):.2f}",
@@ -243,15 +257,13 @@ class ModelPanel(QWidget):
             if self.fit_canvas is not None:
                 self.fit_canvas.hide()
             return
-        aic, bic, ll = summary.get("aic"), summary.get("bic"), summary.get("log_likelihood")
-        numbers = " · ".join(f"{name} {value:,.1f}" for name, value in
-                             (("log-likelihood", ll), ("AIC", aic), ("BIC", bic)) if value is not None)
-        self.fit_chart_note.setText(f"{numbers} · converged: {'yes' if summary.get('converged') else 'NO'} · "
-                                    f"{summary.get('n_cases', '?')} cases")
-        history = summary.get("history") or []
-        if not history and self._last_fit is not None and self.version is not None \
-                and self.version.id == self._last_fit[0]:
-            history = self._last_fit[1]
+        numbers = " · ".join(f"{name} {value:,.1f}" if value is not None else f"{name} not finite"
+                             for name, value in (("log-likelihood", summary.log_likelihood), ("AIC", summary.aic),
+                                                 ("BIC", summary.bic)))
+        used = f"contacts up to {summary.contacts_as_of}" if summary.contacts_as_of else "all contacts"
+        self.fit_chart_note.setText(f"{numbers} · converged: {'yes' if summary.converged else 'NO'} · "
+                                    f"{summary.n_cases} cases ({used}) · {summary.interval_label()}")
+        history = [h for h in summary.history if h.log_likelihood is not None]
         if not history:
             if self.fit_canvas is not None:
                 self.fit_canvas.hide()
@@ -267,7 +279,7 @@ class ModelPanel(QWidget):
         figure = self.fit_canvas.figure
         figure.clear()
         axis = figure.add_subplot()
-        axis.plot([h["iteration"] for h in history], [h["log_likelihood"] for h in history], "-o", ms=3,
+        axis.plot([h.iteration for h in history], [h.log_likelihood for h in history], "-o", ms=3,
                   color="#0072B2")
         axis.set_xlabel("iteration")
         axis.set_ylabel("log-likelihood")
@@ -277,31 +289,42 @@ class ModelPanel(QWidget):
     # ------------------------------------------------------------------ fitting
     def start_fit(self) -> None:
         self.fit_warnings.hide()
+        self.preview.hide()
         loaded = self.window.loaded
         if loaded is None or self.model is None:
             self.fit_message.setText("Open and score a caseload first.")
             return
-        from caseview.scoring import observation_end_day
-        from hmm.fitting import fit_model
+        from caseview.followup import default_rules, workspace_rules
+        from caseview.operations.fitting import FitOptions, compute_fit, preview_fit
 
-        lost = getattr(loaded.scores, "unscorable", None)
-        if lost is not None and lost.n_cases:   # the same refusal as `caseview fit` (operations.fit_guards)
-            self.fit_message.setText(f"Cannot fit: {lost.summary()}; correct or void those records first. "
-                                     "Nothing was fitted or saved.")
-            return
-        model, timelines = self.model, loaded.scores.timelines
-        starts, penalised = self.starts.value(), self.penalised.isChecked()
-        rng = np.random.default_rng(20261202)
+        inputs = self._inputs()
+        ws = self.window.workspace()
+        rules = workspace_rules(ws) if ws is not None else default_rules()
+        options = FitOptions(starts=self.starts.value(), penalised=self.penalised.isChecked(),
+                             intervals=self.intervals.currentData())
+        horizon = float(loaded.scores.horizon_days)
+
+        def job(callback):
+            outcome = compute_fit(inputs, options, callback=lambda f: callback(0.95 * f))
+            preview = preview_fit(outcome, inputs.contacts_as_of, horizon, rules)
+            callback(1.0)
+            return outcome, preview
+
         self.progress.setValue(0)
         self.fit_button.setEnabled(False)
         self.cancel_button.setEnabled(True)
-        self.fit_message.setText(f"Fitting to {timelines.n_cases:,} cases ({timelines.n_contacts:,} contacts)…")
-        observed_until = observation_end_day(timelines)
-        self.jobs.start("fit", lambda callback: fit_model(model, timelines, starts=starts, rng=rng,
-                                                          penalised=penalised, callback=callback,
-                                                          observed_until=observed_until),
-                        on_finished=self._fitted, on_failed=self._fit_failed, on_cancelled=self._fit_cancelled,
-                        on_progress=lambda f: self.progress.setValue(int(100 * f)))
+        self.fit_message.setText(f"Fitting to {inputs.timelines.n_cases:,} cases ({inputs.timelines.n_contacts:,} "
+                                 f"{inputs.contacts_text})…")
+        self.jobs.start("fit", job, on_finished=self._fitted, on_failed=self._fit_failed,
+                        on_cancelled=self._fit_cancelled, on_progress=lambda f: self.progress.setValue(int(100 * f)))
+
+    def _inputs(self):
+        """The fit's inputs: the scored caseload (contacts up to the as-of date it was scored at)."""
+        from caseview.operations.fitting import FitInputs
+
+        scores = self.window.loaded.scores
+        return FitInputs(self.model, None if self.version is None else self.version.id, scores.caseload,
+                         scores.as_of, entered_not_fitted=self._summary() is None)
 
     def cancel_fit(self) -> None:
         self.jobs.cancel("fit")
@@ -311,7 +334,12 @@ class ModelPanel(QWidget):
         self.fit_button.setEnabled(True)
         self.cancel_button.setEnabled(False)
 
-    def _fitted(self, result) -> None:
+    def _fitted(self, payload) -> None:
+        from caseview.errors import FitRefused, InputError
+        from caseview.operations.fitting import save_fit
+
+        outcome, preview = payload
+        result = outcome.result
         self._fit_done()
         self.progress.setValue(100)
         self.fit_warnings.clear()
@@ -320,28 +348,43 @@ class ModelPanel(QWidget):
         warnings = (f"{len(result.warnings)} warning{'s' if len(result.warnings) != 1 else ''} below: read them "
                     "before relying on the new version." if result.warnings else "")
         ws = self.window.workspace()
-        if ws is not None:
-            from caseview.errors import FitRefused
-            from caseview.modelfile import dump_model
-            from caseview.operations.fit_guards import fitted_model_to_save
+        if ws is None:
+            self.fit_message.setText(f"Fit finished (log-likelihood {result.log_likelihood:,.1f}); not saved "
+                                     f"(no workspace). {warnings}")
+            self.fit_finished.emit(result)
+            return
+        try:
+            saved = save_fit(ws, outcome, self.window.actor, make_current=False)
+        except (InputError, FitRefused) as exc:
+            self.fit_message.setText(f"Fit failed: {exc}")
+            self.fit_failed.emit(str(exc))
+            return
+        self._pending = saved
+        self.fit_message.setText(f"Fit finished (log-likelihood {result.log_likelihood:,.1f}, "
+                                 f"{outcome.summary.interval_label()}); stored as version {saved.version_id}. "
+                                 f"{warnings}")
+        self.preview.show_preview(saved, preview)
+        self._fill_versions(ws.model_versions())
+        self.fit_finished.emit(result)
 
-            try:
-                to_save = fitted_model_to_save(result, self.window.loaded.scores.timelines)
-            except FitRefused as exc:
-                self.fit_message.setText(f"Fit failed: {exc}")
-                self.fit_failed.emit(str(exc))
-                return
-            version = ws.add_model_version(dump_model(to_save), "fitted in the window", self.window.actor,
-                                           fit_summary=result.to_summary(), make_current=True)
-            self._last_fit = (version, list(result.history))
-            self.fit_message.setText(f"Fit finished (log-likelihood {result.log_likelihood:,.1f}); saved as "
-                                     f"version {version} and made current. {warnings}")
+    def decide(self, make_current: bool) -> None:
+        """The user's answer to the preview: make the fitted version current (audited) or keep the current one."""
+        from caseview.operations.fitting import make_version_current
+
+        saved, self._pending = self._pending, None
+        self.preview.hide()
+        if saved is None:
+            return
+        ws = self.window.workspace()
+        if make_current and ws is not None:
+            make_version_current(ws, saved.version_id, self.window.actor)
+            self.fit_message.setText(f"Version {saved.version_id} is now current for scoring.")
             self.refresh()
             self.window.rescore()
         else:
-            self.fit_message.setText(f"Fit finished (log-likelihood {result.log_likelihood:,.1f}); not saved "
-                                     f"(no workspace). {warnings}")
-        self.fit_finished.emit(result)
+            self.fit_message.setText(f"Version {saved.version_id} is stored; the current version is unchanged "
+                                     "(choose it under Versions to use it later).")
+        self.fit_decided.emit(bool(make_current))
 
     def _fit_failed(self, message: str) -> None:
         self._fit_done()
@@ -397,21 +440,18 @@ class ModelPanel(QWidget):
         from .fit_check_chart import FitCheckArea
 
         def inputs():
-            loaded = self.window.loaded
-            return None if loaded is None or self.model is None else (self.model, loaded.scores.timelines)
+            return None if self.window.loaded is None or self.model is None else self._inputs()
 
         self.fit_check = FitCheckArea(inputs)
         self.fit_check.finished.connect(self._fit_checked)
         self.details.addTab(self.fit_check, "Fit check")
 
     def _fit_checked(self, result) -> None:
+        from caseview.operations.fitting import record_fit_check
+
         ws = self.window.workspace()
-        if ws is not None and self.version is not None:
-            ws.audit_append(self.window.actor, "model.fit_check", f"model:{self.version.id}",
-                            {"statistic": round(result.statistic, 6), "bootstrap": result.n_bootstrap,
-                             "p_value": round(result.p_value, 6) if result.n_bootstrap else None,
-                             "refit": result.refit, "cells": len(result.observed), "pairs": result.n_pairs,
-                             "from": "window"})
+        if ws is not None and self.fit_check.outcome is not None and self.fit_check.outcome.result is result:
+            record_fit_check(ws, self.fit_check.outcome, self.window.actor)
 
     def shutdown(self) -> None:
         self.fit_check.shutdown()

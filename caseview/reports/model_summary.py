@@ -1,7 +1,8 @@
 """The model part of a report: version, fit statistics and mean time in each stage.
 
-The fit summary stored with a model version (written by the fitting code) is read defensively:
-any of the usual key spellings are accepted and anything missing is simply not shown.
+The fit summary stored with a model version is read through :class:`hmm.fitting.FitSummary` (the one
+contract every reader uses); the fitted mean times in stage come with their interval and its kind
+(profile likelihood or Wald), and a weakly identified one is shown without a range.
 """
 
 from __future__ import annotations
@@ -13,21 +14,6 @@ import numpy as np
 
 NOT_FITTED = "rates not fitted to this caseload"
 
-_STATISTIC_KEYS = (
-    ("log-likelihood", ("log_likelihood", "loglik", "logl", "log_lik", "loglikelihood")),
-    ("AIC", ("aic",)),
-    ("BIC", ("bic",)),
-    ("parameters estimated", ("n_parameters", "n_params", "parameters", "number_of_parameters")),
-    ("cases", ("n_cases", "cases")),
-    ("contacts", ("n_contacts", "contacts")),
-    ("iterations", ("iterations", "n_iterations")),
-    ("converged", ("converged",)),
-)
-_SOJOURN_KEYS = ("mean_sojourn_days", "mean_sojourn", "mean_time_in_stage", "sojourn_times", "mean_sojourn_time")
-_ESTIMATE_KEYS = ("estimate", "mean", "value", "days")
-_LOWER_KEYS = ("lower", "low", "ci_lower", "ci_low", "lo")
-_UPPER_KEYS = ("upper", "high", "ci_upper", "ci_high", "hi")
-
 
 @dataclass(frozen=True)
 class SojournRow:
@@ -37,6 +23,7 @@ class SojournRow:
     mean: float | None
     lower: float | None = None
     upper: float | None = None
+    note: str = ""
 
 
 @dataclass(frozen=True)
@@ -91,17 +78,7 @@ class ModelSummary:
     follow_up_stages: tuple = ()
     covariates: tuple = ()
     unscheduled_per_year: list = field(default_factory=list)  # ContactRateRow; empty without the block
-
-
-def _lower_keys(mapping) -> dict:
-    return {str(k).lower(): v for k, v in mapping.items()} if isinstance(mapping, dict) else {}
-
-
-def _pick(mapping: dict, keys):
-    for key in keys:
-        if key in mapping and mapping[key] is not None:
-            return mapping[key]
-    return None
+    interval_kind: str = ""
 
 
 def _number(value) -> float | None:
@@ -117,10 +94,12 @@ def _number(value) -> float | None:
 def format_statistic(value) -> str:
     if isinstance(value, bool):
         return "yes" if value else "no"
-    number = _number(value)
-    if number is None:
-        return str(value)
-    if float(number).is_integer() and abs(number) < 1e9:
+    if value is None:
+        return "not finite"
+    number = float(value)
+    if not math.isfinite(number):
+        return "not finite"
+    if number.is_integer() and abs(number) < 1e9:
         return f"{int(number)}"
     return f"{number:,.2f}"
 
@@ -131,52 +110,65 @@ def baseline_sojourn(model) -> list:
     return [SojournRow(stage, (1.0 / rate) if rate > 0 else None) for stage, rate in zip(model.stages, leave)]
 
 
-def _fitted_sojourn(model, summary: dict) -> list | None:
-    raw = _pick(summary, _SOJOURN_KEYS)
-    if not isinstance(raw, dict):
+def _fitted_sojourn(model, fit) -> list | None:
+    fitted = fit.mean_time_by_stage()
+    if not fitted:
         return None
     rows = []
-    for stage in model.stages:
-        item = raw.get(stage)
-        if isinstance(item, dict):
-            item = _lower_keys(item)
-            mean, lower, upper = (_number(_pick(item, keys)) for keys in (_ESTIMATE_KEYS, _LOWER_KEYS, _UPPER_KEYS))
-            interval = _pick(item, ("interval", "ci", "confidence_interval"))
-            if lower is None and isinstance(interval, (list, tuple)) and len(interval) == 2:
-                lower, upper = _number(interval[0]), _number(interval[1])
-            if item.get("informative") is False:   # too wide to mean anything (hmm.fitting.ParameterEstimate)
-                lower = upper = None
-        elif isinstance(item, (list, tuple)) and item:
-            values = [_number(v) for v in item] + [None, None]
-            mean, lower, upper = values[0], values[1], values[2]
+    for row in baseline_sojourn(model):
+        e = fitted.get(row.stage)
+        if e is None:
+            rows.append(row)
+        elif e.interval_is_informative:
+            rows.append(SojournRow(row.stage, e.estimate, e.lower, e.upper, e.note))
         else:
-            mean, lower, upper = _number(item), None, None
-        rows.append(SojournRow(stage, mean, lower, upper))
-    return rows if any(r.mean is not None for r in rows) else None
+            rows.append(SojournRow(row.stage, e.estimate, None, None, e.note or "no useful interval"))
+    return rows
+
+
+def _statistics(fit) -> list:
+    out = [("log-likelihood", format_statistic(fit.log_likelihood)), ("AIC", format_statistic(fit.aic)),
+           ("BIC", format_statistic(fit.bic)), ("parameters estimated", format_statistic(fit.n_parameters)),
+           ("cases", format_statistic(fit.n_cases)), ("contacts", format_statistic(fit.n_contacts)),
+           ("iterations", format_statistic(fit.iterations)), ("converged", format_statistic(fit.converged)),
+           ("contacts used", f"up to {fit.contacts_as_of}" if fit.contacts_as_of else "all stored")]
+    if fit.penalised:
+        out.append(("penalised fit", "yes"))
+    if fit.fitted_from_version is not None:
+        out.append(("fitted from version", str(fit.fitted_from_version)))
+    weak = fit.weakly_identified
+    if weak:
+        out.append(("weakly identified", str(len(weak))))
+    return out
 
 
 def summarise_model(model, version) -> ModelSummary:
     """Build the report's model summary from a StageModel and its stored ModelVersion."""
-    fit = getattr(version, "fit_summary", None)
-    fit = _lower_keys(fit) if isinstance(fit, dict) and fit else None
-    statistics = []
-    sojourn, source = None, ""
-    if fit:
-        for label, keys in _STATISTIC_KEYS:
-            value = _pick(fit, keys)
-            if value is not None and not isinstance(value, (dict, list)):
-                statistics.append((label, format_statistic(value)))
+    from hmm.fitting import FitSummary
+
+    fit = None
+    statistics, sojourn, source, kind = [], None, "", ""
+    if version is not None and version.fit_summary:
+        try:
+            fit = FitSummary.from_dict(version.fit_summary)
+        except ValueError as exc:
+            statistics = [("fit summary", f"unreadable ({exc})")]
+    if fit is not None:
+        statistics = _statistics(fit)
+        kind = fit.interval_kind
         sojourn = _fitted_sojourn(model, fit)
         if sojourn:
-            source = "fitted to this caseload; interval as stored with the fit"
+            source = f"fitted to this caseload; {fit.interval_label()}"
     if not sojourn:
         sojourn = baseline_sojourn(model)
         source = ("from the fitted rates with all covariates 0" if fit
                   else f"from the model's rates with all covariates 0 ({NOT_FITTED})")
     return ModelSummary(
-        name=model.name, version_id=getattr(version, "id", None),
-        created_utc=str(getattr(version, "created_utc", "") or ""), note=str(getattr(version, "note", "") or ""),
-        fitted=bool(fit), statistics=statistics, sojourn=sojourn, sojourn_source=source,
-        follow_up_stages=tuple(model.follow_up_stages), covariates=tuple(model.covariates),
-        unscheduled_per_year=unscheduled_contacts_per_year(model, getattr(version, "fit_summary", None)),
+        name=model.name, version_id=None if version is None else version.id,
+        created_utc="" if version is None else str(version.created_utc or ""),
+        note="" if version is None else str(version.note or ""),
+        fitted=bool(version is not None and version.fit_summary), statistics=statistics, sojourn=sojourn,
+        sojourn_source=source, follow_up_stages=tuple(model.follow_up_stages), covariates=tuple(model.covariates),
+        interval_kind=kind,
+        unscheduled_per_year=unscheduled_contacts_per_year(model, None if version is None else version.fit_summary),
     )

@@ -14,11 +14,12 @@ from .likelihood import log_likelihood_and_gradient
 from .optimise import fit_model
 from .parameters import ParameterSpec, parameter_spec
 from .priors import Prior
-from .result import FitResult
+from .result import FitProgress, FitResult, StartResult
 from .staff_estimates import UsualResult, model_from_staff_estimates, staff_estimates_from_model
+from .summary import FitIteration, FitSummary
 from .uncertainty import ParameterEstimate
 
-__all__ = ["fit_model", "FitResult", "ParameterEstimate", "ParameterSpec", "parameter_spec",
+__all__ = ["fit_model", "FitResult", "FitSummary", "FitIteration", "FitProgress", "StartResult", "ParameterEstimate", "ParameterSpec", "parameter_spec",
            "log_likelihood_and_gradient", "Prior", "likelihood_ratio_test", "LikelihoodRatioTest",
            "goodness_of_fit", "GoodnessOfFit", "occupancy_over_calendar_time", "OccupancyOverTime",
            "one_step_predictions", "model_from_staff_estimates", "staff_estimates_from_model", "UsualResult"]

@@ -22,8 +22,12 @@ from ..timelines import Timelines
 from .likelihood import evaluate, prepare
 from .parameters import parameter_spec
 from .priors import Prior
-from .result import FitResult
-from .uncertainty import covariance_from_information, derived_estimates, natural_estimates, observed_information
+from .intervals import (choose_interval_kind, condition_number, effect_warnings, estimates_with_intervals,
+                        identification_warnings)
+from .profile import ProfileProblem
+from .result import FitProgress, FitResult, StartResult
+from .summary import FitIteration
+from .uncertainty import covariance_from_information, observed_information
 
 __all__ = ["fit_model", "START_SPREAD"]
 
@@ -55,6 +59,17 @@ class _Objective:
         self.last_x, self.last = theta.copy(), (value, grad)
         return -value * self.scale, -grad * self.scale
 
+    def log_likelihood_function(self, theta, gradient=True):
+        """(Penalised) log-likelihood and, if asked, its gradient: the profile search's objective."""
+        self.evaluations += 1
+        ev = evaluate(self.plan, theta, gradient=gradient)
+        value, grad = ev.log_likelihood, ev.gradient
+        if self.prior is not None:
+            pv, pg = self.prior.log_density_and_gradient(theta, self.plan.spec)
+            value = value + pv
+            grad = None if grad is None else grad + pg
+        return value, grad
+
     def gradient(self, theta):
         """Gradient of the (penalised) log-likelihood itself (unscaled)."""
         self(theta)
@@ -63,7 +78,8 @@ class _Objective:
 
 def fit_model(model: StageModel, timelines: Timelines, *, starts: int = 3, rng: np.random.Generator | None = None,
               penalised: bool = False, prior: Prior | None = None, callback=None, max_iterations: int = 500,
-              tolerance: float = 1e-10, standard_errors: bool = True, observed_until=None) -> FitResult:
+              tolerance: float = 1e-10, standard_errors: bool = True, observed_until=None,
+              intervals: str = "auto", on_progress=None) -> FitResult:
     """Fit every free parameter of ``model`` to ``timelines``.
 
     Parameters
@@ -89,8 +105,12 @@ def fit_model(model: StageModel, timelines: Timelines, *, starts: int = 3, rng: 
     standard_errors : bool
         Compute the observed information (about two gradient evaluations per free parameter) for
         standard errors and intervals. False skips it (for example when refitting bootstrap
-        replicates): every interval is then reported as not available and the flat-direction
-        warnings are not checked.
+        replicates): every interval is then reported as not available (as ``intervals="none"``).
+    intervals : {"auto", "profile", "wald", "none"}
+        Kind of 95% interval (:func:`hmm.fitting.intervals.choose_interval_kind`): ``"auto"`` gives
+        profile-likelihood intervals below 5,000 cases or when the information is ill-conditioned.
+    on_progress : callable(FitProgress), optional
+        Typed progress (phase, start, iteration, log-likelihood) beside ``callback``.
     observed_until : float or ndarray, shape (n_cases,), optional
         Only with an ``unscheduled_contacts`` block: the day observation ended (for example the data
         extract); the quiet time from each case's last contact to it enters the likelihood
@@ -108,6 +128,8 @@ def fit_model(model: StageModel, timelines: Timelines, *, starts: int = 3, rng: 
     if prior is not None:
         penalised = True
     prior = (prior or Prior()) if penalised else None
+    if not standard_errors:
+        intervals = "none"
     spec = parameter_spec(model)
     observed = timelines
     if observed_until is not None and model.unscheduled_contacts is not None:
@@ -117,71 +139,105 @@ def fit_model(model: StageModel, timelines: Timelines, *, starts: int = 3, rng: 
     theta0 = spec.to_vector(model)
     bounds = list(zip(spec.lower, spec.upper))
     progress = {"done": 0.0}
-    total_units = starts + 1.0
+    # units of work: one per start, one for the information, and (profile) four for the intervals
+    total_units = starts + 1.0 + (4.0 if intervals in ("auto", "profile") and spec.n_free else 0.0)
 
-    def report(value):
+    def report(value, phase="start", start=0, iteration=0, log_likelihood=None):
+        progress["done"] = max(progress["done"], min(value, 1.0))
         if callback is not None:
-            progress["done"] = max(progress["done"], min(value, 1.0))
             callback(progress["done"])
+        if on_progress is not None:
+            on_progress(FitProgress(progress["done"], phase, start, iteration, log_likelihood))
 
-    runs = []
+    runs, histories, ends = [], [], []
     for start in range(starts):
         x0 = theta0 if start == 0 else np.clip(theta0 + rng.normal(0.0, START_SPREAD, theta0.size),
                                                spec.lower, spec.upper)
         history = []
 
-        monitor = _monitor(objective, history, lambda n, _s=start: report((_s + min(n / _EXPECTED_ITERATIONS, 0.95))
-                                                                           / total_units))
+        monitor = _monitor(objective, history, lambda n, ll, _s=start: report(
+            (_s + min(n / _EXPECTED_ITERATIONS, 0.95)) / total_units, "start", _s, n, ll))
 
         if spec.n_free == 0:
             objective(x0)
-            value = objective.last[0]
-            runs.append((value, x0, history, True, "no free parameters", 0))
+            runs.append(StartResult(start, float(objective.last[0]), True, "no free parameters", 0))
+            histories.append(history)
+            ends.append(x0)
             continue
         res = scipy.optimize.minimize(objective, x0, jac=True, method="L-BFGS-B", bounds=bounds, callback=monitor,
                                       options={"maxiter": max_iterations, "ftol": tolerance,
                                                "gtol": GRADIENT_TOLERANCE, "maxcor": 20})
-        runs.append((-float(res.fun) / objective.scale, res.x, history, bool(res.success), str(res.message), int(res.nit)))
-        report((start + 1) / total_units)
+        runs.append(StartResult(start, -float(res.fun) / objective.scale, bool(res.success), str(res.message),
+                                int(res.nit)))
+        histories.append(history)
+        ends.append(res.x)
+        report((start + 1) / total_units, "start", start, int(res.nit))
 
-    best = int(np.argmax([r[0] for r in runs]))
-    value, theta, history, converged, message, iterations = runs[best]
+    values = np.array([r.log_likelihood for r in runs])
+    best = int(np.argmax(values)) if np.isfinite(values).any() else 0
+    value, theta, history = runs[best].log_likelihood, ends[best], histories[best]
+    converged, iterations = runs[best].converged, runs[best].iterations
     warnings = []
-    if not converged:
-        warnings.append(f"the fit did not converge ({message}); estimates may not be the maximum")
-    if len(runs) > 1:
-        values = np.array([r[0] for r in runs])
+    if not np.isfinite(value):
+        converged = False
+        warnings.append("the log-likelihood is not finite: at least one case is impossible under the model "
+                        "(for example a contact after a recorded move to a stage nobody leaves); nothing was fitted")
+    elif not converged:
+        warnings.append(f"the fit did not converge ({runs[best].message}); estimates may not be the maximum")
+    if len(runs) > 1 and np.isfinite(value):
         if np.sum(values > value - 0.1) < len(runs) and np.ptp(values) > 1.0:
             warnings.append(f"starts ended at different log-likelihoods ({', '.join(f'{v:.2f}' for v in values)}); "
                             "the best is reported - the likelihood may have several maxima")
 
     def unit_callback(fraction):
-        report((starts + fraction) / total_units)
+        report((starts + fraction) / total_units, "information")
 
-    if spec.n_free and not standard_errors:
-        covariance = np.full((spec.n_free, spec.n_free), np.nan)
-    elif spec.n_free:
+    information = np.full((spec.n_free, spec.n_free), np.nan)
+    if spec.n_free and intervals != "none" and np.isfinite(value):
         information = observed_information(objective.gradient, theta, callback=unit_callback)
         covariance, info_warnings = covariance_from_information(information, spec.names)
         warnings += info_warnings
+        warnings += identification_warnings(information, spec.names)
+    elif spec.n_free:
+        covariance = np.full((spec.n_free, spec.n_free), np.nan)
     else:
-        covariance = np.zeros((0, 0))
+        covariance = information = np.zeros((0, 0))
+    kind, reason = choose_interval_kind(intervals, timelines.n_cases, information if spec.n_free else None)
+    if kind == "profile" and intervals == "auto" and not converged:
+        kind, reason = "wald", "the fit did not converge, and a profile needs the maximum"
+    if not np.isfinite(value):
+        kind, reason = "none", "the log-likelihood is not finite"
+    if spec.n_free == 0:
+        kind, reason = "none", "no free parameters"
     warnings += _boundary_warnings(spec, theta)
+    warnings += effect_warnings(spec, theta)
+    problem = None
+    if kind == "profile":
+        problem = ProfileProblem(objective.log_likelihood_function, theta, value, information, spec.lower, spec.upper)
+    groups = estimates_with_intervals(
+        spec, theta, covariance, kind, problem,
+        callback=lambda f: report((starts + 1 + 4 * f) / total_units, "intervals"))
+    if problem is not None:
+        if problem.better_log_likelihood is not None:
+            warnings.append(f"the profile search found a log-likelihood above the reported maximum "
+                            f"({problem.better_log_likelihood:.2f} > {value:.2f}): the fit had not reached the "
+                            "maximum; fit again from this version")
     fitted = spec.to_model(theta)
     final = evaluate(plan, theta, gradient=False)
-    natural = natural_estimates(spec, theta, covariance)
-    hazard, sojourn, next_stage = derived_estimates(spec, theta, covariance)
     k = spec.n_free
     log_l = final.log_likelihood
-    report(1.0)
+    report(1.0, "done")
     return FitResult(
         model=fitted, log_likelihood=log_l, penalised_log_likelihood=value if penalised else log_l,
         penalised=penalised, n_parameters=k, n_cases=observed.n_cases, n_contacts=observed.n_contacts,
         aic=-2 * log_l + 2 * k, bic=-2 * log_l + k * np.log(max(timelines.n_cases, 1)),
         iterations=iterations, n_likelihood_evaluations=objective.evaluations, converged=converged,
-        warnings=warnings, history=history, start_log_likelihoods=[r[0] for r in runs],
-        parameter_names=list(spec.names), parameters=natural, hazard_ratios=hazard, mean_time_in_stage=sojourn,
-        next_stage_probabilities=next_stage, covariance=covariance, free_vector=theta)
+        warnings=warnings, history=tuple(history), starts=tuple(runs), parameter_names=list(spec.names),
+        parameters=groups["parameters"], hazard_ratios=groups["hazard_ratios"],
+        mean_time_in_stage=groups["mean_time_in_stage"], next_stage_probabilities=groups["next_stage_probabilities"],
+        interval_kind=kind, interval_reason=reason,
+        condition_number=condition_number(information) if k and np.all(np.isfinite(information)) else float("nan"),
+        covariance=covariance, information=information, free_vector=theta)
 
 
 def _with_quiet_tail(model: StageModel, timelines: Timelines, observed_until) -> Timelines:
@@ -193,7 +249,7 @@ def _with_quiet_tail(model: StageModel, timelines: Timelines, observed_until) ->
 
 
 def _monitor(objective, history, on_iteration):
-    """An L-BFGS-B callback appending (iteration, log-likelihood, gradient norm) to ``history``."""
+    """An L-BFGS-B callback appending a :class:`FitIteration` to ``history``."""
 
     def monitor(intermediate_result):
         x = intermediate_result.x
@@ -202,9 +258,8 @@ def _monitor(objective, history, on_iteration):
         else:
             objective(x)
             value, grad = objective.last
-        history.append({"iteration": len(history) + 1, "log_likelihood": float(value),
-                        "gradient_norm": float(np.linalg.norm(grad))})
-        on_iteration(len(history))
+        history.append(FitIteration(len(history) + 1, float(value), float(np.linalg.norm(grad))))
+        on_iteration(len(history), float(value))
 
     return monitor
 

@@ -1,29 +1,76 @@
-"""The result of a fit: estimates with intervals, fit statistics, and readable/JSON forms.
+"""The result of a fit: the fitted model, per-start results, estimates with intervals, fit statistics.
 
 BIC uses ``n = number of cases`` (the independent units; contacts within a case are dependent),
 ``BIC = -2 log L + k log(n_cases)``; AIC ``= -2 log L + 2 k`` with ``k`` free parameters.
+:meth:`FitResult.to_summary` gives the :class:`~hmm.fitting.summary.FitSummary` stored with a model
+version; its :meth:`~hmm.fitting.summary.FitSummary.format_table` is the terminal table.
 """
 
 from __future__ import annotations
 
-import math
 from dataclasses import dataclass, field
 
 import numpy as np
 
 from ..model import StageModel
+from .summary import FitIteration, FitSummary
 
-__all__ = ["FitResult", "DAYS_PER_YEAR"]
+__all__ = ["FitResult", "StartResult", "FitProgress", "DAYS_PER_YEAR"]
 
 #: Days in a (Julian) year, for rates shown per year.
 DAYS_PER_YEAR = 365.25
 
 
-def _number(value):
-    if value is None:
-        return None
+def _finite(value) -> float | None:
     value = float(value)
-    return value if math.isfinite(value) else None
+    return value if np.isfinite(value) else None
+
+
+@dataclass(frozen=True)
+class StartResult:
+    """Where one start of the optimiser ended.
+
+    Attributes
+    ----------
+    start : int
+        0 = the model as given; later starts are perturbed copies.
+    log_likelihood : float
+        Final (penalised) log-likelihood of this start.
+    converged : bool
+    message : str
+        The optimiser's reason for stopping.
+    iterations : int
+    """
+
+    start: int
+    log_likelihood: float
+    converged: bool
+    message: str
+    iterations: int
+
+
+@dataclass(frozen=True)
+class FitProgress:
+    """A progress report of :func:`hmm.fitting.fit_model` (for ``on_progress``).
+
+    Attributes
+    ----------
+    fraction : float
+        Of the whole fit, in [0, 1].
+    phase : {"start", "information", "intervals", "done"}
+    start : int
+        The start being optimised (phase ``"start"``).
+    iteration : int
+        Iterations of that start so far.
+    log_likelihood : float or None
+        At the latest iterate (phase ``"start"``).
+    """
+
+    fraction: float
+    phase: str
+    start: int = 0
+    iteration: int = 0
+    log_likelihood: float | None = None
 
 
 @dataclass(frozen=True)
@@ -35,27 +82,34 @@ class FitResult:
     model : StageModel
         Fitted model, same structure and fixed values as the start.
     log_likelihood : float
-        At the estimate (without any penalty).
+        At the estimate (without any penalty); -inf when a case is impossible under the model.
     penalised_log_likelihood : float
         Log-likelihood + log prior (equal to ``log_likelihood`` for an unpenalised fit).
+    penalised : bool
     n_parameters, n_cases, n_contacts : int
     aic, bic : float
         See the module docstring (BIC with n = number of cases).
     iterations : int
         L-BFGS-B iterations of the best start.
     n_likelihood_evaluations : int
-        Likelihood+gradient evaluations over all starts and the Hessian.
+        Likelihood evaluations over all starts, the observed information and the profile intervals.
     converged : bool
     warnings : list of str
-    history : list of dict
-        Per iteration of the best start: ``iteration``, ``log_likelihood``, ``gradient_norm``.
-    start_log_likelihoods : list of float
-        Final (penalised) log-likelihood of every start.
+    history : tuple of FitIteration
+        Per iteration of the best start.
+    starts : tuple of StartResult
+    parameter_names : list of str
     parameters : list of ParameterEstimate
         Rates (per day), log hazard ratios, observation and initial probabilities.
     hazard_ratios, mean_time_in_stage, next_stage_probabilities : list of ParameterEstimate
+    interval_kind : {"profile", "wald", "none"}
+    interval_reason : str
+    condition_number : float
+        Of the observed information (nan when not computed).
     covariance : ndarray, shape (n_parameters, n_parameters)
         On the unconstrained scale (log rates, effects, logits), order ``parameter_names``.
+    information : ndarray, shape (n_parameters, n_parameters)
+        Observed information there (nan when not computed).
     free_vector : ndarray, shape (n_parameters,)
     """
 
@@ -72,39 +126,41 @@ class FitResult:
     n_likelihood_evaluations: int
     converged: bool
     warnings: list
-    history: list
-    start_log_likelihoods: list
+    history: tuple
+    starts: tuple
     parameter_names: list
     parameters: list
     hazard_ratios: list
     mean_time_in_stage: list
     next_stage_probabilities: list
+    interval_kind: str
+    interval_reason: str
+    condition_number: float
     covariance: np.ndarray = field(repr=False)
+    information: np.ndarray = field(repr=False)
     free_vector: np.ndarray = field(repr=False)
 
-    def to_summary(self) -> dict:
-        """JSON-serialisable summary (stored with the model version as ``fit_summary``)."""
-        def rows(items):
-            return [{k: (_number(v) if isinstance(v, (float, int, np.floating)) and not isinstance(v, bool) else v)
-                     for k, v in p.to_dict().items()} for p in items]
-        return {
-            "log_likelihood": _number(self.log_likelihood),
-            "penalised_log_likelihood": _number(self.penalised_log_likelihood),
-            "penalised": self.penalised,
-            "n_parameters": self.n_parameters, "n_cases": self.n_cases, "n_contacts": self.n_contacts,
-            "aic": _number(self.aic), "bic": _number(self.bic), "bic_n": "cases",
-            "iterations": self.iterations, "n_likelihood_evaluations": self.n_likelihood_evaluations,
-            "converged": self.converged, "warnings": list(self.warnings),
-            "start_log_likelihoods": [_number(v) for v in self.start_log_likelihoods],
-            "free_parameters": list(self.parameter_names),
-            "parameters": rows(self.parameters), "hazard_ratios": rows(self.hazard_ratios),
-            "mean_time_in_stage": rows(self.mean_time_in_stage),
-            "next_stage_probabilities": rows(self.next_stage_probabilities),
-            "unscheduled_contacts_per_year": rows(self.unscheduled_contacts_per_year()),
-            "history": [{k: _number(v) if k != "iteration" else v for k, v in h.items()} for h in self.history],
-            # unconstrained scale, order free_parameters; the outlook draws parameters from it
-            "covariance": [[_number(v) for v in row] for row in np.asarray(self.covariance)],
-        }
+    @property
+    def start_log_likelihoods(self) -> list:
+        """Final (penalised) log-likelihood of every start."""
+        return [s.log_likelihood for s in self.starts]
+
+    def to_summary(self) -> FitSummary:
+        """The :class:`FitSummary` stored with the model version (without provenance; see
+        :meth:`FitSummary.with_provenance`)."""
+        return FitSummary(
+            log_likelihood=self.log_likelihood, penalised_log_likelihood=self.penalised_log_likelihood,
+            penalised=self.penalised, n_parameters=self.n_parameters, n_cases=self.n_cases,
+            n_contacts=self.n_contacts, aic=self.aic, bic=self.bic, iterations=self.iterations,
+            n_likelihood_evaluations=self.n_likelihood_evaluations, converged=self.converged,
+            warnings=tuple(self.warnings), start_log_likelihoods=tuple(self.start_log_likelihoods),
+            free_parameters=tuple(self.parameter_names), parameters=tuple(self.parameters),
+            hazard_ratios=tuple(self.hazard_ratios), mean_time_in_stage=tuple(self.mean_time_in_stage),
+            next_stage_probabilities=tuple(self.next_stage_probabilities), history=tuple(self.history),
+            interval_kind=self.interval_kind, interval_reason=self.interval_reason,
+            condition_number=self.condition_number,
+            unscheduled_contacts_per_year=tuple(self.unscheduled_contacts_per_year()),
+            covariance=tuple(tuple(_finite(v) for v in row) for row in np.asarray(self.covariance, dtype=float)))
 
     def unscheduled_contacts_per_year(self) -> list:
         """The fitted unscheduled contact rates per year (365.25 days) in each stage, with intervals.
@@ -126,47 +182,7 @@ class FitResult:
 
     def format_table(self) -> str:
         """A plain-text table for a terminal: estimates with 95% intervals, then fit statistics."""
-        lines = []
+        return self.to_summary().format_table()
 
-        def section(title, items, fmt):
-            if not items:
-                return
-            lines.append("")
-            lines.append(title)
-            width = max(len(p.name) for p in items)
-            for p in items:
-                if p.fixed:
-                    interval = "(fixed)"
-                elif p.lower is None:
-                    interval = "(no interval)"
-                elif not p.interval_is_informative:
-                    interval = "(no useful interval: the data hardly inform this value)"
-                else:
-                    interval = f"[{fmt(p.lower)}, {fmt(p.upper)}]"
-                lines.append(f"  {p.name:<{width}}  {fmt(p.estimate):>10}  {interval}")
 
-        days = lambda v: f"{v:,.0f}" if abs(v) >= 100 else f"{v:.1f}"   # noqa: E731
-        section("Mean time in stage (days, covariates at 0), estimate [95% interval]", self.mean_time_in_stage, days)
-        section("Next stage probabilities", self.next_stage_probabilities, lambda v: f"{v:.3f}")
-        section("Hazard ratios", self.hazard_ratios, lambda v: f"{v:.3f}")
-        section("Observation probabilities", [p for p in self.parameters if p.kind == "observation"],
-                lambda v: f"{v:.3f}")
-        section("Initial stage distribution", [p for p in self.parameters if p.kind == "initial"],
-                lambda v: f"{v:.3f}")
-        section("Unscheduled contacts per year in each stage, estimate [95% interval]",
-                self.unscheduled_contacts_per_year(), lambda v: f"{v:.2f}")
-        section("Log rate ratios of unscheduled contacts",
-                [p for p in self.parameters if p.kind == "unscheduled_log_rate_ratio"], lambda v: f"{v:.3f}")
-        lines.append("")
-        lines.append(f"log-likelihood      {self.log_likelihood:,.2f}")
-        if self.penalised:
-            lines.append(f"penalised log-lik.  {self.penalised_log_likelihood:,.2f}  (penalised fit)")
-        lines.append(f"free parameters     {self.n_parameters}")
-        lines.append(f"AIC                 {self.aic:,.2f}")
-        lines.append(f"BIC                 {self.bic:,.2f}  (n = {self.n_cases} cases)")
-        lines.append(f"cases / contacts    {self.n_cases} / {self.n_contacts}")
-        lines.append(f"iterations          {self.iterations}  ({self.n_likelihood_evaluations} likelihood evaluations)")
-        lines.append(f"converged           {'yes' if self.converged else 'NO'}")
-        for w in self.warnings:
-            lines.append(f"warning: {w}")
-        return "\n".join(lines).lstrip("\n")
+__all__ += ["FitIteration"]

@@ -20,9 +20,10 @@ def test_fit_saves_a_new_current_version_and_keeps_fixed_rows(tmp_path):
     ws = tmp_path / "demo.cvw"
     assert run("demo", ws).returncode == 0
     out = tmp_path / "fitted.json"
-    proc = run("fit", ws, "--starts", "1", "--out", out)
+    proc = run("fit", ws, "--starts", "1", "--intervals", "wald", "--out", out)
     assert proc.returncode == 0, proc.stderr
     assert "mean time in Stable" in proc.stdout and "AIC" in proc.stdout and "Advisory only" in proc.stdout
+    assert "Intervals: 95% Wald (delta-method) intervals (as asked)" in proc.stdout and "(all contacts)" in proc.stdout
     fitted = load_model(out)
     with Workspace.open(ws) as w:
         versions = w.model_versions()
@@ -30,6 +31,8 @@ def test_fit_saves_a_new_current_version_and_keeps_fixed_rows(tmp_path):
         start = load_model_text(versions[0].json_text)
         summary = versions[1].fit_summary
         assert np.isfinite(summary["log_likelihood"]) and summary["n_cases"] == 400
+        assert summary["fitted_from_version"] == 1 and summary["contacts_as_of"] is None
+        assert summary["interval_kind"] == "wald"
         # AIC = 2k - 2 logL (Akaike 1974)
         assert abs(summary["aic"] - (2 * summary["n_parameters"] - 2 * summary["log_likelihood"])) < 1e-6
         assert any(e.action.startswith("model.") for e in w.audit_entries())
@@ -41,6 +44,37 @@ def test_fit_saves_a_new_current_version_and_keeps_fixed_rows(tmp_path):
     assert run("models", ws, "--use", 1).returncode == 0
     bad = run("models", ws, "--compare", 1, 2)
     assert bad.returncode == 2 and "was not fitted" in bad.stderr and "Traceback" not in bad.stderr
+
+
+def test_compare_refuses_penalised_fits_and_explains_nesting_and_the_boundary(tmp_path):
+    import dataclasses
+
+    from caseview.modelfile import dump_model
+    from caseview.operations.fitting import FitOptions, run_fit
+
+    ws = tmp_path / "demo.cvw"
+    assert run("demo", ws).returncode == 0
+    with Workspace.open(ws) as w:
+        model, _ = w.current_model()
+        # a restricted model: no Slipping -> Crisis move (a rate held at 0, on the boundary)
+        kept = tuple(t for t in model.transitions
+                     if (model.stages[t.source], model.stages[t.target]) != ("Slipping", "Crisis"))
+        restricted = dump_model(dataclasses.replace(model, transitions=kept))
+        general_fit = run_fit(w, FitOptions(starts=1, intervals="wald"), "tester")           # version 2
+        w.add_model_version(restricted, "no Slipping -> Crisis", "tester", make_current=True)  # version 3
+        restricted_fit = run_fit(w, FitOptions(starts=1, intervals="wald"), "tester")        # version 4
+        run_fit(w, FitOptions(starts=1, intervals="wald", penalised=True), "tester")         # version 5
+    assert (general_fit.version_id, restricted_fit.version_id) == (2, 4)
+    compared = run("models", ws, "--compare", 2, 4)
+    assert compared.returncode == 0, compared.stderr
+    assert "nested: version 4 is version 2 with" in compared.stdout
+    assert "likelihood-ratio test: statistic" in compared.stdout
+    assert "on the boundary" in compared.stdout and "Self & Liang 1987" in compared.stdout
+    penalised = run("models", ws, "--compare", 4, 5)
+    assert penalised.returncode == 2 and "penalised" in penalised.stderr
+    assert "not a maximum of the likelihood" in penalised.stderr and "Traceback" not in penalised.stderr
+    not_nested = run("models", ws, "--compare", 1, 2)
+    assert not_nested.returncode == 2 and "was not fitted" in not_nested.stderr
 
 
 def load_model_text(text):

@@ -60,7 +60,7 @@ def test_95_percent_intervals_cover_the_truth_about_95_percent_of_the_time():
         sim = simulate(truth, rng, n_cases=N_CASES, n_contacts=N_CONTACTS)
         # starting at the true model is usual in coverage studies and keeps starts=1 safe
         # (common practice, no source); the likelihood still has to be maximised from there
-        result = fit_model(truth, sim.timelines, starts=1)
+        result = fit_model(truth, sim.timelines, starts=1, intervals="wald")   # the Wald study
         assert result.converged, result.warnings
         free = [p for p in result.parameters + result.mean_time_in_stage + result.next_stage_probabilities
                 if not p.fixed]

@@ -21,7 +21,7 @@ def fitted_caseload():
     # start away from the truth: every rate doubled, effect 0, blurred observation rows
     spec = parameter_spec(truth)
     start = spec.to_model(spec.to_vector() + np.where(np.array(spec.kinds) == "rate", np.log(2.0), 0.3))
-    result = fit_model(start, sim.timelines, starts=2, rng=np.random.default_rng(5))
+    result = fit_model(start, sim.timelines, starts=2, rng=np.random.default_rng(5), intervals="wald")
     return truth, sim, result
 
 
@@ -48,14 +48,14 @@ def test_fitted_log_likelihood_is_at_least_the_truth(fitted_caseload):
     assert result.log_likelihood >= at_truth - 1e-6
     assert result.aic == pytest.approx(-2 * result.log_likelihood + 2 * result.n_parameters)
     assert result.bic == pytest.approx(-2 * result.log_likelihood + result.n_parameters * np.log(500))
-    assert result.history and result.history[-1]["log_likelihood"] <= result.log_likelihood + 1e-6
+    assert result.history and result.history[-1].log_likelihood <= result.log_likelihood + 1e-6
     assert len(result.start_log_likelihoods) == 2
 
 
 def test_summary_is_json_and_table_readable(fitted_caseload):
     import json
     _, _, result = fitted_caseload
-    summary = json.loads(json.dumps(result.to_summary(), allow_nan=False))
+    summary = json.loads(json.dumps(result.to_summary().to_dict(), allow_nan=False))
     assert summary["n_parameters"] == result.n_parameters
     table = result.format_table()
     for text in ("Mean time in stage", "Hazard ratios", "Observation probabilities", "AIC", "BIC", "converged"):
@@ -77,7 +77,7 @@ def test_fixed_parameters_stay_exactly_fixed(rng):
                                                     dataclasses.replace(t[1], fixed_rate=True), t[2]),
                                 initial_fixed=True)
     sim = simulate(three_stage_model(), rng, n_cases=150, n_contacts=6)
-    result = fit_model(model, sim.timelines, starts=1)
+    result = fit_model(model, sim.timelines, starts=1, intervals="wald")
     fitted = result.model
     assert fitted.transitions[1].rate == model.transitions[1].rate
     assert fitted.transitions[0].effects["alone"] == model.transitions[0].effects["alone"]
@@ -101,21 +101,21 @@ def test_cancelled_fit_raises_and_returns_nothing(rng):
             raise Cancelled()
 
     with pytest.raises(Cancelled):
-        fit_model(three_stage_model(), sim.timelines, starts=2, callback=callback)
+        fit_model(three_stage_model(), sim.timelines, starts=2, callback=callback, intervals="wald")
     assert len(calls) == 3 and all(0 <= f <= 1 for f in calls)
 
 
 def test_progress_is_monotone_and_ends_at_one(rng):
     sim = simulate(three_stage_model(), rng, n_cases=60, n_contacts=5)
     seen = []
-    fit_model(three_stage_model(), sim.timelines, starts=2, callback=seen.append)
+    fit_model(three_stage_model(), sim.timelines, starts=2, callback=seen.append, intervals="wald")
     assert seen == sorted(seen) and seen[-1] == 1.0
 
 
 def test_same_seed_same_fit(rng):
     sim = simulate(three_stage_model(), rng, n_cases=80, n_contacts=5)
-    a = fit_model(three_stage_model(), sim.timelines, starts=2, rng=np.random.default_rng(3))
-    b = fit_model(three_stage_model(), sim.timelines, starts=2, rng=np.random.default_rng(3))
+    a = fit_model(three_stage_model(), sim.timelines, starts=2, rng=np.random.default_rng(3), intervals="wald")
+    b = fit_model(three_stage_model(), sim.timelines, starts=2, rng=np.random.default_rng(3), intervals="wald")
     assert a.log_likelihood == b.log_likelihood
     np.testing.assert_array_equal(a.free_vector, b.free_vector)
 
@@ -124,7 +124,7 @@ def test_likelihood_ratio_test_by_hand(fitted_caseload):
     truth, sim, general = fitted_caseload
     t = truth.transitions
     restricted_model = dataclasses.replace(truth, transitions=(Transition(0, 1, t[0].rate), t[1], t[2]))
-    restricted = fit_model(restricted_model, sim.timelines, starts=1)
+    restricted = fit_model(restricted_model, sim.timelines, starts=1, intervals="wald")
     test = likelihood_ratio_test(restricted, general)
     statistic = 2 * (general.log_likelihood - restricted.log_likelihood)
     assert test.df == 1
@@ -158,7 +158,7 @@ def test_uninformative_intervals_are_named_not_printed(kind, lower, upper, infor
 def test_fit_without_standard_errors_gives_the_same_estimate_and_no_intervals(rng):
     model = three_stage_model()
     timelines = simulate(model, rng, n_cases=150).timelines
-    with_se = fit_model(model, timelines, starts=1)
+    with_se = fit_model(model, timelines, starts=1, intervals="wald")
     without = fit_model(model, timelines, starts=1, standard_errors=False)
     np.testing.assert_array_equal(with_se.free_vector, without.free_vector)   # same optimiser path
     assert without.n_likelihood_evaluations < with_se.n_likelihood_evaluations

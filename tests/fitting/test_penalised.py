@@ -72,7 +72,7 @@ def test_flat_prior_adds_nothing():
 
 def test_penalised_log_likelihood_is_log_likelihood_plus_log_prior(rng):
     sim = simulate(three_stage_model(), rng, n_cases=40, n_contacts=5)
-    result = fit_model(three_stage_model(), sim.timelines, starts=1, penalised=True)
+    result = fit_model(three_stage_model(), sim.timelines, starts=1, penalised=True, intervals="wald")
     prior_value, _ = Prior().log_density_and_gradient(result.free_vector, parameter_spec(three_stage_model()))
     assert result.penalised
     assert result.penalised_log_likelihood == pytest.approx(result.log_likelihood + prior_value, rel=1e-9)
@@ -91,12 +91,12 @@ def test_tiny_caseload_penalised_fit_stays_finite_where_the_plain_fit_hits_a_bou
     # "many" is never recorded on the report channel: its maximum-likelihood probability is 0 in every
     # stage, a boundary of the parameter space (the logit runs to its bound)
     timelines = _never_recorded(sim.timelines, channel=1, category=2, instead=1)
-    plain = fit_model(model, timelines, starts=1)
+    plain = fit_model(model, timelines, starts=1, intervals="wald")
     assert any("channel 'report'" in w and "on the boundary" in w for w in plain.warnings), plain.warnings
     many = [p for p in plain.parameters if p.name.startswith("report: P(many |") and not p.fixed]
     assert max(p.estimate for p in many) < 1e-4
 
-    penalised = fit_model(model, timelines, starts=1, penalised=True)
+    penalised = fit_model(model, timelines, starts=1, penalised=True, intervals="wald")
     assert penalised.converged
     assert not any("on the boundary" in w for w in penalised.warnings), penalised.warnings
     spec = parameter_spec(model)
@@ -118,13 +118,13 @@ def test_an_effect_the_data_cannot_see_is_flagged_and_the_prior_settles_it(rng):
     # nobody has the covariate: its effect has no information at all (a flat direction)
     sim = simulate_caseload(model, irregular_times(rng, n_cases, 6), np.zeros((n_cases, 1)), rng,
                             missing_probability=0.1)
-    plain = fit_model(model, sim.timelines, starts=1)
+    plain = fit_model(model, sim.timelines, starts=1, intervals="wald")
     flat = [w for w in plain.warnings if "flat direction in the Hessian" in w]
     assert flat and "effect of alone on Well -> Unwell" in flat[0], plain.warnings
     hazard = plain.hazard_ratios[0]
     assert hazard.lower is None and hazard.standard_error is None      # no interval for an unidentified value
 
-    penalised = fit_model(model, sim.timelines, starts=1, penalised=True)
+    penalised = fit_model(model, sim.timelines, starts=1, penalised=True, intervals="wald")
     assert not any("flat direction" in w for w in penalised.warnings)
     effect = next(p for p in penalised.parameters if p.kind == "log_hazard_ratio")
     # with no information from the data the posterior is the prior: mode at the prior mean 0 and
@@ -148,8 +148,8 @@ def test_with_much_data_penalised_and_plain_estimates_agree():
     rng = np.random.default_rng(20261203)
     model = three_stage_model()
     sim = simulate(model, rng, n_cases=2000, n_contacts=10)
-    plain = fit_model(model, sim.timelines, starts=1)
-    penalised = fit_model(model, sim.timelines, starts=1, penalised=True)
+    plain = fit_model(model, sim.timelines, starts=1, intervals="wald")
+    penalised = fit_model(model, sim.timelines, starts=1, penalised=True, intervals="wald")
     assert plain.converged and penalised.converged
     se = np.sqrt(np.diag(plain.covariance))
     shift = np.abs(penalised.free_vector - plain.free_vector) / se
@@ -181,10 +181,11 @@ def test_a_move_nobody_makes_is_warned_at_zero_and_kept_small_but_positive_by_th
     # as that rate falls to 0, the lower bound
     never = dataclasses.replace(truth, transitions=(t[0], t[1], dataclasses.replace(t[2], rate=1e-12)))
     sim = simulate(never, rng, n_cases=40, n_contacts=5)
-    plain = fit_model(truth, sim.timelines, starts=1)
+    plain = fit_model(truth, sim.timelines, starts=1, intervals="wald")
     assert any(w.startswith("rate Unwell -> Gone is estimated at (nearly) zero") for w in plain.warnings)
-    penalised = fit_model(truth, sim.timelines, starts=1, penalised=True)
+    penalised = fit_model(truth, sim.timelines, starts=1, penalised=True, intervals="wald")
     rate = next(p for p in penalised.parameters if p.name.startswith("rate Unwell -> Gone"))
-    assert not any("Unwell -> Gone" in w for w in penalised.warnings), penalised.warnings
+    # no longer on the boundary (the prior may still leave it weakly identified with 40 cases)
+    assert not any("Unwell -> Gone is estimated at (nearly) zero" in w for w in penalised.warnings), penalised.warnings
     # the prior's pull (typical stay a year, sd 2 on the log scale) keeps the rate finite and small
     assert 1e-6 < rate.estimate < 1e-2 and rate.lower is not None and rate.lower > 0

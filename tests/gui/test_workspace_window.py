@@ -108,23 +108,43 @@ def test_gui_without_display_explains_what_to_do(tmp_path):
     assert "no display" in done.stderr and "--screenshot" in done.stderr and "caseview score" in done.stderr
 
 
-def test_fit_in_worker_saves_new_model_version(window, qtbot, workspace_path):
-    pytest.importorskip("hmm.fitting")
+def test_fit_in_worker_previews_then_asks_before_the_new_version_becomes_current(window, qtbot, workspace_path):
     open_ws(window, qtbot, workspace_path)
     panel = window.model_panel
-    versions_before = len(window.workspace().model_versions())
+    ws = window.workspace()
+    versions_before = len(ws.model_versions())
+    current_before = [v.id for v in ws.model_versions() if v.is_current]
     panel.starts.setValue(1)
-    with qtbot.waitSignal(panel.fit_finished, timeout=120000) as blocker:
-        panel.start_fit()
-    result = blocker.args[0]
-    versions = window.workspace().model_versions()
+    panel.intervals.setCurrentIndex(panel.intervals.findData("wald"))   # fast; profile intervals: tests/fitting
+    finished, failures = [], []
+    panel.fit_finished.connect(finished.append)
+    panel.fit_failed.connect(failures.append)
+    panel.start_fit()
+    qtbot.waitUntil(lambda: bool(finished or failures), timeout=540000)
+    assert not failures, failures
+    result = finished[0]
+    versions = ws.model_versions()
     assert len(versions) == versions_before + 1
-    current = [v for v in versions if v.is_current][0]
-    assert current.fit_summary["log_likelihood"] == pytest.approx(result.log_likelihood)
-    assert window.workspace().audit_entries()[-1].action.startswith("model.")
-    # the panel now shows fitted mean times in stage with intervals
-    assert "fitted" in panel.heading.text()
-    assert panel.sojourn.rowCount() == len(current.fit_summary["mean_time_in_stage"])
+    assert [v.id for v in versions if v.is_current] == current_before        # stored, not current yet
+    fitted = versions[-1]
+    assert fitted.fit_summary["log_likelihood"] == pytest.approx(result.log_likelihood)
+    # the window fits to the contacts up to its as-of date and records it, and the version it started from
+    assert fitted.fit_summary["contacts_as_of"] == window.loaded.scores.as_of.isoformat()
+    assert fitted.fit_summary["fitted_from_version"] == current_before[0]
+    entry = ws.audit_entries()[-1]
+    assert entry.action == "model.fit" and entry.details["make_current"] is False
+    assert not panel.preview.isHidden() and "stored but not current" in panel.preview.text.text()
+    assert "flag" in panel.preview.text.text() and "Advisory only" in panel.preview.text.text()
+    with qtbot.waitSignal(panel.fit_decided, timeout=10000) as decided:
+        panel.use_fitted.click()
+    assert decided.args == [True] and panel.preview.isHidden()
+    assert [v.id for v in ws.model_versions() if v.is_current] == [fitted.id]
+    assert ws.audit_entries()[-1].action == "model.current"
+    # the panel now shows fitted mean times in stage with intervals and their kind
+    assert "fitted" in panel.heading.text() and "intervals" in panel.heading.text()
+    assert panel.sojourn.rowCount() == len(fitted.fit_summary["mean_time_in_stage"])
+    kinds = {panel.sojourn.item(r, 2).text() for r in range(panel.sojourn.rowCount())}
+    assert any(k.endswith("wald") for k in kinds), kinds
 
 
 def test_staff_estimates_from_the_model_panel_land_in_the_editor_unsaved(window, qtbot, workspace_path):

@@ -96,22 +96,27 @@ def test_model_summary_unfitted_and_sojourn_from_rates(data, demo_model):
     assert data.model.sojourn[-1].mean is None     # absorbing
 
 
-def test_fit_summary_is_read_defensively(demo_model):
-    from types import SimpleNamespace
+def test_fit_summary_stored_before_format_versions_is_read(demo_model):
+    """A summary written by the fit code before FitSummary existed (saved from `caseview fit` on the demo)."""
+    import json
+    from pathlib import Path
 
     from caseview.reports.model_summary import summarise_model
+    from caseview.storage.workspace import ModelVersion
 
-    version = SimpleNamespace(id=4, created_utc="2026-11-01T10:00:00Z", note="fit", fit_summary={
-        "log_likelihood": -1234.5, "AIC": 2489.0, "bic": 2540.25, "converged": True,
-        "mean_sojourn_days": {"Stable": {"estimate": 300.0, "lower": 250.0, "upper": 360.0},
-                              "Slipping": [100.0, 80.0, 125.0]}})
+    stored = json.loads((Path(__file__).resolve().parents[1] / "fitting" / "data" /
+                         "fit_summary_format1_demo.json").read_text(encoding="utf-8"))
+    version = ModelVersion(4, "2026-11-01T10:00:00Z", "fit", "{}", stored, True)
     summary = summarise_model(demo_model, version)
     labels = dict(summary.statistics)
-    assert labels["log-likelihood"] == "-1,234.50" and labels["AIC"] == "2489" and labels["converged"] == "yes"
-    assert (summary.sojourn[0].mean, summary.sojourn[0].lower, summary.sojourn[0].upper) == (300.0, 250.0, 360.0)
-    assert summary.sojourn[1].upper == 125.0 and summary.sojourn[2].mean is None
-    odd = summarise_model(demo_model, SimpleNamespace(id=5, created_utc="", note="", fit_summary={"aic": "n/a"}))
-    assert odd.fitted and dict(odd.statistics)["AIC"] == "n/a"
+    assert labels["log-likelihood"] == "-8,933.50" and labels["converged"] == "yes" and labels["cases"] == "400"
+    stable = summary.sojourn[0]
+    assert stable.stage == "Stable" and stable.mean == pytest.approx(536.9, abs=0.1)
+    assert (stable.lower, stable.upper) == (pytest.approx(385.8, abs=0.1), pytest.approx(747.05, abs=0.1))
+    assert "Wald" in summary.sojourn_source
+    assert summary.sojourn[-1].mean is None
+    unreadable = summarise_model(demo_model, ModelVersion(5, "", "", "{}", {"aic": "n/a"}, False))
+    assert unreadable.fitted and "unreadable" in dict(unreadable.statistics)["fit summary"]
 
 
 def test_escape_text_follows_owasp_list():
