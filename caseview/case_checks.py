@@ -71,6 +71,18 @@ class ContradictoryContact:
                 f"absorbing stage {self.stage} on {np.datetime64(self.entry_day, 'D')}")
 
 
+def contradiction_message(found: "ContradictoryContact", later: str, earlier: str, remedy: str) -> str:
+    """The one sentence import and case work give for a contact after a recorded absorbing entry.
+
+    ``later``/``earlier`` say where each contact is (``"line 7"``, ``"this contact"``, ``"the stored
+    contact of 2026-01-05"``); ``remedy`` ends the sentence (what the person can do instead).
+    """
+    return (f"case {found.case_id!r}: the contact on {np.datetime64(found.day, 'D')} ({later}) comes after the "
+            f"recorded entry into absorbing stage {found.stage!r} on {np.datetime64(found.entry_day, 'D')} "
+            f"({earlier}); a case that has entered it has no later contacts unless they record that stage - "
+            f"{remedy}")
+
+
 def contradictory_contacts(model, case_codes, days, stage_known) -> list:
     """Contacts that come after their case's recorded entry into an absorbing exact-entry stage.
 

@@ -44,6 +44,8 @@ def register(sub) -> None:
     p.add_argument("--date", required=True, metavar="YYYY-MM-DD")
     p.add_argument("--coordinator", metavar="C", help="coordinator code (required for a new case)")
     _add_contact_options(p, "recorded")
+    p.add_argument("--contact-kind", default="scheduled", metavar="scheduled|unscheduled",
+                   help="a planned visit (scheduled, the default) or an unscheduled contact (a fall, a worried call)")
     add_actor_option(p)
     p.set_defaults(run=run_record)
 
@@ -58,6 +60,8 @@ def register(sub) -> None:
     p.add_argument("--new-date", metavar="YYYY-MM-DD", help="move the contact to this date")
     p.add_argument("--coordinator", metavar="C", help="correct the coordinator recorded at the contact")
     _add_contact_options(p, "corrected")
+    p.add_argument("--contact-kind", metavar="scheduled|unscheduled",
+                   help="correct whether the contact was scheduled or unscheduled (default: unchanged)")
     add_actor_option(p)
     p.set_defaults(run=run_correct)
 
@@ -115,7 +119,8 @@ def run_record(args) -> int:
     with open_workspace(args.workspace) as ws:
         result = casework.record_contact(
             ws, args.case_id, args.date, actor_name(args), _pairs(args.value, "CHANNEL=CATEGORY", "--value"),
-            _pairs(args.covariate, "NAME=NUMBER", "--covariate"), args.stage_known, args.coordinator)
+            _pairs(args.covariate, "NAME=NUMBER", "--covariate"), args.stage_known, args.coordinator,
+            contact_kind=args.contact_kind)
     created = " (new case)" if result.case_created else ""
     carried = f"; carried over {', '.join(result.carried_over)} from the latest earlier contact" \
         if result.carried_over else ""
@@ -133,7 +138,7 @@ def run_correct(args) -> int:
             ws, args.case_id, args.date, args.reason, actor_name(args), new_date=args.new_date,
             values=_pairs(args.value, "CHANNEL=CATEGORY", "--value"),
             covariates=_pairs(args.covariate, "NAME=NUMBER", "--covariate"), stage_known=args.stage_known,
-            coordinator=args.coordinator)
+            coordinator=args.coordinator, contact_kind=args.contact_kind)
     moved = f" (now on {change.details['new']['date']})" if change.details["new"]["date"] != args.date else ""
     print(f"corrected the contact of {change.case_id} on {change.details['date']}{moved}; the earlier version is "
           "kept (superseded)")
@@ -163,7 +168,7 @@ def run_contacts(args) -> int:
         versions = casework.list_contacts(ws, args.case_id, all_versions=args.all_versions)
     channels = [c.name for c in model.channels]
     covariates = list(model.covariates)
-    header = ["case_id", "date", *channels, *covariates, "stage_known", "status", "recorded_at", "recorded_by",
+    header = ["case_id", "date", *channels, *covariates, "contact_kind", "stage_known", "status", "recorded_at", "recorded_by",
               "reason", "changed_at", "changed_by"]
 
     def number(value):
@@ -173,7 +178,8 @@ def run_contacts(args) -> int:
     for v in versions:
         reason = v.reason if v.status != casework.store.CURRENT else v.recorded_reason
         rows.append([v.case_id, v.date, *[v.values.get(c, "") for c in channels],
-                     *[number(v.covariates.get(k)) for k in covariates], v.stage_known, v.status, v.recorded_at,
+                     *[number(v.covariates.get(k)) for k in covariates], v.contact_kind, v.stage_known, v.status,
+                     v.recorded_at,
                      v.recorded_by, reason, v.ended_at, v.ended_by])
     columns = [safe_text(column) for column in zip(*rows)] if rows else [[] for _ in header]
     write_table(args.out, header, columns, advisory=False)

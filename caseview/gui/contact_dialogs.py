@@ -76,7 +76,7 @@ class CorrectContactDialog(_ReasonDialog):
         top.addRow("Date:", self.date_edit)
         box = QGroupBox("Corrected values")
         self.fields = ContactFields(model, QFormLayout(box))
-        self.fields.fill(version.values, version.covariates, version.stage_known)
+        self.fields.fill(version.values, version.covariates, version.stage_known, version.contact_kind)
         bottom = QFormLayout()
         bottom.addRow("Reason:", self.reason_edit)
         layout = QVBoxLayout(self)
@@ -97,7 +97,7 @@ class CorrectContactDialog(_ReasonDialog):
             self.workspace, self.version.case_id, self.version.date, self.reason_edit.text(), self.actor,
             new_date=new_date if new_date.isoformat() != self.version.date else None,
             values=self.fields.values(), covariates=self.fields.covariate_texts(),
-            stage_known=self.fields.stage_known(), source="correct")
+            stage_known=self.fields.stage_known(), contact_kind=self.fields.contact_kind(), source="correct")
 
 
 class VoidContactDialog(_ReasonDialog):

@@ -53,16 +53,22 @@ class ContactFields:
             self.stage.addItem(stage, stage)
         self.stage.setAccessibleName("Stage known at this contact (optional)")
         form.addRow("Known stage:", self.stage)
+        self.kind = QComboBox()
+        self.kind.addItem("Scheduled (a planned visit)", "scheduled")
+        self.kind.addItem("Unscheduled (a fall, a worried call)", "unscheduled")
+        self.kind.setAccessibleName("Kind of contact: scheduled or unscheduled")
+        form.addRow("Kind of contact:", self.kind)
 
     def widgets(self) -> list:
-        return [*self.channels.values(), *self.covariates.values(), self.stage]
+        return [*self.channels.values(), *self.covariates.values(), self.stage, self.kind]
 
-    def fill(self, values: dict, covariates: dict, stage_known: str = "") -> None:
+    def fill(self, values: dict, covariates: dict, stage_known: str = "", contact_kind: str = "scheduled") -> None:
         for name, combo in self.channels.items():
             combo.setCurrentIndex(max(0, combo.findData(values.get(name, "") or "")))
         for name, edit in self.covariates.items():
             edit.setText(_number_text(covariates.get(name)))
         self.stage.setCurrentIndex(max(0, self.stage.findData(stage_known or "")))
+        self.kind.setCurrentIndex(max(0, self.kind.findData(contact_kind or "scheduled")))
 
     def values(self) -> dict:
         return {name: str(combo.currentData() or "") for name, combo in self.channels.items()}
@@ -73,6 +79,10 @@ class ContactFields:
 
     def stage_known(self) -> str:
         return str(self.stage.currentData() or "")
+
+    def contact_kind(self) -> str:
+        """'scheduled' or 'unscheduled' as chosen."""
+        return str(self.kind.currentData() or "scheduled")
 
 
 def qdate(day: dt.date) -> QDate:
@@ -183,7 +193,8 @@ class RecordForm(QDialog):
         from caseview.errors import CaseviewError
 
         kwargs = dict(values=self.fields.values(), covariates=self.fields.covariate_texts(),
-                      stage_known=self.fields.stage_known(), coordinator=self.coordinator_edit.text().strip() or None)
+                      stage_known=self.fields.stage_known(), coordinator=self.coordinator_edit.text().strip() or None,
+                      contact_kind=self.fields.contact_kind())
         try:
             if self.adding:
                 self.result = self._casework.add_case(

@@ -133,6 +133,20 @@ def _validated(ws, source: str, case_id: str, date, coordinator: str, values: di
                         covariates=encoded.covariates, stage_known=encoded.stage_known)
 
 
+CONTACT_KINDS = ("scheduled", "unscheduled")
+
+
+def _with_kind(batch, contact_kind, source: str):
+    """The batch with its contact kind ('scheduled' or 'unscheduled', letter case ignored)."""
+    import dataclasses
+
+    kind = str(contact_kind or "").strip().lower()
+    if kind not in CONTACT_KINDS:
+        raise InputError(f"{source}: contact kind {contact_kind!r}: expected scheduled or unscheduled "
+                         "(nothing was stored)")
+    return dataclasses.replace(batch, unscheduled=np.array([kind == "unscheduled"]))
+
+
 def _existing_case(ws, case_id: str, source: str) -> str:
     """The stored case that a typed ID names (the workspace's one lookup, letter case ignored)."""
     if hasattr(ws, "find_case"):
@@ -197,6 +211,29 @@ def case_estimate(ws, case_id: str, as_of, horizon_days: float = 90.0) -> CaseEs
                         model.stages[int(np.argmax(p))], float(scores.p_follow_up_now[0]))
 
 
+def _refuse_contradiction(ws, case_id: str, source: str, day: int) -> None:
+    """InputError when a stored contact of the case comes after its recorded absorbing exact entry.
+
+    robust's check (:func:`caseview.case_checks.stored_contradictions`), the one import runs, with
+    import's wording; called inside the write's transaction (it sees the new row) ahead of the
+    likelihood check, so the change rolls back. ``day`` is the contact just written.
+    """
+    from ..case_checks import contradiction_message, stored_contradictions
+
+    model, _ = ws.current_model()
+    found = stored_contradictions(ws.connection, model, [case_id])
+    if not found:
+        return
+    c = next((f for f in found if day in (f.day, f.entry_day)), found[0])
+
+    def where(d):
+        return "this contact" if d == day else f"the stored contact of {np.datetime64(d, 'D')}"
+
+    raise InputError(f"{source}: " + contradiction_message(
+        c, where(c.day), where(c.entry_day),
+        "correct the date or the stage, or correct or void the contradicting contact (nothing was stored)"))
+
+
 def _refuse_impossible(ws, case_id: str, source: str) -> None:
     """InputError when the case's current contacts are impossible together under the model.
 
@@ -242,7 +279,7 @@ def closing_suggestion(ws, case_id: str) -> str:
 # ------------------------------------------------------------------ changes
 def record_contact(ws, case_id: str, date, actor: str, values: dict | None = None, covariates: dict | None = None,
                    stage_known: str | None = None, coordinator: str | None = None, source: str = "record",
-                   new_case: bool | None = None) -> RecordResult:
+                   new_case: bool | None = None, contact_kind: str = "scheduled") -> RecordResult:
     """Record a contact after a visit; a case ID never seen before creates the case.
 
     Parameters
@@ -255,6 +292,7 @@ def record_contact(ws, case_id: str, date, actor: str, values: dict | None = Non
     stage_known : a stage, or several joined with '|', or None
     coordinator : required for a new case; for an existing case, None keeps the case's coordinator
     new_case : True = must be new (adding a person), False = must exist, None = either
+    contact_kind : 'scheduled' (a planned visit, the default) or 'unscheduled' (a fall, a worried call)
     """
     code = _case_code(ws, case_id, source)
     date_text = date.isoformat() if isinstance(date, dt.date) else str(date)
@@ -279,18 +317,21 @@ def record_contact(ws, case_id: str, date, actor: str, values: dict | None = Non
     for name in carried:
         given[name] = defaults["covariates"][name]
     batch = _validated(ws, source, code, date_text, coordinator or "", dict(values or {}), given, stage_known or "")
+    batch = _with_kind(batch, contact_kind, source)
     with ws.transaction():  # the storage write joins this transaction; an impossible record rolls it back
         details = store.record_contact(ws, batch, actor, create_case=not exists)
+        _refuse_contradiction(ws, code, source, int(batch.days[0]))
         _refuse_impossible(ws, code, source)
     return RecordResult(code, details["date"], not exists, carried, details,
                         case_estimate(ws, code, details["date"]), closing_suggestion(ws, code))
 
 
 def add_case(ws, case_id: str, coordinator: str, date, actor: str, values: dict | None = None,
-             covariates: dict | None = None, stage_known: str | None = None, source: str = "add case") -> RecordResult:
+             covariates: dict | None = None, stage_known: str | None = None, source: str = "add case",
+             contact_kind: str = "scheduled") -> RecordResult:
     """Add a person: a new case with its first contact (a case exists through its contacts)."""
     return record_contact(ws, case_id, date, actor, values, covariates, stage_known, coordinator, source,
-                          new_case=True)
+                          new_case=True, contact_kind=contact_kind)
 
 
 def _looks_like_date(text: str) -> bool:
@@ -321,10 +362,11 @@ def _reason(reason: str, source: str) -> str:
 
 def correct_contact(ws, case_id: str, date, reason: str, actor: str, new_date=None, values: dict | None = None,
                     covariates: dict | None = None, stage_known: str | None = None, coordinator: str | None = None,
-                    source: str = "correct") -> ContactChange:
+                    source: str = "correct", contact_kind: str | None = None) -> ContactChange:
     """Correct the contact of ``case_id`` on ``date``; what is not given keeps its recorded value.
 
-    The earlier version stays stored (superseded) and listed; ``stage_known=''`` clears a known stage.
+    The earlier version stays stored (superseded) and listed; ``stage_known=''`` clears a known stage;
+    ``contact_kind`` None keeps the recorded kind.
     """
     reason = _reason(reason, source)
     code = _existing_case(ws, case_id, source)
@@ -341,8 +383,10 @@ def correct_contact(ws, case_id: str, date, reason: str, actor: str, new_date=No
     target = new_date if new_date is not None else old.date
     target = target.isoformat() if isinstance(target, dt.date) else str(target)
     batch = _validated(ws, source, code, target, coordinator or "", merged_values, merged_covariates, stage)
+    batch = _with_kind(batch, old.contact_kind if contact_kind is None else contact_kind, source)
     with ws.transaction():
         details = store.correct_contact(ws, code, day, batch, actor, reason)
+        _refuse_contradiction(ws, code, source, int(batch.days[0]))
         _refuse_impossible(ws, code, source)
     return ContactChange(code, "contact.correct", details, case_estimate(ws, code, details["new"]["date"]),
                          closing_suggestion(ws, code))

@@ -72,7 +72,10 @@ def load_case(connection, model: StageModel, case_code: str, as_of_day: int | No
     observations, raw = observation_codes_for_model(stored, model)
     timelines = Timelines(offsets=stored.offsets, times=stored.days.astype(np.float64), observations=observations,
                           allowed_stages=allowed_stages_for_model(stored.stage_known, model),
-                          covariates=covariates_for_model(stored, model))
+                          covariates=covariates_for_model(stored, model),
+                          # as load_caseload: the kinds only when some contact is unscheduled
+                          unscheduled=stored.unscheduled if stored.unscheduled is not None
+                          and stored.unscheduled.any() else None)
     return Caseload(case_ids=stored.case_codes, coordinators=stored.case_coordinator,
                     contact_days=stored.days, timelines=timelines, raw_values=raw)
 

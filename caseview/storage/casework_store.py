@@ -61,6 +61,7 @@ class ContactVersion:
     ended_at: str = ""
     ended_by: str = ""
     reason: str = ""
+    contact_kind: str = "scheduled"  # or "unscheduled" (README, "Timing of unscheduled contacts")
 
     @property
     def date(self) -> str:
@@ -113,7 +114,7 @@ def _coordinator_codes(connection) -> dict:
 def _current_row(connection, case_id: int, day: int):
     return connection.execute(
         "SELECT c.observations, c.covariates, c.stage_known, c.coordinator_id, p.recorded_at, p.recorded_by,"
-        " p.reason FROM contacts c LEFT JOIN contact_provenance p ON p.case_id = c.case_id AND p.day = c.day"
+        " p.reason, c.contact_kind FROM contacts c LEFT JOIN contact_provenance p ON p.case_id = c.case_id AND p.day = c.day"
         " WHERE c.case_id = ? AND c.day = ?", (case_id, day)).fetchone()
 
 
@@ -128,24 +129,24 @@ def contact_history(connection, case_code: str, all_versions: bool = False) -> l
     layout = field_layout(connection)
     coordinators = _coordinator_codes(connection)
     out = []
-    for day, obs, cov, stage, coordinator, at, by, why in connection.execute(
+    for day, obs, cov, stage, coordinator, at, by, why, kind in connection.execute(
             "SELECT c.day, c.observations, c.covariates, c.stage_known, c.coordinator_id, p.recorded_at,"
-            " p.recorded_by, p.reason FROM contacts c LEFT JOIN contact_provenance p"
+            " p.recorded_by, p.reason, c.contact_kind FROM contacts c LEFT JOIN contact_provenance p"
             " ON p.case_id = c.case_id AND p.day = c.day WHERE c.case_id = ? ORDER BY c.day", (case_id,)):
         values, covs = _decode(layout, obs, cov)
         out.append((day, 0, 0, ContactVersion(case_code, int(day), values, covs, stage or "",
                                                coordinators.get(coordinator, ""), CURRENT, at or "", by or "",
-                                               why if why is not None else "import")))
+                                               why if why is not None else "import", contact_kind=kind)))
     if all_versions:
-        for vid, day, obs, cov, stage, coordinator, status, at, by, why, ended_at, ended_by, reason in \
+        for vid, day, obs, cov, stage, coordinator, status, at, by, why, ended_at, ended_by, reason, kind in \
                 connection.execute(
                     "SELECT id, day, observations, covariates, stage_known, coordinator_id, status, recorded_at,"
-                    " recorded_by, recorded_reason, ended_at, ended_by, reason FROM contact_versions"
+                    " recorded_by, recorded_reason, ended_at, ended_by, reason, contact_kind FROM contact_versions"
                     " WHERE case_id = ?", (case_id,)):
             values, covs = _decode(layout, obs, cov)
             out.append((day, 1, -vid, ContactVersion(case_code, int(day), values, covs, stage or "",
                                                      coordinators.get(coordinator, ""), status, at, by, why,
-                                                     ended_at, ended_by, reason)))
+                                                     ended_at, ended_by, reason, kind)))
     out.sort(key=lambda item: item[:3])
     return [item[3] for item in out]
 
@@ -209,8 +210,9 @@ def keep_earlier_versions(connection, keys, status: str, actor: str, reason: str
     for case_id, day in keys:
         cursor = connection.execute(
             "INSERT INTO contact_versions (case_id, day, observations, covariates, stage_known, coordinator_id,"
-            " status, recorded_at, recorded_by, recorded_reason, ended_at, ended_by, reason)"
-            " SELECT c.case_id, c.day, c.observations, c.covariates, c.stage_known, c.coordinator_id, ?,"
+            " contact_kind, status, recorded_at, recorded_by, recorded_reason, ended_at, ended_by, reason)"
+            " SELECT c.case_id, c.day, c.observations, c.covariates, c.stage_known, c.coordinator_id,"
+            " c.contact_kind, ?,"
             " COALESCE(p.recorded_at, ''), COALESCE(p.recorded_by, ''), COALESCE(p.reason, 'import'), ?, ?, ?"
             " FROM contacts c LEFT JOIN contact_provenance p ON p.case_id = c.case_id AND p.day = c.day"
             " WHERE c.case_id = ? AND c.day = ?", (status, at, actor, reason, int(case_id), int(day)))
@@ -256,7 +258,12 @@ def _as_version(connection, case_code: str, day: int, row, status: str) -> dict:
     layout = field_layout(connection)
     values, covs = _decode(layout, row[0], row[1])
     return {"date": _date(day), "values": values, "covariates": covs, "stage_known": row[2] or "",
-            "coordinator": _coordinator_codes(connection).get(row[3], ""), "status": status}
+            "coordinator": _coordinator_codes(connection).get(row[3], ""), "contact_kind": row[7], "status": status}
+
+
+def _kind(batch: ContactBatch) -> str:
+    """The one contact's kind as stored: 'scheduled' or 'unscheduled'."""
+    return str(batch.contact_kinds()[0])
 
 
 def record_contact(ws, batch: ContactBatch, actor: str, create_case: bool) -> dict:
@@ -285,9 +292,10 @@ def record_contact(ws, batch: ContactBatch, actor: str, create_case: bool) -> di
             if not coordinator:
                 coordinator = con.execute("SELECT coordinator FROM cases WHERE id = ?", (case_id,)).fetchone()[0]
         obs, cov = _encode_one(con, batch)
-        con.execute("INSERT INTO contacts (case_id, day, observations, covariates, stage_known, coordinator_id)"
-                    " VALUES (?, ?, ?, ?, ?, ?)", (case_id, day, obs, cov, str(batch.stage_known[0]) or None,
-                                                   _coordinator_id(con, coordinator)))
+        con.execute("INSERT INTO contacts (case_id, day, observations, covariates, stage_known, coordinator_id,"
+                    " contact_kind) VALUES (?, ?, ?, ?, ?, ?, ?)",
+                    (case_id, day, obs, cov, str(batch.stage_known[0]) or None, _coordinator_id(con, coordinator),
+                     _kind(batch)))
         at = _audit.utc_now()
         con.execute("INSERT INTO contact_provenance (case_id, day, recorded_at, recorded_by, reason)"
                     " VALUES (?, ?, ?, ?, '')", (case_id, day, at, actor))
@@ -317,13 +325,14 @@ def correct_contact(ws, case_code: str, day: int, batch: ContactBatch, actor: st
         obs, cov = _encode_one(con, batch)
         coordinator = str(batch.coordinators[0])
         coordinator_id = _coordinator_id(con, coordinator) if coordinator else old_row[3]
-        if (obs, cov, str(batch.stage_known[0]) or None, coordinator_id, new_day) == (*old_row[:4], day):
+        if (obs, cov, str(batch.stage_known[0]) or None, coordinator_id, _kind(batch), new_day) == \
+                (*old_row[:4], old_row[7], day):
             raise InputError(f"case {case_code!r}, {_date(day)}: the correction changes nothing (nothing was stored)")
         kept = keep_earlier_versions(con, [(case_id, day)], SUPERSEDED, actor, reason)
         con.execute("DELETE FROM contacts WHERE case_id = ? AND day = ?", (case_id, day))
-        con.execute("INSERT INTO contacts (case_id, day, observations, covariates, stage_known, coordinator_id)"
-                    " VALUES (?, ?, ?, ?, ?, ?)", (case_id, new_day, obs, cov, str(batch.stage_known[0]) or None,
-                                                   coordinator_id))
+        con.execute("INSERT INTO contacts (case_id, day, observations, covariates, stage_known, coordinator_id,"
+                    " contact_kind) VALUES (?, ?, ?, ?, ?, ?, ?)",
+                    (case_id, new_day, obs, cov, str(batch.stage_known[0]) or None, coordinator_id, _kind(batch)))
         con.execute("INSERT INTO contact_provenance (case_id, day, recorded_at, recorded_by, reason)"
                     " VALUES (?, ?, ?, ?, ?)", (case_id, new_day, _audit.utc_now(), actor, reason))
         _update_case_coordinator(con, case_id)

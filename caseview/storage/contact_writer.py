@@ -276,5 +276,6 @@ def _new_case_digests(batch, new_codes, last_coordinator, case_id, order, is_new
     offsets = np.concatenate([[0], np.cumsum(counts)])
     digests = case_digests_from_arrays(
         new_codes, [last_coordinator.get(case_id[c], "") for c in new_codes], offsets, batch.days[rows],
-        obs[rows], covs[rows], batch.stage_known[rows], batch.coordinators[rows])
+        obs[rows], covs[rows], batch.stage_known[rows], batch.coordinators[rows],
+        None if batch.unscheduled is None else np.asarray(batch.unscheduled, dtype=bool)[rows])
     return dict(zip(new_codes, digests))

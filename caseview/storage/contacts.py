@@ -311,12 +311,13 @@ def fetch_contacts(connection, as_of_day: int | None = None, row_by_row: bool = 
 def fetch_case_contacts(connection, case_code: str, as_of_day: int | None = None) -> StoredContacts:
     """One case's current contacts (optionally only days <= ``as_of_day``), read by primary key.
 
-    Same layout as :func:`fetch_contacts` with one case (or none when it has no contacts).
+    Same layout as :func:`fetch_contacts` with one case (or none when it has no contacts), the
+    contact kinds included (``unscheduled``), so a one-case rescore equals a full one.
     """
     layout = field_layout(connection)
     n_channels, n_covariates = len(layout.channels), len(layout.covariates)
-    sql = ("SELECT c.day, c.observations, c.covariates, COALESCE(c.stage_known, ''), COALESCE(co.code, '')"
-           " FROM contacts c JOIN cases k ON k.id = c.case_id LEFT JOIN coordinators co ON co.id = c.coordinator_id"
+    sql = ("SELECT c.day, c.observations, c.covariates, COALESCE(c.stage_known, ''), COALESCE(co.code, ''),"
+           " c.contact_kind FROM contacts c JOIN cases k ON k.id = c.case_id LEFT JOIN coordinators co ON co.id = c.coordinator_id"
            " WHERE k.case_code = ?")
     params = [case_code]
     if as_of_day is not None:
@@ -340,7 +341,8 @@ def fetch_case_contacts(connection, case_code: str, as_of_day: int | None = None
         observations=packed[:, :n_channels],
         covariates=np.ascontiguousarray(packed[:, n_channels:]).view(_NATIVE).astype(np.float64).reshape(n, n_covariates),
         stage_known=np.array([r[3] for r in rows] + [None], dtype=object)[:-1],
-        coordinators=coordinators, layout=layout)
+        coordinators=coordinators, layout=layout,
+        unscheduled=np.array([r[5] == "unscheduled" for r in rows], dtype=bool))
 
 
 def observation_codes_for_model(stored: StoredContacts, model: StageModel) -> tuple[np.ndarray, dict]:

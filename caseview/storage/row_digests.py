@@ -3,7 +3,7 @@
 Every protected record (an *element*) has a SHA-256 digest of its canonical content:
 
 * ``cases``: one element per case: the case row (code, coordinator) and all its contacts (day,
-  observation and covariate bytes, known stage, coordinator), in day order;
+  observation and covariate bytes, known stage, coordinator, contact kind), in day order;
 * one element per row of ``reviews``, ``model_versions``, ``settings``, ``channels``, ``categories``,
   ``covariates`` and ``coordinators``;
 * ``score_runs``: one element per saved run (the run row and all its per-case scores).
@@ -50,7 +50,7 @@ ROW_TABLES = {
     "coordinators": ("SELECT id, code FROM coordinators", "id"),
     # case work (casework_store): earlier contact versions, who recorded current contacts, closed cases
     "contact_versions": ("SELECT v.id, c.case_code, v.day, v.observations, v.covariates, v.stage_known, "
-                         "v.coordinator_id, v.status, v.recorded_at, v.recorded_by, v.recorded_reason, v.ended_at, "
+                         "v.coordinator_id, v.contact_kind, v.status, v.recorded_at, v.recorded_by, v.recorded_reason, v.ended_at, "
                          "v.ended_by, v.reason, v.audit_id FROM contact_versions v LEFT JOIN cases c ON c.id = v.case_id",
                          "v.id"),
     "contact_provenance": ("SELECT p.case_id || ':' || p.day, c.case_code, p.day, p.recorded_at, p.recorded_by, "
@@ -109,7 +109,7 @@ def _case_header(code: str, coordinator: str) -> bytes:
 
 
 def case_digests_from_arrays(codes, case_coordinators, offsets, days, observations, covariates, stage_known,
-                             coordinators) -> list:
+                             coordinators, unscheduled=None) -> list:
     """Digests of many cases at once from aligned arrays (the import's fast path).
 
     Parameters
@@ -120,6 +120,8 @@ def case_digests_from_arrays(codes, case_coordinators, offsets, days, observatio
     observations : ndarray of uint8, shape (n, n_channels)     the stored bytes
     covariates : ndarray of float64, shape (n, n_covariates)   stored as little-endian float64
     stage_known, coordinators : sequence of str, length n      '' = none
+    unscheduled : ndarray of bool, shape (n,), or None        contact_kind 'unscheduled' (None = all scheduled);
+        one byte per contact (0 scheduled, 1 unscheduled)
 
     Returns
     -------
@@ -128,7 +130,7 @@ def case_digests_from_arrays(codes, case_coordinators, offsets, days, observatio
     n = int(days.shape[0])
     n_obs = observations.shape[1] if observations.ndim == 2 else 0
     cov = np.ascontiguousarray(covariates, dtype="<f8").reshape(n, -1)
-    width = 8 + 2 + 16 + 16 + n_obs + 8 * cov.shape[1]
+    width = 8 + 2 + 16 + 16 + 1 + n_obs + 8 * cov.shape[1]
     records = np.empty((n, width), dtype=np.uint8)
     records[:, 0:8] = np.ascontiguousarray(days, dtype="<i8").reshape(n, 1).view(np.uint8)
     records[:, 8:10] = np.full((n, 1), n_obs, dtype="<u2").view(np.uint8)
@@ -141,8 +143,9 @@ def case_digests_from_arrays(codes, case_coordinators, offsets, days, observatio
                               or b"", dtype=np.uint8).reshape(len(values), 16)
         if n:
             records[:, start:start + 16] = table[inverse]
-    records[:, 42:42 + n_obs] = observations
-    records[:, 42 + n_obs:] = cov.view(np.uint8).reshape(n, -1)
+    records[:, 42] = 0 if unscheduled is None else np.asarray(unscheduled, dtype=bool).reshape(n)
+    records[:, 43:43 + n_obs] = observations
+    records[:, 43 + n_obs:] = cov.view(np.uint8).reshape(n, -1)
     buffer = memoryview(records.reshape(-1))
     bounds = (np.asarray(offsets, dtype=np.int64) * width).tolist()
     sha256 = hashlib.sha256
@@ -152,7 +155,7 @@ def case_digests_from_arrays(codes, case_coordinators, offsets, days, observatio
 
 # CAST: a contact widened with ``||`` (a new channel or covariate) holds text-typed bytes
 _CASE_ROWS = ("SELECT cs.case_code, cs.coordinator, c.day, CAST(c.observations AS BLOB), CAST(c.covariates AS BLOB), "
-              "c.stage_known, co.code "
+              "c.stage_known, co.code, c.contact_kind "
               "FROM cases cs LEFT JOIN contacts c ON c.case_id = cs.id "
               "LEFT JOIN coordinators co ON co.id = c.coordinator_id {where} ORDER BY cs.case_code, c.day")
 
@@ -161,7 +164,7 @@ def _case_digests_from_rows(rows) -> dict:
     """Case code -> digest, from rows of :data:`_CASE_ROWS` (the portable reference path)."""
     out, cache = {}, {}
     current, h = None, None
-    for code, coordinator, day, obs, cov, stage, contact_coordinator in rows:
+    for code, coordinator, day, obs, cov, stage, contact_coordinator, kind in rows:
         if code != current:
             if h is not None:
                 out[current] = h.digest()
@@ -170,7 +173,8 @@ def _case_digests_from_rows(rows) -> dict:
             continue
         obs, cov = bytes(obs or b""), bytes(cov or b"")
         h.update(int(day).to_bytes(8, "little", signed=True) + len(obs).to_bytes(2, "little")
-                 + _text_digest(stage or "", cache) + _text_digest(contact_coordinator or "", cache) + obs + cov)
+                 + _text_digest(stage or "", cache) + _text_digest(contact_coordinator or "", cache)
+                 + (b"\x01" if kind == "unscheduled" else b"\x00") + obs + cov)
     if h is not None:
         out[current] = h.digest()
     return out
@@ -187,7 +191,7 @@ def _all_case_digests(connection) -> dict:
         raise ValueError("contacts of a case that is not in the cases table")
     out = dict(zip(codes, case_digests_from_arrays(
         codes, [case_rows[c] for c in codes], stored.offsets, stored.days, stored.observations,
-        stored.covariates, stored.stage_known, stored.coordinators)))
+        stored.covariates, stored.stage_known, stored.coordinators, stored.unscheduled)))
     for code, coordinator in case_rows.items():
         if code not in out:  # a case without contacts
             out[code] = hashlib.sha256(_case_header(code, coordinator)).digest()

@@ -24,7 +24,7 @@ from pathlib import Path
 
 import numpy as np
 
-from ..case_checks import stored_contradictions
+from ..case_checks import contradiction_message, stored_contradictions
 from ..errors import InputError, WorkspaceError
 from ..privacy.file_names import audited_file_name
 from .reader import CHUNK_ROWS, TimelineSource, scan_file
@@ -191,11 +191,8 @@ def _refuse_contacts_after_entry(ws, model, data: dict, problems: Problems, wher
         later, later_line = named(c.case_id, c.day)
         earlier, earlier_line = named(c.case_id, c.entry_day)
         line = later_line if later_line is not None else earlier_line
-        problems.add(where(line), None, line=line, message=(
-            f"case {c.case_id!r}: the contact on {np.datetime64(c.day, 'D')} ({later}) comes after the recorded "
-            f"entry into absorbing stage {c.stage!r} on {np.datetime64(c.entry_day, 'D')} ({earlier}); a case "
-            "that has entered it has no later contacts unless they record that stage - correct the date or "
-            "the stage, or leave the row out"))
+        problems.add(where(line), None, line=line, message=contradiction_message(
+            c, later, earlier, "correct the date or the stage, or leave the row out"))
     problems.raise_if_any("nothing was imported")
 
 

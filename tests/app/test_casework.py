@@ -74,7 +74,7 @@ def test_new_case_needs_coordinator_and_covariates(ws):
     ({"date": "2026-12-01", "values": {"speed": "slow"}}, "unknown channel"),
     ({"date": "2026-12-01", "covariates": {"lives_alone": "yes"}}, "expected a finite number"),
     ({"date": "2026-12-01", "stage_known": "Asleep"}, "unknown stage"),
-    ({"date": "2026-11-16"}, "already has a contact"),
+    ({"date": "2026-09-02"}, "already has a contact"),
 ])
 def test_bad_input_is_one_line_and_stores_nothing(ws, kwargs, fragment):
     before = _snapshot(ws)
@@ -97,11 +97,11 @@ def test_identifier_screen_and_formula_guard_as_import(ws):
 
 
 def test_contact_after_a_recorded_move_is_refused(ws):
-    # HS-0001's last contact records the move to residential care (a stage with no way out)
-    assert "consider closing" in casework.closing_suggestion(ws, "HS-0001")
+    # HS-0003's last contact records the move to residential care (a stage with no way out)
+    assert "consider closing" in casework.closing_suggestion(ws, "HS-0003")
     before = _snapshot(ws)
-    with pytest.raises(InputError, match="no way out"):
-        casework.record_contact(ws, "HS-0001", "2026-12-01", "ann", values={"mobility": "slow"})
+    with pytest.raises(InputError, match="no later contacts unless they record that stage"):
+        casework.record_contact(ws, "HS-0003", "2026-12-01", "ann", values={"mobility": "slow"})
     assert _snapshot(ws) == before
 
 
@@ -129,11 +129,11 @@ def test_correct_keeps_the_earlier_version_and_scoring_uses_the_new(ws):
 def test_correct_that_changes_nothing_or_lacks_reason_is_refused(ws):
     before = _snapshot(ws)
     with pytest.raises(InputError, match="changes nothing"):
-        casework.correct_contact(ws, "HS-0002", "2026-11-16", "no change", "bo")
+        casework.correct_contact(ws, "HS-0002", "2026-09-02", "no change", "bo")
     with pytest.raises(InputError, match="reason is required"):
-        casework.correct_contact(ws, "HS-0002", "2026-11-16", "  ", "bo", values={"falls": "one"})
+        casework.correct_contact(ws, "HS-0002", "2026-09-02", "  ", "bo", values={"falls": "one"})
     with pytest.raises(InputError, match="identifier rule phone") as caught:
-        casework.void_contact(ws, "HS-0002", "2026-11-16", "daughter rang from 0207 946 0123", "bo")
+        casework.void_contact(ws, "HS-0002", "2026-09-02", "daughter rang from 0207 946 0123", "bo")
     assert "0207" not in str(caught.value)
     with pytest.raises(InputError, match="no current contact on 2026-11-17"):
         casework.void_contact(ws, "HS-0002", "2026-11-17", "never happened", "bo")
@@ -142,8 +142,8 @@ def test_correct_that_changes_nothing_or_lacks_reason_is_refused(ws):
 
 def test_void_keeps_the_version_and_leaves_scoring(ws):
     n_before = len(casework.list_contacts(ws, "HS-0002"))
-    change = casework.void_contact(ws, "HS-0002", "2026-11-16", "recorded under the wrong case", "bo")
-    assert change.details["old"]["date"] == "2026-11-16" and change.details["new"] is None
+    change = casework.void_contact(ws, "HS-0002", "2026-09-02", "recorded under the wrong case", "bo")
+    assert change.details["old"]["date"] == "2026-09-02" and change.details["new"] is None
     assert len(casework.list_contacts(ws, "HS-0002")) == n_before - 1
     voided = [v for v in casework.list_contacts(ws, "HS-0002", all_versions=True) if v.status == "voided"]
     assert len(voided) == 1 and voided[0].reason == "recorded under the wrong case"
@@ -162,11 +162,11 @@ def test_import_replace_keeps_the_replaced_version(ws, tmp_path):
 
     path = tmp_path / "fix.csv"
     path.write_text("case_id,date,coordinator,mobility,falls,concern,lives_alone,balance_programme,stage_known\n"
-                    "HS-0002,2026-11-16,C2,unable,none,none,1,1,\n", encoding="utf-8")
+                    "HS-0002,2026-09-02,C2,unable,none,none,1,1,\n", encoding="utf-8")
     import_timelines(ws, path, actor="ann", replace=True)
     every = casework.list_contacts(ws, "HS-0002", all_versions=True)
     old = [v for v in every if v.status == "superseded"]
-    assert len(old) == 1 and old[0].date == "2026-11-16" and "fix.csv" in old[0].reason
+    assert len(old) == 1 and old[0].date == "2026-09-02" and "fix.csv" in old[0].reason
 
 
 def test_close_and_reopen_decide_what_is_scored(ws):
@@ -236,10 +236,10 @@ def test_successive_one_case_rescores_reuse_buffers_and_stay_exact(ws):
     a = assess_caseload(ws, as_of, 90.0, reopen=False, explain_reasons=False)
     loaded = LoadedCaseload(a.scores, a)
     steps = [lambda: casework.record_contact(ws, "HS-0002", "2026-12-01", "ann", values={"falls": "one"}),
-             lambda: casework.record_contact(ws, "HS-0003", "2026-12-02", "ann", values={"falls": "several"}),
-             lambda: casework.void_contact(ws, "HS-0002", "2026-11-16", "never happened", "ann"),
+             lambda: casework.record_contact(ws, "HS-0004", "2026-12-02", "ann", values={"falls": "several"}),
+             lambda: casework.void_contact(ws, "HS-0002", "2026-09-02", "never happened", "ann"),
              lambda: casework.record_contact(ws, "HS-0002", "2026-12-03", "ann", values={"concern": "serious"})]
-    cases = ["HS-0002", "HS-0003", "HS-0002", "HS-0002"]
+    cases = ["HS-0002", "HS-0004", "HS-0002", "HS-0002"]
     for step, case in zip(steps, cases):
         step()
         loaded, _ = casework.rescore_case(ws, loaded, case)
@@ -270,3 +270,69 @@ def test_row_digests_catch_versions_and_closures_changed_outside_caseview(ws):
     con.execute("UPDATE case_closures SET reason = 'died'")
     result = ws.audit_verify()
     assert not result.ok and "case_closures" in result.problem
+
+
+def _kinds(ws, code):
+    return {v.date: v.contact_kind for v in casework.list_contacts(ws, code, all_versions=True)}
+
+
+def test_record_and_correct_carry_the_contact_kind(ws):
+    """record stores the kind (default scheduled); correct changes it or keeps it; versions keep the old one."""
+    casework.record_contact(ws, "HS-0002", "2026-12-01", "ann", values={"falls": "one"}, contact_kind="unscheduled")
+    casework.record_contact(ws, "HS-0002", "2026-12-03", "ann", values={"falls": "none"})
+    current = {v.date: v.contact_kind for v in casework.list_contacts(ws, "HS-0002")}
+    assert current["2026-12-01"] == "unscheduled" and current["2026-12-03"] == "scheduled"
+    stored = ws.stored_contacts()
+    day = int(np.datetime64("2026-12-01", "D").astype(int))
+    assert stored.unscheduled[(stored.case_codes.repeat(np.diff(stored.offsets)) == "HS-0002") & (stored.days == day)].all()
+    casework.correct_contact(ws, "HS-0002", "2026-12-01", "was planned", "bo", contact_kind="scheduled")
+    casework.correct_contact(ws, "HS-0002", "2026-12-01", "one fall more", "bo", values={"falls": "several"})
+    versions = [v for v in casework.list_contacts(ws, "HS-0002", all_versions=True) if v.date == "2026-12-01"]
+    assert [(v.status, v.contact_kind) for v in versions] == [("current", "scheduled"), ("superseded", "scheduled"),
+                                                              ("superseded", "unscheduled")]
+    with pytest.raises(InputError, match="contact kind 'sometimes'"):
+        casework.record_contact(ws, "HS-0002", "2026-12-04", "ann", contact_kind="sometimes")
+    assert ws.audit_verify().ok
+
+
+def test_one_case_rescore_equals_full_rescore_with_unscheduled_contacts(ws):
+    """The demo model has an unscheduled_contacts block: the one-case read must carry the kinds."""
+    from caseview.followup import assess_caseload
+    from caseview.gui.data_source import LoadedCaseload
+
+    assert ws.current_model()[0].unscheduled_contacts is not None
+    as_of = dt.date(2026, 12, 5)
+    a = assess_caseload(ws, as_of, 90.0, reopen=False, explain_reasons=False)
+    loaded = LoadedCaseload(a.scores, a)
+    casework.record_contact(ws, "HS-0002", "2026-12-01", "ann", values={"falls": "one"}, contact_kind="unscheduled")
+    spliced, _ = casework.rescore_case(ws, loaded, "HS-0002")
+    full = assess_caseload(ws, as_of, 90.0, reopen=False, explain_reasons=False)
+    assert full.scores.timelines.unscheduled is not None and full.scores.timelines.unscheduled.any()
+    assert np.array_equal(spliced.scores.timelines.unscheduled_mask, full.scores.timelines.unscheduled_mask)
+    for name in ("p_now", "p_reach", "p_follow_up_now"):
+        assert np.allclose(getattr(spliced.scores, name), getattr(full.scores, name), atol=1e-12), name
+
+
+def test_contact_after_recorded_absorbing_entry_uses_the_import_wording(ws, tmp_path):
+    """record and import refuse a contact after a recorded exact entry into a stage with no way out alike."""
+    import csv
+
+    from caseview.timeline_io import import_timelines
+
+    before = _snapshot(ws)
+    with pytest.raises(InputError) as recorded:
+        casework.record_contact(ws, "HS-0003", "2026-12-01", "ann", values={"mobility": "slow"})
+    assert _snapshot(ws) == before
+    model, _ = ws.current_model()
+    header = ["case_id", "date", "coordinator", *[c.name for c in model.channels], *model.covariates, "stage_known"]
+    path = tmp_path / "late.csv"
+    with path.open("w", newline="", encoding="utf-8") as f:
+        csv.writer(f).writerows([header, ["HS-0003", "2026-12-01", "", "slow", *[""] * (len(model.channels) - 1),
+                                          *["0"] * len(model.covariates), ""]])
+    with pytest.raises(InputError) as imported:
+        import_timelines(ws, path, "ann")
+    core = "comes after the recorded entry into absorbing stage 'Moved to residential care' on "
+    assert core in str(recorded.value) and core in str(imported.value)
+    tail = "; a case that has entered it has no later contacts unless they record that stage"
+    assert tail in str(recorded.value) and tail in str(imported.value)
+    assert _snapshot(ws) == before

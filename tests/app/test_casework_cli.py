@@ -96,3 +96,21 @@ def test_errors_are_one_line_and_store_nothing(ws, args, fragment):
     assert fragment in proc.stderr and len(proc.stderr.strip().splitlines()) == 1
     assert "Traceback" not in proc.stderr
     assert run("audit", "verify", ws).stdout == before
+
+
+def test_contact_kind_on_record_correct_and_contacts(ws):
+    run("record", ws, "HS-0005", "--date", "2026-12-01", "--value", "falls=one", "--contact-kind", "unscheduled",
+        "--by", "ann")
+    run("record", ws, "HS-0005", "--date", "2026-12-02", "--value", "falls=none", "--by", "ann")
+    rows = {r["date"]: r for r in _rows(run("contacts", ws, "HS-0005").stdout)}
+    assert list(rows["2026-12-01"])[-8:-6] == ["contact_kind", "stage_known"]
+    assert rows["2026-12-01"]["contact_kind"] == "unscheduled" and rows["2026-12-02"]["contact_kind"] == "scheduled"
+    run("correct", ws, "HS-0005", "--date", "2026-12-02", "--reason", "a worried call", "--contact-kind",
+        "unscheduled", "--by", "bo")
+    run("correct", ws, "HS-0005", "--date", "2026-12-02", "--reason", "two falls", "--value", "falls=several",
+        "--by", "bo")
+    rows = [r for r in _rows(run("contacts", ws, "HS-0005", "--all-versions").stdout) if r["date"] == "2026-12-02"]
+    assert [(r["status"], r["contact_kind"]) for r in rows] == [("current", "unscheduled"),
+                                                                ("superseded", "unscheduled"),
+                                                                ("superseded", "scheduled")]
+    _verified(ws)

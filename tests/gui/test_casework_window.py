@@ -208,3 +208,46 @@ def test_absorbing_stage_offers_closing(window, qtbot, workspace_path):
         assert window.case_view.actions.hint.isVisible()
         return
     pytest.skip("no simulated case could move to residential care on the as-of date")
+
+
+def test_record_form_and_correct_dialog_ask_for_the_contact_kind(window, qtbot, workspace_path, monkeypatch):
+    from caseview.gui.contact_dialogs import CorrectContactDialog
+    from caseview.gui.record_form import RecordForm
+    from caseview.operations import casework
+
+    loaded = open_ws(window, qtbot, workspace_path)
+    case_id = str(loaded.scores.case_ids[3])
+    _select(window, case_id)
+
+    def record(form):
+        kind = form.fields.kind
+        assert kind.currentData() == "scheduled"  # the default: a planned visit
+        form.date_edit.setDate(form.date_edit.date().fromString(AS_OF.isoformat(), "yyyy-MM-dd"))
+        kind.setCurrentIndex(kind.findData("unscheduled"))
+        form.submit()
+
+    _run_instead_of_exec(monkeypatch, RecordForm, record, [])
+    with qtbot.waitSignal(window.casework.case_refreshed, timeout=10000):
+        window.casework.action_record.trigger()
+    kinds = {v.date: v.contact_kind for v in casework.list_contacts(window.workspace(), case_id)}
+    assert kinds[AS_OF.isoformat()] == "unscheduled"
+
+    pane = window.case_view
+    last = pane.contacts.rowCount() - 1
+    pane.contacts.selectRow(last)
+    assert pane.contacts.item(last, 0).text() == AS_OF.isoformat()
+
+    def correct(dialog):
+        kind = dialog.fields.kind
+        assert kind.currentData() == "unscheduled"  # offered as recorded
+        kind.setCurrentIndex(kind.findData("scheduled"))
+        qtbot.keyClicks(dialog.reason_edit, "it was the planned visit")
+        dialog.submit()
+
+    _run_instead_of_exec(monkeypatch, CorrectContactDialog, correct, [])
+    with qtbot.waitSignal(window.casework.case_refreshed, timeout=10000):
+        pane.actions.correct.click()
+    versions = [(v.status, v.contact_kind) for v in casework.list_contacts(window.workspace(), case_id, True)
+                if v.date == AS_OF.isoformat()]
+    assert versions == [("current", "scheduled"), ("superseded", "unscheduled")]
+    assert window.workspace().audit_verify().ok

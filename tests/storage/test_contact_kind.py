@@ -95,7 +95,11 @@ def test_an_older_workspace_gains_the_column_with_every_contact_scheduled(tmp_pa
     from caseview.timeline_io import import_timelines
 
     path = tmp_path / "old.cvw"
-    monkeypatch.setattr(schema, "MIGRATIONS", [m for m in schema.MIGRATIONS if m is not schema.CONTACT_KIND])
+    # an older workspace: written by a caseview whose migrations stopped just before CONTACT_KIND
+    monkeypatch.setattr(schema, "MIGRATIONS", schema.MIGRATIONS[:schema.MIGRATIONS.index(schema.CONTACT_KIND)])
+    from caseview.storage import row_digests  # ... whose case digests did not read the (missing) column
+
+    monkeypatch.setattr(row_digests, "_CASE_ROWS", row_digests._CASE_ROWS.replace("c.contact_kind", "'scheduled'"))
     old = Workspace.create(path, DEMO_MODEL_PATH.read_text(encoding="utf-8"), actor="tester")
     try:
         columns = [r[1] for r in old.connection.execute("PRAGMA table_info(contacts)")]

@@ -206,5 +206,40 @@ def test_case_digest_arrays_match_rows_by_hand():
                                            ["Stable"], ["C1"])[0]
     text = lambda t: hashlib.sha256(t.encode()).digest()[:16]  # noqa: E731
     record = ((20000).to_bytes(8, "little", signed=True) + (2).to_bytes(2, "little") + text("Stable") + text("C1")
-              + bytes([1, 255]) + np.array([0.5], dtype="<f8").tobytes())
+              + b"\x00" + bytes([1, 255]) + np.array([0.5], dtype="<f8").tobytes())  # \x00 = scheduled
     assert got == hashlib.sha256(b"caseview.case.v1\x00HS-0001\x00C1\x00" + record).digest()
+
+
+def test_a_contact_kind_changed_outside_caseview_is_named(filled):
+    """contact_kind is part of the case digest: flipping it with plain SQL is found and the case named."""
+    path = filled.path
+    filled.close()
+    _forge(path, "UPDATE contacts SET contact_kind = 'unscheduled' WHERE case_id = (SELECT id FROM cases "
+                 "WHERE case_code = 'HS-0002') AND day = (SELECT MIN(day) FROM contacts WHERE case_id = "
+                 "(SELECT id FROM cases WHERE case_code = 'HS-0002'))")
+    result = _verify(path)
+    assert not result.ok
+    assert "case HS-0002 (its record or contacts) does not match the audit trail" in result.problem, result.problem
+
+
+def test_both_digest_paths_agree_with_unscheduled_contacts(ws, tmp_path, rng):
+    """An import with unscheduled contacts: the array path (writer, fetch_contacts) equals the row path."""
+    from storage_helpers import HEADER
+
+    rows = generated_rows(12, 4, rng)
+    kinds = ["unscheduled" if i % 3 == 0 else "scheduled" for i in range(len(rows))]
+    import_timelines(ws, write_csv(tmp_path / "k.csv", [r + [k] for r, k in zip(rows, kinds)],
+                                   HEADER + ["contact_kind"]), "tester")
+    assert ws.stored_contacts().unscheduled.sum() == kinds.count("unscheduled")
+    con = ws.connection
+    recorded = dict(con.execute("SELECT key, digest FROM row_digests WHERE set_name = 'cases'").fetchall())
+    fast = {k: v.hex() for k, v in digests.current_case_digests(con).items()}
+    by_row = {k: v.hex() for k, v in digests._case_digests_from_rows(
+        con.execute(digests._CASE_ROWS.format(where=""))).items()}
+    assert recorded == fast == by_row and len(by_row) == 12
+    flipped = np.zeros(1, dtype=bool), np.ones(1, dtype=bool)
+    one = [digests.case_digests_from_arrays(["HS-0001"], ["C1"], np.array([0, 1]), np.array([20000]),
+                                            np.array([[1]], dtype=np.uint8), np.array([[0.5]]), [""], ["C1"],
+                                            unscheduled=u)[0] for u in flipped]
+    assert one[0] != one[1]
+    assert ws.audit_verify().ok
