@@ -68,6 +68,7 @@ def _interrupt_safe(function):
 
 
 def run_outlook_command(args) -> int:
+    from .basic import report_unscorable
     from caseview.operations.outlook import export_outlook, outlook_notes, run_outlook
     from caseview.scoring import parse_date
 
@@ -89,6 +90,8 @@ def run_outlook_command(args) -> int:
     if args.out != "-":
         print(f"wrote {args.out}", file=out)
     print(ADVISORY_NOTICE, file=out)
+    if outlook.not_scored is not None:   # named on stderr, exit 4, as score and flags do
+        return report_unscorable(outlook.not_scored, "left out of the outlook's counts")
     return 0
 
 

@@ -131,6 +131,7 @@ class Outlook:
     coordinator: str | None
     model_version: int | None
     kept_fixed: tuple = ()
+    not_scored: object = None     # caseview.scoring.UnscorableCases: the cases left out, with reasons
 
     @property
     def n_open(self) -> int:

@@ -67,6 +67,10 @@ def _fitted(versions: dict, vid: int):
 
     if vid not in versions:
         raise InputError(f"--compare: no model version {vid} (versions: {', '.join(map(str, versions))})")
+    raw = versions[vid].fit_summary
+    failed = isinstance(raw, dict) and "log_likelihood" in raw and raw["log_likelihood"] is None
+    if failed:   # stored by an earlier caseview, whose failed fits were saved
+        raise InputError(f"--compare: model version {vid} has no log-likelihood to compare (its fit failed)")
     summary = stored_fit_summary(versions[vid])
     if summary is None:
         raise InputError(f"--compare: model version {vid} was not fitted (no log-likelihood to compare)")
@@ -75,7 +79,7 @@ def _fitted(versions: dict, vid: int):
                          "maximum of the likelihood, so likelihood-ratio tests and AIC/BIC do not apply (refit "
                          "without --penalised to compare)")
     if summary.log_likelihood is None:
-        raise InputError(f"--compare: model version {vid}'s log-likelihood is not finite (the fit failed)")
+        raise InputError(f"--compare: model version {vid} has no log-likelihood to compare (its fit failed)")
     return summary, parse_model(versions[vid].json_text, source=f"model version {vid}")
 
 

@@ -105,8 +105,11 @@ def outlook_from_scores(scores, version, as_of: dt.date, months: int = 12, refer
                                      timelines.covariates[timelines.first_index][mine], scores.as_of_day,
                                      model.n_covariates)
     rates = assumption.draw_rates(rng, draws) if drawn is not None else None
-    return compute_outlook(scores, as_of, months, assumption, open_cases, drawn, rates,
-                           seed if drawn is not None else None, coordinator, callback=callback)
+    from dataclasses import replace
+
+    result = compute_outlook(scores, as_of, months, assumption, open_cases, drawn, rates,
+                             seed if drawn is not None else None, coordinator, callback=callback)
+    return replace(result, not_scored=getattr(scores, "unscorable", None))
 
 
 def _with_version(scores, version_id):

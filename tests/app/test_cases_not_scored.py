@@ -301,3 +301,13 @@ def test_a_case_impossible_from_its_first_contact_gets_its_own_reason(tmp_path, 
     assert rows["HS-0007"]["flags"] == ("cannot_be_scored: impossible under the current model: the first contact "
                                         f"(2026-03-05) records {MOVED}, where the model never starts a case "
                                         "(initial probability 0)")
+
+
+def test_outlook_names_the_cases_it_leaves_out(impossible_workspace, tmp_path, capsys):
+    # before: the outlook counted the other cases and exited 0 without naming HS-0003
+    out = tmp_path / "outlook.csv"
+    assert cli("outlook", impossible_workspace, "--as-of", "2026-11-30", "--months", "3", "--referrals", "none",
+               "--out", out) == EXIT_CASES_NOT_SCORED
+    err = capsys.readouterr().err
+    assert "HS-0003" in err and "left out of the outlook" in err
+    assert out.exists()

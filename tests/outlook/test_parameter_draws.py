@@ -23,7 +23,7 @@ def fitted():
     model = three_stage_model()
     sim = simulate(model, rng, n_cases=300)
     result = fit_model(model, sim.timelines, rng=np.random.default_rng(1))
-    return result, SimpleNamespace(id=7, fit_summary=result.to_summary())
+    return result, SimpleNamespace(id=7, fit_summary=result.to_summary().to_dict())   # as stored
 
 
 def test_draws_have_the_fitted_mean_and_covariance(fitted):
@@ -55,7 +55,7 @@ def test_an_unidentified_effect_is_kept_at_its_fitted_value_and_named(rng):
                                          timelines.times, timelines.observations, timelines.allowed_stages,
                                          np.zeros_like(timelines.covariates))
     result = fit_model(model, flat, rng=np.random.default_rng(2))
-    version = SimpleNamespace(id=3, fit_summary=result.to_summary())
+    version = SimpleNamespace(id=3, fit_summary=result.to_summary().to_dict())   # as stored
     draws = draw_models(result.model, version, 50, np.random.default_rng(1))
     assert draws.kept_fixed == ["effect of alone on Well -> Unwell"]
     assert {m.transitions[0].effects["alone"] for m in draws.models} == {result.model.transitions[0].effects["alone"]}
