@@ -297,6 +297,12 @@ class ModelPanel(QWidget):
         from caseview.followup import default_rules, workspace_rules
         from caseview.operations.fitting import FitOptions, compute_fit, preview_fit
 
+        lost = loaded.scores.unscorable
+        if lost.n_cases:   # the refusal compute_fit would give (operations.fit_guards), without starting a job
+            self.fit_message.setText(f"Cannot fit: {lost.summary()}; correct or void those records first. "
+                                     "Nothing was fitted or saved.")
+            return
+
         inputs = self._inputs()
         ws = self.window.workspace()
         rules = workspace_rules(ws) if ws is not None else default_rules()

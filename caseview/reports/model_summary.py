@@ -51,6 +51,8 @@ def unscheduled_contacts_per_year(model, fit_summary: dict | None = None) -> lis
     block = getattr(model, "unscheduled_contacts", None)
     if block is None:
         return []
+    if hasattr(fit_summary, "to_dict"):   # a hmm.fitting.FitSummary rather than the stored JSON
+        fit_summary = fit_summary.to_dict()
     stored = {}
     for item in (fit_summary or {}).get("unscheduled_contacts_per_year") or []:
         stored[item.get("name", "")] = item
