@@ -25,16 +25,22 @@ def _date_axis(ax) -> None:
     ax.xaxis.set_major_formatter(mdates.ConciseDateFormatter(locator, show_offset=True))
 
 
-def _tidy(ax, size: float) -> None:
+def tidy_axes(ax, size: float) -> None:
+    """The house look of every report chart: no top/right spines, muted spines, ticks and y label."""
     for side in ("top", "right"):
         ax.spines[side].set_visible(False)
     for side in ("left", "bottom"):
         ax.spines[side].set_color(style.MUTED)
     ax.tick_params(colors=style.MUTED, labelsize=size, length=3)
+    ax.yaxis.label.set_color(style.MUTED)
+
+
+def _tidy(ax, size: float) -> None:
+    """:func:`tidy_axes` for a probability axis (0 to 1)."""
+    tidy_axes(ax, size)
     ax.tick_params(axis="x", pad=7)
     ax.set_ylim(0, 1)
     ax.set_yticks([0, 0.5, 1.0])
-    ax.yaxis.label.set_color(style.MUTED)
     ax.xaxis.label.set_color(style.MUTED)
 
 

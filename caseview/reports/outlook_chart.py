@@ -13,6 +13,7 @@ from __future__ import annotations
 import numpy as np
 
 from . import style
+from .charts import tidy_axes as _tidy
 
 
 def _dates(outlook, relative: bool = False) -> tuple:
@@ -26,13 +27,6 @@ def _dates(outlook, relative: bool = False) -> tuple:
         np.timedelta64(1, "D")
 
 
-def _tidy(ax, size: float) -> None:
-    for side in ("top", "right"):
-        ax.spines[side].set_visible(False)
-    for side in ("left", "bottom"):
-        ax.spines[side].set_color(style.MUTED)
-    ax.tick_params(colors=style.MUTED, labelsize=size, length=3)
-    ax.yaxis.label.set_color(style.MUTED)
 
 
 def _date_axis(ax, relative: bool = False) -> None:

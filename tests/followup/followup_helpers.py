@@ -152,3 +152,15 @@ def write_workspace(path, model_path, model, cases, actor="tester"):
         counts = ws.write_contacts(batch)
         ws.audit_append(actor, "import", "test timelines", {}, changes=counts.row_changes)
     return ws
+
+
+def run_cli(capsys, *argv):
+    """``caseview ARGV`` in process: (exit code, stdout, stderr); argparse refusals give their exit code."""
+    from caseview.cli.main import main
+
+    try:
+        code = main([str(a) for a in argv])
+    except SystemExit as exc:  # argparse refuses the options (one line on stderr, exit 2)
+        code = exc.code
+    out, err = capsys.readouterr()
+    return code, out, err

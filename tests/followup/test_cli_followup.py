@@ -10,7 +10,7 @@ import pytest
 from caseview import ADVISORY_NOTICE
 from caseview.cli.main import main
 from caseview.storage import Workspace
-from followup_helpers import BAD, CALM, DEMO_MODEL_PATH, MIXED, write_workspace
+from followup_helpers import BAD, CALM, DEMO_MODEL_PATH, MIXED, write_workspace, run_cli
 
 CASES = [
     ("HS-0001", "C1", [("2026-06-01", CALM, {}), ("2026-11-20", BAD, {})]),
@@ -26,13 +26,7 @@ def ws_path(tmp_path, demo_model):
     return path
 
 
-def run(capsys, *argv):
-    try:
-        code = main([str(a) for a in argv])
-    except SystemExit as exc:  # argparse refuses the options (one line on stderr, exit 2)
-        code = exc.code
-    out, err = capsys.readouterr()
-    return code, out, err
+run = run_cli
 
 
 def test_flags_csv_and_summary(ws_path, tmp_path, capsys):

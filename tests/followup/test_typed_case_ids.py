@@ -9,7 +9,7 @@ import pytest
 from caseview.cli.main import main
 from caseview.errors import InputError
 from caseview.storage import Workspace
-from followup_helpers import BAD, CALM, DEMO_MODEL_PATH, MIXED, write_workspace
+from followup_helpers import BAD, CALM, DEMO_MODEL_PATH, MIXED, write_workspace, run_cli
 
 CASES = [
     ("HS-0007", "C1", [("2026-06-01", CALM, {}), ("2026-11-20", BAD, {})]),
@@ -27,13 +27,7 @@ def ws_path(tmp_path, demo_model):
     return path
 
 
-def run(capsys, *argv):
-    try:
-        code = main([str(a) for a in argv])
-    except SystemExit as exc:
-        code = exc.code
-    out, err = capsys.readouterr()
-    return code, out, err
+run = run_cli
 
 
 @pytest.mark.parametrize("typed", [LOOK_ALIKE, FULL_WIDTH, "HS-0007"])
