@@ -168,8 +168,8 @@ def run_contacts(args) -> int:
         versions = casework.list_contacts(ws, args.case_id, all_versions=args.all_versions)
     channels = [c.name for c in model.channels]
     covariates = list(model.covariates)
-    header = ["case_id", "date", *channels, *covariates, "contact_kind", "stage_known", "status", "recorded_at", "recorded_by",
-              "reason", "changed_at", "changed_by"]
+    header = ["case_id", "date", *channels, *covariates, "contact_kind", "stage_known", "status", "recorded_at",
+              "recorded_by", "reason", "changed_at", "changed_by"]
 
     def number(value):
         return "" if value is None else f"{value:g}"
@@ -179,8 +179,7 @@ def run_contacts(args) -> int:
         reason = v.reason if v.status != casework.store.CURRENT else v.recorded_reason
         rows.append([v.case_id, v.date, *[v.values.get(c, "") for c in channels],
                      *[number(v.covariates.get(k)) for k in covariates], v.contact_kind, v.stage_known, v.status,
-                     v.recorded_at,
-                     v.recorded_by, reason, v.ended_at, v.ended_by])
+                     v.recorded_at, v.recorded_by, reason, v.ended_at, v.ended_by])
     columns = [safe_text(column) for column in zip(*rows)] if rows else [[] for _ in header]
     write_table(args.out, header, columns, advisory=False)
     if args.out != "-":

@@ -136,17 +136,14 @@ def run_models(args) -> int:
 def _numbers(version) -> str:
     """logL, AIC and BIC columns of one version ('-' when entered, not fitted or not finite)."""
     from caseview.errors import InputError
-    from caseview.operations.fitting import stored_fit_summary
+    from caseview.operations.fitting import stored_fit_failed, stored_fit_summary
 
-    raw = version.fit_summary
-    if isinstance(raw, dict) and "log_likelihood" in raw and raw["log_likelihood"] is None:
-        return f"{'failed':>12}  {'-':>10}  {'-':>10}"   # a failed fit stored by an earlier caseview
+    if stored_fit_failed(version):
+        return f"{'failed':>12}  {'-':>10}  {'-':>10}"
     try:
         fit = stored_fit_summary(version)
     except InputError:
         return f"{'unreadable':>12}  {'-':>10}  {'-':>10}"
-    if fit is not None and fit.log_likelihood is None:
-        return f"{'failed':>12}  {'-':>10}  {'-':>10}"
     if fit is None:
         return f"{'-':>12}  {'-':>10}  {'-':>10}"
     cell = lambda value, width, places: f"{value:>{width}.{places}f}" if value is not None else f"{'-':>{width}}"  # noqa: E731

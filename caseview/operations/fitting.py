@@ -29,6 +29,7 @@ from ..errors import InputError
 __all__ = ["FitOptions", "FitInputs", "FitOutcome", "SavedFit", "FitPreview", "FitCheckOptions", "FitCheckOutcome",
            "fit_inputs", "inputs_from_caseload", "compute_fit", "save_fit", "make_version_current", "run_fit",
            "preview_fit", "compute_fit_check", "record_fit_check", "run_fit_check", "stored_fit_summary",
+           "stored_fit_failed",
            "WINDOW_SEED"]
 
 #: The seed the window uses for extra starts and simulated caseloads (the command line's default too).
@@ -175,6 +176,13 @@ def run_fit(ws, options: FitOptions, actor: str, as_of: dt.date | None = None, m
     """Read, fit and store in one go (the command line)."""
     outcome = compute_fit(fit_inputs(ws, as_of), options, callback=callback, on_progress=on_progress)
     return save_fit(ws, outcome, actor, make_current)
+
+
+def stored_fit_failed(version) -> bool:
+    """True for a version whose stored fit failed (log-likelihood not a number), including fits an earlier
+    caseview saved with a partial summary."""
+    raw = version.fit_summary
+    return isinstance(raw, dict) and "log_likelihood" in raw and raw["log_likelihood"] is None
 
 
 def stored_fit_summary(version):

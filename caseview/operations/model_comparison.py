@@ -14,7 +14,7 @@ from dataclasses import dataclass
 import numpy as np
 
 from ..errors import InputError
-from .fitting import WINDOW_SEED, stored_fit_summary
+from .fitting import WINDOW_SEED, stored_fit_failed, stored_fit_summary
 
 __all__ = ["VersionComparison", "compare_versions"]
 
@@ -67,9 +67,7 @@ def _fitted(versions: dict, vid: int):
 
     if vid not in versions:
         raise InputError(f"--compare: no model version {vid} (versions: {', '.join(map(str, versions))})")
-    raw = versions[vid].fit_summary
-    failed = isinstance(raw, dict) and "log_likelihood" in raw and raw["log_likelihood"] is None
-    if failed:   # stored by an earlier caseview, whose failed fits were saved
+    if stored_fit_failed(versions[vid]):   # stored by an earlier caseview, whose failed fits were saved
         raise InputError(f"--compare: model version {vid} has no log-likelihood to compare (its fit failed)")
     summary = stored_fit_summary(versions[vid])
     if summary is None:
