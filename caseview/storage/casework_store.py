@@ -17,6 +17,7 @@ a case is closed from its closing day on (the closing day itself counts as close
 
 from __future__ import annotations
 
+import sqlite3
 from dataclasses import asdict, dataclass
 
 import numpy as np
@@ -281,9 +282,13 @@ def record_contact(ws, batch: ContactBatch, actor: str, create_case: bool) -> di
             raise InputError(f"case {code!r} does not exist; give --coordinator to create it (nothing was stored)")
         if case_id is not None and create_case:
             raise InputError(f"case {code!r} already exists; record a contact for it instead (nothing was stored)")
-        if case_id is None:
-            case_id = int(con.execute("SELECT COALESCE(MAX(id), 0) + 1 FROM cases").fetchone()[0])
-            con.execute("INSERT INTO cases (id, case_code, coordinator) VALUES (?, ?, ?)", (case_id, code, coordinator))
+        if case_id is None:  # the key is the database's (on PostgreSQL a coordinator sees only their cases)
+            try:
+                case_id = int(con.execute("INSERT INTO cases (case_code, coordinator) VALUES (?, ?)",
+                                          (code, coordinator)).lastrowid)
+            except sqlite3.IntegrityError:
+                raise InputError(f"case {code!r} already exists and is not among the cases you can see "
+                                 "(nothing was stored)") from None
         else:
             _refuse_if_closed(con, code, case_id, day)
             if _current_row(con, case_id, day) is not None:
