@@ -1,0 +1,170 @@
+"""Team roles on a real PostgreSQL server: the server, not caseview, decides who reads and writes what.
+
+Each check connects as a login of one role (a password, as every login but the superuser needs on
+the test cluster) and tries what that role must and must not do, through caseview and with plain
+SQL typed by hand.
+"""
+
+from __future__ import annotations
+
+import datetime as dt
+import json
+import subprocess
+import sys
+
+import psycopg
+import pytest
+
+from caseview.errors import InputError, WorkspaceError
+from caseview.followup import record_review
+from caseview.operations import casework
+from caseview.storage.audit import entry_hash
+from team_workspace import PASSWORD, make_team_workspace
+
+PEOPLE = {"alice": ("coordinator", ["C1"]), "bob": ("coordinator", ["C2", "C3"]), "sam": ("supervisor", []),
+          "ann": ("analyst", []), "aud": ("auditor", [])}
+AS_OF = dt.date(2026, 11, 30)
+
+
+@pytest.fixture(scope="module")
+def team(postgres_cluster, tmp_path_factory):
+    return make_team_workspace(postgres_cluster, tmp_path_factory.mktemp("team"), PEOPLE)
+
+
+def test_a_coordinator_sees_only_the_cases_of_their_coordinator_codes(team):
+    c1, c2 = team.cases_by_coordinator["C1"], team.cases_by_coordinator["C2"]
+    with team.open(team.login("alice")) as ws:
+        assert ws.case_count() == len(c1)
+        assert sorted(ws.stored_contacts().case_codes.tolist()) == c1
+        with pytest.raises(InputError, match=f"no case '{c2[0]}'"):
+            ws.find_case(c2[0])
+    with team.raw(team.login("alice")) as con:  # plain SQL: row-level security, not caseview, filters
+        assert con.execute("SELECT count(*) FROM cases WHERE coordinator = 'C2'").fetchone()[0] == 0
+        assert con.execute("SELECT count(DISTINCT case_id) FROM contacts").fetchone()[0] == len(c1)
+    with team.open(team.login("bob")) as ws:
+        assert ws.case_count() == len(team.cases_by_coordinator["C2"]) + len(team.cases_by_coordinator["C3"])
+
+
+def test_nobody_updates_or_deletes_audit_entries_with_plain_sql(team):
+    for login in (team.login("alice"), team.login("sam"), team.owner):
+        with team.raw(login) as con:
+            for statement in ("UPDATE audit_log SET actor = 'someone else'", "DELETE FROM audit_log",
+                              "TRUNCATE audit_log",
+                              "INSERT INTO audit_log VALUES (999, '', 'forged', '', '', '{}', '', '')"):
+                with pytest.raises(psycopg.errors.InsufficientPrivilege):
+                    con.execute(statement)
+    with team.raw(team.login("alice")) as con:  # a coordinator does not even read the trail (other cases' details)
+        with pytest.raises(psycopg.errors.InsufficientPrivilege):
+            con.execute("SELECT count(*) FROM audit_log")
+
+
+def test_a_coordinator_cannot_record_a_review_or_change_rules_or_fit(team):
+    case = team.cases_by_coordinator["C1"][0]
+    with team.open(team.login("alice")) as ws:
+        before = ws.audit_head()
+        with pytest.raises(WorkspaceError, match="permission denied"):
+            record_review(ws, case, "acknowledged", "seen", "alice", None, AS_OF)
+        with pytest.raises(WorkspaceError, match="permission denied"):
+            ws.set_setting("rules", {"anything": 1}, "alice")
+        with pytest.raises(WorkspaceError, match="permission denied"):
+            ws.add_model_version(ws.model_versions()[0].json_text, "refit", "alice")
+    with team.open(team.owner) as ws:
+        assert ws.audit_head() == before  # nothing was stored
+
+
+def test_an_auditor_reads_and_verifies_the_trail_but_no_case(team):
+    with team.raw(team.login("aud")) as con:
+        for table in ("cases", "contacts", "reviews", "contact_versions", "model_versions"):
+            with pytest.raises(psycopg.errors.InsufficientPrivilege):
+                con.execute(f"SELECT count(*) FROM {table}")
+        assert con.execute("SELECT count(*) FROM audit_log").fetchone()[0] > 0
+    with team.open(team.login("aud")) as ws:
+        result = ws.audit_verify(rows=False)
+        assert result.ok and result.n_entries > 0
+
+
+def test_every_entry_and_who_column_names_the_login_the_server_authenticated(team):
+    alice, case = team.login("alice"), team.cases_by_coordinator["C1"][1]
+    with team.open(alice) as ws:
+        result = casework.record_contact(ws, case, "2026-11-20", "not-alice-at-all", values={"mobility": "slow"})
+        assert result.case_id == case
+    with team.open(team.login("sam")) as ws:
+        entry = [e for e in ws.audit_entries(case_id=case) if e.action == "contact.record"][-1]
+        assert entry.actor == alice
+        assert ws.connection.execute("SELECT recorded_by FROM contact_provenance p JOIN cases c ON c.id = p.case_id "
+                                     "WHERE c.case_code = ?", (case,)).fetchone()[0] == alice
+        row = record_review(ws, case, "acknowledged", "seen", "not-sam", None, AS_OF)
+        assert row.actor == team.login("sam")
+        assert ws.audit_entries(case_id=case)[-1].actor == team.login("sam")
+        assert ws.audit_verify().ok
+
+
+def test_the_servers_entry_hash_is_the_python_one_for_awkward_text(team):
+    """Every character class JSON escapes differently: quotes, backslash, control characters, non-ASCII."""
+    awkward = ["plain", 'say "no"', "back\\slash", "tab\there", "line\nbreak", "\x00\x01\x1f\x7f", "é ß 中文 🙂",
+               "\u2028\u2029", "</script>"]
+    with team.raw(team.owner) as con:
+        for text in awkward:
+            details = json.dumps({"note": text}, ensure_ascii=False)  # NUL is written \u0000: storable text
+            row = con.execute("SELECT * FROM caseview_audit_append(%s, %s, %s, NULL)",
+                              (f"test.{len(text)}", text.replace("\x00", ""), details)).fetchone()
+            stored = con.execute("SELECT id, at_utc, actor, action, target, details_json, prev_hash, entry_hash "
+                                 "FROM audit_log WHERE id = %s", (row[0],)).fetchone()
+            assert entry_hash(*stored[:7]) == stored[7] == row[4]
+
+
+def test_team_commands_owner_only_and_postgresql_only(team, tmp_path):
+    def run(*args):
+        return subprocess.run([sys.executable, "-m", "caseview", "team", *args], capture_output=True, text=True,
+                              env=team.env(), timeout=120)
+
+    owner_url = team.url(team.owner)
+    listed = run("list", owner_url)
+    assert listed.returncode == 0, listed.stderr
+    assert f"{team.login('alice')}: coordinator (coordinators C1)" in listed.stdout
+    assert f"{team.login('bob')}: coordinator (coordinators C2, C3)" in listed.stdout
+    refused = run("list", team.url(team.login("sam")))
+    assert refused.returncode != 0 and refused.stderr.count("\n") == 1
+    assert f"only the workspace owner ({team.owner}) can change or list the team" in refused.stderr
+    missing = run("add", owner_url, "nobody_here", "--role", "analyst")
+    assert "no login role 'nobody_here' on this server" in missing.stderr and missing.stderr.count("\n") == 1
+    no_code = run("add", owner_url, team.login("ann"), "--role", "coordinator")
+    assert "a coordinator needs at least one --coordinator CODE" in no_code.stderr
+    sqlite = run("list", str(tmp_path / "one.cvw"))
+    assert sqlite.returncode != 0
+    by = subprocess.run([sys.executable, "-m", "caseview", "record", team.url(team.login("alice")),
+                         team.cases_by_coordinator["C1"][0], "2026-11-25", "--by", "someone"],
+                        capture_output=True, text=True, env=team.env(), timeout=120)
+    assert by.returncode != 0 and "--by is not accepted on a PostgreSQL workspace" in by.stderr
+
+
+def test_team_add_replaces_a_role_and_remove_takes_it_away(team):
+    ann = team.login("ann")
+    with team.open(team.owner) as ws:
+        from caseview.operations import team as team_jobs
+
+        member = team_jobs.add_member(ws, ann, "coordinator", ["C4"])
+        assert (member.role, member.coordinators) == ("coordinator", ("C4",))
+    with team.open(ann) as ws:
+        assert ws.case_count() == len(team.cases_by_coordinator["C4"])
+    with team.open(team.owner) as ws:
+        team_jobs.remove_member(ws, ann)
+        assert ann not in [m.login for m in team_jobs.list_members(ws)]
+    with team.raw(ann) as con:
+        with pytest.raises(psycopg.errors.InsufficientPrivilege):
+            con.execute("SELECT count(*) FROM cases")
+    with team.open(team.owner) as ws:
+        team_jobs.add_member(ws, ann, "analyst")
+        entries = [e.action for e in ws.audit_entries() if e.target == f"login:{ann}"]
+        assert entries[-3:] == ["team.add", "team.remove", "team.add"]
+        assert ws.audit_verify().ok
+
+
+def test_team_commands_refuse_a_sqlite_workspace(tmp_path):
+    from caseview.operations import team as team_jobs
+    from caseview.storage import Workspace
+    from team_workspace import DEMO_MODEL
+
+    with Workspace.create(tmp_path / "solo.cvw", DEMO_MODEL.read_text(encoding="utf-8"), "me") as ws:
+        with pytest.raises(WorkspaceError, match="team roles need a PostgreSQL workspace"):
+            team_jobs.list_members(ws)
