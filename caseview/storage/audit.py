@@ -130,6 +130,8 @@ def append(connection, actor: str, action: str, target: str, details: dict, chan
 
 
 def head(connection) -> str:
+    if _on_server(connection):  # every team role may know the head (it tells nothing about any case)
+        return connection.execute("SELECT head_hash FROM caseview_audit_head()").fetchone()[0]
     row = connection.execute("SELECT entry_hash FROM audit_log ORDER BY id DESC LIMIT 1").fetchone()
     return row[0] if row else GENESIS_HASH
 

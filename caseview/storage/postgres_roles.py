@@ -47,6 +47,8 @@ _WRITES = {
                 "covariates": "INSERT", "coordinators": "INSERT", "settings": "INSERT, UPDATE",
                 "score_runs": "INSERT", "case_scores": "INSERT", "row_digests": "INSERT, UPDATE, DELETE"},
 }
+#: Tables every team role reads and none writes (the workspace's identity and schema version).
+_IDENTITY = ("caseview_workspace",)
 #: Tables whose rows coordinators must not read at all (beyond their cases' rows).
 _HIDDEN_FROM_COORDINATORS = ("score_runs",)
 #: Columns the server fills with the login that wrote the row: table -> column.
@@ -98,7 +100,7 @@ def install(connection) -> dict:
     dict
         :func:`group_roles` of this database.
     """
-    cur = connection.cursor()
+    cur = getattr(connection, "raw", connection).cursor()  # a PgConnection or a psycopg connection
     cur.execute("SELECT current_database(), current_user")
     database, owner = cur.fetchone()
     roles = group_roles(database)
@@ -139,8 +141,10 @@ def _grant_table(cur, table: str, keyed: bool, roles: dict) -> None:
     for name in (coordinator, supervisor, analyst, roles["auditor"]):
         cur.execute(_sql("REVOKE ALL ON {t} FROM {r}", t=table, r=name))
     readers = (supervisor, analyst) if table in _HIDDEN_FROM_COORDINATORS else (coordinator, supervisor, analyst)
-    for name in readers:
+    for name in readers + ((roles["auditor"],) if table in _IDENTITY else ()):
         cur.execute(_sql("GRANT SELECT ON {t} TO {r}", t=table, r=name))
+    if table in _IDENTITY:
+        return
     known = any(table in writes for writes in _WRITES.values()) or table in ("cases", "reviews")
     for role in ("coordinator", "supervisor", "analyst"):
         writes = _WRITES[role].get(table) or ("" if known else "INSERT, UPDATE, DELETE")
@@ -208,6 +212,11 @@ BEGIN
   LOCK TABLE public.audit_log IN EXCLUSIVE MODE;  -- the id stays the next one until this transaction ends
   RETURN COALESCE((SELECT max(id) FROM public.audit_log), 0) + 1;
 END $fn$;
+CREATE OR REPLACE FUNCTION caseview_audit_head() RETURNS TABLE (head_id bigint, head_hash text)
+LANGUAGE sql STABLE SECURITY DEFINER SET search_path = pg_catalog, public AS $fn$
+  SELECT COALESCE(max(id), 0), COALESCE((SELECT a.entry_hash FROM public.audit_log a ORDER BY a.id DESC LIMIT 1),
+    repeat('0', 64)) FROM public.audit_log
+$fn$;
 CREATE OR REPLACE FUNCTION caseview_audit_is_append_only() RETURNS trigger LANGUAGE plpgsql AS $fn$
 BEGIN RAISE EXCEPTION 'the audit trail is append-only'; END $fn$;
 CREATE OR REPLACE TRIGGER audit_log_no_update BEFORE UPDATE OR DELETE ON audit_log
@@ -216,7 +225,7 @@ CREATE OR REPLACE TRIGGER audit_log_no_truncate BEFORE TRUNCATE ON audit_log
   FOR EACH STATEMENT EXECUTE FUNCTION caseview_audit_is_append_only();
 """
 _AUDIT_FUNCTIONS = ("caseview_audit_append(text, text, text, text)", "caseview_next_audit_id()",
-                    "caseview_audit_is_append_only()")
+                    "caseview_audit_head()", "caseview_audit_is_append_only()")
 
 
 def _audit_keeper(cur, roles: dict, owner: str) -> None:
@@ -236,9 +245,10 @@ def _audit_keeper(cur, roles: dict, owner: str) -> None:
         cur.execute(_sql("REVOKE {k} FROM {o}", k=keeper, o=owner))
     writers = (owner, roles["coordinator"], roles["supervisor"], roles["analyst"])
     readers = (owner, roles["supervisor"], roles["auditor"])
-    for function in _AUDIT_FUNCTIONS[:2]:
+    for function, callers in ((_AUDIT_FUNCTIONS[0], writers), (_AUDIT_FUNCTIONS[1], writers),
+                              (_AUDIT_FUNCTIONS[2], (*writers, roles["auditor"]))):  # the head hash tells nothing
         cur.execute(f"REVOKE ALL ON FUNCTION {function} FROM PUBLIC")
-        for name in writers:
+        for name in callers:
             cur.execute(_sql(f"GRANT EXECUTE ON FUNCTION {function} TO {{r}}", r=name))
     # Only the keeper (the table owner) can grant on its table: the owner acts as the keeper briefly.
     _as_keeper(cur, keeper, owner, [_sql("REVOKE ALL ON audit_log FROM PUBLIC")]

@@ -24,6 +24,7 @@ from team_workspace import PASSWORD, make_team_workspace
 PEOPLE = {"alice": ("coordinator", ["C1"]), "bob": ("coordinator", ["C2", "C3"]), "sam": ("supervisor", []),
           "ann": ("analyst", []), "aud": ("auditor", [])}
 AS_OF = dt.date(2026, 11, 30)
+COVARIATES = {"lives_alone": 1, "balance_programme": 0}
 
 
 @pytest.fixture(scope="module")
@@ -84,10 +85,17 @@ def test_an_auditor_reads_and_verifies_the_trail_but_no_case(team):
 
 
 def test_every_entry_and_who_column_names_the_login_the_server_authenticated(team):
-    alice, case = team.login("alice"), team.cases_by_coordinator["C1"][1]
-    with team.open(alice) as ws:
-        result = casework.record_contact(ws, case, "2026-11-20", "not-alice-at-all", values={"mobility": "slow"})
+    alice, case = team.login("alice"), "HS-9001"
+    with team.open(alice) as ws:  # a new person: the case key comes from the server (alice sees only C1's cases)
+        result = casework.record_contact(ws, case, "2026-11-20", "not-alice-at-all", values={"mobility": "slow"},
+                                         covariates=COVARIATES, coordinator="C1", new_case=True)
         assert result.case_id == case
+    with team.open(team.login("bob")) as ws:
+        with pytest.raises(InputError):  # another coordinator's case does not exist for bob
+            casework.record_contact(ws, case, "2026-11-21", "bob", values={"mobility": "slow"}, new_case=False)
+        with pytest.raises(InputError, match="already exists and is not among the cases you can see"):
+            casework.record_contact(ws, case, "2026-11-21", "bob", values={"mobility": "slow"}, coordinator="C2",
+                                    covariates=COVARIATES, new_case=True)
     with team.open(team.login("sam")) as ws:
         entry = [e for e in ws.audit_entries(case_id=case) if e.action == "contact.record"][-1]
         assert entry.actor == alice
@@ -133,7 +141,7 @@ def test_team_commands_owner_only_and_postgresql_only(team, tmp_path):
     sqlite = run("list", str(tmp_path / "one.cvw"))
     assert sqlite.returncode != 0
     by = subprocess.run([sys.executable, "-m", "caseview", "record", team.url(team.login("alice")),
-                         team.cases_by_coordinator["C1"][0], "2026-11-25", "--by", "someone"],
+                         team.cases_by_coordinator["C1"][0], "--date", "2026-11-25", "--by", "someone"],
                         capture_output=True, text=True, env=team.env(), timeout=120)
     assert by.returncode != 0 and "--by is not accepted on a PostgreSQL workspace" in by.stderr
 
