@@ -287,7 +287,7 @@ class Workspace:
 
     def is_own_file(self, path) -> bool:
         """True when ``path`` is this workspace's file or its -wal/-shm/-journal (compared with stat, never opened)."""
-        if self.is_postgres:
+        if self.is_postgres or isinstance(path, DatabaseURL):
             return False
         for suffix in ("", "-wal", "-shm", "-journal"):
             try:
