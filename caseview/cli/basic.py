@@ -61,7 +61,8 @@ def actor_name(args) -> str:
     from caseview.textfiles import check_one_line
 
     given = getattr(args, "by", None)
-    if given and is_database_url(getattr(args, "workspace", None)):
+    if given and (is_database_url(getattr(args, "workspace", None))
+                  or is_database_url(getattr(args, "destination", None))):  # copy into PostgreSQL
         raise InputError("--by is not accepted on a PostgreSQL workspace: the server records the login you "
                          "connected as; connect as that person instead (nothing was changed)")
     return check_one_line(given, "--by") if given else os_user()

@@ -174,8 +174,11 @@ def _who_triggers(cur, tables: dict) -> None:
         if table not in tables:
             continue
         function = f"caseview_{table}_{column}_is_session_user"
-        cur.execute(_sql(f"CREATE OR REPLACE FUNCTION {{f}}() RETURNS trigger LANGUAGE plpgsql AS"
-                         f" $$ BEGIN NEW.{column} := session_user; RETURN NEW; END $$", f=function))
+        # the one exception: the owner restoring a copied workspace (begin_restore) keeps who recorded it
+        cur.execute(_sql(f"CREATE OR REPLACE FUNCTION {{f}}() RETURNS trigger LANGUAGE plpgsql AS $$ BEGIN"
+                         f" IF current_setting('caseview.restoring', true) = 'on' AND session_user ="
+                         f" (SELECT pg_get_userbyid(relowner) FROM pg_class WHERE oid = TG_RELID) THEN RETURN NEW;"
+                         f" END IF; NEW.{column} := session_user; RETURN NEW; END $$", f=function))
         cur.execute(_sql("CREATE OR REPLACE TRIGGER {g} BEFORE INSERT ON {t} FOR EACH ROW EXECUTE FUNCTION {f}()",
                          g=f"{table}_{column}_is_session_user", t=table, f=function))
 
@@ -217,6 +220,21 @@ LANGUAGE sql STABLE SECURITY DEFINER SET search_path = pg_catalog, public AS $fn
   SELECT COALESCE(max(id), 0), COALESCE((SELECT a.entry_hash FROM public.audit_log a ORDER BY a.id DESC LIMIT 1),
     repeat('0', 64)) FROM public.audit_log
 $fn$;
+CREATE OR REPLACE FUNCTION caseview_audit_restore(p_entries json) RETURNS bigint
+LANGUAGE plpgsql SECURITY DEFINER SET search_path = pg_catalog, public AS $fn$
+DECLARE v_count bigint;
+BEGIN
+  LOCK TABLE public.audit_log IN EXCLUSIVE MODE;
+  IF EXISTS (SELECT 1 FROM public.audit_log) THEN
+    RAISE EXCEPTION 'the audit trail can be restored only into a new, empty workspace';
+  END IF;
+  INSERT INTO public.audit_log (id, at_utc, actor, action, target, details_json, prev_hash, entry_hash)
+    SELECT e.id, e.at_utc, e.actor, e.action, e.target, e.details_json, e.prev_hash, e.entry_hash
+    FROM json_to_recordset(p_entries) AS e(id bigint, at_utc text, actor text, action text, target text,
+                                           details_json text, prev_hash text, entry_hash text);
+  GET DIAGNOSTICS v_count = ROW_COUNT;
+  RETURN v_count;
+END $fn$;
 CREATE OR REPLACE FUNCTION caseview_audit_is_append_only() RETURNS trigger LANGUAGE plpgsql AS $fn$
 BEGIN RAISE EXCEPTION 'the audit trail is append-only'; END $fn$;
 CREATE OR REPLACE TRIGGER audit_log_no_update BEFORE UPDATE OR DELETE ON audit_log
@@ -225,7 +243,7 @@ CREATE OR REPLACE TRIGGER audit_log_no_truncate BEFORE TRUNCATE ON audit_log
   FOR EACH STATEMENT EXECUTE FUNCTION caseview_audit_is_append_only();
 """
 _AUDIT_FUNCTIONS = ("caseview_audit_append(text, text, text, text)", "caseview_next_audit_id()",
-                    "caseview_audit_head()", "caseview_audit_is_append_only()")
+                    "caseview_audit_head()", "caseview_audit_restore(json)", "caseview_audit_is_append_only()")
 
 
 def _audit_keeper(cur, roles: dict, owner: str) -> None:
@@ -246,7 +264,8 @@ def _audit_keeper(cur, roles: dict, owner: str) -> None:
     writers = (owner, roles["coordinator"], roles["supervisor"], roles["analyst"])
     readers = (owner, roles["supervisor"], roles["auditor"])
     for function, callers in ((_AUDIT_FUNCTIONS[0], writers), (_AUDIT_FUNCTIONS[1], writers),
-                              (_AUDIT_FUNCTIONS[2], (*writers, roles["auditor"]))):  # the head hash tells nothing
+                              (_AUDIT_FUNCTIONS[2], (*writers, roles["auditor"])),  # the head tells nothing
+                              (_AUDIT_FUNCTIONS[3], (owner,))):  # into an empty trail only (copy)
         cur.execute(f"REVOKE ALL ON FUNCTION {function} FROM PUBLIC")
         for name in callers:
             cur.execute(_sql(f"GRANT EXECUTE ON FUNCTION {function} TO {{r}}", r=name))
@@ -265,3 +284,23 @@ def _as_keeper(cur, keeper: str, owner: str, statements) -> None:
     finally:
         cur.execute("RESET ROLE")
         cur.execute(_sql("REVOKE {k} FROM {o}", k=keeper, o=owner))
+
+
+def begin_restore(connection) -> None:
+    """In the owner's copy transaction: rows keep the names of who recorded them (transaction only)."""
+    getattr(connection, "raw", connection).execute("SET LOCAL caseview.restoring = 'on'")
+
+
+def restore_audit_rows(connection, columns, rows) -> int:
+    """Put a copied trail, entry for entry, into this workspace's EMPTY audit table (owner only).
+
+    ``columns`` names the values of each row in ``rows`` (the audit table's columns). The server
+    refuses when the table holds any entry, so no one can slip entries into a trail in use.
+    """
+    import json
+
+    names = [str(c).strip('"') for c in columns]
+    entries = [dict(zip(names, row)) for row in rows]
+    cur = getattr(connection, "raw", connection).cursor()
+    cur.execute("SELECT caseview_audit_restore(%s::json)", (json.dumps(entries, ensure_ascii=False),))
+    return int(cur.fetchone()[0])

@@ -104,7 +104,11 @@ def _copy_rows(source, destination, tables) -> dict:
             continue
         names = [name for name, _ in columns]
         quoted = [f'"{n}"' for n in names]
-        if hasattr(destination, "copy_rows"):
+        if table == "audit_log" and getattr(destination, "kind", "sqlite") == "postgresql":
+            from .postgres_roles import restore_audit_rows
+
+            restore_audit_rows(destination, names, rows)  # the trail's table belongs to its keeper role
+        elif hasattr(destination, "copy_rows"):
             destination.copy_rows(f'"{table}"', quoted, rows)
         else:
             destination.executemany(f'INSERT INTO "{table}" ({", ".join(quoted)}) VALUES '
@@ -172,6 +176,9 @@ def copy_workspace(source_ws, destination, actor: str, password: str | None = No
                     from . import pg_backend
 
                     pg_backend.create_schema(dest_ws)
+                    from .postgres_roles import begin_restore
+
+                    begin_restore(con)  # copied rows keep who recorded them
                 else:
                     dest_ws._apply_migrations(0)
                 tables = [t for t in _in_dependency_order(con, _tables(con)) if t in set(_tables(source))]
