@@ -176,3 +176,42 @@ def test_team_commands_refuse_a_sqlite_workspace(tmp_path):
     with Workspace.create(tmp_path / "solo.cvw", DEMO_MODEL.read_text(encoding="utf-8"), "me") as ws:
         with pytest.raises(WorkspaceError, match="team roles need a PostgreSQL workspace"):
             team_jobs.list_members(ws)
+
+
+def test_a_copy_into_a_team_database_keeps_its_trail_and_gets_the_roles(postgres_cluster, tmp_path):
+    """An owner without superuser rights copies a SQLite workspace in: the trail arrives whole through the
+    owner-only restore (which refuses a trail in use), the team roles then apply."""
+    from psycopg import sql
+
+    from caseview.operations import team as team_jobs
+    from caseview.operations.workspace_copy import copy_workspace
+    from caseview.storage import Workspace
+    from caseview.timeline_io import import_timelines
+    from team_workspace import DEMO_MODEL, small_caseload_csv
+
+    owner, coordinator = f"copier_{tmp_path.name[-12:]}".lower(), f"cody_{tmp_path.name[-12:]}".lower()
+    for name in (owner, coordinator):
+        postgres_cluster.create_role(name, PASSWORD)
+    with postgres_cluster.admin() as con:
+        con.execute(sql.SQL("ALTER ROLE {} CREATEROLE").format(sql.Identifier(owner)))
+    dbname = f"copy_{tmp_path.name[-12:]}".lower()
+    postgres_cluster.create_database(dbname, owner=owner)
+    source = tmp_path / "solo.cvw"
+    codes = small_caseload_csv(tmp_path / "few.csv", 2)
+    with Workspace.create(source, DEMO_MODEL.read_text(encoding="utf-8"), "kim") as ws:
+        import_timelines(ws, tmp_path / "few.csv", "kim")
+        record_review(ws, codes["C1"][0], "acknowledged", "seen", "kim", None, AS_OF)
+    url = postgres_cluster.url(dbname, owner)
+    result = copy_workspace(source, url, "ignored", destination_password=PASSWORD)
+    assert result.n_entries >= 4
+    with Workspace.open(url, password=PASSWORD) as ws:
+        entries = ws.audit_entries()
+        assert [e.actor for e in entries[:-1]] == ["kim"] * (len(entries) - 1)  # as recorded in the file
+        assert entries[-1].actor == owner and entries[-1].action == "workspace.copy"
+        assert ws.connection.execute("SELECT actor FROM reviews").fetchone()[0] == "kim"
+        assert ws.audit_verify().ok
+        with pytest.raises(WorkspaceError, match="only into a new, empty workspace"), ws.transaction() as con:
+            con.execute("SELECT caseview_audit_restore(?::json)", ('[{"id": 99}]',))
+        team_jobs.add_member(ws, coordinator, "coordinator", ["C2"])
+    with Workspace.open(postgres_cluster.url(dbname, coordinator), password=PASSWORD) as ws:
+        assert ws.stored_contacts().case_codes.tolist() == codes["C2"]
