@@ -49,8 +49,8 @@ _WRITES = {
 }
 #: Tables every team role reads and none writes (the workspace's identity and schema version).
 _IDENTITY = ("caseview_workspace",)
-#: Tables whose rows coordinators must not read at all (beyond their cases' rows).
-_HIDDEN_FROM_COORDINATORS = ("score_runs",)
+#: Tables whose rows coordinators must not read at all (case-keyed rows are narrowed to their cases instead).
+_HIDDEN_FROM_COORDINATORS = ()
 #: Columns the server fills with the login that wrote the row: table -> column.
 _WHO_COLUMNS = {"reviews": "actor", "contact_provenance": "recorded_by", "contact_versions": "ended_by",
                 "case_closures": "closed_by"}
