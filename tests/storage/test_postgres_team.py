@@ -215,3 +215,25 @@ def test_a_copy_into_a_team_database_keeps_its_trail_and_gets_the_roles(postgres
         team_jobs.add_member(ws, coordinator, "coordinator", ["C2"])
     with Workspace.open(postgres_cluster.url(dbname, coordinator), password=PASSWORD) as ws:
         assert ws.stored_contacts().case_codes.tolist() == codes["C2"]
+
+
+def test_analysts_change_rules_and_publish_models_supervisors_and_auditors_do_not(team):
+    from caseview.followup.rules import default_rules, save_workspace_rules, workspace_rules
+
+    from caseview.operations import team as team_jobs
+
+    with team.open(team.owner) as ws:
+        team_jobs.add_member(ws, team.login("ann"), "analyst")  # whatever an earlier test left
+    with team.open(team.login("ann")) as ws:
+        save_workspace_rules(ws, default_rules(), "ignored")
+        version = ws.add_model_version(ws.model_versions()[0].json_text, "published", "ignored", make_current=False)
+        assert version > 1
+    with team.open(team.login("sam")) as ws:
+        assert workspace_rules(ws) is not None  # reads them
+        with pytest.raises(WorkspaceError, match="the server refused: permission denied for table settings"):
+            save_workspace_rules(ws, default_rules(), "sam")
+        with pytest.raises(WorkspaceError, match="permission denied"):
+            ws.add_model_version(ws.model_versions()[0].json_text, "refit", "sam")
+    with team.open(team.login("aud")) as ws:
+        with pytest.raises(WorkspaceError, match="permission denied"):
+            workspace_rules(ws)
