@@ -31,6 +31,10 @@ from psycopg import errors as pg_errors
 ID_TABLES = frozenset({"model_versions", "channels", "covariates", "coordinators", "cases", "audit_log", "reviews",
                        "score_runs", "contact_versions"})
 
+#: ``executemany`` of more rows than this uses COPY (:meth:`PgConnection.executemany`).
+BULK_ROWS = 1000
+_BULK_INSERT = re.compile(r"^INSERT\s+(?P<ignore>OR\s+IGNORE\s+)?INTO\s+(?P<table>\w+)\s*\((?P<columns>[\w\s,]+)\)\s*"
+                          r"VALUES\s*\([\s?,]+\)(?P<tail>\s+ON\s+CONFLICT.*)?$", re.IGNORECASE | re.DOTALL)
 _INSERT_TABLE = re.compile(r"^\s*INSERT\s+(?:OR\s+IGNORE\s+)?INTO\s+(\w+)", re.IGNORECASE)
 _CAST_BLOB = re.compile(r"\bAS\s+BLOB\)", re.IGNORECASE)
 
@@ -149,15 +153,40 @@ class PgConnection:
             raise as_sqlite_error(exc) from exc
 
     def executemany(self, sql: str, seq_of_params) -> None:
+        """Many rows: a plain ``INSERT ... VALUES (?, ...)`` of more than :data:`BULK_ROWS` rows goes
+        through ``COPY`` (straight into the table, or through a temporary table when the statement has an
+        ``ON CONFLICT`` clause); anything else is psycopg's pipelined ``executemany``."""
         text, _ = _translated(sql)
         rows = [tuple(p) for p in seq_of_params]
         if not rows:
             return
+        bulk = _BULK_INSERT.match(sql.strip()) if len(rows) > BULK_ROWS else None
         try:
+            if bulk:
+                self._bulk_insert(bulk, rows)
+                return
             with self.raw.cursor() as cursor:
                 cursor.executemany(text.replace(" RETURNING id", ""), rows)
         except psycopg.Error as exc:
             raise as_sqlite_error(exc) from exc
+
+    def _bulk_insert(self, match, rows) -> None:
+        table, columns, tail = match.group("table"), match.group("columns"), match.group("tail") or ""
+        ignore = bool(match.group("ignore"))
+        names = [c.strip() for c in columns.split(",")]
+        if not tail.strip() and not ignore:
+            self.copy_rows(table, names, rows)
+            return
+        if ignore:
+            tail = " ON CONFLICT DO NOTHING"
+        with self.raw.cursor() as cursor:
+            cursor.execute(f"CREATE TEMP TABLE IF NOT EXISTS _bulk_{table} AS SELECT {columns} FROM {table} WITH NO DATA")
+            cursor.execute(f"TRUNCATE _bulk_{table}")
+            with cursor.copy(f"COPY _bulk_{table} ({columns}) FROM STDIN") as copy:
+                for row in rows:
+                    copy.write_row(row)
+            cursor.execute(f"INSERT INTO {table} ({columns}) SELECT {columns} FROM _bulk_{table}{tail}")
+            cursor.execute(f"TRUNCATE _bulk_{table}")
 
     def copy_rows(self, table: str, columns, rows) -> None:
         """``COPY table (columns) FROM STDIN`` (binary) with ``rows``: the bulk path of large imports."""

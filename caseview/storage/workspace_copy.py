@@ -61,7 +61,9 @@ def _parents(connection, table: str) -> set[str]:
             "JOIN information_schema.constraint_column_usage ccu ON ccu.constraint_name = tc.constraint_name "
             "AND ccu.table_schema = tc.table_schema WHERE tc.constraint_type = 'FOREIGN KEY' "
             "AND tc.table_schema = current_schema() AND tc.table_name = ?", (table,)).fetchall()
-        return {r[0] for r in rows}
+        from .pg_schema import statement_checked_parents
+
+        return {r[0] for r in rows} | statement_checked_parents(table)
     return {row[2] for row in connection.execute(f'PRAGMA foreign_key_list("{table}")')}
 
 

@@ -264,3 +264,25 @@ def test_postgres_writers_wait_for_each_other_then_report_busy(pg_url, model_tex
     finally:
         first.close()
         second.close()
+
+
+def test_postgres_contacts_keep_referential_integrity(pg_url, model_text, tmp_path):
+    """The contacts' references (checked once per statement on PostgreSQL) refuse what a foreign key refuses."""
+    from caseview.errors import WorkspaceError
+    from caseview.storage import Workspace
+    from caseview.timeline_io import import_timelines
+
+    with Workspace.create(pg_url, model_text, "tester") as ws:
+        import_timelines(ws, write_csv(tmp_path / "rows.csv", ROWS), "tester")
+        con = ws.connection
+        obs, cov, coordinator = con.execute("SELECT observations, covariates, coordinator_id FROM contacts "
+                                            "WHERE coordinator_id IS NOT NULL LIMIT 1").fetchone()
+        bad = [("INSERT INTO contacts (case_id, day, observations, covariates) VALUES (?, ?, ?, ?)", (999, 1, obs, cov)),
+               ("UPDATE contacts SET coordinator_id = 999", ()),
+               ("DELETE FROM cases WHERE case_code = 'HS-0001'", ()),
+               ("DELETE FROM coordinators WHERE id = ?", (coordinator,))]
+        for sql, params in bad:
+            with pytest.raises(WorkspaceError, match="does not exist|still used by"):
+                with ws.transaction():
+                    con.execute(sql, params)
+        assert ws.audit_verify().ok  # nothing of it stayed
