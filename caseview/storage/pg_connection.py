@@ -217,8 +217,8 @@ class PgConnection:
     def audit_actor(self, given: str) -> str:
         """The actor an audit entry records on this connection (see :func:`caseview.storage.audit.append`).
 
-        The hook for authenticated attribution: the team work takes it from the server's
-        ``session_user`` here; until then the given name is recorded, as on SQLite.
+        Not what is stored: on PostgreSQL the server's ``caseview_audit_append`` records ``session_user``
+        whatever the client gives (:mod:`caseview.storage.postgres_roles`).
         """
         return given
 

@@ -101,9 +101,16 @@ def install(connection) -> dict:
         :func:`group_roles` of this database.
     """
     cur = getattr(connection, "raw", connection).cursor()  # a PgConnection or a psycopg connection
-    cur.execute("SELECT current_database(), current_user")
-    database, owner = cur.fetchone()
+    cur.execute("SELECT current_database(), current_user, rolcreaterole OR rolsuper FROM pg_roles"
+                " WHERE rolname = current_user")
+    database, owner, may_create_roles = cur.fetchone()
     roles = group_roles(database)
+    if not may_create_roles:
+        from ..errors import WorkspaceError
+
+        raise WorkspaceError(f"{database}: the login {owner} cannot create roles, and a team workspace needs its own "
+                             f"group roles; ask the database administrator for ALTER ROLE {owner} CREATEROLE "
+                             "(nothing was changed)")
     for name in roles.values():
         if not _role_exists(cur, name):
             cur.execute(_sql("CREATE ROLE {r} NOLOGIN", r=name))

@@ -9,6 +9,7 @@ from __future__ import annotations
 
 import datetime as dt
 import json
+import os
 import subprocess
 import sys
 
@@ -242,3 +243,18 @@ def test_analysts_change_rules_and_publish_models_supervisors_and_auditors_do_no
     with team.open(team.login("aud")) as ws:
         with pytest.raises(WorkspaceError, match="permission denied"):
             workspace_rules(ws)
+
+
+def test_init_by_a_login_that_cannot_create_roles_says_what_to_ask_for(postgres_cluster, tmp_path):
+    name = f"plain_{tmp_path.name[-12:]}".lower()
+    postgres_cluster.create_role(name, PASSWORD)
+    postgres_cluster.create_database(name, owner=name)
+    from team_workspace import DEMO_MODEL
+
+    done = subprocess.run([sys.executable, "-m", "caseview", "init", postgres_cluster.url(name, name), "--model",
+                           str(DEMO_MODEL)], capture_output=True, text=True, timeout=120,
+                          env={**os.environ, "PGPASSWORD": PASSWORD})
+    assert done.returncode != 0 and done.stderr.count("\n") == 1
+    assert f"ask the database administrator for ALTER ROLE {name} CREATEROLE (nothing was changed)" in done.stderr
+    with psycopg.connect(dbname=name, host=str(postgres_cluster.socket_dir), user=name, password=PASSWORD) as con:
+        assert con.execute("SELECT count(*) FROM pg_tables WHERE schemaname = 'public'").fetchone()[0] == 0
