@@ -142,6 +142,12 @@ class WorkspaceSource:
             notes.append("Follow-up flags are not available yet; ordered by chance of reaching follow-up.")
             return LoadedCaseload(scores, None, notes)
 
+    def open_workspace(self):
+        """A new connection to the same workspace for a worker thread (with the prompted password, if any)."""
+        from caseview.storage import Workspace
+
+        return Workspace.open(self.path, password=self._password)
+
     def close(self) -> None:
         try:
             self._workspace.close()
