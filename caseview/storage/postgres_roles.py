@@ -14,7 +14,8 @@ change (PostgreSQL documentation, "Database Roles", "Privileges", "Row Security 
   login included) holds UPDATE, DELETE, TRUNCATE or even INSERT on it; triggers refuse UPDATE, DELETE
   and TRUNCATE besides. Entries are appended only by the SECURITY DEFINER function
   ``caseview_audit_append``, which serialises appends (a table lock held to commit), takes the actor
-  from ``session_user`` (the authenticated login, not a client-supplied string), chains and hashes
+  from ``session_user`` (the authenticated login, not a client-supplied string) and the time from the
+  server's clock, chains and hashes
   the entry exactly as :func:`caseview.storage.audit.entry_hash` does, and sends a NOTIFY on
   :data:`NOTIFY_CHANNEL` in the same transaction (delivered only if it commits);
 * columns that name who did something (``reviews.actor``, ``contact_provenance.recorded_by``,
@@ -205,7 +206,8 @@ BEGIN
   LOCK TABLE public.audit_log IN EXCLUSIVE MODE;  -- one writer at a time until commit: an unbroken chain
   SELECT a.id, a.entry_hash INTO v_id, v_prev FROM public.audit_log a ORDER BY a.id DESC LIMIT 1;
   IF NOT FOUND THEN v_id := 1; v_prev := repeat('0', 64); ELSE v_id := v_id + 1; END IF;
-  v_at := COALESCE(p_at_utc, to_char(clock_timestamp() AT TIME ZONE 'UTC', 'YYYY-MM-DD"T"HH24:MI:SS.US"Z"'));
+  -- the server's clock, not the client's (p_at_utc is ignored: no entry can be back-dated)
+  v_at := to_char(clock_timestamp() AT TIME ZONE 'UTC', 'YYYY-MM-DD"T"HH24:MI:SS.US"Z"');
   v_hash := encode(sha256(convert_to('[' || v_id::text || ',' || to_json(v_at)::text || ',' || to_json(v_actor)::text
             || ',' || to_json(p_action)::text || ',' || to_json(p_target)::text || ',' || to_json(p_details_json)::text
             || ',' || to_json(v_prev)::text || ']', 'UTF8')), 'hex');

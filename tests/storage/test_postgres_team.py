@@ -107,6 +107,10 @@ def test_every_entry_and_who_column_names_the_login_the_server_authenticated(tea
         assert entry.actor == alice
         assert ws.connection.execute("SELECT recorded_by FROM contact_provenance p JOIN cases c ON c.id = p.case_id "
                                      "WHERE c.case_code = ?", (case,)).fetchone()[0] == alice
+        back_dated = ws.audit_append("not-sam", "note.test", case, {}, at_utc="2001-01-01T00:00:00.000000Z")
+        stamped = dt.datetime.strptime(back_dated.at_utc, "%Y-%m-%dT%H:%M:%S.%fZ").replace(tzinfo=dt.timezone.utc)
+        assert back_dated.actor == team.login("sam")  # the server's identity and clock, not the client's
+        assert abs((stamped - dt.datetime.now(dt.timezone.utc)).total_seconds()) < 300
         row = record_review(ws, case, "acknowledged", "seen", "not-sam", None, AS_OF)
         assert row.actor == team.login("sam")
         assert ws.audit_entries(case_id=case)[-1].actor == team.login("sam")
