@@ -158,6 +158,8 @@ def _grant_table(cur, table: str, keyed: bool, roles: dict) -> None:
         writes = _WRITES[role].get(table) or ("" if known else "INSERT, UPDATE, DELETE")
         if writes:
             cur.execute(_sql(f"GRANT {writes} ON {{t}} TO {{r}}", t=table, r=roles[role]))
+    if table == "row_digests":
+        _locator_policies(cur, roles)
     if table != "cases" and not keyed:
         return
     # Row-level security: the owner (table owner) is not subject to it; the coordinator's policy
@@ -175,6 +177,27 @@ def _grant_table(cur, table: str, keyed: bool, roles: dict) -> None:
         cur.execute(_sql("DROP POLICY IF EXISTS {p} ON {t}", p=policy, t=table))
         cur.execute(_sql(f"CREATE POLICY {{p}} ON {{t}} TO {{r}} USING ({using}) WITH CHECK ({using})",
                          p=policy, t=table, r=role))
+
+
+#: The row-digest locator rows a coordinator's writes touch: their cases' rows (read through the
+#: coordinator's own policies) and the coordinator codes (every contact change re-reads them).
+_COORDINATOR_LOCATOR = (
+    "set_name = 'coordinators'"
+    " OR (set_name = 'cases' AND key IN (SELECT case_code FROM public.cases))"
+    " OR (set_name = 'case_closures' AND key IN (SELECT id::text FROM public.cases))"
+    " OR (set_name = 'contact_provenance' AND split_part(key, ':', 1) IN (SELECT id::text FROM public.cases))"
+    " OR (set_name = 'contact_versions' AND key IN (SELECT id::text FROM public.contact_versions))")
+
+
+def _locator_policies(cur, roles: dict) -> None:
+    """Row-level security on the row-digest locator: a coordinator cannot spoil other cases' verification."""
+    cur.execute("ALTER TABLE row_digests ENABLE ROW LEVEL SECURITY")
+    for policy, role, using in (("caseview_coordinator_own_digests", roles["coordinator"], _COORDINATOR_LOCATOR),
+                                ("caseview_supervisor_all_digests", roles["supervisor"], "true"),
+                                ("caseview_analyst_all_digests", roles["analyst"], "true")):
+        cur.execute(_sql("DROP POLICY IF EXISTS {p} ON row_digests", p=policy))
+        cur.execute(_sql(f"CREATE POLICY {{p}} ON row_digests TO {{r}} USING ({using}) WITH CHECK ({using})",
+                         p=policy, r=role))
 
 
 def _who_triggers(cur, tables: dict) -> None:

@@ -55,6 +55,13 @@ def test_nobody_updates_or_deletes_audit_entries_with_plain_sql(team):
                               "INSERT INTO audit_log VALUES (999, '', 'forged', '', '', '{}', '', '')"):
                 with pytest.raises(psycopg.errors.InsufficientPrivilege):
                     con.execute(statement)
+    with team.raw(team.login("alice")) as con:  # nor spoil the verification of other coordinators' cases
+        others = team.cases_by_coordinator["C2"]
+        spoiled = con.execute("UPDATE row_digests SET digest = repeat('0', 64) WHERE set_name = 'cases' AND key = ANY(%s)",
+                              (others,))
+        assert spoiled.rowcount == 0
+        assert con.execute("SELECT count(*) FROM row_digests WHERE set_name = 'cases'").fetchone()[0] == \
+            len(team.cases_by_coordinator["C1"])
     with team.raw(team.login("alice")) as con:  # a coordinator does not even read the trail (other cases' details)
         with pytest.raises(psycopg.errors.InsufficientPrivilege):
             con.execute("SELECT count(*) FROM audit_log")
