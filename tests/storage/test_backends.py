@@ -308,3 +308,38 @@ def test_demo_and_window_source_on_each_backend(workspace_target, capsys):
         assert np.isfinite(loaded.scores.p_follow_up_now).all()
     finally:
         source.close()
+
+
+def test_postgres_concurrent_writers_lose_nothing(pg_url, model_text):
+    """Four sessions recording at once (threads, each its own connection): every contact stored once,
+    the audit chain intact, ids as SQLite would give them (no gaps)."""
+    import threading
+
+    from caseview.operations.casework import record_contact
+    from caseview.storage import Workspace
+
+    Workspace.create(pg_url, model_text, "tester").close()
+    errors = []
+
+    def writer(who: int) -> None:
+        try:
+            with Workspace.open(pg_url, busy_timeout_ms=60_000) as ws:
+                for k in range(5):
+                    record_contact(ws, f"HS-{who}{k:03d}", f"2025-03-{10 + k:02d}", f"writer{who}",
+                                   values={"mobility": "slow"}, coordinator=f"C{who}",
+                                   covariates={"lives_alone": 1, "balance_programme": 0})
+        except Exception as exc:  # reported below; a thread must not die silently
+            errors.append(repr(exc))
+
+    threads = [threading.Thread(target=writer, args=(who,)) for who in range(1, 5)]
+    for t in threads:
+        t.start()
+    for t in threads:
+        t.join()
+    assert errors == []
+    with Workspace.open(pg_url) as ws:
+        assert ws.case_count() == 20 and ws.contact_count() == 20
+        entries = ws.audit_entries()
+        assert [e.id for e in entries] == list(range(1, 23))
+        assert sorted(ws.connection.execute("SELECT id FROM cases").fetchall()) == [(i,) for i in range(1, 21)]
+        assert ws.audit_verify().ok
