@@ -283,7 +283,7 @@ def test_postgres_contacts_keep_referential_integrity(pg_url, model_text, tmp_pa
                ("DELETE FROM cases WHERE case_code = 'HS-0001'", ()),
                ("DELETE FROM coordinators WHERE id = ?", (coordinator,))]
         for sql, params in bad:
-            with pytest.raises(WorkspaceError, match="does not exist|still used by"):
+            with pytest.raises(WorkspaceError, match="does not exist|still used by|violates foreign key"):
                 with ws.transaction():
                     con.execute(sql, params)
         assert ws.audit_verify().ok  # nothing of it stayed
