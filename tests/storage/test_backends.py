@@ -72,9 +72,17 @@ def test_scores_identical_on_both_backends(tmp_path, pg_url, capsys):
     assert sqlite_scores.case_ids.size > 300
     np.testing.assert_allclose(pg_scores.p_follow_up_now, sqlite_scores.p_follow_up_now, rtol=0, atol=1e-12)
     np.testing.assert_allclose(pg_scores.p_reach_follow_up, sqlite_scores.p_reach_follow_up, rtol=0, atol=1e-12)
-    # and the CSV every user sees is the same text
-    outputs = [cli(capsys, "score", t, "--as-of", "2026-11-30", "--out", "-")[1] for t in results]
-    assert outputs[0] == outputs[1]
+    # and what every user sees is the same text: scores, flags, one case's history, the exported timelines
+    for command in (("score", "--as-of", "2026-11-30"), ("flags", "--as-of", "2026-11-30"),
+                    ("history", "HS-0007", "--as-of", "2026-11-30"), ("export",)):
+        outputs = []
+        for k, target in enumerate(results):
+            out_path = tmp_path / f"{command[0]}{k}.csv"
+            code, out, err = cli(capsys, command[0], target, *command[1:], "--out", out_path)
+            assert code == 0, err
+            outputs.append(out_path.read_text(encoding="utf-8"))
+        assert outputs[0] == outputs[1], command[0]
+        assert outputs[0].count("\n") > 10
 
 
 def test_fast_contact_read_equals_row_by_row_on_postgres(pg_url, capsys):
