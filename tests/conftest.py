@@ -55,14 +55,9 @@ def postgres_cluster():
     """A throwaway PostgreSQL cluster for the whole session (initdb + pg_ctl on a unix socket in a
     temporary folder; stopped and removed at the end). Skipped when the machine has no server
     programs, unless CASEVIEW_REQUIRE_POSTGRES=1 (CI), where that FAILS the PostgreSQL tests."""
-    from postgres_cluster import PostgresCluster, PostgresUnavailable, require_postgres
+    from postgres_cluster import start_for_tests
 
-    try:
-        cluster = PostgresCluster().start()
-    except PostgresUnavailable as exc:
-        if require_postgres():
-            pytest.fail(f"CASEVIEW_REQUIRE_POSTGRES=1 but no PostgreSQL server could be started: {exc}")
-        pytest.skip(f"no PostgreSQL server: {exc}")
+    cluster = start_for_tests()
     yield cluster
     cluster.stop()
 

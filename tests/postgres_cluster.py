@@ -159,3 +159,16 @@ class PostgresCluster:
 def require_postgres() -> bool:
     """True when CASEVIEW_REQUIRE_POSTGRES=1: a missing server fails the PostgreSQL tests instead of skipping."""
     return os.environ.get("CASEVIEW_REQUIRE_POSTGRES", "") == "1"
+
+
+def start_for_tests(cluster_factory=None):
+    """A started cluster for the test session, or ``pytest.skip`` when this machine has no PostgreSQL
+    server programs; with CASEVIEW_REQUIRE_POSTGRES=1 (CI) that is ``pytest.fail`` instead."""
+    import pytest
+
+    try:
+        return (cluster_factory or PostgresCluster)().start()
+    except PostgresUnavailable as exc:
+        if require_postgres():
+            pytest.fail(f"CASEVIEW_REQUIRE_POSTGRES=1 but no PostgreSQL server could be started: {exc}")
+        pytest.skip(f"no PostgreSQL server: {exc}")

@@ -170,3 +170,49 @@ def busy_message(location) -> str:
 
 def raise_busy(location) -> None:
     raise WorkspaceBusy(busy_message(location))
+
+
+def create_workspace(cls, location: DatabaseURL, model_json: str, actor: str, busy_timeout_ms, password):
+    """``Workspace.create`` for PostgreSQL: the schema in an empty database, the connecting role as owner."""
+    from ..modelfile import parse_model
+    from . import audit as _audit
+
+    parse_model(model_json, source="model")
+    ws = cls(location, busy_timeout_ms, password=password)
+    try:
+        con = ws.connection
+        refuse_unless_empty(con, location)
+        with ws.transaction():
+            create_schema(ws)
+            _audit.append(con, actor, "workspace.create", location.dbname,
+                          {"schema_version": _schema.schema_version(), "backend": "postgresql", "owner": owner(con)})
+            ws.add_model_version(model_json, "initial model", actor, make_current=True)
+    except BaseException:
+        ws.close()
+        raise
+    return ws
+
+
+def open_workspace(cls, location: DatabaseURL, busy_timeout_ms, read_only, password):
+    """``Workspace.open`` for PostgreSQL: identity, version (refusing a newer one), migrations in one transaction."""
+    ws = cls(location, busy_timeout_ms, read_only=bool(read_only), password=password)
+    try:
+        version = stored_version(ws.connection, location)
+        current = _schema.schema_version()
+        if version > current:
+            raise WorkspaceError(f"{location}: workspace was written by a newer caseview (schema version "
+                                 f"{version}; this caseview understands up to {current}); update caseview")
+        if version < current and read_only:
+            raise WorkspaceError(f"{location}: this workspace must be upgraded (schema version {version} to "
+                                 f"{current}) and it is opened read-only; open it once with write access")
+        if version < current:
+            ws._migrate(version)
+    except sqlite3.DatabaseError as exc:
+        ws.close()
+        if isinstance(exc, sqlite3.OperationalError) and "locked" in str(exc).lower():
+            raise WorkspaceBusy(busy_message(location)) from None
+        raise WorkspaceError(f"{location}: cannot use workspace ({exc})") from None
+    except BaseException:
+        ws.close()
+        raise
+    return ws

@@ -144,7 +144,9 @@ class Workspace:
 
         path = workspace_location(path)
         if isinstance(path, DatabaseURL):
-            return cls._create_in_database(path, model_json, actor, busy_timeout_ms, password)
+            from .pg_backend import create_workspace
+
+            return create_workspace(cls, path, model_json, actor, busy_timeout_ms, password)
         if path.exists() or path.is_symlink():
             raise WorkspaceError(f"{path} already exists; choose a new workspace path (nothing was changed)")
         if not path.parent.exists():
@@ -175,56 +177,6 @@ class Workspace:
         return ws
 
     @classmethod
-    def _create_in_database(cls, location: DatabaseURL, model_json: str, actor: str, busy_timeout_ms,
-                            password) -> "Workspace":
-        """``create`` for PostgreSQL: the schema in an empty database, the connecting role as owner."""
-        from ..modelfile import parse_model
-        from . import pg_backend
-
-        parse_model(model_json, source="model")
-        ws = cls(location, busy_timeout_ms, password=password)
-        try:
-            con = ws.connection
-            pg_backend.refuse_unless_empty(con, location)
-            with ws.transaction():
-                pg_backend.create_schema(ws)
-                owner = pg_backend.owner(con)
-                _audit.append(con, actor, "workspace.create", location.dbname,
-                              {"schema_version": _schema.schema_version(), "backend": "postgresql", "owner": owner})
-                ws.add_model_version(model_json, "initial model", actor, make_current=True)
-        except BaseException:
-            ws.close()
-            raise
-        return ws
-
-    @classmethod
-    def _open_database(cls, location: DatabaseURL, busy_timeout_ms, read_only, password) -> "Workspace":
-        """``open`` for PostgreSQL: identity, version (refusing a newer one), migrations in one transaction."""
-        from . import pg_backend
-
-        ws = cls(location, busy_timeout_ms, read_only=bool(read_only), password=password)
-        try:
-            version = pg_backend.stored_version(ws.connection, location)
-            current = _schema.schema_version()
-            if version > current:
-                raise WorkspaceError(f"{location}: workspace was written by a newer caseview (schema version "
-                                     f"{version}; this caseview understands up to {current}); update caseview")
-            if version < current and read_only:
-                raise WorkspaceError(f"{location}: this workspace must be upgraded (schema version {version} to "
-                                     f"{current}) and it is opened read-only; open it once with write access")
-            if version < current:
-                ws._migrate(version)
-        except sqlite3.DatabaseError as exc:
-            ws.close()
-            if isinstance(exc, sqlite3.OperationalError) and _is_busy(exc):
-                raise WorkspaceBusy(_busy_message(location)) from None
-            raise WorkspaceError(f"{location}: cannot use workspace ({exc})") from None
-        except BaseException:
-            ws.close()
-            raise
-        return ws
-
-    @classmethod
     def open(cls, path, busy_timeout_ms: int | None = None, read_only: bool | None = None,
              password: str | None = None) -> "Workspace":
         """Open an existing workspace, migrating it forward (after a backup) if it is older.
@@ -239,7 +191,9 @@ class Workspace:
         """
         path = workspace_location(path)
         if isinstance(path, DatabaseURL):
-            return cls._open_database(path, busy_timeout_ms, read_only, password)
+            from .pg_backend import open_workspace
+
+            return open_workspace(cls, path, busy_timeout_ms, read_only, password)
         if not path.exists():
             raise WorkspaceError(f"{path}: no such workspace (create one with 'caseview init')")
         if not path.is_file():

@@ -13,11 +13,14 @@ from __future__ import annotations
 
 import os
 from dataclasses import dataclass
+from itertools import islice
 
 from ..errors import WorkspaceError
 from . import audit as _audit
 from .location import DatabaseURL, workspace_location
 
+#: Rows read and written per step.
+ROWS_PER_STEP = 100_000
 #: Tables not copied as rows: the destination makes its own identity/version record.
 _NOT_COPIED = frozenset({"caseview_workspace"})
 
@@ -100,21 +103,23 @@ def _copy_rows(source, destination, tables) -> dict:
         missing = [name for name, _ in columns if name not in source_names]
         if missing:
             raise WorkspaceError(f"cannot copy table {table}: the source has no column {missing[0]!r}")
-        rows = source.execute(_select(source, table, columns)).fetchall()
-        counts[table] = len(rows)
-        if not rows:
-            continue
         names = [name for name, _ in columns]
         quoted = [f'"{n}"' for n in names]
+        cursor = iter(source.execute(_select(source, table, columns)))
+        counts[table] = 0
         if table == "audit_log" and getattr(destination, "kind", "sqlite") == "postgresql":
             from .postgres_roles import restore_audit_rows
 
-            restore_audit_rows(destination, names, rows)  # the trail's table belongs to its keeper role
-        elif hasattr(destination, "copy_rows"):
-            destination.copy_rows(f'"{table}"', quoted, rows)
-        else:
-            destination.executemany(f'INSERT INTO "{table}" ({", ".join(quoted)}) VALUES '
-                                    f'({", ".join("?" * len(names))})', rows)
+            rows = list(cursor)  # in one call: the server restores a trail only into an empty one
+            counts[table] = restore_audit_rows(destination, names, rows) if rows else 0
+            continue
+        while rows := list(islice(cursor, ROWS_PER_STEP)):  # a million contacts never sit in memory at once
+            counts[table] += len(rows)
+            if hasattr(destination, "copy_rows"):
+                destination.copy_rows(f'"{table}"', quoted, rows)
+            else:
+                destination.executemany(f'INSERT INTO "{table}" ({", ".join(quoted)}) VALUES '
+                                        f'({", ".join("?" * len(names))})', rows)
     return counts
 
 
