@@ -128,7 +128,7 @@ def install(connection) -> dict:
     for table, keyed in sorted(tables.items()):
         if table in _OWNER_ONLY or table == _AUDIT:
             continue
-        _grant_table(cur, table, keyed, roles)
+        _grant_table(cur, table, keyed, roles, tables)
     _who_triggers(cur, tables)
     _audit_keeper(cur, roles, owner)
     return roles
@@ -144,7 +144,7 @@ def _grant_connect(cur, database: str, roles: dict) -> None:
         cur.execute(_sql("GRANT USAGE, SELECT ON ALL SEQUENCES IN SCHEMA public TO {r}", r=name))
 
 
-def _grant_table(cur, table: str, keyed: bool, roles: dict) -> None:
+def _grant_table(cur, table: str, keyed: bool, roles: dict, tables: dict) -> None:
     coordinator, supervisor, analyst = roles["coordinator"], roles["supervisor"], roles["analyst"]
     for name in (coordinator, supervisor, analyst, roles["auditor"]):
         cur.execute(_sql("REVOKE ALL ON {t} FROM {r}", t=table, r=name))
@@ -159,7 +159,7 @@ def _grant_table(cur, table: str, keyed: bool, roles: dict) -> None:
         if writes:
             cur.execute(_sql(f"GRANT {writes} ON {{t}} TO {{r}}", t=table, r=roles[role]))
     if table == "row_digests":
-        _locator_policies(cur, roles)
+        _locator_policies(cur, roles, tables)
     if table != "cases" and not keyed:
         return
     # Row-level security: the owner (table owner) is not subject to it; the coordinator's policy
@@ -185,14 +185,15 @@ _COORDINATOR_LOCATOR = (
     "set_name = 'coordinators'"
     " OR (set_name = 'cases' AND key IN (SELECT case_code FROM public.cases))"
     " OR (set_name = 'case_closures' AND key IN (SELECT id::text FROM public.cases))"
-    " OR (set_name = 'contact_provenance' AND split_part(key, ':', 1) IN (SELECT id::text FROM public.cases))"
-    " OR (set_name = 'contact_versions' AND key IN (SELECT id::text FROM public.contact_versions))")
+    " OR (set_name = 'contact_provenance' AND split_part(key, ':', 1) IN (SELECT id::text FROM public.cases))")
+_COORDINATOR_VERSIONS = " OR (set_name = 'contact_versions' AND key IN (SELECT id::text FROM public.contact_versions))"
 
 
-def _locator_policies(cur, roles: dict) -> None:
+def _locator_policies(cur, roles: dict, tables: dict) -> None:
     """Row-level security on the row-digest locator: a coordinator cannot spoil other cases' verification."""
     cur.execute("ALTER TABLE row_digests ENABLE ROW LEVEL SECURITY")
-    for policy, role, using in (("caseview_coordinator_own_digests", roles["coordinator"], _COORDINATOR_LOCATOR),
+    mine = _COORDINATOR_LOCATOR + (_COORDINATOR_VERSIONS if "contact_versions" in tables else "")
+    for policy, role, using in (("caseview_coordinator_own_digests", roles["coordinator"], mine),
                                 ("caseview_supervisor_all_digests", roles["supervisor"], "true"),
                                 ("caseview_analyst_all_digests", roles["analyst"], "true")):
         cur.execute(_sql("DROP POLICY IF EXISTS {p} ON row_digests", p=policy))
