@@ -173,7 +173,7 @@ class MainWindow(QMainWindow):
         password, problem = None, ""
         for _ in range(3):
             try:
-                return WorkspaceSource(path, password=password) if password is not None else WorkspaceSource(path)
+                return WorkspaceSource(path, password=password)  # None: libpq's own sources first
             except PasswordRequired as exc:
                 if exc.refused and password is not None:
                     problem = "The server refused that password; try again."
