@@ -10,6 +10,7 @@ removed when the case has no current contact left or is closed).
 
 from __future__ import annotations
 
+import contextlib
 import dataclasses
 
 import numpy as np
@@ -32,6 +33,27 @@ def _per_case_fields(obj, skip, n: int) -> list:
         if f.name not in skip and isinstance(value, np.ndarray) and value.ndim >= 1 and value.shape[0] == n:
             names.append(f.name)
     return names
+
+
+_BLAS = []
+
+
+def few_blas_threads():
+    """Context: BLAS/LAPACK on one thread while one case is rescored.
+
+    One case means 5x5 matrices; with OpenBLAS's threads a ``scipy.linalg.expm`` of one such
+    matrix took 15 ms instead of 0.03 ms on the shared 2-core machine (threads woken for
+    nothing and waiting for a busy core). Without ``threadpoolctl`` nothing changes.
+    """
+    if not _BLAS:
+        try:
+            from threadpoolctl import ThreadpoolController
+
+            _BLAS.append(ThreadpoolController())
+        except Exception:  # noqa: BLE001 - optional: no limit rather than no rescoring
+            _BLAS.append(None)
+    controller = _BLAS[0]
+    return controller.limit(limits=1, user_api="blas") if controller is not None else contextlib.nullcontext()
 
 
 class _Splice:
@@ -144,6 +166,11 @@ def rescore_one(ws, loaded, case_id: str, include_closed: bool = False):
     ``loaded`` is consumed: to stay fast at 100,000 cases the new caseload reuses its arrays and
     buffers, writing the case's rows in place, so only the returned object may be used afterwards.
     """
+    with few_blas_threads():
+        return _rescore_one(ws, loaded, case_id, include_closed)
+
+
+def _rescore_one(ws, loaded, case_id: str, include_closed: bool):
     from caseview.scoring import score_loaded
     from caseview.storage.caseload import Caseload
 
