@@ -140,6 +140,15 @@ class Outlook:
     def n_open(self) -> int:
         return int(self.open_cases.rows.size)
 
+    def bands_note(self) -> str:
+        """One short phrase for the CSV's ``bands`` column: what the 95% band includes."""
+        if self.uncertainty != "parameters":
+            return "given the model; parameter uncertainty not included"
+        who = ("every case" if self.now_rescored >= self.n_open
+               else f"a stratified sample of {self.now_rescored} of {self.n_open} cases")
+        return (f"mixture over {self.n_draws} parameter draws (seed {self.seed}); stage probabilities now "
+                f"recomputed under each draw for {who}")
+
     def describe_uncertainty(self) -> str:
         base = ("Bands: 2.5% and 97.5% points of each count; given the model, a count is a sum of independent "
                 "yes/no outcomes (Poisson-binomial, exact below variance 25, refined normal approximation "

@@ -124,7 +124,7 @@ def _with_version(scores, version_id):
 
 def outlook_table(outlook) -> tuple:
     """``(header, columns)`` of the outlook CSV: one row per month end and stage, then the combined row."""
-    header = ["date", "stage", "expected", "lower_95", "upper_95", "entries_expected"]
+    header = ["date", "stage", "expected", "lower_95", "upper_95", "entries_expected", "bands"]
     dates, stages, expected, lower, upper, entries = [], [], [], [], [], []
     for t, day in enumerate(outlook.dates):
         for c, name in enumerate(outlook.rows):
@@ -134,7 +134,7 @@ def outlook_table(outlook) -> tuple:
             lower.append(f"{outlook.lower_95[t, c]:.0f}")
             upper.append(f"{outlook.upper_95[t, c]:.0f}")
             entries.append(f"{outlook.entries_expected[t, c]:.2f}")
-    return header, [dates, stages, expected, lower, upper, entries]
+    return header, [dates, stages, expected, lower, upper, entries, [outlook.bands_note()] * len(dates)]
 
 
 def outlook_notes(outlook, withhold_dates: bool = False) -> list:
