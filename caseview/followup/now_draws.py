@@ -81,7 +81,8 @@ class NowUnderDraws:
     Parameters
     ----------
     timelines : hmm.Timelines
-        The open cases' contacts up to the as-of date, in the order of ``p_now``.
+        Contacts up to the as-of date: of the open cases in the order of ``p_now``, or of more
+        cases with ``rows`` saying which (only the cases rescored are copied out).
     p_now : ndarray, shape (n_open, S)
         Fitted stage probabilities now.
     group : ndarray of int, shape (n_open,)
@@ -91,14 +92,19 @@ class NowUnderDraws:
         Draws the sample (when the caseload is larger than ``sample_size``).
     sample_size : int
         :data:`NOW_SAMPLE_CASES` by default; 0 rescores every case.
+    rows : ndarray of int, shape (n_open,), optional
+        Cases of ``timelines`` in the order of ``p_now`` (None: ``timelines`` holds exactly them).
     """
 
     def __init__(self, timelines, p_now: np.ndarray, group: np.ndarray, n_groups: int, as_of_day: int,
-                 rng: np.random.Generator, sample_size: int = NOW_SAMPLE_CASES):
+                 rng: np.random.Generator, sample_size: int = NOW_SAMPLE_CASES, rows=None):
         self.p_now, self.group, self.n_groups, self.as_of_day = p_now, group, n_groups, as_of_day
         self.sample = stratified_sample(group, n_groups, sample_size, rng)
         self.everyone = self.sample.size == group.shape[0]
-        self.timelines = timelines if self.everyone else timelines.subset(self.sample)
+        if rows is None:
+            self.timelines = timelines if self.everyone else timelines.subset(self.sample)
+        else:
+            self.timelines = timelines.subset(np.asarray(rows)[self.sample])
         self.fitted = p_now[self.sample]
         self.sample_group = group[self.sample]
         self.sample_counts = np.bincount(self.sample_group, minlength=n_groups)

@@ -283,9 +283,9 @@ def compute_outlook(scores, as_of: dt.date, months: int, referrals: ReferralAssu
         callback(0.1)
     n_cells = moments.mean.shape
     if drawn_models:
-        now = NowUnderDraws(scores.timelines.subset(rows), caseload.p_now, caseload.group, caseload.rows.shape[0],
+        now = NowUnderDraws(scores.timelines, caseload.p_now, caseload.group, caseload.rows.shape[0],
                             scores.as_of_day, now_rng if now_rng is not None else np.random.default_rng(seed),
-                            NOW_SAMPLE_CASES if now_sample is None else now_sample)
+                            NOW_SAMPLE_CASES if now_sample is None else now_sample, rows=rows)
         at_fit = drawn.at_fit if drawn.at_fit is not None else np.zeros(len(drawn_models), dtype=bool)
         per_draw = []
         for d, drawn_model in enumerate(drawn_models):
