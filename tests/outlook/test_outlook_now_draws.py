@@ -5,6 +5,7 @@ from __future__ import annotations
 from types import SimpleNamespace
 
 import numpy as np
+import pytest
 
 from caseview.followup import now_draws
 from caseview.followup.now_draws import NowUnderDraws, shifted_sums, stratified_sample
@@ -139,3 +140,22 @@ def test_a_case_that_cannot_be_scored_under_a_draw_keeps_its_fitted_probabilitie
     monkeypatch.setattr(hmm.forecasting, "stage_probabilities_now", overflowing)
     p = now.rescored(demo_model)
     assert np.array_equal(p[::3], scores.p_now[open_rows][::3]) and np.all(np.isfinite(p))
+
+
+@pytest.mark.parametrize("same_in_every_stage", [False, True])
+def test_unscheduled_contact_rates_are_drawn_too(demo_model, same_in_every_stage):
+    from dataclasses import replace
+
+    from hmm.model import UnscheduledContacts
+
+    rates = np.where(np.arange(demo_model.n_stages) < 4, 0.01, 0.0)
+    model = replace(demo_model, unscheduled_contacts=UnscheduledContacts(
+        rates, {"lives_alone": 0.3}, same_in_every_stage=same_in_every_stage))
+    drawn = draw_models(model, _version(model, 0.2), 30, np.random.default_rng(4))
+    contact = np.array([m.unscheduled_contacts.rates for m in drawn.models])
+    assert np.all(contact[:, rates == 0] == 0) and contact[:, 0].std() > 0
+    assert np.allclose(contact[:, 0], contact[:, 1]) == same_in_every_stage
+    effects = [m.unscheduled_contacts.effects["lives_alone"] for m in drawn.models]
+    assert np.std(effects) == pytest.approx(0.2, rel=0.4)
+    at_fit = draw_models(model, _version(model, 0.0), 2, np.random.default_rng(4)).models[0]
+    assert np.array_equal(at_fit.unscheduled_contacts.rates, rates)
