@@ -14,13 +14,13 @@ import numpy as np
 from PySide6.QtCore import Qt, Signal
 from PySide6.QtWidgets import (QAbstractItemView, QCheckBox, QComboBox, QGroupBox, QHBoxLayout, QHeaderView,
                                QInputDialog, QLabel, QLineEdit, QListWidget, QPushButton, QSplitter, QTableView,
-                               QTableWidget, QTableWidgetItem, QVBoxLayout, QWidget)
+                               QVBoxLayout, QWidget)
 
-from caseview.followup.queue import (QUEUE_STATUSES, case_in_queue, case_is_overdue, case_status,
-                                     counts_by_coordinator, overdue_mask, queue_rows)
+from caseview.followup.queue import QUEUE_STATUSES, case_in_queue, case_is_overdue, case_status, queue_rows
 from caseview.followup.wording import plural
 
 from .risk_queue_model import COLUMNS, RULES, RiskQueueModel
+from .supervisor_counts import SupervisorCounts
 
 ALL = "*"  # combo data meaning "no filter" (never None: see caseload_panel.ProbabilityDelegate)
 #: The queue's first rows get their reasons worked out first, as one step of the window's reasons job
@@ -113,19 +113,9 @@ class RiskQueue(QWidget):
 
         supervisor = QGroupBox("Supervisor view")
         sup = QVBoxLayout(supervisor)
-        self.by_coordinator = QTableWidget(0, 2 + len(QUEUE_STATUSES))
-        self.by_coordinator.setAccessibleName("Flags by coordinator and review status; select a row to list them")
-        self.by_coordinator.setHorizontalHeaderLabels(["Coordinator", *QUEUE_STATUSES, "overdue"])
-        self.by_coordinator.verticalHeader().hide()
-        self.by_coordinator.setEditTriggers(QAbstractItemView.NoEditTriggers)
-        self.by_coordinator.setSelectionBehavior(QAbstractItemView.SelectRows)
+        self.supervisor = SupervisorCounts()
+        self.by_coordinator, self.overdue = self.supervisor.table, self.supervisor.overdue
         self.by_coordinator.cellClicked.connect(self._coordinator_clicked)
-        self.by_coordinator.horizontalHeader().setSectionResizeMode(QHeaderView.ResizeToContents)
-        self.by_coordinator.horizontalHeader().setSectionResizeMode(0, QHeaderView.Stretch)
-        self.overdue = QLabel("")
-        self.overdue.setWordWrap(True)
-        self.overdue.setTextFormat(Qt.RichText)
-        self.overdue.setAccessibleName("Overdue flags (click to list them)")
         self.overdue.linkActivated.connect(lambda _: self.show_overdue())
         self.reopen_button = QPushButton("")
         self.reopen_button.setAccessibleName("Re-open dismissed flags whose risk rose")
@@ -239,7 +229,7 @@ class RiskQueue(QWidget):
             return
         self.loaded = loaded
         a = loaded.assessment
-        if not self._adjust_counts(before, self._state_of(a, row)):
+        if not self.supervisor.adjust(before, self._state_of(a, row)):
             self.set_caseload(loaded)
             return
         coordinator, status = self.coordinator.currentData(), self.status.currentData()
@@ -258,29 +248,6 @@ class RiskQueue(QWidget):
         return (bool(a.is_flagged[row]), str(a.scores.coordinators[row]), case_status(a, row),
                 case_is_overdue(a, row))
 
-    def _adjust_counts(self, before, after) -> bool:
-        """Move one case's count between the supervisor's cells; False if a coordinator row would
-        appear or disappear (then the panel is refilled)."""
-        counts = {name: list(values) for name, values in self._counts.items()}
-        for (flagged, coordinator, status, overdue), sign in ((before, -1), (after, 1)):
-            if not flagged:
-                continue
-            if coordinator not in counts or status not in QUEUE_STATUSES:
-                return False
-            counts[coordinator][QUEUE_STATUSES.index(status)] += sign
-            counts[coordinator][-1] += sign * int(overdue)
-        if any(sum(values[:-1]) <= 0 for values in counts.values()):
-            return False
-        for name, values in counts.items():
-            if values != self._counts[name]:
-                i = self._count_rows[name]
-                for j, value in enumerate(values):
-                    self.by_coordinator.item(i, j + 1).setText(f"{value:,}")
-        self._counts = counts
-        self._n_overdue += int(after[0] and after[3]) - int(before[0] and before[3])
-        self._show_overdue()
-        return True
-
     def reasons_arrived(self, case_rows) -> None:
         """Reasons for ``case_rows`` were just worked out (by the window's background job)."""
         if self.loaded is None or self.loaded.assessment is None or not self.rows.size:
@@ -291,27 +258,7 @@ class RiskQueue(QWidget):
             self._selection_changed()
 
     def _fill_supervisor(self) -> None:
-        a = self.loaded.assessment
-        counts = counts_by_coordinator(a)
-        self._counts = {c.coordinator: [c.by_status[st] for st in QUEUE_STATUSES] + [c.overdue] for c in counts}
-        self._count_rows = {c.coordinator: i for i, c in enumerate(counts)}
-        self.by_coordinator.setRowCount(len(counts))
-        for i, c in enumerate(counts):
-            item = QTableWidgetItem(c.coordinator or "-")
-            item.setData(Qt.UserRole, c.coordinator)
-            self.by_coordinator.setItem(i, 0, item)
-            for j, value in enumerate(self._counts[c.coordinator]):
-                cell = QTableWidgetItem(f"{value:,}")
-                cell.setTextAlignment(Qt.AlignRight | Qt.AlignVCenter)
-                self.by_coordinator.setItem(i, j + 1, cell)
-        self._n_overdue = int(np.count_nonzero(overdue_mask(a)))
-        self._show_overdue()
-
-    def _show_overdue(self) -> None:
-        as_of = self.loaded.scores.as_of.isoformat()
-        self.overdue.setText(f"<a href='overdue'><b>{plural(self._n_overdue, 'overdue flag')}</b></a>: the next "
-                             f"contact was due before {as_of} (or is due that day) and nobody has reviewed "
-                             "the flag yet. Click to list them.")
+        self.supervisor.fill(self.loaded.assessment)
 
     def show_overdue(self) -> None:
         """List the overdue, unreviewed flags (every coordinator)."""
