@@ -12,6 +12,7 @@ from __future__ import annotations
 
 import contextlib
 import dataclasses
+import weakref
 
 import numpy as np
 
@@ -110,6 +111,7 @@ class _Splice:
         if base is None:
             spare = max(SPARE_ROWS, m // 100)
             base = np.empty((m + 2 * spare,) + old.shape[1:], dtype=old.dtype)
+            _own(base)
             start = spare
             base[start:start + a] = old[:a]
             base[start + a + k:start + m] = old[b:n]
@@ -127,10 +129,25 @@ class _Splice:
         return np.concatenate([old_offsets[:r + 1], old_offsets[r:] + new_count])
 
 
+#: Buffers this module allocated, by id (only those are reused: another array's base may hold other data
+#: around it). Weak references: a buffer no caseload uses any more is freed and leaves the table.
+_OWN_BUFFERS = {}
+
+
+def _own(base) -> None:
+    key = id(base)
+    _OWN_BUFFERS[key] = weakref.ref(base, lambda _ref, key=key: _OWN_BUFFERS.pop(key, None))
+
+
+def _is_own(base) -> bool:
+    ref = _OWN_BUFFERS.get(id(base))
+    return ref is not None and ref() is base
+
+
 def _buffer_of(array):
-    """``(buffer, first row)`` when ``array`` is a run of whole rows of a C-contiguous buffer, else ``(None, 0)``."""
+    """``(buffer, first row)`` when ``array`` is a run of whole rows of a buffer allocated here, else ``(None, 0)``."""
     base = array.base
-    if not (isinstance(base, np.ndarray) and base.ndim == array.ndim and base.shape[1:] == array.shape[1:]
+    if not (isinstance(base, np.ndarray) and _is_own(base) and base.ndim == array.ndim and base.shape[1:] == array.shape[1:]
             and base.dtype == array.dtype and base.flags.c_contiguous and array.flags.c_contiguous):
         return None, 0
     row_bytes = array.strides[0] if array.ndim else array.itemsize

@@ -374,3 +374,16 @@ def test_splicing_contact_rows_moves_the_shorter_side_and_equals_concatenation(k
         old_base = data.base if old_base is None else old_base
     assert data.base is old_base  # after the first allocation, rows only moved within the buffer
     assert single_case.SPARE_ROWS >= 100
+
+
+def test_splicing_never_writes_into_a_buffer_it_did_not_allocate(rng):
+    """Two arrays that are views of one bigger array: a splice of one must not touch the other."""
+    from caseview.operations.single_case import _Splice
+
+    shared = np.arange(40.0)
+    first, second = shared[:20], shared[20:]
+    kept = second.copy()
+    offsets = np.array([0, 5, 10, 20])
+    spliced = _Splice(0, True, True).per_contact(first, np.array([-1.0] * 8), offsets)   # grows by three rows
+    assert np.array_equal(second, kept) and spliced[:8].tolist() == [-1.0] * 8
+    assert spliced[8:].tolist() == list(np.arange(5.0, 20.0))
