@@ -9,7 +9,8 @@ Built from the individual forecasts: each open case's stage probabilities on the
   count is Poisson-binomial over the open cases plus Poisson for referrals
   (:mod:`caseview.followup.poisson_binomial`); with parameter uncertainty, the equal-weight
   mixture over models drawn from the fit's sampling distribution
-  (:mod:`caseview.followup.parameter_draws`).
+  (:mod:`caseview.followup.parameter_draws`), each draw moving both the cases' stage probabilities
+  now (:mod:`caseview.followup.now_draws`) and their forecast.
 * ``entries_expected``: the expected number of entries into the stage during the month (from
   the previous month end, or the as-of date, to this one): moves from other stages plus new
   referrals starting in it. For the combined ``follow-up stages`` row, entries into the set from
