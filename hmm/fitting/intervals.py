@@ -52,6 +52,10 @@ ILL_CONDITIONED = 1e8
 #: transitions (separation), so the likelihood keeps rising towards the optimiser's limit of 20
 #: (common practice, no source).
 LARGE_EFFECT = 5.0
+#: Link-scale limits of a profile search for quantities that are not themselves a free parameter (a
+#: coordinate's limits are the optimiser's bounds): probabilities between about 1e-10 and 1 - 1e-10,
+#: mean times between 0.01 day and 10^12 days.
+_LINK_LIMITS = {"logit": (-23.0, 23.0), "log": (math.log(0.01), math.log(1e12))}
 
 
 def choose_interval_kind(requested: str, n_cases: int, information: np.ndarray | None) -> tuple:
@@ -182,10 +186,13 @@ def _profiled(table, problem: ProfileProblem, wald: list, callback) -> list:
                                note=f"weakly identified: standard error {wald_se:.0f} on the "
                                     f"{links[j] if links[j] != 'identity' else 'log hazard ratio'} scale"))
             continue
-        lower_end, upper_end = profile_interval(problem, lambda th, _j=j: table.linked(th)[_j])
+        lower_end, upper_end = profile_interval(problem, lambda th, _j=j: table.linked(th)[_j],
+                                                limits=_LINK_LIMITS.get(links[j]))
         if not (lower_end.found and upper_end.found):
-            out.append(replace(estimate, note=(estimate.note + "; " if estimate.note else "")
-                               + "profile search did not finish: Wald interval shown"))
+            reason = "; ".join(f"{side} end: {end.reason}" for side, end in (("lower", lower_end), ("upper", upper_end))
+                               if not end.found)
+            out.append(replace(estimate, profile_failed=reason, note=(estimate.note + "; " if estimate.note else "")
+                               + "profile search failed: Wald interval shown"))
             continue
         lo, hi = from_link(np.array([lower_end.value, upper_end.value]), links[[j, j]])
         link = links[j]
@@ -210,8 +217,10 @@ def _profiled(table, problem: ProfileProblem, wald: list, callback) -> list:
         note = ", ".join(notes)
         if weak:
             note = (note + ": " if note else "") + "weakly identified"
+        reached = {(True, True): "both", (True, False): "lower", (False, True): "upper"}.get(
+            (lower_end.open, upper_end.open), "")
         out.append(replace(estimate, lower=float(lo), upper=float(hi), interval_kind="profile",
-                           weakly_identified=weak, at_bound=at_bound, note=note))
+                           weakly_identified=weak, at_bound=at_bound, note=note, bound_reached=reached))
     return out
 
 
@@ -269,7 +278,8 @@ def estimates_with_intervals(spec, theta: np.ndarray, covariance: np.ndarray | N
         groups["hazard_ratios"] = [
             replace(h, lower=None if e.lower is None else math.exp(e.lower),
                     upper=None if e.upper is None else math.exp(e.upper), interval_kind=e.interval_kind,
-                    weakly_identified=e.weakly_identified, at_bound=e.at_bound, note=e.note)
+                    weakly_identified=e.weakly_identified, at_bound=e.at_bound, note=e.note,
+                    bound_reached=e.bound_reached, profile_failed=e.profile_failed)
             for h, e in zip(groups["hazard_ratios"], logs)]
     if callback is not None:
         callback(1.0)

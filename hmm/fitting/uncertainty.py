@@ -54,6 +54,11 @@ class ParameterEstimate:
         Plain words for the flags (for example ``"no upper bound: weakly identified"``).
     stage : str or None
         The stage of a mean time in stage.
+    bound_reached : {"", "lower", "upper", "both"}
+        Profile intervals only: the ends at which the profile stayed under the threshold up to the
+        quantity's limit (the interval is one-sided there; see :mod:`hmm.fitting.profile`).
+    profile_failed : str
+        Why the profile search gave up when a Wald interval is shown in its place ("" otherwise).
     """
 
     name: str
@@ -68,6 +73,20 @@ class ParameterEstimate:
     at_bound: bool = False
     note: str = ""
     stage: str | None = None
+    bound_reached: str = ""
+    profile_failed: str = ""
+
+    @property
+    def interval_method(self) -> str:
+        """How the interval was obtained, in words: ``"profile"``, ``"profile, bound reached (lower)"``,
+        ``"wald"``, ``"wald (profile search failed: ...)"``, or ``""`` without an interval."""
+        if self.lower is None or self.upper is None or not self.interval_kind:
+            return ""
+        if self.interval_kind == "profile" and self.bound_reached:
+            return f"profile, bound reached ({self.bound_reached})"
+        if self.interval_kind == "wald" and self.profile_failed:
+            return f"wald (profile search failed: {self.profile_failed})"
+        return self.interval_kind
 
     @property
     def interval_is_informative(self) -> bool:
@@ -99,12 +118,14 @@ class ParameterEstimate:
             return "(no interval)" + (f" - {self.note}" if self.note else "")
         if not self.interval_is_informative:
             return f"(no useful interval: {self.note or 'the data hardly inform this value'})"
-        text = f"[{fmt(self.lower)}, {fmt(self.upper)}] {self.interval_kind or ''}".rstrip()
+        text = f"[{fmt(self.lower)}, {fmt(self.upper)}] {self.interval_method}".rstrip()
         return text + (f" - {self.note}" if self.note else "")
 
     def to_dict(self) -> dict:
         out = {k: getattr(self, k) for k in ("name", "kind", "estimate", "standard_error", "lower", "upper", "fixed",
-                                             "interval_kind", "weakly_identified", "at_bound", "note", "stage")}
+                                             "interval_kind", "weakly_identified", "at_bound", "note", "stage",
+                                             "bound_reached", "profile_failed")}
+        out["interval_method"] = self.interval_method
         out["informative"] = self.interval_is_informative
         return out
 
@@ -130,7 +151,9 @@ class ParameterEstimate:
                    interval_kind=interval_kind, weakly_identified=weak, at_bound=bool(data.get("at_bound", False)),
                    note=str(data.get("note") or ("" if not weak or not legacy else
                                                  "the data hardly inform this value")),
-                   stage=None if stage is None else str(stage))
+                   stage=None if stage is None else str(stage),
+                   bound_reached=str(data.get("bound_reached") or ""),
+                   profile_failed=str(data.get("profile_failed") or ""))
 
 
 def observed_information(gradient_function, theta: np.ndarray, step: float = 1e-4, callback=None) -> np.ndarray:
