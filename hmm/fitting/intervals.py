@@ -42,9 +42,6 @@ __all__ = ["choose_interval_kind", "estimates_with_intervals", "identification_w
 PROFILE_BELOW_CASES = 5000
 #: Link-scale standard error above which a quantity or a direction counts as weakly identified.
 WEAK_STANDARD_ERROR = 1.0
-#: Wald link-scale standard error beyond which the profile is not searched (its interval would run from
-#: bound to bound - a factor of e^(2 x 1.96 x 10), about 10^17 - and the search is slow): reported weakly identified.
-HOPELESS_STANDARD_ERROR = 10.0
 #: Condition number of the observed information above which it counts as ill-conditioned.
 ILL_CONDITIONED = 1e8
 #: |log hazard ratio| above which an effect is reported as implausibly large: a hazard ratio over
@@ -174,18 +171,8 @@ def _profiled(table, problem: ProfileProblem, wald: list, callback) -> list:
         if estimate.fixed:
             out.append(estimate)
             continue
-        if estimate.lower is None and _at_natural_limit(estimate.estimate, links[j]):
-            # estimated on the boundary with a flat direction: the search from there is slow and rarely ends
-            out.append(replace(estimate, weakly_identified=True, at_bound=True,
-                               note="estimated at the boundary with no standard error: weakly identified"))
-            continue
-        wald_se = _link_standard_error(estimate, links[j])
-        # (no Wald interval at all - a flat direction elsewhere - is no reason to skip: the profile may be fine)
-        if math.isfinite(wald_se) and wald_se > HOPELESS_STANDARD_ERROR:
-            out.append(replace(estimate, lower=None, upper=None, interval_kind=None, weakly_identified=True,
-                               note=f"weakly identified: standard error {wald_se:.0f} on the "
-                                    f"{links[j] if links[j] != 'identity' else 'log hazard ratio'} scale"))
-            continue
+        # every free quantity is profiled, also one estimated at 0 or 1 or with a huge Wald standard error: the
+        # profile then says honestly how far the data let it go ("the data allow 0", "no upper bound")
         lower_end, upper_end = profile_interval(problem, lambda th, _j=j: table.linked(th)[_j],
                                                 limits=_LINK_LIMITS.get(links[j]))
         if not (lower_end.found and upper_end.found):
@@ -222,25 +209,6 @@ def _profiled(table, problem: ProfileProblem, wald: list, callback) -> list:
         out.append(replace(estimate, lower=float(lo), upper=float(hi), interval_kind="profile",
                            weakly_identified=weak, at_bound=at_bound, note=note, bound_reached=reached))
     return out
-
-
-def _at_natural_limit(value: float, link: str) -> bool:
-    if link == "log":
-        return value < 1e-9
-    if link == "logit":
-        return value < 1e-9 or value > 1 - 1e-9
-    return False
-
-
-def _link_standard_error(estimate, link: str) -> float:
-    """The Wald standard error on the link scale, recovered from the Wald interval."""
-    if estimate.lower is None or estimate.upper is None:
-        return math.inf
-    ends = np.array([estimate.lower, estimate.upper])
-    with np.errstate(divide="ignore", invalid="ignore"):
-        linked = to_link(ends, np.array([link, link]))
-    width = float(linked[1] - linked[0])
-    return width / (2 * Z_95) if math.isfinite(width) else math.inf
 
 
 def estimates_with_intervals(spec, theta: np.ndarray, covariance: np.ndarray | None, kind: str,

@@ -133,6 +133,8 @@ class ProfileProblem:
         self.whitening = vectors / np.sqrt(values)          # A: theta = theta_hat + A z, A A' = I^-1
         self.evaluations = 0
         self.budget = np.inf
+        #: Ends already found for a coordinate theta_i (quantities affine in it reuse them).
+        self.coordinate_ends = {}
         #: The highest objective value met above the maximum + 0.01 (the fit had not finished), else None.
         self.better_log_likelihood = None
 
@@ -199,8 +201,20 @@ def profile_interval(problem: ProfileProblem, quantity, depends_on=None, limits=
         base = quantity(theta_hat)
         depends_on = [i for i in range(theta_hat.size) if _changes(quantity, theta_hat, i, base)]
     depends_on = np.asarray(depends_on, dtype=np.int64)
-    search = _Search(problem, quantity, depends_on, limits)
-    return tuple(search.end(sign) for sign in (-1.0, 1.0))
+    affine = _affine_in_one_coordinate(quantity, theta_hat, depends_on)
+    if affine is None:
+        search = _Search(problem, quantity, depends_on, limits, coordinate=None)
+        return tuple(search.end(sign) for sign in (-1.0, 1.0))
+    # a*theta_i + b (a log rate, a log hazard ratio, the log mean time in a stage with one exit): profile
+    # theta_i once and map its ends (the profile is invariant under one-to-one transformations)
+    i, a, b = affine
+    ends = problem.coordinate_ends.get(i)
+    if ends is None:
+        search = _Search(problem, lambda th: th[i], depends_on, None, coordinate=i)
+        ends = problem.coordinate_ends[i] = tuple(search.end(sign) for sign in (-1.0, 1.0))
+    mapped = tuple(ProfileEnd(a * e.value + b, e.outcome, e.evaluations, e.reason, e.better_log_likelihood)
+                   for e in ends)
+    return mapped if a > 0 else mapped[::-1]
 
 
 def _changes(quantity, theta, i, base) -> bool:
@@ -212,7 +226,7 @@ def _changes(quantity, theta, i, base) -> bool:
 class _Search:
     """The profile of one quantity: the constraint ``g(theta) = psi`` and the inner maximisation."""
 
-    def __init__(self, problem: ProfileProblem, quantity, depends_on, limits):
+    def __init__(self, problem: ProfileProblem, quantity, depends_on, limits, coordinate):
         self.problem, self.quantity, self.depends_on = problem, quantity, depends_on
         A = problem.whitening
         self.psi_hat = float(quantity(problem.theta_hat))
@@ -220,8 +234,7 @@ class _Search:
         self.se = float(np.linalg.norm(g_z))                 # Wald standard error of psi (link scale)
         self.d = g_z / self.se if self.se > 0 and np.isfinite(self.se) else g_z
         # a coordinate: g = theta_i exactly, so s follows from psi in closed form
-        self.coordinate = (int(depends_on[0]) if depends_on.size == 1
-                           and _is_coordinate(quantity, problem.theta_hat, int(depends_on[0])) else None)
+        self.coordinate = coordinate
         if self.coordinate is not None:
             limits = (problem.lower[self.coordinate], problem.upper[self.coordinate])
         elif limits is None:
@@ -365,11 +378,20 @@ class _Search:
                           self.problem.better_log_likelihood)
 
 
-def _is_coordinate(quantity, theta, i) -> bool:
-    """``quantity(theta) == theta[i]`` near ``theta`` (a log rate or log hazard ratio itself)."""
+def _affine_in_one_coordinate(quantity, theta, depends_on):
+    """``(i, a, b)`` when ``quantity(theta) = a theta[i] + b`` near ``theta`` (checked at three points), else None."""
+    if depends_on.size != 1:
+        return None
+    i = int(depends_on[0])
     probe = theta.copy()
+    values = []
     for delta in (0.0, 0.37, -1.3):
         probe[i] = theta[i] + delta
-        if abs(quantity(probe) - probe[i]) > 1e-9 * max(1.0, abs(probe[i])):
-            return False
-    return True
+        values.append(float(quantity(probe)))
+    a = (values[1] - values[0]) / 0.37
+    b = values[0] - a * theta[i]
+    if not (np.isfinite(a) and np.isfinite(b)) or a == 0:
+        return None
+    if abs(values[2] - (a * (theta[i] - 1.3) + b)) > 1e-8 * max(1.0, abs(values[2])):
+        return None
+    return i, a, b
