@@ -49,10 +49,17 @@ ILL_CONDITIONED = 1e8
 #: transitions (separation), so the likelihood keeps rising towards the optimiser's limit of 20
 #: (common practice, no source).
 LARGE_EFFECT = 5.0
+#: The coverage study's result (tests/fitting/test_coverage_demo.py), quoted under every profile fit summary.
+MEASURED_COVERAGE = "PENDING"
 #: Link-scale limits of a profile search for quantities that are not themselves a free parameter (a
 #: coordinate's limits are the optimiser's bounds): probabilities between about 1e-10 and 1 - 1e-10,
 #: mean times between 0.01 day and 10^12 days.
 _LINK_LIMITS = {"logit": (-23.0, 23.0), "log": (math.log(0.01), math.log(1e12))}
+
+
+def coverage_caveat() -> str:
+    """What the coverage study measured for the profile intervals (README, statistics section), for fit summaries."""
+    return MEASURED_COVERAGE
 
 
 def choose_interval_kind(requested: str, n_cases: int, information: np.ndarray | None) -> tuple:

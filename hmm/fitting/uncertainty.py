@@ -116,6 +116,9 @@ class ParameterEstimate:
             return "(fixed)"
         if self.lower is None or self.upper is None:
             return "(no interval)" + (f" - {self.note}" if self.note else "")
+        if self.weakly_identified and self.bound_reached == "upper" and self.lower is not None and self.lower > 0:
+            # one-sided: the profile bounds the value from below only (for example a mean time when the rate may be 0)
+            return f"[{fmt(self.lower)}, no upper bound] {self.interval_method} - {self.note}"
         if not self.interval_is_informative:
             return f"(no useful interval: {self.note or 'the data hardly inform this value'})"
         text = f"[{fmt(self.lower)}, {fmt(self.upper)}] {self.interval_method}".rstrip()

@@ -70,15 +70,17 @@ def true_values(model) -> dict:
     return out
 
 
-def one_replicate(replicate: int, model, truth: dict, n_cases: int | None = None) -> dict:
-    """Fit one simulated caseload with the default intervals; also the Wald intervals of the same fit."""
+def one_replicate(replicate: int, model, truth: dict, n_cases: int | None = None, simulate=None) -> dict:
+    """Fit one simulated caseload with the default intervals; also the Wald intervals of the same fit.
+
+    ``simulate(model, n_cases, rng) -> Timelines`` (default :func:`simulate_demo_like`)."""
     from dataclasses import replace
 
     from hmm.fitting import fit_model, parameter_spec
     from hmm.fitting.intervals import estimates_with_intervals
 
     rng = np.random.default_rng([20261203, replicate])
-    timelines = simulate_demo_like(model, n_cases or N_CASES, rng)
+    timelines = (simulate or simulate_demo_like)(model, n_cases or N_CASES, rng)
     started = time.process_time()
     # starting at the true model is usual in coverage studies (common practice, no source)
     result = fit_model(model, timelines, starts=1)
@@ -156,6 +158,32 @@ def format_table(table: dict, pooled: dict, n_replicates: int, n_cases: int = N_
         p, se = pooled[kind]
         lines.append(f"  pooled over every shown interval, {label}: {p:.3f} (SE {se:.3f})")
     return "\n".join(lines)
+
+
+def test_the_study_machinery_fits_profiles_and_tabulates_both_kinds_on_small_caseloads():
+    # CI-speed check of the study's machinery (not a coverage count): a handful of small caseloads of the
+    # three-stage test model, the default intervals (profile below 5,000 cases) beside Wald, tabulated.
+    from fitting_helpers import simulate, three_stage_model
+
+    model = three_stage_model()
+    truth = true_values(model)
+    records = [one_replicate(r, model, truth, 150, lambda m, n, rng: simulate(m, rng, n_cases=n, n_contacts=8)
+                             .timelines) for r in range(3)]
+    for record in records:
+        assert record["interval_kind"] == "profile" and record["converged"]
+        profiled = [row for row in record["rows"] if not row["name"].startswith("next stage")]
+        assert profiled and all(row["method"].startswith("profile") for row in profiled), profiled
+        assert not any(row["fallback"] for row in record["rows"])
+        assert all(row["wald_shown"] for row in record["rows"])
+    table, pooled = tabulate(records)
+    assert set(table) <= set(truth) and all(t["n"] == 3 for t in table.values())
+    assert sum(t["profile"] for t in table.values()) == sum(
+        t["n"] for name, t in table.items() if not name.startswith("next stage"))
+    for kind in ("default", "wald"):
+        p, se = pooled[kind]
+        assert 0.0 <= p <= 1.0 and se >= 0.0
+    text = format_table(table, pooled, len(records), 150)
+    assert "3 caseloads of 150 cases" in text and "Wald intervals" in text
 
 
 @pytest.mark.slow
