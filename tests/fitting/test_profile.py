@@ -264,3 +264,31 @@ def test_a_failed_profile_search_shows_the_wald_interval_and_says_so(monkeypatch
     table = stored.format_table()
     assert "profile failed" in table and "wald (profile search failed: " in table
     assert "caveat: " in table
+
+
+def test_profile_interval_of_an_observation_probability_matches_the_binomial_likelihood_interval():
+    # The stage is recorded at every contact, so a channel's recordings in stage A are a multinomial sample;
+    # maximising over how the other categories share the rest, the profile of P(k | A) is the binomial
+    # log-likelihood n_k log p + (n - n_k) log(1 - p) (Pawitan 2001, In All Likelihood, section 2.6 and the
+    # multinomial profile of section 3.4). P(k | A) is a softmax of two logits: the non-coordinate path.
+    counts = {0: 31, 1: 12, 2: 3}                       # recordings of each category while in A
+    n_a = sum(counts.values())
+    codes = np.concatenate([np.full(c, k) for k, c in counts.items()]).astype(np.int16)
+    n = codes.size
+    timelines = Timelines(np.arange(n + 1, dtype=np.int64), np.zeros(n), codes[:, None],
+                          np.tile(np.array([True, False]), (n, 1)), np.zeros((n, 0)))
+    channel = Channel("sign", ("x", "y", "z"), np.array([[0.6, 0.3, 0.1], [0.2, 0.3, 0.5]]),
+                      fixed_stages=frozenset({1}))
+    model = StageModel(stages=("A", "B"), initial=np.array([1.0, 0.0]), transitions=(Transition(0, 1, 0.01),),
+                       channels=(channel,), initial_fixed=True, name="recorded stages")
+    model = dataclasses.replace(model, transitions=(dataclasses.replace(model.transitions[0], fixed_rate=True),))
+    result = fit_model(model, timelines, starts=1, intervals="profile")
+    for k, count in counts.items():
+        loglik = lambda p, _c=count: _c * np.log(p) + (n_a - _c) * np.log1p(-p)  # noqa: E731
+        p_hat = count / n_a
+        drop = lambda p, _l=loglik, _p=p_hat: 2 * (_l(_p) - _l(p)) - CHI2_95  # noqa: E731
+        low, high = scipy.optimize.brentq(drop, 1e-9, p_hat), scipy.optimize.brentq(drop, p_hat, 1 - 1e-9)
+        estimate = next(e for e in result.parameters if e.name == f"sign: P({'xyz'[k]} | A)")
+        assert estimate.interval_method == "profile", estimate
+        assert estimate.estimate == pytest.approx(p_hat, rel=1e-4)
+        assert estimate.lower == pytest.approx(low, rel=5e-3) and estimate.upper == pytest.approx(high, rel=5e-3)
