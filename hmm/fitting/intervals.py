@@ -50,7 +50,10 @@ ILL_CONDITIONED = 1e8
 #: (common practice, no source).
 LARGE_EFFECT = 5.0
 #: The coverage study's result (tests/fitting/test_coverage_demo.py), quoted under every profile fit summary.
-MEASURED_COVERAGE = "PENDING"
+MEASURED_COVERAGE = (
+    "in a simulation study on the demo model's structure (5 caseloads of 200 cases) 95% profile intervals "
+    "not marked weakly identified covered the true value only 78% of the time (Wald 81%), below the 92% target: "
+    "with a few hundred cases read every interval as approximate (README, Fitting the model)")
 #: Link-scale limits of a profile search for quantities that are not themselves a free parameter (a
 #: coordinate's limits are the optimiser's bounds): probabilities between about 1e-10 and 1 - 1e-10,
 #: mean times between 0.01 day and 10^12 days.
