@@ -215,6 +215,8 @@ def main(argv=None) -> int:
     parser.add_argument("--quick", action="store_true", help="small sizes (5000 and 20000 cases, fit on 300): a smoke run")
     for part in ("score", "fit", "import", "gui", "irregular-score", "two-channel", "large", "fit-one-start"):
         parser.add_argument(f"--skip-{part}", action="store_true")
+    parser.add_argument("--command-timeout", type=float, default=0.0,
+                        help="stop a measured command after this many seconds and report it failed (default: never)")
     parser.add_argument("--workdir", type=Path, help="where data and workspaces go (default: a temporary directory)")
     parser.add_argument("--keep", action="store_true", help="keep the work directory")
     parser.add_argument("--results", type=lambda text: Path(text) if text else None, default=HERE / "results.md",
@@ -225,6 +227,9 @@ def main(argv=None) -> int:
         args.large_cases = min(args.large_cases, 20_000)
         args.fit_cases = "300"
     fit_sizes = [int(x) for x in args.fit_cases.split(",") if x.strip()]
+    import measure
+
+    measure.TIMEOUT_SECONDS = args.command_timeout
     command_line = "python benchmarks/run_all.py " + " ".join(shlex.quote(a) for a in (argv or sys.argv[1:]))
 
     work = args.workdir or Path(tempfile.mkdtemp(prefix="caseview-bench-"))
@@ -249,6 +254,13 @@ def main(argv=None) -> int:
         return not absent
 
     try:
+        # ------------------------------------------------ score vs hmmlearn (equal gaps; two channels)
+        if not args.skip_score and need("init", "import", "score"):
+            scale_parts.score_against_hmmlearn(ctx, n, "equal", "x 12 contacts, equal 30-day gaps, 3 channels "
+                                                                "(27 symbols), 2 covariates")
+        if not args.skip_two_channel and need("init", "import", "score"):
+            scale_parts.score_against_hmmlearn(ctx, n, "two-channel", "x 6-18 contacts, equal 30-day gaps, "
+                                                                      "2 channels (6 symbols), no covariates")
         # ------------------------------------------------ one irregular caseload at two sizes
         small_seconds, large_seconds = {}, {}
         if not (args.skip_import and args.skip_gui and args.skip_irregular_score) and need("init", "import"):
@@ -279,13 +291,6 @@ def main(argv=None) -> int:
                 fit=not args.skip_fit_one_start, window=not args.skip_gui)
             scale_parts.growth_rows(ctx, n, large, small_seconds, large_seconds)
 
-        # ------------------------------------------------ score vs hmmlearn (equal gaps; two channels)
-        if not args.skip_score and need("init", "import", "score"):
-            scale_parts.score_against_hmmlearn(ctx, n, "equal", "x 12 contacts, equal 30-day gaps, 3 channels "
-                                                                "(27 symbols), 2 covariates")
-        if not args.skip_two_channel and need("init", "import", "score"):
-            scale_parts.score_against_hmmlearn(ctx, n, "two-channel", "x 6-18 contacts, equal 30-day gaps, "
-                                                                      "2 channels (6 symbols), no covariates")
         scale_parts.postgres_row(ctx)
 
         # ------------------------------------------------ fit vs hmmlearn EM

@@ -122,6 +122,10 @@ def encode_batch(layout, batch: ContactBatch) -> tuple[np.ndarray, np.ndarray]:
     return obs, covs
 
 
+#: Contacts turned into Python objects at a time while writing (bounds the memory of a million-case import).
+ROWS_PER_STEP = 250_000
+
+
 @dataclass
 class _Rows:
     """Where each batch row goes: its stored case id and coordinator id (see :func:`_assign_ids`)."""
@@ -172,14 +176,13 @@ def write_contacts(connection, batch: ContactBatch, replace: bool = False, actor
     changed_rows = np.concatenate([insert_rows[~ids.is_new_case[insert_rows]],
                                    np.array([i for i, _ in updates], dtype=np.int64)])
     # the packs: new cases from the batch arrays, changed stored cases from their rows
-    case_packs.write_case_packs(connection, _new_case_packs(batch, ids, obs, covs))
+    _write_new_case_packs(connection, batch, ids, obs, covs)
     case_packs.refresh_case_packs(connection, ids.row_case[changed_rows].tolist())
     changed_existing = sorted({str(batch.case_codes[i]) for i in changed_rows.tolist()})
     kept = {"contact_versions": version_ids, "contact_provenance": [f"{int(ids.row_case[i])}:{int(batch.days[i])}"
                                                                     for i, _ in updates]} if updates else {}
     changes = RowChanges(cases=tuple(changed_existing), all_rows=("coordinators",), rows=kept,
-                         case_digests=_new_case_digests(batch, ids.new_codes, last_coordinator, ids.case_id,
-                                                        ids.order, ids.is_new_case, ids.row_case, obs, covs))
+                         case_digests=_new_case_digests(batch, ids, last_coordinator, obs, covs))
     return WriteCounts(cases_added=len(ids.new_codes), contacts_added=int(insert_rows.size),
                        duplicates_skipped=len(duplicates), replaced=len(updates), replaced_details=replaced_details,
                        row_changes=changes)
@@ -284,18 +287,22 @@ def _insert_contacts(connection, batch: ContactBatch, ids: _Rows, obs, covs, ins
     """Insert the batch rows ``insert_rows`` (new contacts) into ``contacts``."""
     if not insert_rows.size:
         return
-    stage = [s or None for s in batch.stage_known[insert_rows].tolist()]
-    columns = [ids.row_case[insert_rows].tolist(), batch.days[insert_rows].tolist(), _blobs(obs[insert_rows]),
-               _blobs(covs[insert_rows]), stage, ids.row_coordinator[insert_rows].tolist()]
-    kind_column = ""
+    kinds = None
     if batch.unscheduled is not None and np.any(batch.unscheduled[insert_rows]):
         # contact_kind is named only when some contact is unscheduled (otherwise the column default,
         # 'scheduled', applies), so a batch without kinds is stored exactly as before the column existed
-        columns.append(batch.contact_kinds()[insert_rows].tolist())
-        kind_column = ", contact_kind"
-    connection.executemany(
-        f"INSERT INTO contacts (case_id, day, observations, covariates, stage_known, coordinator_id{kind_column})"
-        f" VALUES (?, ?, ?, ?, ?, ?{', ?' if kind_column else ''})", zip(*columns))
+        kinds = batch.contact_kinds()
+    kind_column = ", contact_kind" if kinds is not None else ""
+    sql = (f"INSERT INTO contacts (case_id, day, observations, covariates, stage_known, coordinator_id{kind_column})"
+           f" VALUES (?, ?, ?, ?, ?, ?{', ?' if kind_column else ''})")
+    for start in range(0, insert_rows.size, ROWS_PER_STEP):  # Python objects for one step at a time
+        rows = insert_rows[start:start + ROWS_PER_STEP]
+        columns = [ids.row_case[rows].tolist(), batch.days[rows].tolist(), _blobs(obs[rows]), _blobs(covs[rows]),
+                   [s or None for s in batch.stage_known[rows].tolist()], ids.row_coordinator[rows].tolist()]
+        if kinds is not None:
+            columns.append(kinds[rows].tolist())
+        connection.executemany(sql, zip(*columns))
+        del columns
 
 
 def _replace_contacts(connection, batch: ContactBatch, ids: _Rows, updates: list, actor: str, reason: str) -> list:
@@ -313,29 +320,40 @@ def _replace_contacts(connection, batch: ContactBatch, ids: _Rows, updates: list
     return version_ids
 
 
-def _new_case_packs(batch: ContactBatch, ids: _Rows, obs, covs) -> list:
-    """Pack rows (:func:`.case_packs.pack_rows`) of the new cases, from the batch arrays (no read-back)."""
-    if not ids.new_codes:
-        return []
-    rows = ids.order[ids.is_new_case[ids.order]]  # sorted by case (ids in code order), then day
+def _new_cases_in_steps(ids: _Rows):
+    """The new cases in steps of about :data:`ROWS_PER_STEP` contacts: (first case index, last + 1, rows,
+    offsets within the step), rows sorted by case (ids in code order), then day."""
+    rows = ids.order[ids.is_new_case[ids.order]]
     counts = np.bincount(ids.row_case[rows] - ids.next_id, minlength=len(ids.new_codes))
-    coordinator_ids = np.array([-1 if c is None else c for c in ids.row_coordinator[rows].tolist()], dtype=np.int64)
-    unscheduled = (np.zeros(rows.size, dtype=bool) if batch.unscheduled is None
-                   else np.asarray(batch.unscheduled, dtype=bool)[rows])
-    return case_packs.pack_rows(list(range(ids.next_id, ids.next_id + len(ids.new_codes))),
-                                np.concatenate([[0], np.cumsum(counts)]), batch.days[rows], obs[rows], covs[rows], coordinator_ids, unscheduled, batch.stage_known[rows])
-
-
-def _new_case_digests(batch, new_codes, last_coordinator, case_id, order, is_new_case, row_case, obs, covs) -> dict:
-    """Digests of the new cases from the batch arrays (no read-back); see :mod:`.row_digests`."""
-    if not new_codes:
-        return {}
-    rows = order[is_new_case[order]]  # sorted by case (ids in code order), then day
-    first_id = case_id[new_codes[0]]
-    counts = np.bincount(row_case[rows] - first_id, minlength=len(new_codes))
     offsets = np.concatenate([[0], np.cumsum(counts)])
-    digests = case_digests_from_arrays(
-        new_codes, [last_coordinator.get(case_id[c], "") for c in new_codes], offsets, batch.days[rows],
-        obs[rows], covs[rows], batch.stage_known[rows], batch.coordinators[rows],
-        None if batch.unscheduled is None else np.asarray(batch.unscheduled, dtype=bool)[rows])
-    return dict(zip(new_codes, digests))
+    first = 0
+    while first < len(ids.new_codes):
+        last = max(first + 1, int(np.searchsorted(offsets, offsets[first] + ROWS_PER_STEP, side="right")) - 1)
+        last = min(last, len(ids.new_codes))
+        yield first, last, rows[offsets[first]:offsets[last]], offsets[first:last + 1] - offsets[first]
+        first = last
+
+
+def _write_new_case_packs(connection, batch: ContactBatch, ids: _Rows, obs, covs) -> None:
+    """The packs (:mod:`.case_packs`) of the new cases, from the batch arrays (no read-back), step by step."""
+    for first, last, rows, offsets in _new_cases_in_steps(ids):
+        coordinator_ids = np.array([-1 if c is None else c for c in ids.row_coordinator[rows].tolist()],
+                                   dtype=np.int64)
+        unscheduled = (np.zeros(rows.size, dtype=bool) if batch.unscheduled is None
+                       else np.asarray(batch.unscheduled, dtype=bool)[rows])
+        case_packs.write_case_packs(connection, case_packs.pack_rows(
+            range(ids.next_id + first, ids.next_id + last), offsets, batch.days[rows], obs[rows], covs[rows],
+            coordinator_ids, unscheduled, batch.stage_known[rows]))
+
+
+def _new_case_digests(batch, ids: _Rows, last_coordinator, obs, covs) -> dict:
+    """Digests of the new cases from the batch arrays (no read-back); see :mod:`.row_digests`."""
+    out = {}
+    for first, last, rows, offsets in _new_cases_in_steps(ids):
+        codes = ids.new_codes[first:last]
+        digests = case_digests_from_arrays(
+            codes, [last_coordinator.get(ids.case_id[c], "") for c in codes], offsets, batch.days[rows],
+            obs[rows], covs[rows], batch.stage_known[rows], batch.coordinators[rows],
+            None if batch.unscheduled is None else np.asarray(batch.unscheduled, dtype=bool)[rows])
+        out.update(zip(codes, digests))
+    return out
