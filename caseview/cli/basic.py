@@ -139,6 +139,10 @@ def _csv_body(columns):
         return None
     cells = []
     for column in columns:
+        if len(column) > 1 and isinstance(column[0], str) and "\x00" not in column[0] \
+                and column.count(column[0]) == len(column):
+            cells.append([_csv_cell(column[0])] * len(column))  # one text in every row (advisory, as-of date)
+            continue
         try:
             joined = "\x00".join(column)
         except TypeError:  # not all text
@@ -167,6 +171,21 @@ def _csv_body(columns):
     if not cells[0]:
         return ""
     return "\n".join(map(",".join, zip(*cells))) + "\n"
+
+
+def _csv_cell(value: str) -> str:
+    """One text cell as ``csv.writer`` writes it after :func:`caseview.cell_text.neutralise` (numbers kept)."""
+    import csv
+    import io
+
+    from caseview.cell_text import neutralise
+
+    value = neutralise(value, keep_numbers=True)
+    if not any(mark in value for mark in _NEEDS_QUOTES):
+        return value
+    buffer = io.StringIO()
+    csv.writer(buffer, lineterminator="\n").writerow([value])
+    return buffer.getvalue()[:-1]
 
 
 def format_probabilities(values):
