@@ -218,45 +218,61 @@ def read_case_packs(connection, as_of_day: int | None = None, ids=None):
     from ..errors import WorkspaceError
 
     n_channels, n_covariates = _layout_widths(connection)
-    parts = []
+    dtype = record_dtype(n_channels, n_covariates)
+    case_parts, data_parts, known_rows, known_texts, n = [], [], [], [], 0
     for low, high in _id_ranges(connection, ids):
         rows = connection.execute("SELECT case_id, n_contacts, contacts, stage_known FROM case_packs"
                                   " WHERE case_id > ? AND case_id <= ? ORDER BY case_id", (low, high)).fetchall()
-        if rows:
-            parts.append(_unpack(rows, n_channels, n_covariates, WorkspaceError))
-            del rows
-    if not parts:
-        empty = np.zeros(0, dtype=np.int64)
-        return (empty, empty, empty, np.zeros((0, n_channels), dtype=np.uint8), np.zeros((0, n_covariates)),
-                np.zeros(0, dtype=bool), np.zeros(0, dtype=object))
-    columns = [np.concatenate([p[k] for p in parts]) if len(parts) > 1 else parts[0][k] for k in range(7)]
-    if as_of_day is not None:
-        keep = columns[1] <= int(as_of_day)
-        if not keep.all():
-            columns = [column[keep] for column in columns]
-    return tuple(columns)
+        if not rows:
+            continue
+        case_ids, data, rows_of_texts, texts = _unpack(rows, dtype, WorkspaceError)
+        del rows
+        case_parts.append(case_ids)
+        data_parts.append(data)
+        known_rows.append(rows_of_texts + n)
+        known_texts += texts
+        n += case_ids.size
+    # one buffer, one frombuffer, one copy per field (joining the parts' arrays instead costs more)
+    records = np.frombuffer(b"".join(data_parts), dtype=dtype)
+    del data_parts
+    case_ids = np.concatenate(case_parts) if case_parts else np.zeros(0, dtype=np.int64)
+    days = records["day"].astype(np.int64)
+    keep = None if as_of_day is None else days <= int(as_of_day)
+    if keep is not None and keep.all():
+        keep = None
+    if keep is not None:
+        records, case_ids, days = records[keep], case_ids[keep], days[keep]
+    stage_known = np.full(records.size, "", dtype=object)
+    if known_texts:
+        rows = np.concatenate(known_rows)
+        texts = np.array(known_texts + [None], dtype=object)[:-1]
+        if keep is not None:
+            texts, rows = texts[keep[rows]], (np.cumsum(keep) - 1)[rows[keep[rows]]]
+        stage_known[rows] = texts
+    return (case_ids, days, records["coordinator"].astype(np.int64),
+            np.ascontiguousarray(records["observations"]).reshape(records.size, n_channels),
+            records["covariates"].astype(np.float64).reshape(records.size, n_covariates),
+            records["unscheduled"].astype(bool), stage_known)
 
 
-def _unpack(rows, n_channels: int, n_covariates: int, error):
-    """Flat columns from rows (case_id, n_contacts, contacts, stage_known) in case-id order."""
+def _unpack(rows, dtype: np.dtype, error):
+    """From rows (case_id, n_contacts, contacts, stage_known) in case-id order: the case id of each contact,
+    the joined records, and the rows (within these rows) and texts of the known stages."""
     case_col, count_col, record_col, stage_col = zip(*rows)
     counts = np.array(count_col, dtype=np.int64)
-    dtype = record_dtype(n_channels, n_covariates)
     data = b"".join(record_col)
     if len(data) != int(counts.sum()) * dtype.itemsize:
         raise error("packed contacts do not match the workspace's channel/covariate registry; "
                     "the workspace is damaged - restore a backup")
-    records = np.frombuffer(data, dtype=dtype)
-    stage_known = np.full(records.size, "", dtype=object)
     with_stage = [i for i, text in enumerate(stage_col) if text is not None]
+    texts, rows_of_texts = [], np.zeros(0, dtype=np.int64)
     if with_stage:  # one JSON parse for all of them: the lists joined into one
-        texts = json.loads("[" + ",".join(stage_col[i][1:-1] for i in with_stage) + "]")
+        every = json.loads("[" + ",".join(stage_col[i][1:-1] for i in with_stage) + "]")
         starts = np.concatenate([[0], np.cumsum(counts)[:-1]])[with_stage]
         sizes = counts[with_stage]
         rows_of_texts = np.repeat(starts - np.concatenate([[0], np.cumsum(sizes)[:-1]]), sizes) + np.arange(sizes.sum())
-        if len(texts) != rows_of_texts.size:
+        if len(every) != rows_of_texts.size:
             raise error("packed known stages are damaged; restore a backup")
-        stage_known[rows_of_texts] = np.array(texts + [None], dtype=object)[:-1]
-    return (np.repeat(np.array(case_col, dtype=np.int64), counts), records["day"].astype(np.int64),
-            records["coordinator"].astype(np.int64), np.ascontiguousarray(records["observations"]),
-            records["covariates"].astype(np.float64), records["unscheduled"].astype(bool), stage_known)
+        named = [i for i, text in enumerate(every) if text]
+        texts, rows_of_texts = [every[i] for i in named], rows_of_texts[named]
+    return np.repeat(np.array(case_col, dtype=np.int64), counts), data, rows_of_texts, texts
