@@ -108,7 +108,8 @@ def caseload_commands(ctx, n: int, ws: Path, as_of: str, memory_mb: float, impor
     ctx.log(f"timing caseview history ({size})")
     done = run_measured(cv + ["history", str(ws), case_id, "--out", str(ctx.work / f"h{n}.csv")])
     if done.ok:
-        ctx.rows.append(Row(f"`caseview history WS {case_id}`, {size} (reads that case only)", done.seconds, None,
+        ctx.rows.append(Row(f"`caseview history WS {case_id}`, {size} (reads that case only; CPU "
+                            f"{done.cpu_seconds:.2f} s)", done.seconds, None,
                             f"<= {HISTORY_LIMIT_S} s", done.peak_mb, limit=HISTORY_LIMIT_S, memory_limit_mb=memory_mb))
     else:
         ctx.missing.append(f"caseview history ({size}) failed: {done.problem()}")
