@@ -213,7 +213,8 @@ def main(argv=None) -> int:
     parser.add_argument("--n-iter", type=int, default=100, help="hmmlearn EM iterations (default 100)")
     parser.add_argument("--seed", type=int, default=20261202)
     parser.add_argument("--quick", action="store_true", help="small sizes (5000 and 20000 cases, fit on 300): a smoke run")
-    for part in ("score", "fit", "import", "gui", "irregular-score", "two-channel", "large", "fit-one-start"):
+    for part in ("score", "fit", "import", "gui", "irregular-score", "two-channel", "large", "fit-one-start",
+                 "postgres"):
         parser.add_argument(f"--skip-{part}", action="store_true")
     parser.add_argument("--command-timeout", type=float, default=0.0,
                         help="stop a measured command after this many seconds and report it failed (default: never)")
@@ -277,6 +278,8 @@ def main(argv=None) -> int:
                 None if args.skip_import else imported, fit=not args.skip_fit_one_start, window=not args.skip_gui)
             if "gui_figures" in small_seconds:
                 gui_rows(ctx, n, irregular_ws, irregular["last_day"], small_seconds)
+            if not args.skip_postgres:
+                scale_parts.postgres_rows(ctx, n, irregular_ws, irregular["last_day"], small_seconds)
         if not args.skip_large and need("init", "import"):
             large = args.large_cases
             csv = args.large_csv or work / "irregular_large.csv"
@@ -294,7 +297,6 @@ def main(argv=None) -> int:
                 fit=not args.skip_fit_one_start, window=not args.skip_gui)
             scale_parts.growth_rows(ctx, n, large, small_seconds, large_seconds)
 
-        scale_parts.postgres_row(ctx)
 
         # ------------------------------------------------ fit vs hmmlearn EM
         if not args.skip_fit:
