@@ -52,6 +52,15 @@ def test_history_reads_only_that_case(demo_path, statements, tmp_path, monkeypat
     assert reads, "the case's contacts were read"
     for statement in reads:  # each read of contacts is bound to one case (the text has the case filled in)
         assert "WHERE k.case_code = 'HS-0002'" in statement or "case_id = " in statement, statement
+    import sqlite3
+
+    con = sqlite3.connect(demo_path)
+    try:  # ... and SQLite reads it through an index, never by going through every contact (SQLite, "EXPLAIN QUERY PLAN")
+        for statement in reads:
+            plan = " / ".join(row[-1] for row in con.execute("EXPLAIN QUERY PLAN " + statement))
+            assert "SCAN" not in plan, (statement, plan)
+    finally:
+        con.close()
     lines = out.read_text(encoding="utf-8").splitlines()
     assert lines[0].startswith("case_id,date,mobility,falls,concern,lives_alone,balance_programme,p_")
     assert all(line.startswith("HS-0002,") for line in lines[1:]) and len(lines) > 2
