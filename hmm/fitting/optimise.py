@@ -242,7 +242,7 @@ def fit_model(model: StageModel, timelines: Timelines, *, starts: int = 3, rng: 
 
 def _with_quiet_tail(model: StageModel, timelines: Timelines, observed_until) -> Timelines:
     """Timelines extended with a blank scheduled contact at ``observed_until`` (not after an exact-entry record)."""
-    from ..inference import _exact_entry_contacts
+    from ..exact_entry import _exact_entry_contacts
 
     ended = _exact_entry_contacts(model, timelines.allowed_stages)[timelines.last_index]
     return timelines.with_observation_end(observed_until, extend=~ended)

@@ -9,7 +9,7 @@ import pytest
 import scipy.linalg
 
 from fitting_helpers import progressive_equal_rates, simulate, three_stage_model
-from hmm.fitting.expm_derivative import adjoint_derivative, decompose, transition_matrices
+from hmm.fitting.expm_derivative import adjoint_derivative, decompose, pair_transition_matrices
 from hmm.fitting.likelihood import evaluate, log_likelihood_and_gradient, prepare
 from hmm.fitting.parameters import parameter_spec
 from hmm.inference import forward
@@ -64,7 +64,7 @@ def test_adjoint_frechet_derivative_against_scipy(rng):
     weights = rng.normal(size=(4, 3, 3))
     for method in ("auto", "expm"):
         cache = decompose(q, method)
-        p = transition_matrices(cache, gens, gaps)
+        p = pair_transition_matrices(cache, gens, gaps)
         grad = adjoint_derivative(cache, gens, gaps, weights)
         for i in range(4):
             np.testing.assert_allclose(p[i], scipy.linalg.expm(q[gens[i]] * gaps[i]), atol=1e-12)
