@@ -84,7 +84,7 @@ def in_process(workspace: Path, threads: int | None) -> dict:
     timings.wrap(likelihood, "_step_matrices", "evaluation: step matrices (eigen, expm)")
     timings.wrap(likelihood, "_transition_gradient", "evaluation: adjoint derivative and chain rule")
     timings.wrap(likelihood, "_run_blocks", "evaluation: case blocks (all threads, wall)")
-    timings.wrap(likelihood, "evaluate", "evaluations (total)")
+    timings.wrap(optimise, "evaluate", "likelihood evaluations (all)")
     timings.wrap(optimise, "prepare", "likelihood plan (prepare)")
     timings.wrap(optimise, "observed_information", "observed information (finite differences)")
     if threads is not None:

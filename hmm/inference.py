@@ -157,40 +157,14 @@ def _prepare(model: StageModel, timelines: Timelines, method: str = "auto") -> _
     if into_rows.size:
         distinct, group = covariate_groups(timelines.covariates[into_rows - 1])
         gaps = timelines.times[into_rows] - timelines.times[into_rows - 1]
-        with np.errstate(over="ignore", invalid="ignore"):
-            generators = model.generators(distinct)
-        usable = model.usable_covariate_rows(distinct)
         timing = model.unscheduled_contacts is not None
-        if timing:
-            with np.errstate(over="ignore", invalid="ignore"):
-                quiet = model.quiet_generators(distinct)
-        if not usable.all():
-            # a rate that overflows (or passes MAX_RATE_PER_DAY) fails only the cases that use it:
-            # their steps become placeholders (identity) and forward marks them not finite
-            generators[~usable] = 0.0
-            if timing:
-                quiet[~usable] = 0.0
-            failed_contacts = np.zeros(n, dtype=bool)
-            failed_contacts[into_rows[~usable[group]]] = True
-            unusable = np.add.reduceat(failed_contacts.astype(np.int64), timelines.offsets[:-1]) > 0
+        generators, quiet, unusable = _step_generators(model, distinct, group, into_rows, timelines)
         matrices, index = distinct_transition_matrices(quiet if timing else generators, gaps, group, method,
                                                        sub_generators=timing)
         # the rule for which steps record an entry has one home (hmm.exact_entry.entry_steps)
         exact_rows = entry_steps(model, timelines.allowed_stages, into_rows, into_rows - 1)
         if exact_rows.any():
-            # Second copy of every needed pair with exact-entry columns replaced by the density
-            # sum_{r != s} P(prev -> r) Q[r, s]; Q[s, s] = 0 for an absorbing s, so it is (P Q)[:, s].
-            needed = np.unique(index[exact_rows])
-            pair_generator = np.zeros(matrices.shape[0], dtype=np.int64)
-            pair_generator[index] = group
-            density = matrices[needed] @ generators[pair_generator[needed]]
-            exact_stages = [model.stage_index(s) for s in model.exact_entry_stages]
-            entered = matrices[needed].copy()
-            entered[:, :, exact_stages] = density[:, :, exact_stages]
-            position = np.full(matrices.shape[0], -1)
-            position[needed] = matrices.shape[0] + np.arange(needed.size)
-            matrices = np.concatenate([matrices, entered])
-            index = np.where(exact_rows, position[index], index)
+            matrices, index = _with_entry_densities(model, matrices, index, group, generators, exact_rows)
         if timing:
             matrices, index = unscheduled_steps(model, distinct, group, matrices, index,
                                                  timelines.unscheduled_mask[into_rows] & ~exact_rows)
@@ -201,6 +175,52 @@ def _prepare(model: StageModel, timelines: Timelines, method: str = "auto") -> _
     # the likelihoods are computed straight in position-major order (no second copy to reorder)
     return _Plan(layout, contact_likelihoods(model, timelines, layout.order), matrices,
                  np.take(step_index, layout.order), unusable_cases=unusable)
+
+
+def _step_generators(model: StageModel, distinct: np.ndarray, group: np.ndarray, into_rows: np.ndarray,
+                     timelines: Timelines) -> tuple:
+    """Generators (and ``Q - Lambda`` with unscheduled contacts) per distinct covariate row; cases they fail.
+
+    A rate that overflows (or passes MAX_RATE_PER_DAY) fails only the cases that use it: their
+    steps become placeholders (identity) and forward marks them not finite.
+
+    Returns
+    -------
+    generators : ndarray, shape (G, S, S)
+    quiet : ndarray, shape (G, S, S) or None
+    unusable : ndarray of bool, shape (n_cases,), or None when every row is usable
+    """
+    with np.errstate(over="ignore", invalid="ignore"):
+        generators = model.generators(distinct)
+        quiet = model.quiet_generators(distinct) if model.unscheduled_contacts is not None else None
+    usable = model.usable_covariate_rows(distinct)
+    if usable.all():
+        return generators, quiet, None
+    generators[~usable] = 0.0
+    if quiet is not None:
+        quiet[~usable] = 0.0
+    failed_contacts = np.zeros(timelines.n_contacts, dtype=bool)
+    failed_contacts[into_rows[~usable[group]]] = True
+    return generators, quiet, np.add.reduceat(failed_contacts.astype(np.int64), timelines.offsets[:-1]) > 0
+
+
+def _with_entry_densities(model: StageModel, matrices: np.ndarray, index: np.ndarray, group: np.ndarray,
+                          generators: np.ndarray, exact_rows: np.ndarray) -> tuple:
+    """Step matrices with a second copy of every pair a recorded entry uses, its entry columns the density.
+
+    The density is ``sum_{r != s} P(prev -> r) Q[r, s]``; ``Q[s, s] = 0`` for an absorbing ``s``, so it
+    is ``(P Q)[:, s]``. Returns the extended matrices and the index with entry steps pointing at the copies.
+    """
+    needed = np.unique(index[exact_rows])
+    pair_generator = np.zeros(matrices.shape[0], dtype=np.int64)
+    pair_generator[index] = group
+    density = matrices[needed] @ generators[pair_generator[needed]]
+    exact_stages = [model.stage_index(s) for s in model.exact_entry_stages]
+    entered = matrices[needed].copy()
+    entered[:, :, exact_stages] = density[:, :, exact_stages]
+    position = np.full(matrices.shape[0], -1)
+    position[needed] = matrices.shape[0] + np.arange(needed.size)
+    return np.concatenate([matrices, entered]), np.where(exact_rows, position[index], index)
 
 
 # --------------------------------------------------------------------------- forward-backward
