@@ -124,6 +124,17 @@ def _chunks(layout: CaseLayout, k: int):
         yield start + offset, start + stop, before + offset
 
 
+def _row_sums(values: np.ndarray, out: np.ndarray) -> None:
+    """``values.sum(axis=1)`` by adding columns in order: the same numbers (numpy adds a short row in order)
+    several times faster for a few stages."""
+    if values.shape[1] < 2 or values.shape[1] >= 8:   # numpy sums 8 or more pairwise: keep its order
+        values.sum(axis=1, out=out)
+        return
+    np.add(values[:, 0], values[:, 1], out=out)
+    for column in range(2, values.shape[1]):
+        np.add(out, values[:, column], out=out)
+
+
 def scaled_forward(layout: CaseLayout, initial: np.ndarray, likelihood: np.ndarray, step_matrices: np.ndarray,
                    step_index: np.ndarray, filtered: np.ndarray | None = None,
                    scale: np.ndarray | None = None) -> tuple:
@@ -167,7 +178,7 @@ def scaled_forward(layout: CaseLayout, initial: np.ndarray, likelihood: np.ndarr
                 np.take(step_matrices, step_index[lo:hi], axis=0, out=g, mode="clip")
                 np.einsum("ns,nst->nt", filtered[before:before + h], g, out=a)
                 np.multiply(a, likelihood[lo:hi], out=a)
-            a.sum(axis=1, out=t)
+            _row_sums(a, t)
             scale[lo:hi] = t
             np.divide(a, np.where(t > 0, t, 1.0)[:, None], out=filtered[lo:hi])
     return filtered, scale

@@ -89,3 +89,13 @@ def test_entry_steps_rule_by_hand():
     # the convention as written in hmm.inference's module docstring (common practice, no source: msm's
     # "exact death times" read one record as the entry date, Jackson 2011)
     assert entry_steps(model, allowed, into, before).tolist() == [True, False, False, True]
+
+
+@pytest.mark.parametrize("n_stages", [1, 2, 5, 7, 8, 11])
+def test_row_sums_are_numpys_sums_bit_for_bit(rng, n_stages):
+    # scoring's outputs must not change by a bit: the column-by-column sum must equal numpy's own
+    values = rng.uniform(size=(1000, n_stages)) * 10.0 ** rng.integers(-300, 5, size=(1000, n_stages))
+    values[rng.uniform(size=values.shape) < 0.2] = 0.0
+    out = np.empty(1000)
+    core._row_sums(values, out)
+    np.testing.assert_array_equal(out, values.sum(axis=1))
