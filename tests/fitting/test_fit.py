@@ -201,5 +201,6 @@ def test_fit_spends_one_gradient_per_free_parameter_on_the_information(rng):
     timelines = simulate(model, rng, n_cases=200).timelines
     with_errors = fit_model(model, timelines, starts=1, intervals="wald")
     without = fit_model(model, timelines, starts=1, standard_errors=False)
-    # the information: g(theta) once, then one gradient per free parameter
-    assert with_errors.n_likelihood_evaluations - without.n_likelihood_evaluations == with_errors.n_parameters + 1
+    # the information: one gradient per free parameter, and g(theta) unless the optimiser's last one was there
+    extra = with_errors.n_likelihood_evaluations - without.n_likelihood_evaluations
+    assert with_errors.n_parameters <= extra <= with_errors.n_parameters + 1
