@@ -143,6 +143,10 @@ def _block_pass(plan: LikelihoodPlan, block: CaseBlock, initial: np.ndarray, evi
                       smoothed.copy() if want_smoothed else None)
 
 
+#: Steps gathered at a time for the per-pair sums.
+_PAIR_CHUNK_STEPS = 1 << 16
+
+
 def _pair_sums(block: CaseBlock, alpha: np.ndarray, beta: np.ndarray, weighted: np.ndarray, n_pairs: int,
                n_patterns: int) -> tuple:
     """Per-pair step weights and per-pattern smoothed counts of one block.
@@ -153,13 +157,22 @@ def _pair_sums(block: CaseBlock, alpha: np.ndarray, beta: np.ndarray, weighted: 
     """
     s = alpha.shape[1]
     weights = np.zeros((n_pairs, s, s))
-    if block.steps_by_pair.size:
-        size = block.steps_by_pair.size
-        a_sorted = np.take(alpha, block.previous_by_pair, axis=0, out=block.buffer("a_sorted", (size, s)), mode="clip")
-        b_sorted = np.take(weighted, block.steps_by_pair, axis=0, out=block.buffer("b_sorted", (size, s)), mode="clip")
-        starts = block.pair_starts
-        for p in block.used_pairs:
-            np.matmul(a_sorted[starts[p]:starts[p + 1]].T, b_sorted[starts[p]:starts[p + 1]], out=weights[p])
+    size = block.steps_by_pair.size
+    width = min(_PAIR_CHUNK_STEPS, size)
+    a_chunk, b_chunk = block.buffer("a_sorted", (width, s)), block.buffer("b_sorted", (width, s))
+    product = np.empty((s, s))
+    starts = block.pair_starts
+    for lo in range(0, size, width):
+        hi = min(lo + width, size)
+        # the steps in pair order, a chunk at a time (a few MB however large the caseload)
+        np.take(alpha, block.previous_by_pair[lo:hi], axis=0, out=a_chunk[:hi - lo], mode="clip")
+        np.take(weighted, block.steps_by_pair[lo:hi], axis=0, out=b_chunk[:hi - lo], mode="clip")
+        first, last = np.searchsorted(starts, lo, side="right") - 1, np.searchsorted(starts, hi, side="left")
+        for p in range(int(first), int(last)):
+            begin, end = max(int(starts[p]), lo) - lo, min(int(starts[p + 1]), hi) - lo
+            if end > begin:
+                np.matmul(a_chunk[begin:end].T, b_chunk[begin:end], out=product)
+                weights[p] += product
     smoothed = np.multiply(alpha, beta, out=alpha)
     counts = np.empty((n_patterns, s))
     for stage in range(s):

@@ -50,13 +50,13 @@ class CaseBlock:
     Attributes
     ----------
     layout : CaseLayout
-    step_pair : ndarray of int64, shape (n_rows,)
+    step_pair : ndarray of int32 (int64 past 2**31 rows), shape (n_rows,)
         Distinct pair of the step INTO each row (0, unused, at position 0).
-    evidence : ndarray of int64, shape (n_rows,)
+    evidence : ndarray of int32, shape (n_rows,)
         Evidence pattern of each row.
-    case_of_row : ndarray of int64, shape (n_rows,)
+    case_of_row : ndarray of int32, shape (n_rows,)
         Case (timelines index) of each row.
-    steps_by_pair, previous_by_pair : ndarray of int64, shape (n_steps,)
+    steps_by_pair, previous_by_pair : ndarray of int32, shape (n_steps,)
         Rows of the steps (after position 0), sorted by pair, and the row before each.
     pair_starts : ndarray of int64, shape (m + 1,)
         ``steps_by_pair[pair_starts[p]:pair_starts[p + 1]]`` are the steps of pair ``p``.
@@ -207,10 +207,13 @@ def _case_block(timelines: Timelines, cases: np.ndarray, row_pair: np.ndarray, r
     previous = layout.previous_rows()
     sort = np.argsort(step_pair[step_rows], kind="stable")
     pair_starts = np.searchsorted(step_pair[step_rows][sort], np.arange(n_pairs + 1)).astype(np.int64)
-    return CaseBlock(layout=layout, step_pair=step_pair, evidence=np.take(row_pattern, layout.order),
-                     case_of_row=layout.case_of_rows(), steps_by_pair=step_rows[sort],
-                     previous_by_pair=previous[sort], pair_starts=pair_starts,
-                     used_pairs=np.flatnonzero(np.diff(pair_starts) > 0))
+    # 32-bit row numbers where they fit: half the memory of the per-row bookkeeping
+    index = np.int32 if layout.n_rows < 2**31 and n_pairs < 2**31 else np.int64
+    return CaseBlock(layout=layout, step_pair=step_pair.astype(index),
+                     evidence=np.take(row_pattern, layout.order).astype(index),
+                     case_of_row=layout.case_of_rows().astype(np.int32 if timelines.n_cases < 2**31 else np.int64),
+                     steps_by_pair=step_rows[sort].astype(index), previous_by_pair=previous[sort].astype(index),
+                     pair_starts=pair_starts, used_pairs=np.flatnonzero(np.diff(pair_starts) > 0))
 
 
 def prepare(model: StageModel, timelines: Timelines, spec: ParameterSpec | None = None,

@@ -131,9 +131,11 @@ def test_equal_gaps_match_hmmlearn_score(rng):
 @pytest.mark.parametrize("threads", [2, 3])
 def test_case_blocks_in_threads_give_the_one_block_result(rng, monkeypatch, threads):
     # the same sums, added block by block: equal up to rounding; small chunks walk the chunk boundaries
+    import hmm.fitting.likelihood as likelihood
     import hmm.forward_backward as core
 
     monkeypatch.setattr(core, "CHUNK_ROWS", 5)
+    monkeypatch.setattr(likelihood, "_PAIR_CHUNK_STEPS", 7)   # pairs split across chunks of steps
     model = three_stage_model()
     sim = simulate(model, rng, n_cases=60, n_contacts=7)
     spec = parameter_spec(model)
