@@ -158,7 +158,7 @@ def _pair_sums(block: CaseBlock, alpha: np.ndarray, beta: np.ndarray, weighted: 
     s = alpha.shape[1]
     weights = np.zeros((n_pairs, s, s))
     size = block.steps_by_pair.size
-    width = min(_PAIR_CHUNK_STEPS, size)
+    width = max(min(_PAIR_CHUNK_STEPS, size), 1)
     a_chunk, b_chunk = block.buffer("a_sorted", (width, s)), block.buffer("b_sorted", (width, s))
     product = np.empty((s, s))
     starts = block.pair_starts

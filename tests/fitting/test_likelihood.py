@@ -170,3 +170,20 @@ def test_smoothed_probabilities_equal_the_engine_smoother(rng):
     total = ev.smoothed.sum(axis=1, keepdims=True)
     np.testing.assert_allclose(ev.smoothed / total, smoothed_probabilities(fitted, sim.timelines), atol=1e-9)
     assert ev.log_likelihood == pytest.approx(forward(fitted, sim.timelines).log_likelihood.sum(), rel=1e-10)
+
+
+@pytest.mark.parametrize("threads", [1, 2])
+def test_caseload_of_single_contacts_has_no_steps_and_a_gradient(threads):
+    # no case has a second contact: the log-likelihood is sum log(initial . e) and only the initial and
+    # observation probabilities have a gradient (by hand: no step matrix enters)
+    model = three_stage_model()
+    n = 5
+    timelines = Timelines(offsets=np.arange(n + 1), times=np.zeros(n), observations=np.zeros((n, 2), np.int16),
+                          allowed_stages=np.ones((n, 3), bool), covariates=np.zeros((n, 1)))
+    spec = parameter_spec(model)
+    ev = evaluate(prepare(model, timelines, spec, threads=threads), spec.to_vector())
+    e = model.channels[0].probabilities[:, 0] * model.channels[1].probabilities[:, 0]
+    assert ev.log_likelihood == pytest.approx(n * np.log(model.initial @ e), rel=1e-12)
+    rates = [i for i, kind in enumerate(spec.kinds) if kind in ("rate", "log_hazard_ratio")]
+    assert rates
+    np.testing.assert_array_equal(ev.gradient[rates], 0.0)
