@@ -103,11 +103,13 @@ def followup_module():
 class WorkspaceSource:
     """A caseview workspace file. Worker threads open their own connection (one per thread)."""
 
-    def __init__(self, path):
+    def __init__(self, path, password: str | None = None):
         from caseview.storage import Workspace
+        from caseview.storage.location import workspace_location
 
-        self.path = Path(path)
-        self._workspace = Workspace.open(self.path)  # main-thread connection; raises WorkspaceError
+        self.path = workspace_location(path)  # a file Path, or a PostgreSQL DatabaseURL
+        self._password = password  # PostgreSQL: the prompted password, for worker threads' own connections
+        self._workspace = Workspace.open(self.path, password=password)  # main-thread connection; raises WorkspaceError
         self.label = self.path.name
         self.include_closed = False  # the window's "Show closed" filter
         self.warnings = list(getattr(self._workspace, "warnings", []) or [])
@@ -122,7 +124,7 @@ class WorkspaceSource:
         from caseview.storage import Workspace
 
         notes = []
-        with full_collections_postponed(), Workspace.open(self.path) as ws:
+        with full_collections_postponed(), Workspace.open(self.path, password=self._password) as ws:
             followup = followup_module()
             if followup is not None:
                 # flags now, reasons later: the window explains flagged cases in a second job
@@ -139,6 +141,12 @@ class WorkspaceSource:
             scores = score_caseload(ws, as_of, horizon_days, callback=callback, include_closed=self.include_closed)
             notes.append("Follow-up flags are not available yet; ordered by chance of reaching follow-up.")
             return LoadedCaseload(scores, None, notes)
+
+    def open_workspace(self):
+        """A new connection to the same workspace for a worker thread (with the prompted password, if any)."""
+        from caseview.storage import Workspace
+
+        return Workspace.open(self.path, password=self._password)
 
     def close(self) -> None:
         try:
