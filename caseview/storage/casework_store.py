@@ -24,6 +24,7 @@ import numpy as np
 
 from ..errors import InputError
 from . import audit as _audit
+from . import case_packs
 from .contact_writer import ContactBatch, encode_batch
 from .contacts import field_layout
 from .row_digests import RowChanges
@@ -306,6 +307,7 @@ def record_contact(ws, batch: ContactBatch, actor: str, create_case: bool) -> di
                     " VALUES (?, ?, ?, ?, '')", (case_id, day, at, actor))
         _update_case_coordinator(con, case_id)
         new = _as_version(con, code, day, _current_row(con, case_id, day), CURRENT)
+        case_packs.refresh_case_packs(con, [case_id])  # the packed contacts follow the rows (same transaction)
         details = {"case_id": code, "date": _date(day), "case_created": bool(create_case), "old": None, "new": new}
         _audit.append(con, actor, "contact.record", code, details, changes=_changes(con, code, case_id, [day]))
     return details
@@ -342,6 +344,7 @@ def correct_contact(ws, case_code: str, day: int, batch: ContactBatch, actor: st
                     " VALUES (?, ?, ?, ?, ?)", (case_id, new_day, _audit.utc_now(), actor, reason))
         _update_case_coordinator(con, case_id)
         new = _as_version(con, case_code, new_day, _current_row(con, case_id, new_day), CURRENT)
+        case_packs.refresh_case_packs(con, [case_id])  # the packed contacts follow the rows (same transaction)
         details = {"case_id": case_code, "date": _date(day), "reason": reason, "old": old, "new": new}
         _audit.append(con, actor, "contact.correct", case_code, details,
                       changes=_changes(con, case_code, case_id, [day, new_day], kept))
@@ -359,6 +362,7 @@ def void_contact(ws, case_code: str, day: int, actor: str, reason: str) -> dict:
         kept = keep_earlier_versions(con, [(case_id, day)], VOIDED, actor, reason)
         con.execute("DELETE FROM contacts WHERE case_id = ? AND day = ?", (case_id, day))
         _update_case_coordinator(con, case_id)
+        case_packs.refresh_case_packs(con, [case_id])  # the packed contacts follow the rows (same transaction)
         details = {"case_id": case_code, "date": _date(day), "reason": reason, "old": old, "new": None}
         _audit.append(con, actor, "contact.void", case_code, details,
                       changes=_changes(con, case_code, case_id, [day], kept))
