@@ -6,7 +6,9 @@ goes to a hidden ``.NAME.partial-PID`` file beside the target, created with mode
 readable by others, whatever the umask), and is moved into place only when complete
 (``os.replace``, atomic on one file system). On any failure, Ctrl-C or termination the partial
 file is removed and the target is untouched. File-system errors (disk full, read-only folder, no
-permission) become one-line :class:`caseview.errors.InputError` messages.
+permission) become one-line :class:`caseview.errors.InputError` messages. A named pipe or a
+character device (``--out /dev/null``) is written into directly and stays what it is; a folder or
+another kind of non-file is refused before anything is written.
 """
 
 from __future__ import annotations
@@ -51,6 +53,25 @@ def partial_path(path) -> Path:
     return path.with_name(f".{path.name}.partial-{os.getpid()}")
 
 
+def _is_stream(path: Path) -> bool:
+    """True for an existing named pipe or character device; InputError for any other non-file target."""
+    import stat
+
+    try:
+        mode = os.stat(path).st_mode
+    except FileNotFoundError:
+        return False
+    except OSError as exc:
+        raise InputError(describe_os_error(path, exc)) from None
+    if stat.S_ISREG(mode):
+        return False
+    if stat.S_ISFIFO(mode) or stat.S_ISCHR(mode):
+        return True
+    if stat.S_ISDIR(mode):
+        raise InputError(f"{path}: is a folder, not a file; give a file name to write to (nothing was written)")
+    raise InputError(f"{path}: is not a regular file; give a file name to write to (nothing was written)")
+
+
 @contextmanager
 def private_output(path):
     """Yield a 0600 temporary path beside ``path``; on success it replaces ``path``, on failure it is removed.
@@ -62,6 +83,14 @@ def private_output(path):
     path = Path(path)
     if not path.parent.is_dir():
         raise InputError(f"{path.parent}: folder does not exist")
+    if _is_stream(path):
+        # A named pipe or a character device (``--out /dev/null``): write into it as it is. Moving a
+        # finished file over it would replace the device or pipe with a regular file.
+        try:
+            yield path
+        except OSError as exc:
+            raise InputError(describe_os_error(path, exc)) from None
+        return
     temporary = partial_path(path)
     try:
         temporary.unlink(missing_ok=True)
@@ -90,6 +119,8 @@ def ensure_can_write(path) -> None:
     path = Path(path)
     if not path.parent.is_dir():
         raise InputError(f"{path.parent}: folder does not exist")
+    if _is_stream(path):
+        return
     probe = partial_path(path)
     probe.unlink(missing_ok=True)
     create_private_file(probe)

@@ -111,3 +111,40 @@ def test_terminated_export_removes_its_partial_file(filled_path, tmp_path):
     assert list(out.iterdir()) == []
     with Workspace.open(filled_path) as ws:
         assert not any(e.action == "export" for e in ws.audit_entries())
+
+
+def test_output_to_a_pipe_or_device_writes_into_it_and_leaves_it_in_place(filled_path, tmp_path, capsys):
+    """``--out /dev/null`` (or a named pipe) must not be replaced by a regular file.
+
+    A named pipe in the test folder stands in for /dev/null, so a failing run cannot damage the machine.
+    """
+    import threading
+
+    from caseview.cli.main import main
+
+    pipe = tmp_path / "pipe"
+    os.mkfifo(pipe)
+    received = []
+    reader = threading.Thread(target=lambda: received.append(pipe.read_bytes()), daemon=True)
+    reader.start()
+    code = main(["score", str(filled_path), "--as-of", "2025-06-01", "--out", str(pipe)])
+    if reader.is_alive():  # the command never opened the pipe: unblock the reader before failing
+        with open(pipe, "wb"):
+            pass
+    reader.join(10)
+    assert code == 0, capsys.readouterr().err
+    assert stat.S_ISFIFO(os.lstat(pipe).st_mode), "the pipe was replaced by a regular file"
+    assert received and received[0].startswith(b"case_id")
+
+
+def test_output_to_a_folder_is_a_one_line_error_and_the_folder_is_untouched(filled_path, tmp_path, capsys):
+    from caseview.cli.main import main
+
+    folder = tmp_path / "reports"
+    folder.mkdir()
+    (folder / "keep.txt").write_text("kept")
+    code = main(["score", str(filled_path), "--as-of", "2025-06-01", "--out", str(folder)])
+    err = capsys.readouterr().err
+    assert code != 0
+    assert "is a folder" in err and "Traceback" not in err and len(err.strip().splitlines()) == 1
+    assert (folder / "keep.txt").read_text() == "kept" and sorted(p.name for p in folder.iterdir()) == ["keep.txt"]
