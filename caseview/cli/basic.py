@@ -8,6 +8,8 @@ from pathlib import Path
 
 from caseview import ADVISORY_NOTICE
 
+from .options import actor_name, add_actor_option, add_as_of_option, add_horizon_option, as_of_date
+
 ROOT = Path(__file__).resolve().parents[2]
 DEMO_TIMELINES = ROOT / "demo_cases" / "home_support_demo.csv"
 DEMO_MODEL = ROOT / "demo_cases" / "home_support_model.json"
@@ -18,8 +20,8 @@ def register(sub) -> None:
                        description="Score every case whose first contact is on or before the as-of date, "
                                    "using only contacts on or before it. " + ADVISORY_NOTICE)
     p.add_argument("workspace", metavar="WS")
-    p.add_argument("--as-of", required=True, metavar="YYYY-MM-DD")
-    p.add_argument("--horizon", type=float, default=90.0, metavar="DAYS", help="forecast horizon (default 90)")
+    add_as_of_option(p)
+    add_horizon_option(p)
     p.add_argument("--out", required=True, metavar="SCORES.csv", help="output CSV ('-' for standard output)")
     p.add_argument("--include-closed", action="store_true", help="also cases closed on or before the as-of date")
     p.set_defaults(run=run_score)
@@ -30,7 +32,7 @@ def register(sub) -> None:
                                    "the most likely stage path (Viterbi). " + ADVISORY_NOTICE)
     p.add_argument("workspace", metavar="WS")
     p.add_argument("case_id", metavar="CASE_ID")
-    p.add_argument("--as-of", metavar="YYYY-MM-DD", help="use contacts up to this date (default: all)")
+    add_as_of_option(p, required=False, help="use contacts up to this date (default: all)")
     p.add_argument("--out", required=True, metavar="HISTORY.csv", help="output CSV ('-' for standard output)")
     p.set_defaults(run=run_history)
 
@@ -43,21 +45,6 @@ def register(sub) -> None:
 
 
 # ---------------------------------------------------------------- helpers
-def add_actor_option(parser, what: str = "who is recorded in the audit trail") -> None:
-    """The ``--by NAME`` option every audited command takes (read back by :func:`actor_name`)."""
-    parser.add_argument("--by", metavar="NAME", help=f"{what} (default: the operating-system user; "
-                                                      "attribution, not authentication)")
-
-
-def actor_name(args) -> str:
-    """The name recorded in the audit trail: ``--by`` or the operating-system user (attribution only)."""
-    from caseview.attribution import os_user
-    from caseview.textfiles import check_one_line
-
-    given = getattr(args, "by", None)
-    return check_one_line(given, "--by") if given else os_user()
-
-
 def open_workspace(path, read_only: bool | None = None):
     """Open a workspace for a command; read-only when asked, or when the file or folder cannot be written."""
     from caseview.storage import Workspace
@@ -178,9 +165,10 @@ def format_probabilities(values):
 
 
 def format_days(days):
-    import numpy as np
+    """ISO texts of day numbers (:func:`caseview.dates.days_text`)."""
+    from caseview.dates import days_text
 
-    return np.datetime_as_string(np.asarray(days, dtype="int64").astype("datetime64[D]")).tolist()
+    return days_text(days)
 
 
 def safe_text(values):
@@ -194,9 +182,9 @@ def safe_text(values):
 def run_score(args) -> int:
     import numpy as np
 
-    from caseview.scoring import parse_date, score_caseload
+    from caseview.scoring import score_caseload
 
-    as_of = parse_date(args.as_of, "--as-of")
+    as_of = as_of_date(args)
     with open_workspace(args.workspace) as ws:
         flags = None
         try:
@@ -275,7 +263,7 @@ def run_history(args) -> int:
     import numpy as np
 
     from caseview.errors import InputError
-    from caseview.scoring import parse_date, to_day
+    from caseview.dates import parse_date, to_day
     from hmm.inference import forward, most_likely_path, smoothed_probabilities
 
     as_of_day = to_day(parse_date(args.as_of, "--as-of")) if args.as_of else None

@@ -29,16 +29,16 @@ def fit_covariance(version) -> tuple:
         summary = summary.to_dict()
     label = f"model version {version.id}" if getattr(version, "id", None) is not None else "the current model"
     if not summary:
-        raise InputError(f"--uncertainty parameters: {label} was entered, not fitted, so there is no estimated "
-                         "sampling distribution to draw from; fit the model first or use --uncertainty none")
+        raise InputError(f"parameter uncertainty: {label} was entered, not fitted, so there is no estimated "
+                         "sampling distribution to draw from; fit the model first or leave parameter uncertainty out")
     names = summary.get("free_parameters")
     matrix = summary.get("covariance")
     if not names or matrix is None:
-        raise InputError(f"--uncertainty parameters: {label} was fitted before caseview stored the parameters' "
-                         "covariance; fit it again or use --uncertainty none")
+        raise InputError(f"parameter uncertainty: {label} was fitted before caseview stored the parameters' "
+                         "covariance; fit it again or leave parameter uncertainty out")
     covariance = np.array([[np.nan if v is None else v for v in row] for row in matrix], dtype=float)
     if covariance.shape != (len(names), len(names)):
-        raise InputError(f"--uncertainty parameters: {label}: the stored covariance is {covariance.shape}, "
+        raise InputError(f"parameter uncertainty: {label}: the stored covariance is {covariance.shape}, "
                          f"expected {len(names)} x {len(names)}")
     return list(names), covariance
 
@@ -50,9 +50,9 @@ def _drawn_block(names: list, covariance: np.ndarray) -> tuple:
     if usable and not np.all(np.isfinite(covariance[np.ix_(usable, usable)])):
         usable = []
     if wanted and not usable:
-        raise InputError("--uncertainty parameters: the fit could not estimate the uncertainty of the rates, "
+        raise InputError("parameter uncertainty: the fit could not estimate the uncertainty of the rates, "
                          "hazard ratios or initial shares (no finite covariance, for example an estimate on the "
-                         "boundary); use --uncertainty none")
+                         "boundary); leave parameter uncertainty out")
     return [names[i] for i in usable], covariance[np.ix_(usable, usable)], [names[i] for i in wanted if i not in usable]
 
 
@@ -71,7 +71,7 @@ def _centre(model, names: list, reference) -> np.ndarray:
             by_name[f"initial P({stage})"] = np.log(initial[s] / initial[reference])
     missing = [n for n in names if n not in by_name]
     if missing:
-        raise InputError(f"--uncertainty parameters: the stored covariance names {missing[0]!r}, which the "
+        raise InputError(f"parameter uncertainty: the stored covariance names {missing[0]!r}, which the "
                          "current model does not have; fit the model again")
     return np.array([by_name[n] for n in names])
 

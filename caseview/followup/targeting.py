@@ -22,6 +22,7 @@ from dataclasses import dataclass
 import numpy as np
 
 from hmm.forecasting import reach_probability
+from hmm.random_state import random_generator
 
 from .whatif import changed_covariates, check_changes
 
@@ -108,8 +109,11 @@ def random_choices(reduction: np.ndarray, places: int, rng: np.random.Generator,
 
 
 def rank_places(scores, pool: np.ndarray, changes: dict, places: int, horizon_days: float, among: str,
-                seed: int = 1, n_left_out: int = 0) -> Targeting:
-    """Rank the cases in ``pool`` (rows of ``scores``) and compare the three ways of filling the places."""
+                seed, n_left_out: int = 0) -> Targeting:
+    """Rank the cases in ``pool`` (rows of ``scores``) and compare the three ways of filling the places.
+
+    ``seed`` (int, Generator or None for fresh entropy) drives the random-choice comparison only.
+    """
     model = scores.model
     without, with_change = reach_without_and_with(model, scores.p_now[pool], scores.last_covariates[pool],
                                                   changes, horizon_days)
@@ -117,7 +121,7 @@ def rank_places(scores, pool: np.ndarray, changes: dict, places: int, horizon_da
     ids = np.asarray(scores.case_ids)[pool].astype(str)
     chosen = _top(reduction, ids, places)
     by_risk = _top(without, ids, places)
-    rng = np.random.default_rng(seed)
+    rng = random_generator(seed)
     return Targeting(scores.as_of, float(horizon_days), dict(changes), among, int(places), int(pool.size), ids[chosen],
                      np.asarray(scores.coordinators)[pool][chosen].astype(str), without[chosen], with_change[chosen],
                      reduction[chosen], float(reduction[chosen].sum()), float(reduction[by_risk].sum()),

@@ -12,7 +12,7 @@ from PySide6.QtWidgets import (QCheckBox, QDoubleSpinBox, QFormLayout, QGroupBox
                                QVBoxLayout, QWidget)
 
 from caseview.followup.wording import chance_words, days_ago, due_words, percent
-from caseview.scoring import from_day
+from caseview.dates import from_day
 
 from . import theme
 from .case_chart import case_chart_data

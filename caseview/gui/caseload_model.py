@@ -12,7 +12,7 @@ import numpy as np
 from PySide6.QtCore import QAbstractTableModel, QModelIndex, Qt
 
 from caseview.followup.wording import due_words
-from caseview.scoring import from_day
+from caseview.dates import from_day
 
 COLUMNS = ("Case", "Coordinator", "Last contact", "Days since", "Likely stage now",
            "Follow-up now", "Reach follow-up", "Next contact due", "Flags", "Review")

@@ -78,7 +78,7 @@ class ContactChange:
 
 # ------------------------------------------------------------------ validation (the import's rules)
 def _day(date) -> int:
-    from ..scoring import parse_date, to_day
+    from ..dates import parse_date, to_day
 
     if isinstance(date, dt.date):
         return to_day(date)
@@ -198,7 +198,8 @@ def contact_form_defaults(ws, case_id: str, date=None) -> dict:
 
 def case_estimate(ws, case_id: str, as_of, horizon_days: float = 90.0) -> CaseEstimate:
     """The case's stage probabilities on ``as_of`` from its current contacts (reads only that case)."""
-    from ..scoring import from_day, score_loaded
+    from ..dates import from_day
+    from ..scoring import score_loaded
 
     model, version = ws.current_model()
     day = _day(as_of)
@@ -304,7 +305,7 @@ def record_contact(ws, case_id: str, date, actor: str, values: dict | None = Non
     if new_case is False and not exists:
         raise InputError(f"{source}: case {code!r} does not exist (nothing was stored)")
     if not exists and not (coordinator or "").strip():
-        raise InputError(f"{source}: case {code!r} is new; give its coordinator (--coordinator C2) to create it "
+        raise InputError(f"{source}: case {code!r} is new; give its coordinator (for example C2) to create it "
                          "(nothing was stored)")
     given = dict(covariates or {})
     carried = tuple(name for name in ws.current_model()[0].covariates
@@ -313,7 +314,7 @@ def record_contact(ws, case_id: str, date, actor: str, values: dict | None = Non
     if missing:
         why = "it has no earlier contact" if exists else "it is a new case"
         raise InputError(f"{source}: covariate {missing[0]!r} needs a value because {why} to carry it over from; "
-                         f"give --covariate {missing[0]}=NUMBER (nothing was stored)")
+                         f"give {missing[0]} a number (nothing was stored)")
     for name in carried:
         given[name] = defaults["covariates"][name]
     batch = _validated(ws, source, code, date_text, coordinator or "", dict(values or {}), given, stage_known or "")
@@ -345,7 +346,7 @@ def _looks_like_date(text: str) -> bool:
 def _reason(reason: str, source: str) -> str:
     text = " ".join(str(reason or "").split())
     if not text:
-        raise InputError(f"{source}: a reason is required (--reason TEXT); nothing was stored")
+        raise InputError(f"{source}: a reason is required; nothing was stored")
     if len(text) > 500:
         raise InputError(f"{source}: the reason is {len(text)} characters long; expected at most 500 "
                          "(nothing was stored)")

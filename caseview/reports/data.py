@@ -13,7 +13,7 @@ from dataclasses import dataclass, field
 import numpy as np
 
 from caseview.errors import InputError
-from caseview.scoring import to_day
+from caseview.dates import to_day
 
 from .deidentify import DateView, withhold_dates
 from .model_summary import ModelSummary, summarise_model
@@ -146,9 +146,9 @@ def collect_report_data(ws, as_of: dt.date, *, horizon_days: float = 90.0, coord
             return assess_caseload(ws, date, horizon_days=horizon_days, callback=callback, reopen=False,
                                    include_closed=include_closed)
     if not np.isfinite(horizon_days) or horizon_days <= 0:
-        raise InputError(f"--horizon: expected a number of days > 0, got {horizon_days!r}")
+        raise InputError(f"horizon: expected a number of days > 0, got {horizon_days!r}")
     if since is not None and since >= as_of:
-        raise InputError(f"--since: expected a date before the as-of date {as_of.isoformat()}, "
+        raise InputError(f"changes since: expected a date before the as-of date {as_of.isoformat()}, "
                          f"got {since.isoformat()}")
     progress = callback or (lambda fraction: None)
     progress(0.0)
@@ -157,8 +157,8 @@ def collect_report_data(ws, as_of: dt.date, *, horizon_days: float = 90.0, coord
     scores = assessment.scores
     if scores.n_cases == 0:
         if scores.unscorable.n_cases:
-            raise InputError(f"--as-of {as_of.isoformat()}: no case can be scored; {scores.unscorable.summary()}")
-        raise InputError(f"--as-of {as_of.isoformat()}: no case has a contact on or before this date")
+            raise InputError(f"as of {as_of.isoformat()}: no case can be scored; {scores.unscorable.summary()}")
+        raise InputError(f"as of {as_of.isoformat()}: no case has a contact on or before this date")
     coordinators = np.asarray(scores.coordinators, dtype=object)
     in_scope = np.ones(scores.n_cases, dtype=bool)
     if coordinator:

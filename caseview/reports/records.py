@@ -7,10 +7,9 @@ them ``<name>_day_relative`` and fills them with days since the case's first con
 
 from __future__ import annotations
 
-import datetime as dt
-
 import numpy as np
 
+from caseview.dates import to_day
 from caseview.followup.wording import points
 
 from .deidentify import rewrite_dates
@@ -69,7 +68,7 @@ def contact_day(contact) -> int:
     day = int(getattr(contact, "day", 0) or 0)
     if day:
         return day
-    return (contact.date - dt.date(1970, 1, 1)).days
+    return to_day(contact.date)
 
 
 def short_reasons(data, r: int) -> str:

@@ -42,6 +42,7 @@ import numpy as np
 
 from ..inference import forward
 from ..model import StageModel
+from ..random_state import random_generator
 from ..simulate import simulate_caseload
 from ..timelines import MISSING, Timelines
 from .goodness_occupancy import occupancy_over_calendar_time, one_step_predictions
@@ -273,8 +274,9 @@ def goodness_of_fit(model: StageModel, timelines: Timelines, *, channel=None, gr
         Number of simulated caseloads for the p-value (0 = none).
     refit : bool
         Refit each replicate (one start from ``model``) before computing its statistic.
-    rng : numpy.random.Generator, optional
-        For the simulations (default ``numpy.random.default_rng(0)``).
+    rng : numpy.random.Generator, int or None
+        For the simulations (:func:`hmm.random_state.random_generator`; None: fresh entropy, so pass
+        a seed for a repeatable p-value).
     time_bins : int or array_like
         Calendar-time bins for the occupancy check (:func:`occupancy_over_calendar_time`).
     callback : callable(fraction), optional
@@ -289,7 +291,7 @@ def goodness_of_fit(model: StageModel, timelines: Timelines, *, channel=None, gr
     if int(bootstrap) < 0:
         raise ValueError(f"bootstrap must be 0 or more replicates, got {bootstrap}")
     channels = _channel_indices(model, channel)
-    rng = np.random.default_rng(0) if rng is None else rng
+    rng = random_generator(rng)
     warnings = []
     predictions = one_step_predictions(model, timelines)
     pairs = {c: _pairs(timelines, predictions.usable, c) for c in channels}

@@ -8,7 +8,9 @@ import numpy as np
 import pytest
 from scipy.linalg import expm
 
-from caseview.scoring import from_day, score_loaded, to_day
+from caseview.dates import from_day, to_day
+
+from caseview.scoring import score_loaded
 from hmm import MISSING, Timelines
 from hmm.simulate import simulate_caseload
 

@@ -7,7 +7,7 @@ from pathlib import Path
 
 import pytest
 
-from caseview.scoring import from_day
+from caseview.dates import from_day
 
 from .standin import AS_OF, MemorySource, make_caseload
 

@@ -12,7 +12,8 @@ from dataclasses import dataclass
 import numpy as np
 
 from caseview.gui.data_source import LoadedCaseload
-from caseview.scoring import score_loaded, to_day
+from caseview.dates import to_day
+from caseview.scoring import score_loaded
 
 AS_OF = dt.date(2026, 11, 30)
 

@@ -70,7 +70,7 @@ def test_select_case_updates_chart_and_contacts(window, qtbot, standin):
     assert view.data.case_id == case_id
     assert view.contacts.rowCount() == int(loaded.scores.n_contacts[target_row])
     assert view.contacts.item(0, 0).text() == \
-        __import__("caseview.scoring", fromlist=["from_day"]).from_day(view.data.contact_days[0]).isoformat()
+        __import__("caseview.dates", fromlist=["from_day"]).from_day(view.data.contact_days[0]).isoformat()
     assert case_id in view.title.text()
     # the chart carries the smoothed probabilities (rows sum to 1) and the "now" curve ends at p_now
     assert np.allclose(view.data.smoothed.sum(axis=1), 1.0)
