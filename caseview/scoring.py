@@ -9,6 +9,7 @@ from __future__ import annotations
 
 import datetime as dt
 from dataclasses import dataclass, field
+from typing import TYPE_CHECKING
 
 import numpy as np
 
@@ -17,6 +18,9 @@ from hmm.forecasting import forecast, reach_probability, stage_probabilities_now
 from hmm.inference import forward
 
 from .dates import EPOCH, from_day, parse_date, to_day  # noqa: F401  (their home is caseview.dates)
+
+if TYPE_CHECKING:
+    from .storage.caseload import Caseload
 
 
 def observation_end_day(timelines: Timelines) -> float:
@@ -117,7 +121,7 @@ class CaseloadScores:
     p_reach_follow_up: np.ndarray
     last_covariates: np.ndarray
     log_likelihood: np.ndarray
-    caseload: object
+    caseload: Caseload
     timelines: Timelines
     p_at_last_contact: np.ndarray | None = None
     unscorable: UnscorableCases = field(default_factory=_no_unscorable)

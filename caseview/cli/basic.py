@@ -182,19 +182,13 @@ def safe_text(values):
 def run_score(args) -> int:
     import numpy as np
 
-    from caseview.scoring import score_caseload
+    from caseview.followup import assess_caseload
 
     as_of = as_of_date(args)
     with open_workspace(args.workspace) as ws:
-        flags = None
-        try:
-            from caseview.followup import assess_caseload
-        except ModuleNotFoundError:
-            scores = score_caseload(ws, as_of, args.horizon, include_closed=args.include_closed)
-        else:
-            assessment = assess_caseload(ws, as_of, args.horizon, reopen=False, explain_reasons=False,
-                                         include_closed=args.include_closed)
-            scores, flags = assessment.scores, assessment.flags
+        assessment = assess_caseload(ws, as_of, args.horizon, reopen=False, explain_reasons=False,
+                                     include_closed=args.include_closed)
+        scores, flags = assessment.scores, assessment.flags
     model = scores.model
     n = scores.n_cases
     header = ["case_id", "as_of", "last_contact", "days_since_contact"]
@@ -209,7 +203,7 @@ def run_score(args) -> int:
         header.append(f"p_reach_{stage}")
         columns.append(format_probabilities(scores.p_reach[:, s]))
     header += ["flags", "coordinator", "p_follow_up_now", "p_reach_follow_up"]
-    columns += [list(flags) if flags is not None else [""] * n, safe_text(scores.coordinators),
+    columns += [list(flags), safe_text(scores.coordinators),
                 format_probabilities(scores.p_follow_up_now), format_probabilities(scores.p_reach_follow_up)]
     lost = scores.unscorable
     if lost.n_cases:  # one row each, in case order: blank numbers, the reason in the flags column
@@ -221,7 +215,7 @@ def run_score(args) -> int:
         columns = merge_case_rows(columns, scores.case_ids, extra, lost.case_ids)
     write_table(args.out, header, columns)
     if args.out != "-":
-        flagged = int(np.count_nonzero([bool(f) for f in flags])) if flags is not None else 0
+        flagged = int(np.count_nonzero(assessment.is_flagged))
         print(f"scored {n} cases as of {as_of.isoformat()} (horizon {scores.horizon_days:g} days, "
               f"model version {scores.model_version}); {flagged} flagged"
               + (f"; {lost.n_cases} cannot be scored" if lost.n_cases else "") + f"; wrote {args.out}")
@@ -260,60 +254,38 @@ def report_unscorable(lost, where: str = f"marked '{CANNOT_BE_SCORED}' in the ou
 
 # ---------------------------------------------------------------- history
 def run_history(args) -> int:
-    import numpy as np
+    from caseview.dates import to_day
+    from caseview.operations.case_history import case_history
 
-    from caseview.errors import InputError
-    from caseview.dates import parse_date, to_day
-    from hmm.inference import forward, most_likely_path, smoothed_probabilities
-
-    as_of_day = to_day(parse_date(args.as_of, "--as-of")) if args.as_of else None
+    as_of = as_of_date(args)
     with open_workspace(args.workspace) as ws:
-        case_id = ws.find_case(args.case_id)
-        model, version = ws.current_model()
-        caseload = ws.load_caseload(model, as_of_day=as_of_day)
-    hits = np.flatnonzero(caseload.case_ids == case_id)
-    if not hits.size:
-        raise InputError(f"case {case_id}: no contact on or before {args.as_of} in {args.workspace}")
-    case = int(hits[0])
-    timelines = caseload.timelines.subset([case])
-    rows = slice(caseload.timelines.offsets[case], caseload.timelines.offsets[case + 1])
-    from caseview.case_checks import IMPOSSIBLE_REASON, unscorable_reasons
-
-    reason = unscorable_reasons(model, timelines)[0]
-    if not reason:
-        result = forward(model, timelines)
-        reason = "" if result.finite[0] else IMPOSSIBLE_REASON
-    if reason:  # the recorded values, with blank probabilities and path; named on stderr, exit 4
-        smoothed, path = np.full((timelines.n_contacts, model.n_stages), np.nan), None
-    else:
-        smoothed = smoothed_probabilities(model, timelines, forward_result=result)
-        path = most_likely_path(model, timelines, forward_result=result)
-    n = timelines.n_contacts
+        h = case_history(ws, args.case_id, None if as_of is None else to_day(as_of))
+    model, n, scored = h.model, h.n_contacts, h.path is not None
     header = ["case_id", "date"]
-    columns = [[case_id] * n, format_days(caseload.contact_days[rows])]
+    columns = [[h.case_id] * n, format_days(h.contact_days)]
     for channel in model.channels:
         header.append(channel.name)
-        columns.append(list(caseload.raw_values[channel.name][rows]))
+        columns.append(list(h.raw_values[channel.name]))
     for k, name in enumerate(model.covariates):
         header.append(name)
-        columns.append([f"{v:g}" for v in timelines.covariates[:, k]])
-    if "stage_known" in caseload.raw_values:
+        columns.append([f"{v:g}" for v in h.covariates[:, k]])
+    if "stage_known" in h.raw_values:
         header.append("stage_known")
-        columns.append(list(caseload.raw_values["stage_known"][rows]))
+        columns.append(list(h.raw_values["stage_known"]))
     for s, stage in enumerate(model.stages):
         header.append(f"p_{stage}")
-        columns.append(format_probabilities(smoothed[:, s]) if path is not None else [""] * n)
+        columns.append(format_probabilities(h.smoothed[:, s]) if scored else [""] * n)
     header.append("path_stage")
-    columns.append([model.stages[i] for i in path] if path is not None else [""] * n)
+    columns.append([model.stages[i] for i in h.path] if scored else [""] * n)
     write_table(args.out, header, columns)
     if args.out != "-":
-        print(f"case {case_id}: {n} contacts (model version {version.id}); wrote {args.out}")
+        print(f"case {h.case_id}: {n} contacts (model version {h.version_id}); wrote {args.out}")
         print("path_stage is the most likely sequence of stages: an estimate, not a record.")
         print(ADVISORY_NOTICE)
-    if reason:
+    if h.reason:  # the recorded values, with blank probabilities and path; named on stderr, exit 4
         from caseview.errors import EXIT_CASES_NOT_SCORED
 
-        print(f"caseview: case {args.case_id} cannot be scored: {reason} (its contacts are listed without "
+        print(f"caseview: case {args.case_id} cannot be scored: {h.reason} (its contacts are listed without "
               "probabilities)", file=sys.stderr)
         return EXIT_CASES_NOT_SCORED
     return 0

@@ -24,6 +24,7 @@ from __future__ import annotations
 import calendar
 import datetime as dt
 from dataclasses import dataclass
+from typing import TYPE_CHECKING
 
 import numpy as np
 
@@ -33,6 +34,9 @@ from .occupancy import cell_columns, expected_entries, group_sums, occupancy_int
 from .poisson_binomial import (EXACT_BELOW_VARIANCE, CountDistributions, CountMoments, exact_pmf,
                                mixture_quantiles, moments_from_power_sums)
 from .referrals import ReferralAssumption
+
+if TYPE_CHECKING:
+    from caseview.scoring import UnscorableCases
 
 FOLLOW_UP_ROW = "follow-up stages"
 
@@ -131,7 +135,7 @@ class Outlook:
     coordinator: str | None
     model_version: int | None
     kept_fixed: tuple = ()
-    not_scored: object = None     # caseview.scoring.UnscorableCases: the cases left out, with reasons
+    not_scored: UnscorableCases | None = None     # the cases left out, with reasons
 
     @property
     def n_open(self) -> int:

@@ -24,15 +24,17 @@ DRAWN_KINDS = ("rate ", "effect of ", "initial P(")
 
 def fit_covariance(version) -> tuple:
     """``(names, covariance)`` stored with a fitted model version, or raise InputError saying why not."""
-    summary = getattr(version, "fit_summary", None)
-    if hasattr(summary, "to_dict"):
-        summary = summary.to_dict()
-    label = f"model version {version.id}" if getattr(version, "id", None) is not None else "the current model"
-    if not summary:
+    from hmm.fitting import FitSummary
+
+    label = f"model version {version.id}"
+    if not version.fit_summary:
         raise InputError(f"parameter uncertainty: {label} was entered, not fitted, so there is no estimated "
                          "sampling distribution to draw from; fit the model first or leave parameter uncertainty out")
-    names = summary.get("free_parameters")
-    matrix = summary.get("covariance")
+    try:
+        summary = FitSummary.from_dict(version.fit_summary)
+    except ValueError as exc:
+        raise InputError(f"parameter uncertainty: {label}: {exc}") from None
+    names, matrix = summary.free_parameters, summary.covariance
     if not names or matrix is None:
         raise InputError(f"parameter uncertainty: {label} was fitted before caseview stored the parameters' "
                          "covariance; fit it again or leave parameter uncertainty out")

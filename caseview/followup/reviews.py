@@ -165,7 +165,12 @@ def record_review(ws, case_id: str, status: str, note: str, actor: str, assessme
                    "p_follow_up_now": _finite_or_none(p_follow_up), "as_of": as_of_text}
         _audited_review(ws, actor, f"review.{status}", case_id, details, status, note, flags,
                         _finite_or_none(p_follow_up), as_of_text)
-    return store.latest_reviews(ws.connection, case_id)[case_id]
+    stored = store.latest_reviews(ws.connection, case_id)[case_id]
+    if assessment is not None:
+        row = assessment.scores.row_of(case_id)
+        if row >= 0:
+            assessment.note_review(row, stored)
+    return stored
 
 
 def _audited_review(ws, actor, action, case_id, details, status, note, flags, p_follow_up, as_of_text):

@@ -17,6 +17,7 @@ The ranking is a statistical estimate for planning, not a decision about any per
 
 from __future__ import annotations
 
+import datetime as dt
 from dataclasses import dataclass
 
 import numpy as np
@@ -48,7 +49,7 @@ class Targeting:
         Expected number of pool cases reaching a follow-up stage within the horizon without the change.
     """
 
-    as_of: object
+    as_of: dt.date
     horizon_days: float
     changes: dict
     among: str

@@ -165,15 +165,12 @@ class MainWindow(QMainWindow):
         from caseview.errors import CaseviewError
         from caseview.modelfile import parse_model
 
+        from caseview.storage import Workspace
+
         try:
             text = Path(model_path).read_text(encoding="utf-8-sig")
             parse_model(text, source=str(model_path))
-            from caseview.storage import Workspace
-
             Workspace.create(path, text, self.actor).close()
-        except ImportError:
-            self.show_error("Workspaces are not available in this build yet.")
-            return False
         except (CaseviewError, OSError) as exc:
             self.show_error(str(exc))
             return False
@@ -183,13 +180,10 @@ class MainWindow(QMainWindow):
         """Open a workspace file and score it in the background."""
         from caseview.errors import CaseviewError
 
-        try:
-            from .data_source import WorkspaceSource
+        from .data_source import WorkspaceSource
 
+        try:
             source = WorkspaceSource(path)
-        except ImportError:
-            self.show_error("Workspaces are not available in this build yet (storage is missing).")
-            return False
         except CaseviewError as exc:
             self.show_error(str(exc))
             return False
@@ -239,7 +233,7 @@ class MainWindow(QMainWindow):
     def reopen_risen_flags(self) -> list:
         """Re-open the dismissed flags whose risk rose (audited), then rescore to show them."""
         ws, loaded = self.workspace(), self.loaded
-        if ws is None or loaded is None or loaded.assessment is None:
+        if ws is None or loaded is None:
             return []
         from caseview.followup.reviews import reopen_risen
         from caseview.followup.wording import plural
@@ -305,8 +299,6 @@ class MainWindow(QMainWindow):
         the spot (one case takes a few milliseconds), see :meth:`RiskQueue.reasons_arrived`.
         """
         a = loaded.assessment
-        if a is None or not hasattr(a, "explain_cases"):
-            return
         from .data_source import REASONS_PER_STEP, full_collections_postponed, reason_steps
 
         from .risk_queue import FIRST_REASONS

@@ -21,6 +21,7 @@ from __future__ import annotations
 
 import datetime as dt
 from dataclasses import dataclass
+from typing import TYPE_CHECKING
 
 import numpy as np
 
@@ -28,6 +29,12 @@ from hmm.random_state import random_generator
 
 from ..errors import InputError
 from . import DEFAULT_SEED
+
+if TYPE_CHECKING:
+    from hmm import StageModel
+    from hmm.fitting import FitResult, FitSummary, GoodnessOfFit
+
+    from ..storage.caseload import Caseload
 
 __all__ = ["FitOptions", "FitInputs", "FitOutcome", "SavedFit", "FitPreview", "FitCheckOptions", "FitCheckOutcome",
            "fit_inputs", "inputs_from_caseload", "compute_fit", "save_fit", "make_version_current", "run_fit",
@@ -70,9 +77,9 @@ class FitInputs:
         None: every stored contact.
     """
 
-    model: object
+    model: StageModel
     version_id: int | None
-    caseload: object
+    caseload: Caseload
     contacts_as_of: dt.date | None
     entered_not_fitted: bool = False
 
@@ -92,8 +99,8 @@ class FitOutcome:
 
     inputs: FitInputs
     options: FitOptions
-    result: object            # hmm.fitting.FitResult
-    summary: object           # hmm.fitting.FitSummary, with provenance
+    result: FitResult
+    summary: FitSummary       # with provenance
 
 
 @dataclass(frozen=True)
@@ -103,7 +110,7 @@ class SavedFit:
     outcome: FitOutcome
     version_id: int
     made_current: bool
-    model: object = None      # hmm.StageModel as stored (covariate ranges seen at fit time filled in)
+    model: StageModel | None = None      # as stored (covariate ranges seen at fit time filled in)
 
     @property
     def note(self) -> str:
@@ -287,7 +294,7 @@ class FitCheckOptions:
 class FitCheckOutcome:
     inputs: FitInputs
     options: FitCheckOptions
-    result: object            # hmm.fitting.GoodnessOfFit
+    result: GoodnessOfFit
 
 
 def compute_fit_check(inputs: FitInputs, options: FitCheckOptions, callback=None) -> FitCheckOutcome:

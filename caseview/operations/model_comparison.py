@@ -10,12 +10,16 @@ from __future__ import annotations
 
 import datetime as dt
 from dataclasses import dataclass
+from typing import TYPE_CHECKING
 
 from hmm.random_state import random_generator
 
 from ..errors import InputError
 from . import DEFAULT_SEED
 from .fitting import stored_fit_failed, stored_fit_summary
+
+if TYPE_CHECKING:
+    from hmm.fitting import FitSummary
 
 __all__ = ["VersionComparison", "compare_versions"]
 
@@ -45,8 +49,8 @@ class VersionComparison:
 
     first: int
     second: int
-    first_summary: object
-    second_summary: object
+    first_summary: FitSummary
+    second_summary: FitSummary
     aic_difference: float
     bic_difference: float
     restricted: int | None

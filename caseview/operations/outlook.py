@@ -98,7 +98,7 @@ def outlook_from_scores(scores, version, as_of: dt.date, months: int = 12, refer
     model = scores.model
     rng = random_generator(seed)
     drawn = draw_models(model, version, draws, rng) if uncertainty == "parameters" else None
-    scores = _with_version(scores, getattr(version, "id", None))
+    scores = _with_version(scores, None if version is None else version.id)   # None: not from a workspace
     coordinator = _check_coordinator(scores, coordinator)
     open_cases = open_case_rows(scores, coordinator)
     mine = np.ones(scores.n_cases, dtype=bool) if coordinator is None else \

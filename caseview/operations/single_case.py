@@ -174,9 +174,7 @@ def rescore_one(ws, loaded, case_id: str, include_closed: bool = False):
     new_scores = dataclasses.replace(scores, caseload=caseload, timelines=timelines,
                                      case_rows=np.arange(n, dtype=np.int64), **changes)
 
-    assessment = loaded.assessment
-    if assessment is not None:
-        assessment = _reassess(ws, assessment, new_scores, fresh, splice, case_id)
+    assessment = _reassess(ws, loaded.assessment, new_scores, fresh, splice, case_id)
     return dataclasses.replace(loaded, scores=new_scores, assessment=assessment), (row if keep else -1)
 
 
@@ -208,9 +206,8 @@ def _reassess(ws, old, new_scores, fresh, splice: _Splice, case_id: str):
     else:
         reasons.insert(splice.row, one.reasons[0])
     evaluation = old.evaluation
-    if evaluation is not None:
-        evaluation = RuleEvaluation(
-            fired=splice.per_case(evaluation.fired, one.evaluation.fired if keep else None),
-            values=splice.per_case(evaluation.values, one.evaluation.values if keep else None),
-            rule_names=evaluation.rule_names)
+    evaluation = RuleEvaluation(
+        fired=splice.per_case(evaluation.fired, one.evaluation.fired if keep else None),
+        values=splice.per_case(evaluation.values, one.evaluation.values if keep else None),
+        rule_names=evaluation.rule_names)
     return dataclasses.replace(old, scores=new_scores, reasons=reasons, evaluation=evaluation, **changes)

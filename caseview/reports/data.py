@@ -9,14 +9,18 @@ from __future__ import annotations
 
 import datetime as dt
 from dataclasses import dataclass, field
+from typing import TYPE_CHECKING
 
 import numpy as np
 
 from caseview.errors import InputError
-from caseview.dates import to_day
 
 from .deidentify import DateView, withhold_dates
 from .model_summary import ModelSummary, summarise_model
+
+if TYPE_CHECKING:
+    from caseview.followup.assess import CaseloadAssessment
+    from caseview.followup.outlook import Outlook
 
 #: Review statuses that count as "review done" (a supervisor has looked at the flag).
 REVIEW_DONE = ("acknowledged", "actioned", "dismissed")
@@ -84,7 +88,7 @@ class ReportData:
         Expected number of cases in each stage (sum of probabilities).
     """
 
-    assessment: object
+    assessment: CaseloadAssessment
     as_of: dt.date
     horizon_days: float
     coordinator: str | None
@@ -104,7 +108,7 @@ class ReportData:
     model: ModelSummary
     audit_head: str
     options: dict = field(default_factory=dict)
-    outlook: object | None = None   # caseview.followup.outlook.Outlook (reports/outlook_page.py)
+    outlook: Outlook | None = None   # reports/outlook_page.py
     outlook_note: str = ""
     not_scored: list = field(default_factory=list)  # [(case_id, coordinator, reason)] in scope, never in figures
 
@@ -330,7 +334,3 @@ def case_history(scores, rows: np.ndarray, n_points: int = 60) -> list:
             "projection": projection[i, keep],
         })
     return out
-
-
-def day_of(date: dt.date) -> int:
-    return to_day(date)

@@ -296,14 +296,7 @@ def _model_page(data) -> Page:
     _unscheduled_contacts_table(page, m)
     page.paragraph(f"Follow-up stages: {', '.join(m.follow_up_stages) or 'none'}. Covariates: "
                    f"{', '.join(m.covariates) or 'none'}.", size=style.BODY_SIZE - 0.5)
-    rules = getattr(data.assessment, "rules", None)
-    items = []
-    try:
-        for rule in rules or ():
-            if getattr(rule, "enabled", True):
-                items.append(f"{rule.name} (threshold {rule.threshold:g})")
-    except TypeError:
-        items = []
+    items = [f"{rule.name} (threshold {rule.threshold:g})" for rule in data.assessment.rules if rule.enabled]
     if items:
         page.paragraph("Follow-up rules in use: " + "; ".join(items) + ".", size=style.BODY_SIZE - 0.5)
     page.heading("Audit trail", size=style.BODY_SIZE + 1)

@@ -95,19 +95,18 @@ def test_whatif_overlay_changes_forecast(window, qtbot, standin):
     assert np.allclose(view.data.ahead, before)
     # the demo model gives the programme hazard ratios < 1 on worsening moves (resources/models),
     # so the chance of a follow-up stage at the horizon must fall
-    assert view.data.whatif_follow_up < view.data.follow_up_at_horizon
+    assert view.data.whatif_follow_up_at_horizon < view.data.follow_up_at_horizon
     assert "What-if" in view.whatif_summary.text()
     # the window's numbers are those of `caseview forecast` (one what-if function for both faces)
     from caseview.followup import whatif_forecast
 
     w = whatif_forecast(loaded.scores, case_id, changes={"balance_programme": 1.0})
-    assert w.changed.p_follow_up_at_horizon == pytest.approx(view.data.whatif_follow_up, abs=1e-9)
+    assert w.changed.p_follow_up_at_horizon == pytest.approx(view.data.whatif_follow_up_at_horizon, abs=1e-9)
     assert f"→ {w.changed.p_follow_up_at_horizon * 100:.0f}%" in view.whatif_summary.text()
     assert any(line.get_label() == "follow-up, what-if" for line in view.figure.axes[0].lines)
 
 
 def test_fit_can_be_cancelled(window, qtbot, standin):
-    pytest.importorskip("hmm.fitting")
     load(window, qtbot, standin)
     panel = window.model_panel
     panel.starts.setValue(5)

@@ -15,7 +15,6 @@ pytestmark = pytest.mark.gui
 
 
 def test_review_flag_writes_audit_entry(window, qtbot, workspace_path):
-    pytest.importorskip("caseview.followup")
     loaded = open_ws(window, qtbot, workspace_path)
     queue = window.risk_queue
     assert loaded.assessment is not None and queue.model.rowCount() > 0
@@ -43,7 +42,6 @@ def test_review_flag_writes_audit_entry(window, qtbot, workspace_path):
 
 
 def test_import_bad_file_lists_every_error(window, qtbot, workspace_path, tmp_path):
-    pytest.importorskip("caseview.timeline_io")
     open_ws(window, qtbot, workspace_path)
     before = window.workspace().contact_count()
     bad = tmp_path / "bad.csv"
@@ -68,7 +66,6 @@ def test_import_bad_file_lists_every_error(window, qtbot, workspace_path, tmp_pa
 
 
 def test_import_good_file_after_check(window, qtbot, workspace_path, tmp_path):
-    pytest.importorskip("caseview.timeline_io")
     open_ws(window, qtbot, workspace_path)
     before = window.workspace().contact_count()
     good = tmp_path / "good.csv"

@@ -42,3 +42,23 @@ def test_report_shows_the_fitted_intervals_for_time_in_stage(fitted_version):
     assert "Wald" in summary.sojourn_source and "fitted to this caseload" in summary.sojourn_source
     labels = dict(summary.statistics)
     assert labels["cases"] == "200" and labels["converged"] == "yes"
+
+
+def test_window_sentences_and_report_read_time_in_stage_alike(fitted_version):
+    """One reader (FitSummary.from_dict): the stored JSON and the FitSummary itself give the report's rows."""
+    from caseview.reports.model_sentences import time_in_stage
+    from caseview.reports.model_summary import summarise_model
+
+    result, version = fitted_version
+    report = [(r.stage, r.mean, r.lower, r.upper) for r in summarise_model(result.model, version).sojourn]
+    for given in (version.fit_summary, result.to_summary()):
+        rows = [(r.stage, r.mean, r.lower, r.upper) for r in time_in_stage(result.model, given)]
+        assert rows == report
+
+
+def test_unscheduled_rates_read_from_a_fit_summary_object_or_its_json(fitted_version):
+    from caseview.reports.model_summary import unscheduled_contacts_per_year
+
+    result, version = fitted_version
+    assert unscheduled_contacts_per_year(result.model, version.fit_summary) == \
+        unscheduled_contacts_per_year(result.model, result.to_summary())
