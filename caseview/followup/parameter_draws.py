@@ -26,8 +26,8 @@ def fit_covariance(version) -> tuple:
     """``(names, covariance)`` stored with a fitted model version, or raise InputError saying why not."""
     from hmm.fitting import FitSummary
 
-    label = f"model version {version.id}"
-    if not version.fit_summary:
+    label = "the current model" if version is None else f"model version {version.id}"   # None: not stored
+    if version is None or not version.fit_summary:
         raise InputError(f"parameter uncertainty: {label} was entered, not fitted, so there is no estimated "
                          "sampling distribution to draw from; fit the model first or leave parameter uncertainty out")
     try:

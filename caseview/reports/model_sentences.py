@@ -16,7 +16,7 @@ import numpy as np
 
 from caseview.followup.wording import duration_with_interval, frequency_words
 
-from .model_summary import as_fit_summary, baseline_sojourn, fitted_time_in_stage
+from .model_summary import as_fit_summary, baseline_time_in_stage, fitted_time_in_stage
 
 
 def time_in_stage(model, fit_summary=None) -> list:
@@ -31,11 +31,11 @@ def time_in_stage(model, fit_summary=None) -> list:
 
     Returns
     -------
-    list[SojournRow], one per stage in model order; ``mean`` None for a stage nobody leaves.
+    list[TimeInStageRow], one per stage in model order; ``mean`` None for a stage nobody leaves.
     """
     fit = as_fit_summary(fit_summary)
     fitted = fitted_time_in_stage(model, fit) if fit is not None else None
-    return fitted if fitted else baseline_sojourn(model)
+    return fitted if fitted else baseline_time_in_stage(model)
 
 
 def _next_stages(model, stage_index: int) -> list:

@@ -20,7 +20,7 @@ NOT_FITTED = "rates not fitted to this caseload"
 
 
 @dataclass(frozen=True)
-class SojournRow:
+class TimeInStageRow:
     """Mean time in one stage (days) with an optional interval; ``mean`` None = absorbing."""
 
     stage: str
@@ -91,8 +91,8 @@ class ModelSummary:
     note: str
     fitted: bool
     statistics: list = field(default_factory=list)     # (label, text)
-    sojourn: list = field(default_factory=list)        # SojournRow
-    sojourn_source: str = ""
+    time_in_stage: list = field(default_factory=list)  # TimeInStageRow per stage
+    time_in_stage_source: str = ""
     follow_up_stages: tuple = ()
     covariates: tuple = ()
     unscheduled_per_year: list = field(default_factory=list)  # ContactRateRow; empty without the block
@@ -122,27 +122,27 @@ def format_statistic(value) -> str:
     return f"{number:,.2f}"
 
 
-def baseline_sojourn(model) -> list:
+def baseline_time_in_stage(model) -> list:
     """Mean time in each stage at all covariates 0: ``1 / (sum of rates out of the stage)`` days."""
     leave = -np.diag(model.generator())
-    return [SojournRow(stage, (1.0 / rate) if rate > 0 else None) for stage, rate in zip(model.stages, leave)]
+    return [TimeInStageRow(stage, (1.0 / rate) if rate > 0 else None) for stage, rate in zip(model.stages, leave)]
 
 
 def fitted_time_in_stage(model, fit: FitSummary) -> list | None:
-    """Mean time in each stage from a fit (:class:`SojournRow` per stage, model order), with its interval
+    """Mean time in each stage from a fit (:class:`TimeInStageRow` per stage, model order), with its interval
     when informative (else ``note`` says why not); None when the fit reported no mean times."""
     fitted = fit.mean_time_by_stage()
     if not fitted:
         return None
     rows = []
-    for row in baseline_sojourn(model):
+    for row in baseline_time_in_stage(model):
         e = fitted.get(row.stage)
         if e is None:
             rows.append(row)
         elif e.interval_is_informative:
-            rows.append(SojournRow(row.stage, e.estimate, e.lower, e.upper, e.note))
+            rows.append(TimeInStageRow(row.stage, e.estimate, e.lower, e.upper, e.note))
         else:
-            rows.append(SojournRow(row.stage, e.estimate, None, None, e.note or "no useful interval"))
+            rows.append(TimeInStageRow(row.stage, e.estimate, None, None, e.note or "no useful interval"))
     return rows
 
 
@@ -167,7 +167,7 @@ def summarise_model(model, version) -> ModelSummary:
     from hmm.fitting import FitSummary
 
     fit = None
-    statistics, sojourn, source, kind = [], None, "", ""
+    statistics, time_in_stage, source, kind = [], None, "", ""
     if version is not None and version.fit_summary:
         try:
             fit = FitSummary.from_dict(version.fit_summary)
@@ -176,19 +176,19 @@ def summarise_model(model, version) -> ModelSummary:
     if fit is not None:
         statistics = _statistics(fit)
         kind = fit.interval_kind
-        sojourn = fitted_time_in_stage(model, fit)
-        if sojourn:
+        time_in_stage = fitted_time_in_stage(model, fit)
+        if time_in_stage:
             source = f"fitted to this caseload; {fit.interval_label()}"
-    if not sojourn:
-        sojourn = baseline_sojourn(model)
+    if not time_in_stage:
+        time_in_stage = baseline_time_in_stage(model)
         source = ("from the fitted rates with all covariates 0" if fit
                   else f"from the model's rates with all covariates 0 ({NOT_FITTED})")
     return ModelSummary(
         name=model.name, version_id=None if version is None else version.id,
         created_utc="" if version is None else str(version.created_utc or ""),
         note="" if version is None else str(version.note or ""),
-        fitted=bool(version is not None and version.fit_summary), statistics=statistics, sojourn=sojourn,
-        sojourn_source=source, follow_up_stages=tuple(model.follow_up_stages), covariates=tuple(model.covariates),
+        fitted=bool(version is not None and version.fit_summary), statistics=statistics, time_in_stage=time_in_stage,
+        time_in_stage_source=source, follow_up_stages=tuple(model.follow_up_stages), covariates=tuple(model.covariates),
         interval_kind=kind,
         unscheduled_per_year=unscheduled_contacts_per_year(model, fit),
     )

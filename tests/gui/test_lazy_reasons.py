@@ -27,8 +27,10 @@ def test_reasons_arrive_after_the_table_and_match_the_cli(window, qtbot, workspa
     a = window.loaded.assessment
     assert a.reasons_pending.size == 0
     queue_rows = set(window.risk_queue.rows.tolist())
-    if arrived:  # the first step is the risk queue (what a supervisor looks at first)
-        assert set(arrived[0].tolist()) <= queue_rows
+    # the background job reported its steps (a test that passed with nothing arriving would prove nothing);
+    # the first step is the risk queue (what a supervisor looks at first)
+    assert arrived, "the reasons job reported nothing"
+    assert set(arrived[0].tolist()) <= queue_rows
     # every flagged case has the reasons an eager assessment gives (caseview flags / reports)
     with Workspace.open(workspace_path) as ws:
         eager = followup.assess_caseload(ws, AS_OF, window.horizon_days, reopen=False)

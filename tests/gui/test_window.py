@@ -6,7 +6,7 @@ import numpy as np
 import pytest
 from PySide6.QtCore import Qt
 
-from caseview.gui.caseload_model import CASE, DAYS_SINCE, P_REACH, PROBABILITY_ROLE
+from caseview.gui.caseload_model import CASE, DAYS_SINCE, P_REACH
 from caseview.gui.main_window import MainWindow
 
 from .standin import AS_OF
@@ -28,9 +28,9 @@ def test_open_sort_filter(window, qtbot, standin):
     loaded = load(window, qtbot, standin)
     model = window.caseload.model
     assert model.rowCount() == loaded.scores.n_cases
-    # default order: priority = P(reach follow-up) without follow-up rules, highest first
-    shown = np.array(column_values(model, P_REACH, PROBABILITY_ROLE))
-    assert np.all(np.diff(shown) <= 1e-12)
+    # default order: the assessment's priority (flagged first, then by follow-up probabilities), highest first
+    shown = loaded.assessment.priority[[model.case_row(i) for i in range(model.rowCount())]]
+    assert np.all(np.diff(shown) <= 1e-12) and loaded.assessment.is_flagged.any()
     # the view shows the percentage of the model's array for the top row
     top_row = model.case_row(0)
     assert column_values(model, P_REACH)[0] == f"{loaded.scores.p_reach_follow_up[top_row] * 100:.0f}%"

@@ -139,8 +139,8 @@ def test_fit_in_worker_previews_then_asks_before_the_new_version_becomes_current
     assert ws.audit_entries()[-1].action == "model.current"
     # the panel now shows fitted mean times in stage with intervals and their kind
     assert "fitted" in panel.heading.text() and "intervals" in panel.heading.text()
-    assert panel.sojourn.rowCount() == len(fitted.fit_summary["mean_time_in_stage"])
-    kinds = {panel.sojourn.item(r, 2).text() for r in range(panel.sojourn.rowCount())}
+    assert panel.time_in_stage_table.rowCount() == len(fitted.fit_summary["mean_time_in_stage"])
+    kinds = {panel.time_in_stage_table.item(r, 2).text() for r in range(panel.time_in_stage_table.rowCount())}
     assert any(k.endswith("wald") for k in kinds), kinds
 
 
