@@ -15,6 +15,8 @@ from typing import Any
 import numpy as np
 
 from hmm.model import UNDECLARED_RANGE, Channel, ModelError, StageModel, Transition, UnscheduledContacts, rate_limit_problem
+from hmm.model_rules import (first_duplicate, name_clash_problem, self_transition_problem, stage_count_problem,
+                             sum_to_one_problem)
 
 from .errors import InputError
 from .textfiles import decode_json, read_utf8_text
@@ -101,8 +103,9 @@ class _StageReference:
 def _stages(p: _Path, data: dict) -> list:
     """``stages``: at least two distinct names."""
     stages = _string_list(p, data, "stages", required=True)
-    if len(stages) < 2:
-        p.fail("stages", "a model needs at least two stages")
+    problem = stage_count_problem(len(stages))
+    if problem:
+        p.fail("stages", problem)
     _no_duplicates(p, "stages", stages)
     return stages
 
@@ -131,8 +134,9 @@ def _initial(p: _Path, data: dict, stages: list, stage_ref: _StageReference) -> 
     init = np.zeros(len(stages))
     for name, value in initial.items():
         init[stage_ref(f"initial.{name}", name)] = _number(p, f"initial.{name}", value, low=0.0)
-    if abs(init.sum() - 1.0) > 1e-6:
-        p.fail("initial", f"probabilities must sum to 1 within 1e-6, they sum to {init.sum():.8g}")
+    problem = sum_to_one_problem(init)
+    if problem:
+        p.fail("initial", problem)
     return init
 
 
@@ -149,8 +153,9 @@ def _transitions(p: _Path, data: dict, stages: list, stage_ref: _StageReference,
         if unknown:
             p.fail(where, f"unknown key(s) {', '.join(sorted(unknown))}")
         r, s = stage_ref(f"{where}.from", t.get("from")), stage_ref(f"{where}.to", t.get("to"))
-        if r == s:
-            p.fail(where, f"a transition from {stages[r]} to itself is not allowed")
+        problem = self_transition_problem(stages[r], stages[s])
+        if problem:
+            p.fail(where, problem)
         if (r, s) in seen:
             p.fail(where, f"transition {stages[r]} -> {stages[s]} already given at transitions[{seen[(r, s)]}]")
         seen[(r, s)] = i
@@ -206,9 +211,9 @@ def _channels(p: _Path, data: dict, stages: list, stage_ref: _StageReference, co
             fixed_stages.add(stage_ref(f"{where}.fixed_stages", stage))
         channels.append(Channel(c["name"], tuple(cats), table, frozenset(fixed_stages)))
     _no_duplicates(p, "channels", [c.name for c in channels])
-    clash = {c.name for c in channels} & set(covariates)
-    if clash:
-        p.fail("channels", f"name used for both a channel and a covariate: {', '.join(sorted(clash))}")
+    problem = name_clash_problem([c.name for c in channels], covariates)
+    if problem:
+        p.fail("channels", problem)
     return channels
 
 
@@ -228,8 +233,9 @@ def _probability_table(p: _Path, where: str, probs, stages: list, cats: list,
                                                      f"(one per category: {', '.join(cats)})")
         table[r] = [_number(p, f"{where}.probabilities.{stage}[{j}]", v, low=0.0, high=1.0)
                     for j, v in enumerate(row)]
-        if abs(table[r].sum() - 1.0) > 1e-6:
-            p.fail(f"{where}.probabilities.{stage}", f"must sum to 1 within 1e-6, sums to {table[r].sum():.8g}")
+        problem = sum_to_one_problem(table[r])
+        if problem:
+            p.fail(f"{where}.probabilities.{stage}", problem)
     return table
 
 
@@ -392,11 +398,9 @@ def _string_list(p: _Path, data: dict, key: str, required: bool = False, prefix:
 
 
 def _no_duplicates(p: _Path, where: str, names: list) -> None:
-    seen = set()
-    for i, n in enumerate(names):
-        if n in seen:
-            p.fail(f"{where}[{i}]", f"duplicate name {n!r}")
-        seen.add(n)
+    duplicate = first_duplicate(names)
+    if duplicate:
+        p.fail(f"{where}[{duplicate[0]}]", duplicate[1])
 
 
 def _number(p: _Path, where: str, value, low: float | None = None, high: float | None = None) -> float:

@@ -50,6 +50,7 @@ from numbers import Real
 import numpy as np
 
 from ..model import Channel, ModelError, StageModel, Transition
+from ..model_rules import exact_entry_problem, first_duplicate, name_clash_problem, stage_count_problem
 
 __all__ = ["UsualResult", "CheckEstimate", "Problem", "StaffEstimateError", "model_from_staff_estimates",
            "staff_estimate_problems", "staff_estimates_from_model", "check_probabilities", "SUM_TOLERANCE"]
@@ -261,14 +262,15 @@ def _build(stages, typical_stay_days, next_stage, initial, checks, covariates, h
 
 def _stage_name_problems(stages: tuple) -> list:
     """At least two stages, each a non-empty text listed once."""
-    if len(stages) < 2:
-        return [Problem(("stages",), "a model needs at least two stages")]
+    problem = stage_count_problem(len(stages))
+    if problem:
+        return [Problem(("stages",), problem)]
     problems = []
     for i, s in enumerate(stages):
         if not isinstance(s, str) or not s.strip():
             problems.append(Problem(("stages", i), f"a stage name must be a non-empty text, got {s!r}"))
         elif s in stages[:i]:
-            problems.append(Problem(("stages", i), f"stage {s!r} is listed twice"))
+            problems.append(Problem(("stages", i), first_duplicate(stages[:i + 1])[1]))
     return problems
 
 
@@ -311,7 +313,7 @@ def _covariate_name_problems(e: _Estimates, covariates: tuple) -> None:
         if not isinstance(cov, str) or not cov.strip():
             e.problems.append(Problem(("covariates", i), f"a covariate name must be a non-empty text, got {cov!r}"))
         elif cov in covariates[:i]:
-            e.problems.append(Problem(("covariates", i), f"covariate {cov!r} is listed twice"))
+            e.problems.append(Problem(("covariates", i), first_duplicate(covariates[:i + 1])[1]))
 
 
 def _effects_from_hazard_ratios(e: _Estimates, hazard_ratios, covariates: tuple, rates, leaves, unsettled) -> dict:
@@ -351,7 +353,7 @@ def _check_channels(e: _Estimates, checks, covariates: tuple, typical_stay_days,
             e.problems.append(Problem(where + ("name",), f"a check name must be a non-empty text, got {check.name!r}"))
             continue
         if check.name in names:
-            e.problems.append(Problem(where + ("name",), f"check {check.name!r} is listed twice"))
+            e.problems.append(Problem(where + ("name",), first_duplicate(names + [check.name])[1]))
             continue
         names.append(check.name)
         cats = tuple(check.categories)
@@ -384,10 +386,9 @@ def _check_channels(e: _Estimates, checks, covariates: tuple, typical_stay_days,
                 table[r] = check_probabilities(cats, check.results[stage])
         if ok:
             channels.append(Channel(check.name, cats, table, frozenset(fixed)))
-    clash = set(names) & set(covariates)
-    if clash:
-        e.problems.append(Problem(("checks",), f"name used for both a check and a covariate: "
-                                  f"{', '.join(sorted(clash))}"))
+    problem = name_clash_problem(names, covariates, channel_word="check")
+    if problem:
+        e.problems.append(Problem(("checks",), problem))
     return channels
 
 
@@ -398,8 +399,7 @@ def _listed_stage_problems(e: _Estimates, follow_up_stages, exact_entry_stages, 
             if s not in e.index:
                 e.unknown_stage((key, i), s)
             elif key == "exact_entry_stages" and leaves[e.index[s]]:
-                e.problems.append(Problem((key, i), f"exact entry dates are only for stages people never leave; "
-                                          f"{s!r} has a typical stay"))
+                e.problems.append(Problem((key, i), exact_entry_problem(s, True)))
 
 
 def staff_estimate_problems(*, stages, typical_stay_days, next_stage, initial, checks=(), covariates=(),
