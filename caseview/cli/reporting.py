@@ -46,7 +46,7 @@ def run_report(args) -> int:
     if args.seed is not None and args.dates != "shifted":
         print("caseview: note: --seed only matters with --dates shifted", file=sys.stderr)
     with Workspace.open(args.workspace) as ws:
-        for warning in getattr(ws, "warnings", []) or []:
+        for warning in ws.warnings:
             print(f"caseview: warning: {warning}", file=sys.stderr)
         result = build_report(ws, as_of, args.out, horizon_days=args.horizon, coordinator=args.coordinator,
                               flagged_only=args.flagged_only, since=since, dates=args.dates, seed=args.seed,

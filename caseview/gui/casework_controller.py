@@ -110,18 +110,9 @@ class CaseworkController(QObject):
     def _queue_state(self, loaded, row: int) -> tuple:
         """(listed in the risk queue, flagged, overdue) of case ``row``; the queue is refilled when it changes."""
         a = loaded.assessment
-        if a is None:
-            return (False, False, False)
-        listed_rows = getattr(self.window.risk_queue, "rows", np.zeros(0, dtype=np.int64))
         flagged = bool(a.is_flagged[row])
-        listed = bool(np.any(np.asarray(listed_rows) == row))
-        if flagged and not listed:  # would it enter the listed top of the queue?
-            from . import risk_queue
-
-            limit = getattr(risk_queue, "QUEUE_LIMIT", None)
-            priority = np.asarray(a.priority)
-            ahead = int(np.count_nonzero(np.asarray(a.is_flagged) & (priority > priority[row])))
-            listed = limit is None or ahead < limit
+        # the queue lists every flagged case (no cap), so a newly flagged case enters it
+        listed = flagged or bool(np.any(np.asarray(self.window.risk_queue.rows) == row))
         due = int(a.next_contact_due_day[row])
         overdue = flagged and 0 <= due <= loaded.scores.as_of_day
         return (listed, flagged, overdue)
@@ -227,7 +218,7 @@ class CaseworkController(QObject):
             return None
         window.jobs.cancel("reasons")  # the splice writes the changed case's row in place
         started = time.perf_counter()
-        include_closed = bool(getattr(window.source, "include_closed", False))
+        include_closed = bool(window.source.include_closed)
         before = window.loaded
         ids = before.scores.case_ids
         position = int(np.searchsorted(ids, case_id))

@@ -106,7 +106,7 @@ class WorkspaceSource:
         self._workspace = Workspace.open(self.path)  # main-thread connection; raises WorkspaceError
         self.label = self.path.name
         self.include_closed = False  # the window's "Show closed" filter
-        self.warnings = list(getattr(self._workspace, "warnings", []) or [])
+        self.warnings = list(self._workspace.warnings)
 
     def workspace(self):
         return self._workspace

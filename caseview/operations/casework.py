@@ -114,11 +114,8 @@ def _validated(ws, source: str, case_id: str, date, coordinator: str, values: di
     cells = [str(case_id), date if isinstance(date, str) else str(date), coordinator or "",
              *[str(values.get(name, "") or "") for name in channels],
              *[_number_text(covariates.get(name)) for name in model.covariates], stage_known or ""]
-    extra = {}
-    if "covariate_ranges" in getattr(Rules, "__dataclass_fields__", {}):  # the import's range check, once landed
-        extra["covariate_ranges"] = getattr(model, "range_of", {})
     rules = Rules(channels=channels, covariates=tuple(model.covariates), stages=tuple(model.stages),
-                  present=tuple(columns), **extra)
+                  present=tuple(columns), covariate_ranges=model.range_of)
     problems = Problems(source)
     validator = ChunkValidator(rules, problems, lambda line: "the contact")
     encoded = validator.validate(1, pd.DataFrame([cells], columns=list(range(len(columns))), dtype=object))
@@ -149,20 +146,15 @@ def _with_kind(batch, contact_kind, source: str):
 
 def _existing_case(ws, case_id: str, source: str) -> str:
     """The stored case that a typed ID names (the workspace's one lookup, letter case ignored)."""
-    if hasattr(ws, "find_case"):
-        return ws.find_case(case_id)
-    return _case_code(ws, case_id, source)
+    return ws.find_case(case_id)
 
 
 def _case_code(ws, case_id: str, source: str) -> str:
     """The case ID as the import would store it (checked and screened like an imported one)."""
-    if hasattr(ws, "find_case"):
-        from ..errors import InputError as _Missing
-
-        try:
-            return ws.find_case(case_id)  # an existing case, however it was typed
-        except _Missing:
-            pass  # a new case: checked below like an imported ID
+    try:
+        return ws.find_case(case_id)  # an existing case, however it was typed
+    except InputError:
+        pass  # a new case: checked below like an imported ID
     model, _ = ws.current_model()
     covariates = {name: 0 for name in model.covariates}
     batch = _validated(ws, source, case_id, "2000-01-01", "", {}, covariates, "")

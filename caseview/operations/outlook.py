@@ -112,7 +112,7 @@ def outlook_from_scores(scores, version, as_of: dt.date, months: int = 12, refer
 
     result = compute_outlook(scores, as_of, months, assumption, open_cases, drawn, rates,
                              seed if drawn is not None else None, coordinator, callback=callback)
-    return replace(result, not_scored=getattr(scores, "unscorable", None))
+    return replace(result, not_scored=scores.unscorable)
 
 
 def _with_version(scores, version_id):

@@ -105,16 +105,15 @@ def _timelines(old, new, splice: _Splice):
     parts = {"offsets": splice.offsets(old.offsets, count).astype(np.int64), "times": rows("times"),
              "observations": rows("observations"), "allowed_stages": rows("allowed_stages"),
              "covariates": rows("covariates")}
-    if "unscheduled" in getattr(Timelines, "__dataclass_fields__", {}):  # contact_kind, when recorded
-        old_kind, new_kind = old.unscheduled, (new.unscheduled if splice.keep else None)
-        if old_kind is None and new_kind is None:
-            parts["unscheduled"] = None
-        else:
-            if old_kind is None:
-                old_kind = np.zeros(old.n_contacts, dtype=bool)
-            if splice.keep and new_kind is None:
-                new_kind = np.zeros(new.n_contacts, dtype=bool)
-            parts["unscheduled"] = splice.per_contact(old_kind, new_kind, old.offsets)
+    old_kind, new_kind = old.unscheduled, (new.unscheduled if splice.keep else None)   # contact_kind
+    if old_kind is None and new_kind is None:
+        parts["unscheduled"] = None
+    else:
+        if old_kind is None:
+            old_kind = np.zeros(old.n_contacts, dtype=bool)
+        if splice.keep and new_kind is None:
+            new_kind = np.zeros(new.n_contacts, dtype=bool)
+        parts["unscheduled"] = splice.per_contact(old_kind, new_kind, old.offsets)
     # Every part was checked when it was loaded (the caseload, and the case alone), and the splice
     # keeps the case order, so the 1.2-million-row check of Timelines.__post_init__ is not run again.
     spliced = object.__new__(Timelines)

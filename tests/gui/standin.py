@@ -61,6 +61,7 @@ class MemorySource:
         self.label = label
         self.warnings = []
         self.loads = 0
+        self.include_closed = False  # the window's "Show closed" filter (WorkspaceSource has it too)
 
     def workspace(self):
         return None
