@@ -22,7 +22,6 @@ from dataclasses import asdict, dataclass
 import numpy as np
 
 from ..dates import day_text
-
 from ..errors import InputError
 from . import audit as _audit
 from .contact_writer import ContactBatch, encode_batch
