@@ -47,3 +47,30 @@ def demo_model():
 @pytest.fixture
 def python_exe() -> str:
     return sys.executable
+
+
+# ---------------------------------------------------------------------------- PostgreSQL (a real server)
+@pytest.fixture(scope="session")
+def postgres_cluster():
+    """A throwaway PostgreSQL cluster for the whole session (initdb + pg_ctl on a unix socket in a
+    temporary folder; stopped and removed at the end). Skipped when the machine has no server
+    programs, unless CASEVIEW_REQUIRE_POSTGRES=1 (CI), where that FAILS the PostgreSQL tests."""
+    from postgres_cluster import start_for_tests
+
+    cluster = start_for_tests()
+    yield cluster
+    cluster.stop()
+
+
+@pytest.fixture
+def pg_url(postgres_cluster) -> str:
+    """The URL of a fresh, empty database of its own for one test."""
+    return postgres_cluster.create_database()
+
+
+@pytest.fixture(params=["sqlite", "postgresql"])
+def workspace_target(request, tmp_path) -> str:
+    """Where to create a workspace: a new SQLite file path, or the URL of an empty PostgreSQL database."""
+    if request.param == "sqlite":
+        return str(tmp_path / "shared.cvw")
+    return request.getfixturevalue("pg_url")

@@ -302,7 +302,8 @@ def create_demo_workspace(path: Path, actor: str):
         report = import_timelines(ws, DEMO_TIMELINES, actor=actor)
     except BaseException:
         ws.close()
-        path.unlink(missing_ok=True)
+        if isinstance(path, Path):  # a database keeps its (empty) workspace; the import rolled back
+            path.unlink(missing_ok=True)
         raise
     ws.close()
     return report
@@ -311,8 +312,10 @@ def create_demo_workspace(path: Path, actor: str):
 def run_demo(args) -> int:
     from caseview.errors import InputError
 
-    path = Path(args.path)
-    if path.exists():
+    from caseview.storage.location import workspace_location
+
+    path = workspace_location(args.path)  # a file path or an empty PostgreSQL database's URL
+    if isinstance(path, Path) and path.exists():
         raise InputError(f"{path}: already exists; choose a new path for the demo workspace")
     report = create_demo_workspace(path, actor_name(args))
     print(f"created demo workspace {path}: {report.cases_added} invented cases, {report.contacts_added} contacts")

@@ -17,9 +17,10 @@ from .basic import open_workspace as _open
 
 def register(subparsers) -> None:
     p = subparsers.add_parser("init", help="create a new workspace file with a stage model",
-                              description="Create a new workspace (one SQLite file at any path) with MODEL.json "
-                                          "as its first model, or a model built from a staff-estimate file. "
-                                          "Refuses an existing file.")
+                              description="Create a new workspace (one SQLite file at any path, or an empty PostgreSQL "
+                                          "database given as postgresql://[user@]host[:port]/dbname) with "
+                                          "MODEL.json as its first model, or a model built from a staff-estimate "
+                                          "file. Refuses an existing file or a database that is not empty.")
     p.add_argument("workspace", metavar="WS")
     first = p.add_mutually_exclusive_group(required=True)
     first.add_argument("--model", metavar="MODEL.json", help="a stage-model file")
@@ -211,7 +212,8 @@ def run_check(args) -> int:
             integrity = ws.integrity_report()
         except sqlite3.DatabaseError as exc:
             integrity = [str(exc)]
-        print(f"integrity check (SQLite): {'ok' if integrity == ['ok'] else 'FAILED'}")
+        server = "PostgreSQL" if ws.is_postgres else "SQLite"
+        print(f"integrity check ({server}): {'ok' if integrity == ['ok'] else 'FAILED'}")
         if integrity != ["ok"]:
             problems.append("SQLite integrity check: " + "; ".join(integrity[:5])
                             + (f" (and {len(integrity) - 5} more)" if len(integrity) > 5 else ""))

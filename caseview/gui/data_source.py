@@ -99,11 +99,13 @@ def reason_steps(assessment, first, per_step: int = REASONS_PER_STEP) -> list:
 class WorkspaceSource:
     """A caseview workspace file. Worker threads open their own connection (one per thread)."""
 
-    def __init__(self, path):
+    def __init__(self, path, password: str | None = None):
         from caseview.storage import Workspace
+        from caseview.storage.location import workspace_location
 
-        self.path = Path(path)
-        self._workspace = Workspace.open(self.path)  # main-thread connection; raises WorkspaceError
+        self.path = workspace_location(path)  # a file Path, or a PostgreSQL DatabaseURL
+        self._password = password  # PostgreSQL: the prompted password, for worker threads' own connections
+        self._workspace = Workspace.open(self.path, password=password)  # main-thread connection; raises WorkspaceError
         self.label = self.path.name
         self.include_closed = False  # the window's "Show closed" filter
         self.warnings = list(self._workspace.warnings)
@@ -119,13 +121,19 @@ class WorkspaceSource:
         from caseview.followup.reviews import pending_reopens
         from caseview.storage import Workspace
 
-        with full_collections_postponed(), Workspace.open(self.path) as ws:
+        with full_collections_postponed(), Workspace.open(self.path, password=self._password) as ws:
             # flags now, reasons later: the window explains flagged cases in a second job
             # (risk queue first) and on the spot for a case the user selects
             # reopen=False: loading never writes (re-opening is the queue's explicit step)
             assessment = assess_caseload(ws, as_of, horizon_days, callback=callback, explain_reasons=False,
                                          reopen=False, include_closed=self.include_closed)
             return LoadedCaseload(assessment.scores, assessment, [], pending_reopens(ws, assessment))
+
+    def open_workspace(self):
+        """A new connection to the same workspace for a worker thread (with the prompted password, if any)."""
+        from caseview.storage import Workspace
+
+        return Workspace.open(self.path, password=self._password)
 
     def close(self) -> None:
         try:

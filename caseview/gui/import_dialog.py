@@ -207,11 +207,12 @@ class ImportDialog(QDialog):
         from caseview.timeline_io import import_timelines
 
         path, actor, ws_path = self.path, self.actor, self.source.path
+        reopen = getattr(self.source, "open_workspace", None) or (lambda: Workspace.open(ws_path))
         mapping, drop = self.mapping_arguments()
         options = self.import_options()
 
         def job(callback):
-            with Workspace.open(ws_path) as ws:
+            with reopen() as ws:  # a database workspace keeps the password the window was given
                 return import_timelines(ws, path, actor, mapping=mapping, drop=drop, progress=callback,
                                         check_only=validate_only, **options)
         return job

@@ -187,7 +187,9 @@ class MainWindow(QMainWindow):
         except CaseviewError as exc:
             self.show_error(str(exc))
             return False
-        self._remember(Path(path).resolve())
+        from caseview.storage.location import is_database_url
+
+        self._remember(str(path).strip() if is_database_url(path) else Path(path).resolve())  # a URL as typed
         self.set_source(source, case_id)
         for warning in source.warnings:
             self.statusBar().showMessage(warning)

@@ -82,13 +82,14 @@ class ReportDialog(QDialog):
             return
         w = self.window
         ws_path, as_of, horizon, actor = w.source.path, w.as_of, w.horizon_days, w.actor
+        reopen = getattr(w.source, "open_workspace", None) or (lambda: Workspace.open(ws_path))
         coordinator = self.coordinator.currentData() or None
         flagged, dates = self.flagged.isChecked(), self.dates.currentData()
         d = self.since.date()
         since = dt.date(d.year(), d.month(), d.day()) if self.since_on.isChecked() else None
 
         def job(callback):
-            with Workspace.open(ws_path) as ws:
+            with reopen() as ws:  # a database workspace keeps the password the window was given
                 return build_report(ws, as_of, out, horizon_days=horizon, coordinator=coordinator,
                                     flagged_only=flagged, since=since, dates=dates, actor=actor, callback=callback)
 

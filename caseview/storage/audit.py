@@ -77,6 +77,14 @@ def next_entry_id(connection) -> int:
     return (row[0] or 0) + 1
 
 
+def audit_actor(connection, given: str) -> str:
+    """Who an entry records: the given name on SQLite (attribution); on PostgreSQL the connection
+    decides (:meth:`caseview.storage.pg_connection.PgConnection.audit_actor`, the place where the
+    server's ``session_user`` takes over)."""
+    choose = getattr(connection, "audit_actor", None)
+    return given if choose is None else choose(given)
+
+
 def append(connection, actor: str, action: str, target: str, details: dict, changes=None,
            at_utc: str | None = None) -> AuditEntry:
     """Append one entry; the caller holds a write transaction (BEGIN IMMEDIATE).
@@ -89,6 +97,7 @@ def append(connection, actor: str, action: str, target: str, details: dict, chan
     at_utc : str, optional
         The entry's time (default now), for a row that stores its entry's time.
     """
+    actor = audit_actor(connection, actor)
     details = dict(details or {})
     if changes is not None:
         from .row_digests import record_row_changes

@@ -136,6 +136,12 @@ def _contact_columns_by_case(connection, as_of_day: int | None, ids: list):
     values : bytes
         The stored observation and covariate bytes of every contact, concatenated in row order.
     """
+    if getattr(connection, "kind", "sqlite") == "postgresql":  # the same columns, aggregated by the server
+        from .pg_reads import contact_columns
+
+        width = connection.execute("SELECT (SELECT COUNT(*) FROM channels) + 8 * (SELECT COUNT(*) FROM covariates)"
+                                   ).fetchone()[0]
+        return contact_columns(connection, as_of_day, int(width), ids)
     # (case id, day) packed into one number per contact: one text conversion instead of two
     sql = (f"SELECT COUNT(*), group_concat((case_id << {_DAY_BITS}) + (day + {_DAY_OFFSET})),"
            " CAST(group_concat(observations || covariates, '') AS BLOB), group_concat(COALESCE(coordinator_id, -1))"

@@ -8,6 +8,10 @@ backup before any migration. Every multi-row write runs inside :meth:`Workspace.
 (``BEGIN IMMEDIATE``), so it is all or nothing even when the process is killed.
 
 One SQLite connection per thread (``Workspace.connection``).
+
+A workspace may also live in a PostgreSQL database (``Workspace.open("postgresql://host/db")``): the
+same class, the same storage code, with what differs (connecting, identity and version, locking,
+the translated schema) in :mod:`caseview.storage.pg_backend` and :mod:`caseview.storage.pg_schema`.
 """
 
 from __future__ import annotations
@@ -28,6 +32,7 @@ from . import schema as _schema
 from .caseload import Caseload, load_caseload
 from .contacts import register_model_fields
 from .filesystem import network_warning
+from .location import DatabaseURL, workspace_location
 from .row_digests import LAYOUT_TABLES, RowChanges
 from .workspace_files import backup_workspace, connect_read_only, disk_hint
 
@@ -56,8 +61,12 @@ def _is_busy(exc: sqlite3.OperationalError) -> bool:
 class Workspace:
     """An open workspace. Use :meth:`create` or :meth:`open`; close with :meth:`close` or ``with``."""
 
-    def __init__(self, path, busy_timeout_ms: int | None = None, read_only: bool = False):
-        self.path = Path(path)
+    def __init__(self, path, busy_timeout_ms: int | None = None, read_only: bool = False,
+                 password: str | None = None):
+        #: a Path (SQLite file) or a DatabaseURL (PostgreSQL); both have ``.name`` and print as given
+        self.path = workspace_location(path)
+        self.is_postgres = isinstance(self.path, DatabaseURL)
+        self._password = password  # PostgreSQL only (the window's prompt); never stored elsewhere
         self.read_only = bool(read_only)
         self._immutable = False
         if busy_timeout_ms is None:
@@ -72,6 +81,10 @@ class Workspace:
 
     # ------------------------------------------------------------ connections
     def _connect(self) -> sqlite3.Connection:
+        if self.is_postgres:
+            from . import pg_backend
+
+            return pg_backend.connect(self.path, self._password, self.busy_timeout_ms, self.read_only)
         try:
             if self.read_only:
                 con = connect_read_only(self)
@@ -108,7 +121,7 @@ class Workspace:
             for con in self._connections:
                 try:
                     con.close()
-                except sqlite3.Error:
+                except (sqlite3.Error, OSError):
                     pass
             self._connections.clear()
         self._local = threading.local()
@@ -123,11 +136,17 @@ class Workspace:
 
     # ------------------------------------------------------------ open/create
     @classmethod
-    def create(cls, path, model_json: str, actor: str, busy_timeout_ms: int | None = None) -> "Workspace":
-        """Create a new workspace at ``path`` with ``model_json`` as its first (current) model."""
+    def create(cls, path, model_json: str, actor: str, busy_timeout_ms: int | None = None,
+               password: str | None = None) -> "Workspace":
+        """Create a new workspace at ``path`` (a file path, or the URL of an empty PostgreSQL database)
+        with ``model_json`` as its first (current) model."""
         from ..modelfile import parse_model
 
-        path = Path(path)
+        path = workspace_location(path)
+        if isinstance(path, DatabaseURL):
+            from .pg_backend import create_workspace
+
+            return create_workspace(cls, path, model_json, actor, busy_timeout_ms, password)
         if path.exists() or path.is_symlink():
             raise WorkspaceError(f"{path} already exists; choose a new workspace path (nothing was changed)")
         if not path.parent.exists():
@@ -158,14 +177,23 @@ class Workspace:
         return ws
 
     @classmethod
-    def open(cls, path, busy_timeout_ms: int | None = None, read_only: bool | None = None) -> "Workspace":
+    def open(cls, path, busy_timeout_ms: int | None = None, read_only: bool | None = None,
+             password: str | None = None) -> "Workspace":
         """Open an existing workspace, migrating it forward (after a backup) if it is older.
+
+        ``path`` is a file path or a PostgreSQL URL (``postgresql://[user@]host[:port]/dbname``, or
+        ``postgresql:///dbname?host=/socket/dir``); ``password`` is for PostgreSQL only (otherwise
+        libpq's PGPASSWORD / password file / service file apply).
 
         ``read_only``: True opens it for reading only (SQLite ``mode=ro``; writes are refused); None
         (default) does so when the file or its folder cannot be written (a read-only file system or
         permissions), False never.
         """
-        path = Path(path)
+        path = workspace_location(path)
+        if isinstance(path, DatabaseURL):
+            from .pg_backend import open_workspace
+
+            return open_workspace(cls, path, busy_timeout_ms, read_only, password)
         if not path.exists():
             raise WorkspaceError(f"{path}: no such workspace (create one with 'caseview init')")
         if not path.is_file():
@@ -213,6 +241,8 @@ class Workspace:
 
     def is_own_file(self, path) -> bool:
         """True when ``path`` is this workspace's file or its -wal/-shm/-journal (compared with stat, never opened)."""
+        if self.is_postgres or isinstance(path, DatabaseURL):
+            return False
         for suffix in ("", "-wal", "-shm", "-journal"):
             try:
                 if os.path.samefile(path, str(self.path) + suffix):
@@ -222,11 +252,17 @@ class Workspace:
         return False
 
     def _check_network(self) -> None:
+        if self.is_postgres:
+            return
         warning = network_warning(self.path)
         if warning:
             self.warnings.append(warning)
 
     def _apply_migrations(self, from_version: int) -> None:
+        if self.is_postgres:
+            from . import pg_backend
+
+            return pg_backend.apply_migrations(self, from_version)
         con = self.connection
         for number, script in enumerate(_schema.MIGRATIONS[from_version:], start=from_version + 1):
             for statement in _split_sql(script):
@@ -236,18 +272,22 @@ class Workspace:
     def _migrate(self, from_version: int) -> None:
         digests_from = _schema.MIGRATIONS.index(_schema.ROW_DIGESTS) + 1
         stamp = _dt.datetime.now(_dt.timezone.utc).strftime("%Y%m%dT%H%M%SZ")
-        backup_path = self.path.with_name(f"{self.path.name}.v{from_version}-backup-{stamp}")
-        self.backup(backup_path, actor=None)
+        if self.is_postgres:  # DDL is transactional there: the upgrade is all or nothing, no file copy
+            backup_path = None
+        else:
+            backup_path = self.path.with_name(f"{self.path.name}.v{from_version}-backup-{stamp}")
+            self.backup(backup_path, actor=None)
         with self.transaction():
             self._apply_migrations(from_version)
             _audit.append(self.connection, "caseview", "workspace.migrate", self.path.name,
                           {"from_version": from_version, "to_version": _schema.schema_version(),
-                           "backup": backup_path.name})
+                           "backup": backup_path.name if backup_path else None})
             if from_version < digests_from:  # records made before row digests: the trail takes them as they are
                 _audit.append(self.connection, "caseview", "audit.baseline", self.path.name,
                               {"note": "baseline digest of existing rows"}, changes=RowChanges.everything())
         self.warnings.append(f"workspace upgraded from schema version {from_version} to "
-                             f"{_schema.schema_version()}; the old file was kept as {backup_path}")
+                             f"{_schema.schema_version()}" + (f"; the old file was kept as {backup_path}"
+                                                              if backup_path else " in one transaction"))
 
     # ------------------------------------------------------------ transactions
     @contextmanager
@@ -265,7 +305,12 @@ class Workspace:
                 self._local.depth -= 1
             return
         try:
-            con.execute("BEGIN IMMEDIATE")
+            if self.is_postgres:
+                from .pg_backend import begin_write
+
+                begin_write(con)
+            else:
+                con.execute("BEGIN IMMEDIATE")
         except sqlite3.OperationalError as exc:
             if _is_busy(exc):
                 raise WorkspaceBusy(_busy_message(self.path)) from None
@@ -305,7 +350,13 @@ class Workspace:
 
     # ------------------------------------------------------------ backup
     def backup(self, destination, actor: str | None = None) -> Path:
-        """Copy the workspace: complete, checked, then recorded (see :func:`.workspace_files.backup_workspace`)."""
+        """Copy the workspace: complete, checked, then recorded (see :func:`.workspace_files.backup_workspace`).
+
+        A PostgreSQL workspace is copied into a new SQLite file (:func:`.workspace_copy.copy_workspace`)."""
+        if self.is_postgres:
+            from .workspace_copy import backup_database
+
+            return backup_database(self, destination, actor)
         return backup_workspace(self, destination, actor)
 
     # ------------------------------------------------------------ models
@@ -434,10 +485,16 @@ class Workspace:
         return fetch_contacts(self.connection, as_of_day)
 
     def integrity_check(self) -> str:
-        return self.connection.execute("PRAGMA integrity_check").fetchone()[0]
+        return self.integrity_report(1)[0]
 
     def integrity_report(self, max_problems: int = 100) -> list:
-        """SQLite's ``PRAGMA integrity_check``: ``["ok"]`` or up to ``max_problems`` descriptions."""
+        """SQLite's ``PRAGMA integrity_check``: ``["ok"]`` or up to ``max_problems`` descriptions.
+
+        On PostgreSQL the server keeps pages and indexes consistent itself: the check is that the
+        workspace's tables can be read (the audit verification then checks every record)."""
+        if self.is_postgres:
+            self.connection.execute("SELECT COUNT(*) FROM audit_log").fetchone()
+            return ["ok"]
         return [row[0] for row in self.connection.execute(f"PRAGMA integrity_check({int(max_problems)})")]
 
     # ------------------------------------------------------------ audit
@@ -460,7 +517,12 @@ class Workspace:
         con = self.connection
         if con.in_transaction:
             return _audit.verify(con, rows)
-        con.execute("BEGIN")  # one consistent snapshot while others write
+        if self.is_postgres:
+            from .pg_backend import begin_snapshot
+
+            begin_snapshot(con)
+        else:
+            con.execute("BEGIN")  # one consistent snapshot while others write
         try:
             return _audit.verify(con, rows)
         finally:
