@@ -11,9 +11,16 @@ so the model is fitted (``caseview fit``) to a 3,000-case caseload simulated fro
 model, and that fitted version is added to the big workspace as its current model. Its covariance
 is wider than a 100,000-case fit's would be, which does not change the work done.
 
+With parameter uncertainty every draw also moves each case's stage probabilities now
+(:mod:`caseview.followup.now_draws`: a stratified sample of 5,000 open cases rescored under each
+draw, the other cases moved by their group's average change). ``--stability`` then compares, in
+this process and with the same parameter draws, the bands from that sample with those from a
+larger sample and from every case rescored (``--stability-draws`` draws, default 40; every case
+costs one full rescore per draw).
+
 Run::
 
-    python benchmarks/outlook.py [--cases 100000] [--draws 200] [--work /tmp/caseview_outlook_bench]
+    python benchmarks/outlook.py [--cases 100000] [--draws 200] [--work /tmp/caseview_outlook_bench] [--stability]
 """
 
 from __future__ import annotations
@@ -79,6 +86,8 @@ def main(argv=None) -> int:
     parser.add_argument("--draws", type=int, default=200)
     parser.add_argument("--seed", type=int, default=20261203)
     parser.add_argument("--work", type=Path, default=Path("/tmp/caseview_outlook_bench"))
+    parser.add_argument("--stability", action="store_true", help="compare the now-sample with every case")
+    parser.add_argument("--stability-draws", type=int, default=40)
     args = parser.parse_args(argv)
     args.work.mkdir(parents=True, exist_ok=True)
     big, last_day = _caseload(args.work, args.cases, args.seed)
@@ -102,7 +111,46 @@ def main(argv=None) -> int:
     print(render_table(rows))
     for note in notes:
         print(f"- {note}")
+    if args.stability:
+        _stability(big, last_day, args.stability_draws, args.seed)
     return 0 if all(r.passed() for r in rows) else 1
+
+
+def _stability(path: Path, last_day: str, draws: int, seed: int) -> None:
+    """Bands with the default now-sample against a larger one and every case (same draws, same seed)."""
+    import datetime as dt
+    import time
+
+    import numpy as np
+
+    from caseview.followup.now_draws import NOW_SAMPLE_CASES
+    from caseview.operations.outlook import outlook_from_scores
+    from caseview.scoring import score_caseload
+    from caseview.storage import Workspace
+
+    as_of = dt.date.fromisoformat(last_day)
+    with Workspace.open(path) as ws:
+        model, version = ws.current_model()
+        scores = score_caseload(ws, as_of, 0.0, model=model)
+    results = {}
+    for size in (NOW_SAMPLE_CASES, 4 * NOW_SAMPLE_CASES, 0):
+        started = time.perf_counter()
+        results[size] = outlook_from_scores(scores, version, as_of, 12, "auto", "parameters", draws, seed,
+                                            now_sample=size)
+        print(f"stability: now rescored for {results[size].now_rescored:,} cases x {draws} draws: "
+              f"{time.perf_counter() - started:.1f} s", flush=True)
+    reference = results[0]
+    width = reference.upper_95 - reference.lower_95
+    for size in (NOW_SAMPLE_CASES, 4 * NOW_SAMPLE_CASES):
+        gaps = np.maximum(np.abs(results[size].lower_95 - reference.lower_95),
+                          np.abs(results[size].upper_95 - reference.upper_95))
+        print(f"stability: sample {size:,} against every case: largest difference of a band end "
+              f"{gaps.max():.0f} cases ({(gaps / np.maximum(width, 1)).max():.1%} of that band's width; "
+              f"median {np.median(gaps / np.maximum(width, 1)):.1%}); widest band {width.max():.0f}")
+    plain = outlook_from_scores(scores, version, as_of, 12, "auto", "none")
+    ratio = (reference.upper_95 - reference.lower_95).sum() / max((plain.upper_95 - plain.lower_95).sum(), 1)
+    print(f"stability: bands with parameter uncertainty (now included) are {ratio:.2f} x as wide in total as "
+          "without", flush=True)
 
 
 if __name__ == "__main__":

@@ -28,8 +28,9 @@ def register(sub) -> None:
                    help="new referrals: estimated from first contacts in the last year (auto, default), left out "
                         "(none), or N a month")
     p.add_argument("--uncertainty", default="none", metavar="none|parameters",
-                   help="parameters: widen the bands by drawing the model's rates, hazard ratios and initial shares "
-                        "from the fit's estimated sampling distribution (needs a fitted model; default none)")
+                   help="parameters: widen the bands by drawing all the fitted model's parameters from the fit's "
+                        "estimated sampling distribution and moving each case's stage probabilities now and its "
+                        "forecast with every draw (needs a fitted model; default none)")
     p.add_argument("--draws", default="200", metavar="N", help="parameter draws (default 200)")
     add_seed_option(p, "the parameter draws", as_text=True)
     p.add_argument("--coordinator", metavar="CODE", help="only this coordinator's cases and referrals")

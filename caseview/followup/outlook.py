@@ -9,7 +9,8 @@ Built from the individual forecasts: each open case's stage probabilities on the
   count is Poisson-binomial over the open cases plus Poisson for referrals
   (:mod:`caseview.followup.poisson_binomial`); with parameter uncertainty, the equal-weight
   mixture over models drawn from the fit's sampling distribution
-  (:mod:`caseview.followup.parameter_draws`).
+  (:mod:`caseview.followup.parameter_draws`), each draw moving both the cases' stage probabilities
+  now (:mod:`caseview.followup.now_draws`) and their forecast.
 * ``entries_expected``: the expected number of entries into the stage during the month (from
   the previous month end, or the as-of date, to this one): moves from other stages plus new
   referrals starting in it. For the combined ``follow-up stages`` row, entries into the set from
@@ -22,6 +23,7 @@ month end first, unless the as-of date is that day).
 from __future__ import annotations
 
 import calendar
+import copy
 import datetime as dt
 from dataclasses import dataclass
 from typing import TYPE_CHECKING
@@ -30,6 +32,7 @@ import numpy as np
 
 from hmm.transition import covariate_groups
 
+from .now_draws import NOW_SAMPLE_CASES, NowUnderDraws
 from .occupancy import cell_columns, expected_entries, group_sums, occupancy_integrals, power_sums
 from .poisson_binomial import (EXACT_BELOW_VARIANCE, CountDistributions, CountMoments, exact_pmf,
                                mixture_quantiles, moments_from_power_sums)
@@ -138,20 +141,38 @@ class Outlook:
     model_version: int | None
     kept_fixed: tuple = ()
     not_scored: UnscorableCases | None = None     # the cases left out, with reasons
+    now_rescored: int = 0         # open cases whose stage probabilities now were recomputed under each draw
 
     @property
     def n_open(self) -> int:
         return int(self.open_cases.rows.size)
+
+    def bands_note(self) -> str:
+        """One short phrase for the CSV's ``bands`` column: what the 95% band includes."""
+        if self.uncertainty != "parameters":
+            return "given the model; parameter uncertainty not included"
+        who = ("every case" if self.now_rescored >= self.n_open
+               else f"a stratified sample of {self.now_rescored} of {self.n_open} cases")
+        return (f"mixture over {self.n_draws} parameter draws (seed {self.seed}); stage probabilities now "
+                f"recomputed under each draw for {who}")
 
     def describe_uncertainty(self) -> str:
         base = ("Bands: 2.5% and 97.5% points of each count; given the model, a count is a sum of independent "
                 "yes/no outcomes (Poisson-binomial, exact below variance 25, refined normal approximation "
                 "above), plus Poisson for new referrals.")
         if self.uncertainty == "parameters":
+            if self.now_rescored >= self.n_open:
+                now = ("each case's stage probabilities now recomputed from its contacts under every drawn model, "
+                       "so the bands cover where cases are now as well as where they go")
+            else:
+                now = (f"stage probabilities now recomputed under every drawn model for a random sample of "
+                       f"{self.now_rescored:,} of the {self.n_open:,} open cases (stratified by covariates; the "
+                       "other cases move by their group's average change), so the bands cover where cases are now "
+                       "as well as where they go")
             return (base + f" Widened for parameter uncertainty: a mixture over {self.n_draws} models drawn "
-                    f"(seed {self.seed}) from the fit's multivariate normal on log rates, log hazard ratios and "
-                    "initial-share logits (inverse observed information); stage probabilities now kept at the "
-                    "fitted model's."
+                    f"(seed {self.seed}) from the fit's multivariate normal on all its free parameters (log rates, "
+                    "log hazard ratios, logits of the check results and initial shares; inverse observed "
+                    f"information); {now}."
                     + (f" Kept at their fitted values (no usable standard error): {', '.join(self.kept_fixed)}."
                        if self.kept_fixed else ""))
         return base + " Parameter uncertainty is not included."
@@ -176,11 +197,28 @@ class _Caseload:
         self.group = index[:covariates.shape[0]]
         self.arrival_groups = index[covariates.shape[0]:]
         self.arrival_weights = np.asarray(referrals.weights, dtype=float)
-        order = np.argsort(self.group, kind="stable")
-        self.p_sorted = p_now[order]
-        self.bounds = np.searchsorted(self.group[order], np.arange(rows.shape[0] + 1))
+        self.order = np.argsort(self.group, kind="stable")
+        self.p_now = p_now
+        self.bounds = np.searchsorted(self.group[self.order], np.arange(rows.shape[0] + 1))
         self.sums = group_sums(p_now, self.group, rows.shape[0])
         self.follow_up = np.asarray(follow_up_mask, dtype=bool)
+        self._probabilities = lambda: p_now
+        self._sorted = None
+
+    @property
+    def p_sorted(self) -> np.ndarray:
+        """The open cases' probabilities now, ordered by covariate group, shape (n_open, S)."""
+        if self._sorted is None:   # under a parameter draw: worked out when first needed (small counts)
+            self._sorted = self._probabilities()[self.order]
+        return self._sorted
+
+    def under_draw(self, sums, probabilities) -> "_Caseload":
+        """This caseload with its "now" moved by a parameter draw (:meth:`NowUnderDraws.under`)."""
+        if sums is None:
+            return self
+        moved = copy.copy(self)
+        moved.sums, moved._probabilities, moved._sorted = sums, probabilities, None
+        return moved
 
     def case_probabilities(self, columns: np.ndarray, t: int, c: int) -> np.ndarray:
         """Each open case's probability for day index ``t`` and cell ``c``, shape (n_open,)."""
@@ -218,7 +256,8 @@ def _parameters(model, rows: np.ndarray, rate_per_day: float) -> _Parameters:
 
 
 def compute_outlook(scores, as_of: dt.date, months: int, referrals: ReferralAssumption, open_cases: OpenCases,
-                    drawn=None, drawn_rates=None, seed=None, coordinator=None, callback=None) -> Outlook:
+                    drawn=None, drawn_rates=None, seed=None, coordinator=None, callback=None,
+                    now_sample: int | None = None, now_rng=None) -> Outlook:
     """The outlook of the open cases in ``scores`` (see the module docstring).
 
     Parameters
@@ -232,6 +271,11 @@ def compute_outlook(scores, as_of: dt.date, months: int, referrals: ReferralAssu
         Parameter draws (:func:`caseview.followup.parameter_draws.draw_models`); None for none.
     drawn_rates : ndarray, shape (n_draws,), optional
         Referral rates per month for the draws.
+    now_sample : int, optional
+        Open cases rescored under each draw (:data:`caseview.followup.now_draws.NOW_SAMPLE_CASES`
+        when None; 0 = every case).
+    now_rng : numpy.random.Generator, optional
+        Draws that sample (default: a generator seeded with ``seed``).
     callback : callable(fraction), optional
     """
     model = scores.model
@@ -246,10 +290,15 @@ def compute_outlook(scores, as_of: dt.date, months: int, referrals: ReferralAssu
         callback(0.1)
     n_cells = moments.mean.shape
     if drawn_models:
+        now = NowUnderDraws(scores.timelines, caseload.p_now, caseload.group, caseload.rows.shape[0],
+                            scores.as_of_day, now_rng if now_rng is not None else np.random.default_rng(seed),
+                            NOW_SAMPLE_CASES if now_sample is None else now_sample, rows=rows)
+        at_fit = drawn.at_fit if drawn.at_fit is not None else np.zeros(len(drawn_models), dtype=bool)
         per_draw = []
         for d, drawn_model in enumerate(drawn_models):
             rate = float(drawn_rates[d]) / (365.25 / 12.0) if drawn_rates is not None else point.rate_per_day
-            per_draw.append(_evaluate(caseload, _parameters(drawn_model, caseload.rows, rate), days))
+            moved = caseload.under_draw(*now.under(drawn_model, bool(at_fit[d])))
+            per_draw.append(_evaluate(moved, _parameters(drawn_model, caseload.rows, rate), days))
             if callback:
                 callback(0.1 + 0.8 * (d + 1) / len(drawn_models))
         stacked = CountMoments(*(np.stack([getattr(m[0], f) for m in per_draw]) for f in ("mean", "variance", "third")))
@@ -269,4 +318,5 @@ def compute_outlook(scores, as_of: dt.date, months: int, referrals: ReferralAssu
     names = tuple(model.stages) + (FOLLOW_UP_ROW,)
     return Outlook(as_of, tuple(ends), names, moments.mean, lower, upper, entries, open_cases, referrals,
                    "parameters" if drawn_models else "none", len(drawn_models or ()), seed, coordinator,
-                   scores.model_version, tuple(drawn.kept_fixed) if drawn is not None else ())
+                   scores.model_version, tuple(drawn.kept_fixed) if drawn is not None else (),
+                   now_rescored=int(now.sample.size) if drawn_models else 0)

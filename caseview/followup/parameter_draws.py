@@ -1,14 +1,17 @@
 """Parameter draws for the outlook: models drawn from the fit's estimated sampling distribution.
 
 How they are drawn: the fit stores the covariance of its free parameters on the unconstrained
-scale (log rates, log hazard ratios, logits; the inverse observed information, see
-:mod:`hmm.fitting.uncertainty`). The parameters the outlook uses - transition rates, hazard
-ratios and the initial stage distribution - are drawn from the multivariate normal with the
-fitted values as mean and the matching block of that covariance (the marginal of the joint
-normal), mapped back (rates = exp, initial shares = softmax against the same reference stage).
-Each case's stage probabilities on the as-of date stay those of the fitted model (re-running
-every case's evidence for every draw would take minutes at 100,000 cases), so the bands show
-the uncertainty in where cases go from now on, not in where they are now.
+scale (log rates, log hazard ratios, logits of each probability row against a reference category;
+the inverse observed information, see :mod:`hmm.fitting.uncertainty`). Every free parameter -
+transition rates, hazard ratios, the channels' probabilities, the initial stage distribution and
+the unscheduled-contact rates when the model has them - is drawn from the multivariate normal
+with the fitted values as mean and that covariance, and mapped back (rates = exp, probability
+rows = softmax against the same reference category the fit used). A parameter left exactly at
+its fitted value in a draw keeps the fitted number itself (no ``exp(log(rate))`` rounding), so a
+draw with no deviation is the fitted model.
+
+The outlook moves both the forecast and each case's stage probabilities now with the drawn
+model (:mod:`caseview.followup.now_draws`).
 """
 
 from __future__ import annotations
@@ -18,8 +21,6 @@ from dataclasses import dataclass, replace
 import numpy as np
 
 from caseview.errors import InputError
-
-DRAWN_KINDS = ("rate ", "effect of ", "initial P(")
 
 
 def fit_covariance(version) -> tuple:
@@ -46,44 +47,139 @@ def fit_covariance(version) -> tuple:
 
 
 def _drawn_block(names: list, covariance: np.ndarray) -> tuple:
-    """The rates, hazard ratios and initial shares with a usable variance: ``(names, block, kept_fixed)``."""
-    wanted = [i for i, name in enumerate(names) if name.startswith(DRAWN_KINDS)]
-    usable = [i for i in wanted if np.isfinite(covariance[i, i]) and covariance[i, i] >= 0]
+    """The parameters with a usable variance: ``(names, block, kept_fixed)``."""
+    usable = [i for i in range(len(names)) if np.isfinite(covariance[i, i]) and covariance[i, i] >= 0]
     if usable and not np.all(np.isfinite(covariance[np.ix_(usable, usable)])):
         usable = []
-    if wanted and not usable:
-        raise InputError("parameter uncertainty: the fit could not estimate the uncertainty of the rates, "
-                         "hazard ratios or initial shares (no finite covariance, for example an estimate on the "
-                         "boundary); leave parameter uncertainty out")
-    return [names[i] for i in usable], covariance[np.ix_(usable, usable)], [names[i] for i in wanted if i not in usable]
+    if names and not usable:
+        raise InputError("parameter uncertainty: the fit could not estimate the uncertainty of its parameters "
+                         "(no finite covariance, for example an estimate on the boundary); leave parameter uncertainty out")
+    return [names[i] for i in usable], covariance[np.ix_(usable, usable)], [names[i] for i in range(len(names))
+                                                                              if i not in usable]
 
 
-def _centre(model, names: list, reference) -> np.ndarray:
-    """Fitted values of the drawn parameters on the unconstrained scale, in ``names`` order."""
-    stages = model.stages
-    by_name = {}
-    for t in model.transitions:
-        label = f"{stages[t.source]} -> {stages[t.target]}"
-        by_name[f"rate {label}"] = np.log(t.rate) if t.rate > 0 else -np.inf
-        for cov, value in t.effects.items():
-            by_name[f"effect of {cov} on {label}"] = value
-    initial = np.asarray(model.initial, dtype=float)
-    for s, stage in enumerate(stages):
-        if initial[s] > 0 and reference is not None:
-            by_name[f"initial P({stage})"] = np.log(initial[s] / initial[reference])
-    missing = [n for n in names if n not in by_name]
-    if missing:
-        raise InputError(f"parameter uncertainty: the stored covariance names {missing[0]!r}, which the "
-                         "current model does not have; fit the model again")
-    return np.array([by_name[n] for n in names])
+class _Layout:
+    """Where each stored parameter name lives in the model, and its fitted unconstrained value.
 
+    ``slots[name]`` is one of ``("rate", i)``, ``("effect", i, covariate)``, ``("row", key, k)``
+    (category or stage ``k`` of a probability row; ``key`` = ``(channel, stage)`` or ``"initial"``),
+    ``("contact_rate", stages)`` or ``("contact_effect", covariate)``.
+    """
 
-def _initial_reference(model, names: list):
-    free = {n[len("initial P("):-1] for n in names if n.startswith("initial P(")}
-    if not free:
-        return None
-    support = [s for s, p in enumerate(model.initial) if p > 0 and model.stages[s] not in free]
-    return support[0] if support else None
+    def __init__(self, model, names: list):
+        stages = model.stages
+        where = {}
+        for i, t in enumerate(model.transitions):
+            label = f"{stages[t.source]} -> {stages[t.target]}"
+            where[f"rate {label}"] = ("rate", i)
+            for cov in t.effects:
+                where[f"effect of {cov} on {label}"] = ("effect", i, cov)
+        for c, channel in enumerate(model.channels):
+            for r, stage in enumerate(stages):
+                for k, category in enumerate(channel.categories):
+                    where[f"{channel.name}: P({category} | {stage})"] = ("row", (c, r), k)
+        for k, stage in enumerate(stages):
+            where[f"initial P({stage})"] = ("row", "initial", k)
+        block = model.unscheduled_contacts
+        if block is not None:
+            positive = tuple(int(r) for r in np.flatnonzero(np.asarray(block.rates) > 0))
+            where["unscheduled contact rate, same in every stage"] = ("contact_rate", positive)
+            for r in positive:
+                where[f"unscheduled contact rate in {stages[r]}"] = ("contact_rate", (r,))
+            for cov in model.covariates:
+                where[f"effect of {cov} on the unscheduled contact rate"] = ("contact_effect", cov)
+        missing = [n for n in names if n not in where]
+        if missing:
+            raise InputError(f"parameter uncertainty: the stored covariance names {missing[0]!r}, which the "
+                             "current model does not have; fit the model again")
+        self.model = model
+        self.slots = {n: where[n] for n in names}
+        named = {}
+        for n in names:
+            if where[n][0] == "row":
+                named.setdefault(where[n][1], set()).add(where[n][2])
+        self.references = {}
+        for key, free in named.items():   # the fit's reference: the one possible category it did not name
+            support = set(np.flatnonzero(self._row(key) > 0).tolist())
+            rest = sorted(support - free)
+            if len(rest) != 1 or not free <= support:
+                raise InputError("parameter uncertainty: the stored covariance does not match the current model's "
+                                 "probability rows; fit the model again")
+            self.references[key] = rest[0]
+
+    def _row(self, key) -> np.ndarray:
+        if key == "initial":
+            return np.asarray(self.model.initial, dtype=float)
+        c, r = key
+        return np.asarray(self.model.channels[c].probabilities[r], dtype=float)
+
+    def centre(self, names: list) -> np.ndarray:
+        """Fitted values of ``names`` on the unconstrained scale, shape (len(names),)."""
+        m = self.model
+        out = []
+        for n in names:
+            slot = self.slots[n]
+            if slot[0] == "rate":
+                out.append(np.log(m.transitions[slot[1]].rate))
+            elif slot[0] == "effect":
+                out.append(m.transitions[slot[1]].effects[slot[2]])
+            elif slot[0] == "row":
+                row = self._row(slot[1])
+                out.append(np.log(row[slot[2]] / row[self.references[slot[1]]]))
+            elif slot[0] == "contact_rate":
+                out.append(np.log(m.unscheduled_contacts.rates[slot[1][0]]))
+            else:
+                out.append(m.unscheduled_contacts.effects.get(slot[1], 0.0))
+        return np.array(out, dtype=float)
+
+    def model_at(self, names: list, values: np.ndarray, moved: np.ndarray):
+        """The model with ``names`` set to ``values`` (unconstrained) where ``moved``; the others keep
+        their fitted numbers exactly."""
+        m = self.model
+        transitions = list(m.transitions)
+        rows = {}
+        block = m.unscheduled_contacts
+        contact_rates = None if block is None else np.array(block.rates, dtype=float)
+        contact_effects = None if block is None else dict(block.effects)
+        logits = {}
+        for n, value, go in zip(names, values, moved):
+            slot = self.slots[n]
+            if slot[0] == "row":
+                logits.setdefault(slot[1], {})[slot[2]] = float(value)
+                if go:
+                    rows[slot[1]] = True
+                continue
+            if not go:
+                continue
+            if slot[0] == "rate":
+                transitions[slot[1]] = replace(transitions[slot[1]], rate=float(np.exp(value)))
+            elif slot[0] == "effect":
+                t = transitions[slot[1]]
+                transitions[slot[1]] = replace(t, effects={**t.effects, slot[2]: float(value)})
+            elif slot[0] == "contact_rate":
+                contact_rates[list(slot[1])] = float(np.exp(value))
+            else:
+                contact_effects[slot[1]] = float(value)
+        channels = [replace(c, probabilities=np.array(c.probabilities, dtype=float)) for c in m.channels]
+        initial = np.asarray(m.initial, dtype=float)
+        for key in rows:
+            fitted = self._row(key)
+            z = np.full(fitted.size, -np.inf)
+            support = fitted > 0
+            z[support] = np.log(fitted[support] / fitted[self.references[key]])  # fixed categories keep theirs
+            z[self.references[key]] = 0.0
+            for k, value in logits[key].items():
+                z[k] = value
+            weights = np.exp(z - z[support].max())
+            weights[~support] = 0.0
+            if key == "initial":
+                initial = weights / weights.sum()
+            else:
+                channels[key[0]].probabilities[key[1]] = weights / weights.sum()
+        extra = {}
+        if block is not None:
+            extra["unscheduled_contacts"] = replace(block, rates=contact_rates, effects=contact_effects)
+        return replace(m, transitions=tuple(transitions), channels=tuple(channels), initial=initial, **extra)
 
 
 @dataclass(frozen=True)
@@ -96,17 +192,20 @@ class ParameterDraws:
     drawn : list of str
         Names of the parameters drawn.
     kept_fixed : list of str
-        Rates, hazard ratios or initial shares without a usable variance (a flat direction of the
-        likelihood), kept at their fitted values in every draw.
+        Parameters without a usable variance (a flat direction of the likelihood), kept at their
+        fitted values in every draw.
+    at_fit : ndarray of bool, shape (n_draws,)
+        Draws that moved no parameter: those models are the fitted model, number for number.
     """
 
     models: list
     drawn: list
     kept_fixed: list
+    at_fit: np.ndarray = None
 
 
 def draw_models(model, version, n_draws: int, rng: np.random.Generator) -> ParameterDraws:
-    """``n_draws`` copies of ``model`` with rates, hazard ratios and initial shares drawn (see module docstring).
+    """``n_draws`` copies of ``model`` with every free parameter drawn (see the module docstring).
 
     Raises
     ------
@@ -114,31 +213,12 @@ def draw_models(model, version, n_draws: int, rng: np.random.Generator) -> Param
         The model version has no usable fit covariance.
     """
     all_names, covariance = fit_covariance(version)
-    reference = _initial_reference(model, all_names)       # the fit's reference stage for the initial logits
+    layout = _Layout(model, all_names)
     names, block, kept_fixed = _drawn_block(all_names, covariance)
-    centre = _centre(model, names, reference)
-    fixed = dict(zip(kept_fixed, _centre(model, kept_fixed, reference)))
+    centre = layout.centre(names)
     values, vectors = np.linalg.eigh(0.5 * (block + block.T))
     root = vectors * np.sqrt(np.clip(values, 0.0, None))          # covariance = root @ root.T
-    draws = centre + rng.standard_normal((n_draws, len(names))) @ root.T
-    stages = model.stages
-    models = []
-    for theta in draws:
-        value = {**fixed, **dict(zip(names, theta))}
-        transitions = []
-        for t in model.transitions:
-            label = f"{stages[t.source]} -> {stages[t.target]}"
-            rate = float(np.exp(value[f"rate {label}"])) if f"rate {label}" in value else t.rate
-            effects = {cov: float(value.get(f"effect of {cov} on {label}", v)) for cov, v in t.effects.items()}
-            transitions.append(replace(t, rate=rate, effects=effects))
-        initial = np.asarray(model.initial, dtype=float)
-        if reference is not None:
-            logits = np.full(initial.size, -np.inf)
-            logits[reference] = 0.0
-            for s, stage in enumerate(stages):
-                if f"initial P({stage})" in value:
-                    logits[s] = value[f"initial P({stage})"]
-            weights = np.exp(logits - logits.max())
-            initial = weights / weights.sum()
-        models.append(replace(model, transitions=tuple(transitions), initial=initial))
-    return ParameterDraws(models, names, kept_fixed)
+    deviations = rng.standard_normal((n_draws, len(names))) @ root.T
+    moved = deviations != 0.0
+    models = [layout.model_at(names, centre + d, go) for d, go in zip(deviations, moved)]
+    return ParameterDraws(models, names, kept_fixed, ~moved.any(axis=1))

@@ -9,6 +9,7 @@ the closed ones (actioned, dismissed); within each group the highest priority fi
 
 from __future__ import annotations
 
+from bisect import bisect_left
 from dataclasses import dataclass
 
 import numpy as np
@@ -64,6 +65,48 @@ def queue_rows(assessment, coordinator: str | None = None, status: str | None = 
     case_ids = np.asarray(scores.case_ids)[rows].astype(str)
     order = np.lexsort((case_ids, -np.asarray(assessment.priority, dtype=float)[rows], group))
     return rows[order].astype(np.int64)
+
+
+def case_status(assessment, row: int) -> str:
+    """:func:`queue_status` of one case (no pass over the caseload)."""
+    status = str(assessment.review_status[row] or "")
+    return "new" if bool(assessment.is_flagged[row]) and not status else status
+
+
+def case_is_overdue(assessment, row: int) -> bool:
+    """:func:`overdue_mask` of one case."""
+    due = int(assessment.next_contact_due_day[row])
+    return (bool(assessment.is_flagged[row]) and 0 <= due <= int(assessment.scores.as_of_day)
+            and case_status(assessment, row) == "new")
+
+
+def case_in_queue(assessment, row: int, coordinator: str | None = None, status: str | None = None,
+                  overdue_only: bool = False) -> bool:
+    """Whether :func:`queue_rows` with these filters lists case ``row`` (same rules, one case)."""
+    if not bool(assessment.is_flagged[row]):
+        return False
+    if coordinator and assessment.scores.coordinators[row] != coordinator:
+        return False
+    if status and case_status(assessment, row) != status:
+        return False
+    return not overdue_only or case_is_overdue(assessment, row)
+
+
+def queue_order_key(assessment, row: int, status=None) -> tuple:
+    """Sort key of case ``row`` in the queue order of :func:`queue_rows` (review group, highest
+    priority first with a missing priority last, then case ID); ``status`` is the case's
+    :func:`queue_status` when already known."""
+    status = case_status(assessment, row) if status is None else status
+    group = 0 if status == "new" else 1 if status == "acknowledged" else 2
+    priority = float(assessment.priority[row])
+    missing = priority != priority
+    return (group, missing, 0.0 if missing else -priority, str(assessment.scores.case_ids[row]))
+
+
+def queue_position(assessment, rows: np.ndarray, row: int) -> int:
+    """Where case ``row`` goes in ``rows`` (a queue in :func:`queue_rows` order without it), found by
+    bisection: O(log m) keys instead of sorting the queue again after one case changed."""
+    return bisect_left(rows, queue_order_key(assessment, row), key=lambda r: queue_order_key(assessment, int(r)))
 
 
 @dataclass(frozen=True)

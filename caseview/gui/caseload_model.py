@@ -8,6 +8,8 @@ current row order and formats one value.
 
 from __future__ import annotations
 
+from bisect import bisect_left, bisect_right
+
 import numpy as np
 from PySide6.QtCore import QAbstractTableModel, QModelIndex, Qt
 
@@ -78,12 +80,13 @@ class CaseloadTableModel(QAbstractTableModel):
 
         self._case_id_keys = np.array([search_key(c) for c in self.case_ids.tolist()] + [""])[:-1] if n \
             else np.zeros(0, dtype=str)
-        self.coordinators = np.asarray(scores.coordinators, dtype=object)
+        # copies: update_case compares a row's old text with the new one written in place by a one-case rescore
+        self.coordinators = np.array(scores.coordinators, dtype=object)
         self.stage_names = np.asarray(scores.model.stages, dtype=object)
         self.most_likely = np.asarray(scores.most_likely_stage, dtype=np.int64)
         self.most_likely_p = scores.p_now[np.arange(n), self.most_likely] if n else np.zeros(0)
         a = self.assessment
-        self.flag_names = np.asarray(a.flags, dtype=object)
+        self.flag_names = np.array(a.flags, dtype=object)
         self.is_flagged = np.asarray(a.is_flagged, dtype=bool)
         self.reason_text = np.asarray(a.reason_text, dtype=object)
         self.next_due = np.asarray(a.next_contact_due_day, dtype=np.int64)
@@ -105,10 +108,10 @@ class CaseloadTableModel(QAbstractTableModel):
     def update_case(self, loaded, row: int) -> bool:
         """Show case ``row`` rescored in ``loaded`` (same cases as shown; only that row changed).
 
-        Updates the row's cached values and keys, then moves it to its place in the current sort
-        (a layout change, not a reset: the selection and scroll position stay). Returns False
-        (nothing changed) when the filters would now hide or reveal the row; then call
-        :meth:`set_caseload`.
+        Updates the row's cached values and keys, then moves that one row to its place in the
+        current sort (``beginMoveRows``, found by bisection: no sort of the whole table; the
+        selection and scroll position stay). Returns False when the filters would now hide or
+        reveal the row; then call :meth:`set_caseload`.
         """
         scores, a = loaded.scores, loaded.assessment
         if self.scores is None or scores.n_cases != self._n:
@@ -138,15 +141,36 @@ class CaseloadTableModel(QAbstractTableModel):
                 keys[column][row] = keys[column][same[0]]
             else:
                 keys[column] = _ranks(values)
-        mask = self._compute_mask()
-        if not np.array_equal(mask, self._mask):
+        shown = bool(self._compute_mask(np.array([row]))[0])
+        if shown != bool(self._mask[row]):
             return False
-        self.layoutAboutToBeChanged.emit()
-        old_order = self.order
-        self.order = self._sorted(np.flatnonzero(self._mask))
-        self._remap_persistent(old_order)
-        self.layoutChanged.emit()
+        if not shown:
+            return True
+        old = int(np.flatnonzero(self.order == row)[0])
+        rest = np.delete(self.order, old)
+        new = self._place(rest, row)
+        if new != old:  # one row moves (Qt's destination counts the rows before the move); selection follows
+            self.beginMoveRows(QModelIndex(), old, old, QModelIndex(), new if new < old else new + 1)
+            self.order = np.insert(rest, new, row)
+            self.endMoveRows()
+        self.dataChanged.emit(self.index(new, 0), self.index(new, len(COLUMNS) - 1))
         return True
+
+    def _sort_value(self, row) -> tuple:
+        """Sort key of scores row ``row`` as :meth:`_sorted` orders it (missing values last)."""
+        value = self._keys[self._sort_column][row]
+        value = -float(value) if self._sort_descending else value
+        missing = value != value
+        return (bool(missing), 0 if missing else value)
+
+    def _place(self, rest: np.ndarray, row: int) -> int:
+        """Position of ``row`` in ``rest`` (the shown order without it): after the rows with a smaller
+        key, and among equal keys by row number, as sorting the shown rows again would put it
+        (bisection: a few keys instead of sorting 100,000)."""
+        key = self._sort_value(row)
+        low = bisect_left(rest, key, key=self._sort_value)
+        high = bisect_right(rest, key, lo=low, key=self._sort_value)
+        return bisect_left(rest, row, low, high)
 
     def clear(self) -> None:
         self.beginResetModel()
@@ -313,22 +337,24 @@ class CaseloadTableModel(QAbstractTableModel):
     def filters(self) -> dict:
         return dict(self._filters)
 
-    def _compute_mask(self) -> np.ndarray:
+    def _compute_mask(self, rows: np.ndarray | None = None) -> np.ndarray:
+        """Which rows pass the filters: every row, shape (n_cases,), or only ``rows``, shape (len(rows),)."""
         f = self._filters
-        mask = np.ones(self._n, dtype=bool)
+        every = slice(None) if rows is None else rows
+        mask = np.ones(self._n if rows is None else len(rows), dtype=bool)
         if f["coordinator"]:
-            mask &= self.coordinators == f["coordinator"]
+            mask &= self.coordinators[every] == f["coordinator"]
         if f["stage"] is not None and f["stage"] >= 0:
-            mask &= self.most_likely == f["stage"]
+            mask &= self.most_likely[every] == f["stage"]
         if f["flagged_only"]:
-            mask &= self.is_flagged
+            mask &= self.is_flagged[every]
         if f["review"] is not None:
-            mask &= self.review == f["review"]
+            mask &= self.review[every] == f["review"]
         from caseview.timeline_io.case_ids import search_key
 
         text = search_key(f["search"])   # read like an imported case ID (dashes, full-width, letter case)
-        if text and self._n:
-            mask &= np.char.find(self._case_id_keys, text) >= 0
+        if text and mask.size:
+            mask &= np.char.find(self._case_id_keys[every], text) >= 0
         return mask
 
     # -------------------------------------------------------------------- helpers
@@ -338,7 +364,10 @@ class CaseloadTableModel(QAbstractTableModel):
 
     def view_row_of_case(self, case_id: str) -> int:
         """Display row of ``case_id`` or -1 (hidden or unknown)."""
-        rows = np.flatnonzero(self.case_ids == case_id) if self.order.size else []
+        rows = []
+        if self.order.size:
+            at = int(np.searchsorted(self.case_ids, case_id))  # scores keep cases in case-ID order
+            rows = [at] if at < self._n and self.case_ids[at] == case_id else np.flatnonzero(self.case_ids == case_id)
         hits = np.flatnonzero(self.order == rows[0]) if len(rows) else []
         return int(hits[0]) if len(hits) else -1
 

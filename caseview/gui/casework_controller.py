@@ -12,6 +12,7 @@ import time
 
 import numpy as np
 
+from caseview.operations.single_case import few_blas_threads
 from PySide6.QtCore import QObject, Signal
 from PySide6.QtGui import QAction, QKeySequence
 
@@ -35,6 +36,7 @@ class CaseworkController(QObject):
         actions.reopen_requested.connect(self.reopen_case)
         window.caseload.case_selected.connect(lambda _row: self.update_case_actions())
         window.caseload_loaded.connect(lambda _loaded: self.update_case_actions())
+        window.caseload_loaded.connect(lambda _loaded: few_blas_threads())  # finds the BLAS libraries once, now
         window.caseload.selection_cleared.connect(self.update_case_actions)
         window.case_view.contacts.itemSelectionChanged.connect(self._contact_selected)
         window.caseload.show_closed.toggled.connect(self.set_show_closed)
@@ -106,16 +108,6 @@ class CaseworkController(QObject):
         form = RecordForm(ws, self.window.actor, None, parent=self.window)
         if form.exec():
             self.after_change(form.result.case_id, self._after_as_of(form.result.date))
-
-    def _queue_state(self, loaded, row: int) -> tuple:
-        """(listed in the risk queue, flagged, overdue) of case ``row``; the queue is refilled when it changes."""
-        a = loaded.assessment
-        flagged = bool(a.is_flagged[row])
-        # the queue lists every flagged case (no cap), so a newly flagged case enters it
-        listed = flagged or bool(np.any(np.asarray(self.window.risk_queue.rows) == row))
-        due = int(a.next_contact_due_day[row])
-        overdue = flagged and 0 <= due <= loaded.scores.as_of_day
-        return (listed, flagged, overdue)
 
     def _after_as_of(self, date: str) -> str:
         if date <= self.window.as_of.isoformat():
@@ -223,23 +215,20 @@ class CaseworkController(QObject):
         ids = before.scores.case_ids
         position = int(np.searchsorted(ids, case_id))
         was_present = position < ids.size and ids[position] == case_id
-        was_flagged = bool(was_present and before.assessment is not None and before.assessment.is_flagged[position])
-        queue_before = self._queue_state(before, position) if was_present else None
-        loaded, row = casework.rescore_case(ws, before, case_id, include_closed)
-        self.last_splice_seconds = time.perf_counter() - started
-        window.loaded = loaded
-        window.case_view.set_scores(loaded.scores, loaded.assessment)
-        if was_present and row >= 0:  # the same cases: update one row, the pane and (if it shows it) the queue
-            window.caseload.update_case(loaded, row)
-            if window.caseload.current_case_id() == case_id:
-                window.case_view.show_rescored(row)
-            else:
-                window.caseload.select_case(case_id)  # shows it in the case pane
-            if self._queue_state(loaded, row) != queue_before or queue_before[0]:
-                window.risk_queue.set_caseload(loaded)
-            else:  # not listed before or after, same flag and overdue state: nothing in the queue changes
-                window.risk_queue.loaded = loaded
-        else:  # a case added or gone: the table's rows change
+        queue_before = window.risk_queue.case_state(position) if was_present else None
+        with few_blas_threads():
+            loaded, row = casework.rescore_case(ws, before, case_id, include_closed)
+            self.last_splice_seconds = time.perf_counter() - started
+            window.loaded = loaded
+            window.case_view.set_scores(loaded.scores, loaded.assessment)
+            if was_present and row >= 0:  # the same cases: one row of the table and of the queue, and the pane
+                window.caseload.update_case(loaded, row)
+                if window.caseload.current_case_id() == case_id:
+                    window.case_view.show_rescored(row)
+                else:
+                    window.caseload.select_case(case_id)  # shows it in the case pane
+                window.risk_queue.update_case(loaded, row, queue_before)
+        if not (was_present and row >= 0):  # a case added or gone: the table's rows change
             window.caseload.set_caseload(loaded)  # re-announces the selected case to the pane
             window.risk_queue.set_caseload(loaded)
             if row >= 0:

@@ -80,8 +80,9 @@ class OutlookPanel(QWidget):
         self.cancel_button = QPushButton("Cancel")
         self.cancel_button.hide()
         self.cancel_button.clicked.connect(lambda: self.window.jobs.cancel("outlook"))
-        self.uncertainty.setToolTip("Bands given the model, or widened by drawing the rates, hazard ratios and "
-                                    "initial shares from the fit's estimated sampling distribution (fitted models)")
+        self.uncertainty.setToolTip("Bands given the model, or widened by drawing all the model's parameters from the "
+                                    "fit's estimated sampling distribution (fitted models): each draw moves where "
+                                    "cases are now and where they go")
         self.referrals.setToolTip("New referrals: estimated from the first contacts of the last year, left out, "
                                   "or a fixed number a month")
         controls = QHBoxLayout()

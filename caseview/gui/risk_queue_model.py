@@ -10,7 +10,7 @@ from __future__ import annotations
 import numpy as np
 from PySide6.QtCore import QAbstractTableModel, QModelIndex, Qt
 
-from caseview.followup.queue import queue_status
+from caseview.followup.queue import case_status, queue_position, queue_status
 from caseview.followup.wording import due_words, percent
 
 COLUMNS = ("Case", "Coordinator", "Follow-up now", "Reach follow-up", "Next contact due", "Review",
@@ -54,6 +54,35 @@ class RiskQueueModel(QAbstractTableModel):
         i = self.view_row_of(case_row)
         if i >= 0:
             self.dataChanged.emit(self.index(i, 0), self.index(i, len(COLUMNS) - 1))
+
+    def update_case(self, assessment, case_row: int, listed: bool) -> None:
+        """Case ``case_row`` was rescored in ``assessment`` (the same cases, only that one changed):
+        insert, remove or move its one row so the order stays that of
+        :func:`caseview.followup.queue.queue_rows`, without sorting the queue again.
+
+        ``listed``: whether the current filters list the case now
+        (:func:`caseview.followup.queue.case_in_queue`).
+        """
+        self.assessment = assessment
+        self.status[case_row] = case_status(assessment, case_row)
+        old = self.view_row_of(case_row)
+        rest = self.rows if old < 0 else np.delete(self.rows, old)
+        if not listed:
+            if old >= 0:
+                self.beginRemoveRows(QModelIndex(), old, old)
+                self.rows = rest
+                self.endRemoveRows()
+            return
+        new = queue_position(assessment, rest, case_row)
+        if old < 0:
+            self.beginInsertRows(QModelIndex(), new, new)
+            self.rows = np.insert(rest, new, case_row)
+            self.endInsertRows()
+        elif new != old:  # Qt's destination counts the rows before the move
+            self.beginMoveRows(QModelIndex(), old, old, QModelIndex(), new if new < old else new + 1)
+            self.rows = np.insert(rest, new, case_row)
+            self.endMoveRows()
+        self.dataChanged.emit(self.index(new, 0), self.index(new, len(COLUMNS) - 1))
 
     # ------------------------------------------------------------------ Qt model API
     def rowCount(self, parent=QModelIndex()) -> int:

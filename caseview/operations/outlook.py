@@ -85,10 +85,13 @@ def _check_options(months, uncertainty, draws, seed) -> tuple:
 
 
 def outlook_from_scores(scores, version, as_of: dt.date, months: int = 12, referrals="auto", uncertainty: str = "none",
-                        draws: int = 200, seed: int = DEFAULT_SEED, coordinator: str | None = None, callback=None):
+                        draws: int = 200, seed: int = DEFAULT_SEED, coordinator: str | None = None, callback=None,
+                        now_sample: int | None = None):
     """:func:`run_outlook` for an already scored caseload (the report uses its assessment's scores).
 
     ``version`` is the model version the scores were made with (its fit covariance for the draws).
+    ``now_sample``: open cases rescored under each draw (None = the default
+    :data:`caseview.followup.now_draws.NOW_SAMPLE_CASES`, 0 = every case; benchmarks and tests).
     """
     from caseview.followup.outlook import compute_outlook, open_case_rows
     from caseview.followup.parameter_draws import draw_models
@@ -111,7 +114,8 @@ def outlook_from_scores(scores, version, as_of: dt.date, months: int = 12, refer
     from dataclasses import replace
 
     result = compute_outlook(scores, as_of, months, assumption, open_cases, drawn, rates,
-                             seed if drawn is not None else None, coordinator, callback=callback)
+                             seed if drawn is not None else None, coordinator, callback=callback,
+                             now_sample=now_sample, now_rng=rng)
     return replace(result, not_scored=scores.unscorable)
 
 
@@ -123,7 +127,7 @@ def _with_version(scores, version_id):
 
 def outlook_table(outlook) -> tuple:
     """``(header, columns)`` of the outlook CSV: one row per month end and stage, then the combined row."""
-    header = ["date", "stage", "expected", "lower_95", "upper_95", "entries_expected"]
+    header = ["date", "stage", "expected", "lower_95", "upper_95", "entries_expected", "bands"]
     dates, stages, expected, lower, upper, entries = [], [], [], [], [], []
     for t, day in enumerate(outlook.dates):
         for c, name in enumerate(outlook.rows):
@@ -133,7 +137,7 @@ def outlook_table(outlook) -> tuple:
             lower.append(f"{outlook.lower_95[t, c]:.0f}")
             upper.append(f"{outlook.upper_95[t, c]:.0f}")
             entries.append(f"{outlook.entries_expected[t, c]:.2f}")
-    return header, [dates, stages, expected, lower, upper, entries]
+    return header, [dates, stages, expected, lower, upper, entries, [outlook.bands_note()] * len(dates)]
 
 
 def outlook_notes(outlook, withhold_dates: bool = False) -> list:

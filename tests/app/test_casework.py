@@ -336,3 +336,54 @@ def test_contact_after_recorded_absorbing_entry_uses_the_import_wording(ws, tmp_
     tail = "; a case that has entered it has no later contacts unless they record that stage"
     assert tail in str(recorded.value) and tail in str(imported.value)
     assert _snapshot(ws) == before
+
+
+@pytest.mark.parametrize("kind", ["float", "float_rows", "bool_rows", "int16_rows", "object"])
+def test_splicing_contact_rows_moves_the_shorter_side_and_equals_concatenation(kind, rng):
+    """Random replacements, insertions and removals of one case's rows, reusing the buffer both ways."""
+    from caseview.operations import single_case
+    from caseview.operations.single_case import _Splice
+
+    def rows(count):
+        if kind == "float":
+            return rng.random(count)
+        if kind == "object":
+            return np.array([str(v) for v in rng.integers(0, 9, count)], dtype=object)
+        dtype = {"float_rows": float, "bool_rows": bool, "int16_rows": np.int16}[kind]
+        return (rng.random((count, 3)) * 9).astype(dtype)
+
+    counts = list(rng.integers(0, 6, 40))
+    data = rows(int(sum(counts)))
+    expected = data.copy()
+    old_base = None
+    for _ in range(60):
+        offsets = np.concatenate([[0], np.cumsum(counts)])
+        case = int(rng.integers(0, len(counts) + 1))
+        change = rng.choice(["replace", "insert", "remove"]) if case < len(counts) else "insert"
+        present, keep = change != "insert", change != "remove"
+        new = rows(int(rng.integers(1, 6))) if keep else None
+        a = int(offsets[case])
+        b = int(offsets[case + 1]) if present else a
+        expected = np.concatenate([expected[:a]] + ([new] if keep else []) + [expected[b:]])
+        data = _Splice(case, present, keep).per_contact(data, new, offsets)
+        assert data.shape == expected.shape and (data == expected).all()
+        if present:
+            counts = counts[:case] + ([len(new)] if keep else []) + counts[case + 1:]
+        else:
+            counts = counts[:case] + [len(new)] + counts[case:]
+        old_base = data.base if old_base is None else old_base
+    assert data.base is old_base  # after the first allocation, rows only moved within the buffer
+    assert single_case.SPARE_ROWS >= 100
+
+
+def test_splicing_never_writes_into_a_buffer_it_did_not_allocate(rng):
+    """Two arrays that are views of one bigger array: a splice of one must not touch the other."""
+    from caseview.operations.single_case import _Splice
+
+    shared = np.arange(40.0)
+    first, second = shared[:20], shared[20:]
+    kept = second.copy()
+    offsets = np.array([0, 5, 10, 20])
+    spliced = _Splice(0, True, True).per_contact(first, np.array([-1.0] * 8), offsets)   # grows by three rows
+    assert np.array_equal(second, kept) and spliced[:8].tolist() == [-1.0] * 8
+    assert spliced[8:].tolist() == list(np.arange(5.0, 20.0))

@@ -149,3 +149,21 @@ def test_queue_filters_and_counts(demo_scores):
     assert sum(c.total for c in counts.values()) == flagged.size
     assert sum(c.overdue for c in counts.values()) == int(overdue_mask(a).sum())
     assert counts[str(demo_scores.coordinators[flagged[0]])].by_status["actioned"] == 1
+
+
+def test_one_case_queue_rules_agree_with_the_whole_queue(demo_scores):
+    """case_in_queue / queue_position (the window's one-row update) against queue_rows, missing priorities too."""
+    from caseview.followup.queue import case_in_queue, queue_position
+
+    a, _ = _assessment_with_reviews(demo_scores)
+    a.is_flagged[:] = True
+    a.priority[::4] = np.nan                 # a missing priority goes last within its review group
+    a.priority[1::4] = a.priority[1]         # ties: by case ID
+    for coordinator in (None, str(demo_scores.coordinators[0])):
+        for status in (None, "new", "actioned"):
+            for overdue in (False, True):
+                rows = queue_rows(a, coordinator, status, overdue)
+                listed = [r for r in range(demo_scores.n_cases) if case_in_queue(a, r, coordinator, status, overdue)]
+                assert sorted(listed) == sorted(rows.tolist())
+                for i, r in enumerate(rows.tolist()):
+                    assert queue_position(a, np.delete(rows, i), r) == i

@@ -90,3 +90,24 @@ def test_outlook_tab_on_an_in_memory_caseload_uses_the_shown_scores(window, qtbo
     panel.uncertainty.setCurrentIndex(panel.uncertainty.findData("parameters"))
     panel.update_button.click()
     qtbot.waitUntil(lambda: "not fitted" in panel.assumption.text(), timeout=60000)
+
+
+def test_the_tab_says_the_parameter_draws_move_where_cases_are_now(window, qtbot, workspace_path):
+    """A current model with a stored fit covariance (every free parameter, standard error 0.2)."""
+    from hmm.fitting.parameters import parameter_spec
+
+    with Workspace.open(workspace_path) as ws:
+        model, version = ws.current_model()
+        names = list(parameter_spec(model).names)
+        ws.add_model_version(version.json_text, "with a covariance (test)", "tester",
+                             fit_summary={"free_parameters": names,
+                                          "covariance": (0.04 * np.eye(len(names))).tolist()})
+    panel, plain, _ = _show_outlook(window, qtbot, workspace_path)
+    panel.uncertainty.setCurrentIndex(panel.uncertainty.findData("parameters"))
+    panel.draws.setValue(20)
+    with qtbot.waitSignal(panel.outlook_ready, timeout=90000) as ready:
+        panel.update_button.click()
+    wide = ready.args[0]
+    assert wide.uncertainty == "parameters" and wide.now_rescored == wide.n_open
+    assert "stage probabilities now recomputed from its contacts under every drawn model" in panel.details.text()
+    assert (wide.upper_95 - wide.lower_95).sum() > (plain.upper_95 - plain.lower_95).sum()

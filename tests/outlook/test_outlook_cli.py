@@ -73,7 +73,7 @@ def test_outlook_csv_rows_columns_and_advisory(demo_ws, tmp_path, capsys):
     code, text, err = run(capsys, "outlook", demo_ws, "--as-of", AS_OF, "--months", 6, "--out", out)
     assert code == 0, err
     table = pd.read_csv(out)
-    assert list(table.columns) == ["date", "stage", "expected", "lower_95", "upper_95", "entries_expected", "advisory"]
+    assert list(table.columns) == ["date", "stage", "expected", "lower_95", "upper_95", "entries_expected", "bands", "advisory"]
     assert len(table) == 6 * 6 and set(table["advisory"]) == {ADVISORY_NOTICE}
     assert table["date"].iloc[0] == "2026-12-31" and table["date"].iloc[-1] == "2027-05-31"
     combined = table[table["stage"] == "follow-up stages"]["expected"].to_numpy()
@@ -115,6 +115,10 @@ def test_parameter_uncertainty_widens_the_bands_and_says_how(fitted_ws, tmp_path
     width = lambda t: (t["upper_95"] - t["lower_95"]).to_numpy()   # noqa: E731
     assert np.all(width(wide) >= width(plain) - 1) and width(wide).sum() > width(plain).sum()
     assert "mixture over 60 models drawn (seed 4)" in text and "multivariate normal" in text
+    assert "stage probabilities now recomputed from its contacts under every drawn model" in text
+    assert set(wide["bands"]) == {"mixture over 60 parameter draws (seed 4); stage probabilities now recomputed "
+                                  "under each draw for every case"}
+    assert set(plain["bands"]) == {"given the model; parameter uncertainty not included"}
     code, _, _ = run(capsys, "outlook", fitted_ws, "--as-of", "2026-11-30", "--referrals", "none",
                      "--uncertainty", "parameters", "--draws", "60", "--seed", "4", "--out", tmp_path / "again.csv")
     assert code == 0 and (tmp_path / "again.csv").read_bytes() == (tmp_path / "wide.csv").read_bytes()  # seeded

@@ -105,3 +105,20 @@ def test_exact_pmf_is_a_distribution_equal_to_convolution_for_any_probabilities(
     assert pmf.min() >= 0.0 and pmf.sum() == pytest.approx(1.0, abs=1e-12)
     reference = convolution_pmf(q, poisson_mean, length=start + pmf.size + 1)
     assert np.abs(pmf - reference[start:start + pmf.size]).max() < 1e-10
+
+
+def test_mixture_quantiles_by_bisection_equal_scanning_the_whole_grid(rng):
+    """Draws spread far apart (parameter uncertainty that moves "now"), some computed exactly."""
+    for _ in range(30):
+        n_draws = int(rng.integers(1, 60))
+        means = rng.normal(3000.0, rng.uniform(1.0, 800.0), n_draws).clip(30.0)
+        variances = np.maximum(25.0, rng.uniform(0.3, 0.9, n_draws) * means)   # normal draws: variance >= 25
+        thirds = variances * rng.uniform(-0.5, 1.0, n_draws)   # skewness at most 1 / sd (Bernoulli sums)
+        exact = {}
+        for d in rng.choice(n_draws, size=min(3, n_draws), replace=False).tolist():
+            q = _probabilities(rng, 200, "small")
+            exact[d] = exact_pmf(q, float(rng.uniform(0, 5)))
+        cell = CountDistributions(CountMoments(means, variances, thirds), exact)
+        grid = cell.grid()
+        scanned = quantile_from_cdf(grid, cell.cdf(grid).mean(axis=0), [0.025, 0.975])
+        assert np.array_equal(mixture_quantiles(cell), scanned)
