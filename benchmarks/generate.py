@@ -12,6 +12,9 @@ Two layouts, both written as timeline CSV files in the import layout
   missing at random (mobility 34 %, the other channels 6 %), and a contact recording the exact
   date of a move to residential care (``stage_known``) when it happens, after which the case stops.
   About 12 recorded contacts per case on average (the moves cut some timelines short).
+* ``two-channel``: 6 to 18 contacts per case (uniform), 30 days apart, all from the origin date,
+  simulated from the demo model folded to two channels (``mobility``; ``concern`` as none/any: 6 joint
+  symbols), no covariates, nothing missing, no exact-entry contacts (issue 19's second comparison).
 * ``equal``: 12 contacts 30 days apart for every case, all starting on the origin date, nothing
   missing and no exact-entry contacts, so that a discrete-time library (hmmlearn) can take the same
   sequences. Covariates are constant per case (``--covariates constant``; 4 patterns, so the
@@ -50,6 +53,7 @@ COORDINATORS = np.array(["C1", "C2", "C3", "C4"], dtype=object)
 CONTACTS_PER_CASE = 12
 IRREGULAR_SCHEDULED = 14   # scheduled contacts; moves to residential care cut ~1/7 of them -> ~12 recorded
 EQUAL_GAP = 30.0
+TWO_CHANNEL_CONTACTS = (6, 18)  # contacts per case in the two-channel layout, inclusive
 DEFAULT_SEED = 20261202
 
 
@@ -67,6 +71,27 @@ def demo_model_json(covariates: bool = True, exact_entry: bool = True) -> dict:
             t.pop("effects", None)
         data["name"] = data["name"] + " - no covariates (benchmark)"
     return data
+
+
+def two_channel_model_json() -> dict:
+    """The demo model with two channels (``mobility`` with 3 categories, ``concern`` folded to none/any),
+    no covariates and no exact-entry stages: 6 joint symbols, the caseload of issue 19's second score
+    comparison."""
+    data = demo_model_json(covariates=False, exact_entry=False)
+    by_name = {c["name"]: c for c in data["channels"]}
+    concern = by_name["concern"]
+    concern["categories"] = ["none", "any"]
+    concern["probabilities"] = {stage: [row[0], round(1.0 - row[0], 10)] for stage, row in concern["probabilities"].items()}
+    data["channels"] = [by_name["mobility"], concern]
+    data["name"] = "Home support demo - two channels, no covariates (benchmark)"
+    return data
+
+
+def model_json(layout: str, covariates: bool = True) -> dict:
+    """The model a layout is simulated from (what ``--model-out`` writes)."""
+    if layout == "two-channel":
+        return two_channel_model_json()
+    return demo_model_json(covariates, layout == "irregular")
 
 
 def start_model_json(covariates: bool = False, exact_entry: bool = False) -> dict:
@@ -117,8 +142,8 @@ def simulate(n_cases: int, layout: str, seed: int, covariates: str = "constant")
     ``case_of_contact`` (n_contacts,), ``coordinator_of_case`` (n_cases,), ``exact_entry`` (n_contacts,)
     """
     rng = np.random.default_rng(seed)
-    with_covariates = not (layout == "equal" and covariates == "zero")
-    model = parse_model(json.dumps(demo_model_json(with_covariates, layout == "irregular")), "demo model")
+    with_covariates = not (layout == "equal" and covariates == "zero") and layout != "two-channel"
+    model = parse_model(json.dumps(model_json(layout, with_covariates)), "demo model")
     if layout == "irregular":
         days, cov = _irregular_schedule(n_cases, rng)
         contact_times = list(days.astype(float))
@@ -139,11 +164,26 @@ def simulate(n_cases: int, layout: str, seed: int, covariates: str = "constant")
             per_case = np.zeros((n_cases, 0))
         sim = simulate_caseload(model, contact_times, per_case, rng, missing_probability=0.0, exact_entry=False)
         times = sim.timelines.times
+    elif layout == "two-channel":
+        counts = rng.integers(TWO_CHANNEL_CONTACTS[0], TWO_CHANNEL_CONTACTS[1] + 1, size=n_cases)
+        contact_times = [EQUAL_GAP * np.arange(k, dtype=float) for k in counts]
+        sim = simulate_caseload(model, contact_times, np.zeros((n_cases, 0)), rng, missing_probability=0.0,
+                                exact_entry=False)
+        times = sim.timelines.times
     else:
-        raise ValueError(f"layout must be 'irregular' or 'equal', got {layout!r}")
+        raise ValueError(f"layout must be 'irregular', 'equal' or 'two-channel', got {layout!r}")
     coordinator_of_case = COORDINATORS[rng.integers(0, COORDINATORS.size, size=n_cases)]
     return {"model": model, "timelines": sim.timelines, "times": times, "case_of_contact": sim.case_of_contact,
             "coordinator_of_case": coordinator_of_case, "exact_entry": sim.exact_entry_contact}
+
+
+def case_codes(n_cases: int) -> np.ndarray:
+    """Invented case codes HS-000001 ...; from a million cases on HS-0000-001 ... (the identifier screen
+    refuses a case code with a run of 7 digits as a record number), sorted like the cases."""
+    numbers = np.arange(1, n_cases + 1)
+    if n_cases < 1_000_000:
+        return np.char.mod("HS-%06d", numbers).astype(object)
+    return np.char.add(np.char.mod("HS-%04d-", numbers // 1000), np.char.mod("%03d", numbers % 1000)).astype(object)
 
 
 def write_csv(sim: dict, out: Path) -> int:
@@ -152,7 +192,7 @@ def write_csv(sim: dict, out: Path) -> int:
 
     model, timelines = sim["model"], sim["timelines"]
     case = sim["case_of_contact"]
-    case_ids = np.char.mod("HS-%06d", np.arange(1, timelines.n_cases + 1)).astype(object)
+    case_ids = case_codes(timelines.n_cases)
     columns = {
         "case_id": case_ids[case],
         "date": np.datetime_as_string(ORIGIN + sim["times"].astype(np.int64)),
@@ -208,7 +248,7 @@ def generate(n_cases: int, layout: str, out: Path, seed: int = DEFAULT_SEED, cov
     rows = write_csv(sim, out)
     summary = {"cases": n_cases, "contacts": rows, "layout": layout, "seed": seed, "csv": str(out),
                "last_day": last_day(sim), "covariates": list(sim["model"].covariates)}
-    if layout == "equal":
+    if layout in ("equal", "two-channel"):
         npz = out.with_suffix(".npz")
         write_reference_arrays(sim, npz)
         summary["arrays"] = str(npz)
@@ -219,7 +259,7 @@ def generate(n_cases: int, layout: str, out: Path, seed: int = DEFAULT_SEED, cov
 def main(argv=None) -> int:
     parser = argparse.ArgumentParser(description=__doc__.splitlines()[0])
     parser.add_argument("--cases", type=int, default=1000)
-    parser.add_argument("--layout", choices=("irregular", "equal"), default="irregular")
+    parser.add_argument("--layout", choices=("irregular", "equal", "two-channel"), default="irregular")
     parser.add_argument("--covariates", choices=("constant", "zero"), default="constant",
                         help="equal layout only: per-case constant covariates, or none (model without covariates)")
     parser.add_argument("--seed", type=int, default=DEFAULT_SEED)
@@ -231,8 +271,7 @@ def main(argv=None) -> int:
     summary = generate(args.cases, args.layout, args.out, args.seed, args.covariates)
     with_covariates = bool(summary["covariates"])
     if args.model_out:
-        args.model_out.write_text(json.dumps(demo_model_json(with_covariates, args.layout == "irregular"), indent=2),
-                                  encoding="utf-8")
+        args.model_out.write_text(json.dumps(model_json(args.layout, with_covariates), indent=2), encoding="utf-8")
     if args.start_model_out:
         args.start_model_out.write_text(json.dumps(start_model_json(with_covariates, args.layout == "irregular"),
                                                    indent=2), encoding="utf-8")

@@ -19,9 +19,13 @@ from dataclasses import dataclass, field
 
 _WRAPPER = r"""
 import json, resource, subprocess, sys, time
-out_path, command = sys.argv[1], sys.argv[2:]
+out_path, limit, command = sys.argv[1], float(sys.argv[2]), sys.argv[3:]
 start = time.perf_counter()
-done = subprocess.run(command, stdout=subprocess.PIPE, stderr=subprocess.PIPE)
+try:
+    done = subprocess.run(command, stdout=subprocess.PIPE, stderr=subprocess.PIPE, timeout=limit or None)
+except subprocess.TimeoutExpired as exc:
+    done = subprocess.CompletedProcess(command, 124, exc.stdout or b"",
+                                       (exc.stderr or b"") + f"\ntimed out after {limit:.0f} s".encode())
 seconds = time.perf_counter() - start
 usage = resource.getrusage(resource.RUSAGE_CHILDREN)
 peak_kb = usage.ru_maxrss
@@ -69,6 +73,11 @@ class Measured:
         return f"exit code {self.returncode}: {text[-1] if text else 'no output'}"
 
 
+#: Seconds after which a measured command is stopped and reported as failed (0 = never); run_all's
+#: ``--command-timeout`` sets it.
+TIMEOUT_SECONDS = 0.0
+
+
 def run_measured(command: list, env: dict | None = None, cwd=None) -> Measured:
     """Run ``command`` (list of strings) in a fresh wrapper process; see the module docstring."""
     with tempfile.NamedTemporaryFile("r", suffix=".json", delete=False) as handle:
@@ -76,7 +85,8 @@ def run_measured(command: list, env: dict | None = None, cwd=None) -> Measured:
     try:
         environment = dict(os.environ)
         environment.update(env or {})
-        subprocess.run([sys.executable, "-c", _WRAPPER, out_path, *map(str, command)], env=environment,
+        subprocess.run([sys.executable, "-c", _WRAPPER, out_path, str(TIMEOUT_SECONDS), *map(str, command)],
+                       env=environment,
                        cwd=cwd, check=True)
         with open(out_path, encoding="utf-8") as handle:
             data = json.load(handle)

@@ -10,7 +10,8 @@ class Row:
     """One measured figure.
 
     ``limit`` is a time target in seconds, ``ratio_limit`` a target on caseview / reference.
-    Memory must stay within the run's memory target for the row to pass.
+    Memory must stay within ``memory_limit_mb`` (None: the table's memory target) for the row to pass.
+    ``figure`` replaces the time column for rows whose figure is not a time (a ratio, a log-likelihood).
     """
 
     measure: str
@@ -21,9 +22,11 @@ class Row:
     reference_peak_mb: float | None = None
     limit: float | None = None
     ratio_limit: float | None = None
-    memory_limit_mb: float = 1024.0
+    memory_limit_mb: float | None = None
     cpu_seconds: float | None = None
     reference_cpu_seconds: float | None = None
+    figure: str | None = None
+    verdict: bool | None = None   # for rows with a ``figure``: the pass/fail worked out by the caller
 
     @property
     def cpu_ratio(self) -> float | None:
@@ -39,9 +42,11 @@ class Row:
 
     def passed(self) -> bool | None:
         """True / False against the targets; None when the row has no time target (information only)."""
+        if self.figure is not None:
+            return self.verdict
         if self.seconds is None:
             return False   # not measured
-        memory_ok = self.peak_mb <= self.memory_limit_mb   # the reference's memory is not ours to meet
+        memory_ok = self.peak_mb <= (self.memory_limit_mb or 1024.0)   # the reference's memory is not ours to meet
         if self.limit is not None:
             return self.seconds <= self.limit and memory_ok
         if self.ratio_limit is not None:
@@ -60,15 +65,18 @@ def render_table(rows: list, memory_limit_mb: float = 1024.0) -> str:
               "peak MB reference | pass |")
     lines = [header, "|" + "---|" * 9]
     for row in rows:
-        row.memory_limit_mb = memory_limit_mb
+        if row.memory_limit_mb is None:
+            row.memory_limit_mb = memory_limit_mb
         ratio = "-" if row.ratio is None else f"{row.ratio:.2f}"
         cpu_ratio = "-" if row.cpu_ratio is None else f"{row.cpu_ratio:.2f}"
-        verdict = "not measured" if row.seconds is None else {True: "PASS", False: "FAIL", None: "info"}[row.passed()]
+        measured = row.seconds is not None or (row.figure is not None and row.figure != "-")
+        verdict = "not measured" if not measured else {True: "PASS", False: "FAIL", None: "info"}[row.passed()]
         ref_mb = "-" if row.reference_peak_mb is None else f"{row.reference_peak_mb:.0f}"
         our_mb = "-" if row.peak_mb is None else f"{row.peak_mb:.0f}"
-        lines.append(f"| {row.measure} | {_seconds(row.seconds)} | {_seconds(row.reference_seconds)} | {ratio} | "
-                     f"{cpu_ratio} | "
-                     f"{row.target}, <= {memory_limit_mb:.0f} MB | {our_mb} | {ref_mb} | {verdict} |")
+        memory = "" if row.figure is not None else f", <= {row.memory_limit_mb:.0f} MB"
+        shown = row.figure if row.figure is not None else _seconds(row.seconds)
+        lines.append(f"| {row.measure} | {shown} | {_seconds(row.reference_seconds)} | {ratio} | "
+                     f"{cpu_ratio} | {row.target}{memory} | {our_mb} | {ref_mb} | {verdict} |")
     return "\n".join(lines)
 
 

@@ -8,8 +8,9 @@ whole process. See benchmarks/README.md for what each figure means.
 
 Run::
 
-    python benchmarks/run_all.py                 # full sizes (100,000 cases; fits on 3,000 and 10,000)
-    python benchmarks/run_all.py --quick         # small sizes, about a minute, a smoke run
+    python benchmarks/run_all.py                 # full sizes (100,000 and 1,000,000 cases; fits on 3,000 and 10,000)
+    python benchmarks/run_all.py --skip-large    # 100,000 cases only
+    python benchmarks/run_all.py --quick         # small sizes, a few minutes, a smoke run
     python benchmarks/run_all.py --skip-gui --skip-fit --cases 20000
 """
 
@@ -28,6 +29,7 @@ import sys
 import tempfile
 import time
 from pathlib import Path
+from types import SimpleNamespace
 
 HERE = Path(__file__).resolve().parent
 ROOT = HERE.parent
@@ -35,6 +37,7 @@ sys.path.insert(0, str(HERE))
 
 from measure import Measured, run_measured  # noqa: E402
 from report import Row, render_results, render_table  # noqa: E402
+import scale_parts  # noqa: E402
 
 PYTHON = sys.executable
 MEMORY_TARGET_MB = 1024.0
@@ -72,7 +75,107 @@ def generate(cases: int, layout: str, out: Path, seed: int, covariates: str = "c
     return summary
 
 
-def make_workspace(ws: Path, model: Path, csv: Path, notes: list) -> Measured:
+def demo_model() -> dict:
+    from generate import demo_model_json
+
+    return demo_model_json(True, True)
+
+
+def last_date_of(csv: Path) -> str:
+    """The latest contact date in a generated CSV (its ``date`` column)."""
+    import pandas as pd
+
+    return str(pd.read_csv(csv, usecols=["date"])["date"].max())
+
+
+def gui_rows(ctx, n: int, ws: Path, as_of: str, measured: dict) -> None:
+    """Sort and filter from the window's open, then the whole window in a process of its own."""
+    figures, peak = measured["gui_figures"], measured["gui_peak_mb"]
+    log("timing the whole window (open until shown, stalls while reasons arrive)")
+    whole = run_measured([PYTHON, str(HERE / "gui_timing.py"), str(ws), "--as-of", as_of, "--part", "window"])
+    shown = whole.last_json_line()
+    if whole.ok and shown:
+        ctx.rows.append(Row(f"whole window: open {n:,}-case workspace until table, risk queue and selected case are "
+                            "shown", shown["window_shown"], None, "<= 3 s", whole.peak_mb, limit=3.0))
+        ctx.rows.append(Row("whole window: longest main-thread stall while reasons arrive", shown["longest_stall"],
+                            None, "(no target; < 0.1 s feels instant)", whole.peak_mb))
+        ctx.notes.append(f"whole window: reasons for every flagged case done {shown['reasons_done']:.2f} s after "
+                         f"asking; {shown['stalls_over_100ms']} main-thread stalls over 0.1 s")
+    else:
+        ctx.missing.append(f"whole-window timing failed: {whole.problem() or 'no figures printed'}")
+    ctx.rows.append(Row("window: sort the table (slowest of 5 columns x 2 directions)", figures["sort_max"], None,
+                        "<= 0.1 s", peak, limit=0.1))
+    ctx.rows.append(Row("window: filter the table (slowest of coordinator / search / flagged / clear)",
+                        figures["filter_max"], None, "<= 0.1 s", peak, limit=0.1))
+    parts = ", ".join(f"{k} {v:.3f} s" for k, v in figures.items() if isinstance(v, float))
+    ctx.notes.append(f"window breakdown ({n:,} cases): {parts}")
+
+
+def middle_case(n: int) -> str:
+    """The case code of the middle case of a generated caseload of ``n`` cases."""
+    from generate import case_codes
+
+    return str(case_codes(n)[n // 2])
+
+
+def make_workspace(ws: Path, model: Path, csv: Path, notes: list | None = None) -> Measured:
+    """``caseview init`` (untimed) then ``caseview import`` (measured)."""
+    cv = caseview_command()
+    if ws.exists():
+        ws.unlink()
+    init = subprocess.run(cv + ["init", str(ws), "--model", str(model)], capture_output=True, text=True)
+    if init.returncode:
+        raise RuntimeError(f"caseview init failed: {init.stderr.strip()}")
+    imported = run_measured(cv + ["import", str(ws), str(csv)])
+    if not imported.ok:
+        raise RuntimeError(f"caseview import {csv.name} failed: {imported.problem()}")
+    return imported
+
+
+def demo_model() -> dict:
+    from generate import demo_model_json
+
+    return demo_model_json(True, True)
+
+
+def last_date_of(csv: Path) -> str:
+    """The latest contact date in a generated CSV (its ``date`` column)."""
+    import pandas as pd
+
+    return str(pd.read_csv(csv, usecols=["date"])["date"].max())
+
+
+def gui_rows(ctx, n: int, ws: Path, as_of: str, measured: dict) -> None:
+    """Sort and filter from the window's open, then the whole window in a process of its own."""
+    figures, peak = measured["gui_figures"], measured["gui_peak_mb"]
+    log("timing the whole window (open until shown, stalls while reasons arrive)")
+    whole = run_measured([PYTHON, str(HERE / "gui_timing.py"), str(ws), "--as-of", as_of, "--part", "window"])
+    shown = whole.last_json_line()
+    if whole.ok and shown:
+        ctx.rows.append(Row(f"whole window: open {n:,}-case workspace until table, risk queue and selected case are "
+                            "shown", shown["window_shown"], None, "<= 3 s", whole.peak_mb, limit=3.0))
+        ctx.rows.append(Row("whole window: longest main-thread stall while reasons arrive", shown["longest_stall"],
+                            None, "(no target; < 0.1 s feels instant)", whole.peak_mb))
+        ctx.notes.append(f"whole window: reasons for every flagged case done {shown['reasons_done']:.2f} s after "
+                         f"asking; {shown['stalls_over_100ms']} main-thread stalls over 0.1 s")
+    else:
+        ctx.missing.append(f"whole-window timing failed: {whole.problem() or 'no figures printed'}")
+    ctx.rows.append(Row("window: sort the table (slowest of 5 columns x 2 directions)", figures["sort_max"], None,
+                        "<= 0.1 s", peak, limit=0.1))
+    ctx.rows.append(Row("window: filter the table (slowest of coordinator / search / flagged / clear)",
+                        figures["filter_max"], None, "<= 0.1 s", peak, limit=0.1))
+    parts = ", ".join(f"{k} {v:.3f} s" for k, v in figures.items() if isinstance(v, float))
+    ctx.notes.append(f"window breakdown ({n:,} cases): {parts}")
+
+
+def middle_case(n: int) -> str:
+    """The case code of the middle case of a generated caseload of ``n`` cases."""
+    from generate import case_codes
+
+    return str(case_codes(n)[n // 2])
+
+
+def make_workspace(ws: Path, model: Path, csv: Path, notes: list | None = None) -> Measured:
     """``caseview init`` (untimed) then ``caseview import`` (measured)."""
     cv = caseview_command()
     if ws.exists():
@@ -102,12 +205,19 @@ def score_cross_check(scores_csv: Path, posterior_npy: Path, stages: list) -> fl
 def main(argv=None) -> int:
     parser = argparse.ArgumentParser(description=__doc__.splitlines()[0])
     parser.add_argument("--cases", type=int, default=100_000, help="cases for score, import and window (default 100000)")
+    parser.add_argument("--large-cases", type=int, default=1_000_000,
+                        help="the large caseload: import, score, flags, history, window open, 1-start fit (default "
+                             "1000000); --skip-large leaves it out")
+    parser.add_argument("--large-csv", type=Path, help="reuse this generated irregular CSV of --large-cases cases")
     parser.add_argument("--fit-cases", default="3000,10000", help="comma-separated fit sizes (default 3000,10000)")
     parser.add_argument("--n-iter", type=int, default=100, help="hmmlearn EM iterations (default 100)")
     parser.add_argument("--seed", type=int, default=20261202)
-    parser.add_argument("--quick", action="store_true", help="small sizes (5000 cases, fit on 300): a smoke run")
-    for part in ("score", "fit", "import", "gui", "irregular-score"):
+    parser.add_argument("--quick", action="store_true", help="small sizes (5000 and 20000 cases, fit on 300): a smoke run")
+    for part in ("score", "fit", "import", "gui", "irregular-score", "two-channel", "large", "fit-one-start",
+                 "postgres"):
         parser.add_argument(f"--skip-{part}", action="store_true")
+    parser.add_argument("--command-timeout", type=float, default=0.0,
+                        help="stop a measured command after this many seconds and report it failed (default: never)")
     parser.add_argument("--workdir", type=Path, help="where data and workspaces go (default: a temporary directory)")
     parser.add_argument("--keep", action="store_true", help="keep the work directory")
     parser.add_argument("--results", type=lambda text: Path(text) if text else None, default=HERE / "results.md",
@@ -115,13 +225,20 @@ def main(argv=None) -> int:
     args = parser.parse_args(argv)
     if args.quick:
         args.cases = min(args.cases, 5000)
+        args.large_cases = min(args.large_cases, 20_000)
         args.fit_cases = "300"
     fit_sizes = [int(x) for x in args.fit_cases.split(",") if x.strip()]
+    import measure
+
+    measure.TIMEOUT_SECONDS = args.command_timeout
     command_line = "python benchmarks/run_all.py " + " ".join(shlex.quote(a) for a in (argv or sys.argv[1:]))
 
     work = args.workdir or Path(tempfile.mkdtemp(prefix="caseview-bench-"))
     work.mkdir(parents=True, exist_ok=True)
     os.environ["QT_QPA_PLATFORM"] = "offscreen"
+    # an installed caseview has its bytecode compiled; without this every measured command would compile
+    # caseview's modules from source again (about 0.3 s of each start-up on the shared machine)
+    os.environ.pop("PYTHONDONTWRITEBYTECODE", None)
     commands = available_commands()
     log(f"caseview commands available: {', '.join(sorted(commands)) or 'none'}; work directory {work}")
     load_before = os.getloadavg()
@@ -130,6 +247,9 @@ def main(argv=None) -> int:
     missing: list[str] = []
     cv = caseview_command()
     n = args.cases
+    ctx = SimpleNamespace(python=PYTHON, here=HERE, work=work, seed=args.seed, cv=cv, rows=rows, notes=notes,
+                          missing=missing, log=log, generate=generate, make_workspace=make_workspace,
+                          middle_case=lambda ws: middle_case(int(ws.stem.rsplit("_", 1)[-1])))
 
     def need(*names) -> bool:
         absent = [c for c in names if c not in commands]
@@ -138,86 +258,45 @@ def main(argv=None) -> int:
         return not absent
 
     try:
-        # ------------------------------------------------ import + irregular score + window
-        irregular_ws = work / "irregular.cvw"
-        irregular = None
+        # ------------------------------------------------ score vs hmmlearn (equal gaps; two channels)
+        if not args.skip_score and need("init", "import", "score"):
+            scale_parts.score_against_hmmlearn(ctx, n, "equal", "x 12 contacts, equal 30-day gaps, 3 channels "
+                                                                "(27 symbols), 2 covariates")
+        if not args.skip_two_channel and need("init", "import", "score"):
+            scale_parts.score_against_hmmlearn(ctx, n, "two-channel", "x 6-18 contacts, equal 30-day gaps, "
+                                                                      "2 channels (6 symbols), no covariates")
+        # ------------------------------------------------ one irregular caseload at two sizes
+        small_seconds, large_seconds = {}, {}
         if not (args.skip_import and args.skip_gui and args.skip_irregular_score) and need("init", "import"):
             irregular = generate(n, "irregular", work / "irregular.csv", args.seed, model_out=work / "demo_model.json")
+            irregular_ws = work / f"irregular_{n}.cvw"
             log("timing caseview import (irregular gaps)")
             imported = make_workspace(irregular_ws, work / "demo_model.json", work / "irregular.csv", notes)
-            if not args.skip_import:
-                rows.append(Row(f"`caseview import`, {n:,} cases, {irregular['contacts']:,} contacts, irregular gaps",
-                                imported.seconds, None, "<= 10 s", imported.peak_mb, limit=10.0))
             notes.append("import said: " + " / ".join(imported.stdout.strip().splitlines()))
-        if irregular and not args.skip_irregular_score and need("score"):
-            log("timing caseview score (irregular gaps)")
-            scored = run_measured(cv + ["score", str(irregular_ws), "--as-of", irregular["last_day"],
-                                        "--out", str(work / "irregular_scores.csv")])
-            if scored.ok:
-                rows.append(Row(f"`caseview score`, {n:,} cases, irregular gaps (issue 2 figure)",
-                                scored.seconds, None, "(no target)", scored.peak_mb))
+            small_seconds = scale_parts.caseload_commands(
+                ctx, n, irregular_ws, irregular["last_day"], MEMORY_TARGET_MB,
+                None if args.skip_import else imported, fit=not args.skip_fit_one_start, window=not args.skip_gui)
+            if "gui_figures" in small_seconds:
+                gui_rows(ctx, n, irregular_ws, irregular["last_day"], small_seconds)
+            if not args.skip_postgres:
+                scale_parts.postgres_rows(ctx, n, irregular_ws, irregular["last_day"], small_seconds)
+        if not args.skip_large and need("init", "import"):
+            large = args.large_cases
+            csv = args.large_csv or work / "irregular_large.csv"
+            if args.large_csv is None or not csv.exists():
+                data = generate(large, "irregular", csv, args.seed, model_out=work / "demo_model.json")
+                last_day = data["last_day"]
             else:
-                missing.append(f"caseview score (irregular) failed: {scored.problem()}")
-        if irregular and not args.skip_gui:
-            if gui_timing_available():
-                log("timing the window's caseload table (open, sort, filter)")
-                gui = run_measured([PYTHON, str(HERE / "gui_timing.py"), str(irregular_ws), "--as-of",
-                                    irregular["last_day"]])
-                figures = gui.last_json_line()
-                if gui.ok and figures:
-                    rows.append(Row(f"window: open {n:,}-case workspace until the table shows data",
-                                    figures["window_open"], None, "<= 3 s", gui.peak_mb, limit=3.0))
-                    log("timing the whole window (open until shown, stalls while reasons arrive)")
-                    whole = run_measured([PYTHON, str(HERE / "gui_timing.py"), str(irregular_ws), "--as-of",
-                                          irregular["last_day"], "--part", "window"])
-                    shown = whole.last_json_line()
-                    if whole.ok and shown:
-                        rows.append(Row(f"whole window: open {n:,}-case workspace until table, risk queue and "
-                                        "selected case are shown", shown["window_shown"], None, "<= 3 s",
-                                        whole.peak_mb, limit=3.0))
-                        rows.append(Row("whole window: longest main-thread stall while reasons arrive",
-                                        shown["longest_stall"], None, "(no target; < 0.1 s feels instant)",
-                                        whole.peak_mb))
-                        notes.append(f"whole window: reasons for every flagged case done "
-                                     f"{shown['reasons_done']:.2f} s after asking; "
-                                     f"{shown['stalls_over_100ms']} main-thread stalls over 0.1 s")
-                    else:
-                        missing.append(f"whole-window timing failed: {whole.problem() or 'no figures printed'}")
-                    rows.append(Row("window: sort the table (slowest of 5 columns x 2 directions)",
-                                    figures["sort_max"], None, "<= 0.1 s", gui.peak_mb, limit=0.1))
-                    rows.append(Row("window: filter the table (slowest of coordinator / search / flagged / clear)",
-                                    figures["filter_max"], None, "<= 0.1 s", gui.peak_mb, limit=0.1))
-                    parts = ", ".join(f"{k} {v:.3f} s" for k, v in figures.items() if isinstance(v, float))
-                    notes.append(f"window breakdown: {parts}")
-                else:
-                    missing.append(f"window timing failed: {gui.problem() or 'no figures printed'}")
-            else:
-                missing.append("caseview.gui.timing not importable yet")
+                last_day = last_date_of(csv)
+                (work / "demo_model.json").write_text(json.dumps(demo_model()), encoding="utf-8")
+            large_ws = work / f"irregular_{large}.cvw"
+            log(f"timing caseview import ({large:,} cases)")
+            imported = make_workspace(large_ws, work / "demo_model.json", csv)
+            large_seconds = scale_parts.caseload_commands(
+                ctx, large, large_ws, last_day, scale_parts.LARGE_MEMORY_MB, imported,
+                fit=not args.skip_fit_one_start, window=not args.skip_gui)
+            scale_parts.growth_rows(ctx, n, large, small_seconds, large_seconds)
 
-        # ------------------------------------------------ score vs hmmlearn (equal gaps)
-        if not args.skip_score and need("init", "import", "score"):
-            equal = generate(n, "equal", work / "equal.csv", args.seed, model_out=work / "equal_model.json")
-            make_workspace(work / "equal.cvw", work / "equal_model.json", work / "equal.csv", notes)
-            log("timing caseview score (equal gaps)")
-            scored = run_measured(cv + ["score", str(work / "equal.cvw"), "--as-of", equal["last_day"],
-                                        "--out", str(work / "equal_scores.csv")])
-            log("timing hmmlearn score + predict_proba")
-            reference = run_measured([PYTHON, str(HERE / "reference_hmmlearn.py"), "score", "--arrays",
-                                      equal["arrays"], "--model", str(work / "equal_model.json"),
-                                      "--posterior-out", str(work / "hmmlearn_posterior.npy")])
-            ref = reference.last_json_line()
-            if scored.ok and reference.ok:
-                rows.append(Row(f"`caseview score` vs hmmlearn `score`+`predict_proba`, {n:,} cases x 12, "
-                                f"equal 30-day gaps", scored.seconds, ref["seconds"], "ratio <= 0.5",
-                                scored.peak_mb, reference.peak_mb, ratio_limit=0.5,
-                                cpu_seconds=scored.cpu_seconds, reference_cpu_seconds=ref.get("cpu_seconds")))
-                stages = json.loads((work / "equal_model.json").read_text())["stages"]
-                diff = score_cross_check(work / "equal_scores.csv", work / "hmmlearn_posterior.npy", stages)
-                notes.append(f"score cross-check: max |caseview p_now - hmmlearn posterior at last contact| = "
-                             f"{diff:.1e} over {n:,} cases (CSV has 6 decimals); hmmlearn used {ref['groups']} "
-                             f"models (one per covariate pattern), total log-likelihood {ref['log_likelihood']:.3f}")
-            else:
-                missing.append(f"score comparison failed: {scored.problem() or reference.problem()}")
 
         # ------------------------------------------------ fit vs hmmlearn EM
         if not args.skip_fit:

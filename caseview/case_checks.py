@@ -43,7 +43,9 @@ def covariate_values_outside_range(model, covariates: np.ndarray) -> np.ndarray:
     model : hmm.StageModel
     covariates : ndarray, shape (n, n_covariates), in the model's covariate order
     """
-    covariates = np.asarray(covariates, dtype=float).reshape(-1, model.n_covariates)
+    covariates = np.asarray(covariates, dtype=float)
+    if covariates.ndim != 2:  # (n, 0) stays (n, 0): a model without covariates
+        covariates = covariates.reshape(-1, model.n_covariates) if model.n_covariates else covariates.reshape(0, 0)
     outside = np.zeros(covariates.shape, dtype=bool)
     for k, name in enumerate(model.covariates):
         bounds = model.range_of.get(name)

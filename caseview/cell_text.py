@@ -15,7 +15,6 @@ import re
 
 FORMULA_START = ("=", "+", "-", "@", "\t", "\r")
 _NUMBER = re.compile(r"[+-]?(?:\d+\.?\d*|\.\d+)(?:[eE][+-]?\d+)?")
-_RISKY_IN_JOINED = re.compile(r"(?:^|\x00)[=+\-@\t\r]")
 
 
 def neutralise(value, keep_numbers: bool = False):
@@ -29,9 +28,15 @@ def neutralise(value, keep_numbers: bool = False):
     return value
 
 
+_RISKY_AFTER_SEPARATOR = tuple("\x00" + mark for mark in FORMULA_START)
+
+
 def risky_joined(joined: str) -> bool:
-    """True when some cell of ``"\x00".join(cells)`` starts like a formula (then check cell by cell)."""
-    return _RISKY_IN_JOINED.search(joined) is not None
+    """True when some cell of ``"\x00".join(cells)`` starts like a formula (then check cell by cell).
+
+    Six substring searches (memory speed) instead of a regular expression tried at every position.
+    """
+    return joined.startswith(FORMULA_START) or any(mark in joined for mark in _RISKY_AFTER_SEPARATOR)
 
 
 def neutralise_all(values, keep_numbers: bool = False) -> list:
@@ -41,6 +46,6 @@ def neutralise_all(values, keep_numbers: bool = False) -> list:
         joined = "\x00".join(values)
     except TypeError:
         return [neutralise(v, keep_numbers) for v in values]
-    if not _RISKY_IN_JOINED.search(joined):
+    if not risky_joined(joined):
         return values
     return [neutralise(v, keep_numbers) for v in values]

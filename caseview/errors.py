@@ -17,6 +17,16 @@ class WorkspaceError(CaseviewError):
     """The workspace cannot be used as asked (missing, not a workspace, busy, newer version)."""
 
 
+class PasswordRequired(WorkspaceError):
+    """A PostgreSQL server asks for a password it was not given, or refused the one given
+    (``refused`` is True then); the window asks for it, the command line says where to give it."""
+
+    def __init__(self, message: str, login: str = "", refused: bool = False):
+        super().__init__(message)
+        self.login = login
+        self.refused = refused
+
+
 class WorkspaceBusy(WorkspaceError):
     """Another process holds the workspace's write lock."""
 

@@ -14,7 +14,15 @@ import numpy as np
 
 from .model import StageModel
 
-__all__ = ["effective_allowed_stages", "contacts_after_absorbing_entry"]
+__all__ = ["effective_allowed_stages", "contacts_after_absorbing_entry", "exact_entry_stage_mask", "entry_steps"]
+
+
+def exact_entry_stage_mask(model: StageModel) -> np.ndarray:
+    """ndarray of bool, shape (n_stages,): the stages in ``model.exact_entry_stages``."""
+    mask = np.zeros(model.n_stages, dtype=bool)
+    for name in model.exact_entry_stages:
+        mask[model.stage_index(name)] = True
+    return mask
 
 
 def _every_stage(allowed: np.ndarray) -> np.ndarray:
@@ -42,9 +50,7 @@ def effective_allowed_stages(model: StageModel, allowed: np.ndarray) -> np.ndarr
     """
     if not model.exact_entry_stages:
         return allowed
-    exact_mask = np.zeros(model.n_stages, dtype=bool)
-    for name in model.exact_entry_stages:
-        exact_mask[model.stage_index(name)] = True
+    exact_mask = exact_entry_stage_mask(model)
     drop = _every_stage(allowed)
     if not drop.any():
         return allowed
@@ -111,4 +117,37 @@ def _exact_entry_contacts(model: StageModel, allowed: np.ndarray) -> np.ndarray:
         pattern = np.zeros((1, model.n_stages), dtype=bool)
         pattern[0, model.stage_index(name)] = True
         result |= (packed == np.packbits(pattern, axis=1, bitorder="little")).all(axis=1)
+    return result
+
+
+def entry_steps(model: StageModel, allowed: np.ndarray, into_rows: np.ndarray, from_rows: np.ndarray) -> np.ndarray:
+    """Which steps between two contacts record an exact entry (their step matrix is the entry density).
+
+    A step from contact ``from_rows[i]`` to contact ``into_rows[i]`` records an entry when the later
+    contact records one exact-entry stage alone and the earlier one did not already record that same
+    stage alone (a second record of an absorbing stage is a step within it, probability 1, not a
+    new entry). Scoring and the fitting likelihood both take the rule from here.
+
+    Parameters
+    ----------
+    model : StageModel
+    allowed : ndarray of bool, shape (n_contacts, n_stages)
+        Recorded allowed stages.
+    into_rows, from_rows : ndarray of int, shape (n_steps,)
+        The later and the earlier contact of each step.
+
+    Returns
+    -------
+    ndarray of bool, shape (n_steps,)
+    """
+    into_rows = np.asarray(into_rows, dtype=np.int64)
+    result = np.zeros(into_rows.size, dtype=bool)
+    if not into_rows.size or not model.exact_entry_stages:
+        return result
+    exact = _exact_entry_contacts(model, allowed)
+    result = exact[into_rows]
+    again = np.flatnonzero(result & exact[from_rows])
+    if again.size:
+        same = (allowed[into_rows[again]] == allowed[np.asarray(from_rows)[again]]).all(axis=1)
+        result[again[same]] = False
     return result

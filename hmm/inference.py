@@ -37,7 +37,8 @@ from dataclasses import dataclass, field
 
 import numpy as np
 
-from .exact_entry import _exact_entry_contacts, contacts_after_absorbing_entry, effective_allowed_stages
+from .exact_entry import contacts_after_absorbing_entry, effective_allowed_stages, entry_steps
+from .forward_backward import CaseLayout, case_layout, scaled_backward, scaled_forward
 from .model import StageModel
 from .timelines import Timelines
 from .contact_timing import unscheduled_steps
@@ -106,47 +107,47 @@ def contact_likelihoods(model: StageModel, timelines: Timelines, rows: np.ndarra
 class _Plan:
     """Everything forward, backward and Viterbi share for one (model, timelines).
 
-    Contacts are laid out *position-major*: all first contacts (cases in decreasing-length
-    order), then all second contacts, and so on. The contacts at position ``k`` are then the
-    slice ``current(k)`` and the contacts just before them are ``previous(k)``, both plain views.
-    ``layout[i]`` is the original row of position-major row ``i``.
+    Contacts are laid out *position-major* (:class:`hmm.forward_backward.CaseLayout`, the layout the
+    fitting likelihood walks too): all first contacts (cases in decreasing-length order), then all
+    second contacts, and so on. ``layout[i]`` is the original row of position-major row ``i``.
     """
 
-    layout: np.ndarray            # (n_contacts,)
+    case_layout: CaseLayout
     likelihood: np.ndarray        # (n_contacts, S), position-major
-    active_counts: np.ndarray     # (max_contacts,) cases with more than k contacts
-    base: np.ndarray              # (max_contacts,) position-major start of position k
     step_matrices: np.ndarray     # (m, S, S)
     step_index: np.ndarray        # (n_contacts,) position-major; matrix for the step INTO each contact
-    _row_positions: np.ndarray | None = None  # (n_contacts,) position-major row of each timelines row
     unusable_cases: np.ndarray | None = None  # (n_cases,) bool: a step's generator overflowed; None if none
 
+    @property
+    def layout(self) -> np.ndarray:
+        return self.case_layout.order
+
+    @property
+    def active_counts(self) -> np.ndarray:
+        return self.case_layout.block_sizes
+
+    @property
+    def base(self) -> np.ndarray:
+        return self.case_layout.block_starts[:-1]
+
     def current(self, k: int) -> slice:
-        return slice(self.base[k], self.base[k] + self.active_counts[k])
+        return self.case_layout.current(k)
 
     def previous(self, k: int) -> slice:
-        return slice(self.base[k - 1], self.base[k - 1] + self.active_counts[k])
+        return self.case_layout.previous(k)
 
     def steps(self, k: int) -> np.ndarray:
         return np.take(self.step_matrices, self.step_index[self.current(k)], axis=0)
 
     def to_rows(self, values: np.ndarray) -> np.ndarray:
         """Position-major array back to the timelines' row order."""
-        if self._row_positions is None:  # inverse of ``layout``: gathering is faster than scattering
-            self._row_positions = np.empty_like(self.layout)
-            self._row_positions[self.layout] = np.arange(self.layout.size)
-        return np.take(values, self._row_positions, axis=0)
+        return self.case_layout.to_rows(values)
 
 
 def _prepare(model: StageModel, timelines: Timelines, method: str = "auto") -> _Plan:
     n_stages = model.n_stages
     if timelines.allowed_stages.shape[1] != n_stages:
         raise ValueError(f"timelines allow {timelines.allowed_stages.shape[1]} stages, model has {n_stages}")
-    counts = timelines.n_contacts_per_case
-    order = np.argsort(-counts, kind="stable")
-    max_contacts = int(counts.max()) if counts.size else 0
-    active_counts = counts.size - np.cumsum(np.bincount(counts, minlength=max_contacts + 1))[:max_contacts]
-
     n = timelines.n_contacts
     unusable = None
     step_index = np.full(n, -1, dtype=np.int64)
@@ -156,56 +157,70 @@ def _prepare(model: StageModel, timelines: Timelines, method: str = "auto") -> _
     if into_rows.size:
         distinct, group = covariate_groups(timelines.covariates[into_rows - 1])
         gaps = timelines.times[into_rows] - timelines.times[into_rows - 1]
-        with np.errstate(over="ignore", invalid="ignore"):
-            generators = model.generators(distinct)
-        usable = model.usable_covariate_rows(distinct)
         timing = model.unscheduled_contacts is not None
-        if timing:
-            with np.errstate(over="ignore", invalid="ignore"):
-                quiet = model.quiet_generators(distinct)
-        if not usable.all():
-            # a rate that overflows (or passes MAX_RATE_PER_DAY) fails only the cases that use it:
-            # their steps become placeholders (identity) and forward marks them not finite
-            generators[~usable] = 0.0
-            if timing:
-                quiet[~usable] = 0.0
-            failed_contacts = np.zeros(n, dtype=bool)
-            failed_contacts[into_rows[~usable[group]]] = True
-            unusable = np.add.reduceat(failed_contacts.astype(np.int64), timelines.offsets[:-1]) > 0
+        generators, quiet, unusable = _step_generators(model, distinct, group, into_rows, timelines)
         matrices, index = distinct_transition_matrices(quiet if timing else generators, gaps, group, method,
                                                        sub_generators=timing)
-        exact_all = _exact_entry_contacts(model, timelines.allowed_stages)
-        # an entry is a record of the stage not already recorded at the contact before (a second
-        # record of an absorbing stage is a step within it, probability 1, not a new entry)
-        exact_rows = exact_all[into_rows] & ~(exact_all[into_rows - 1] & (
-            timelines.allowed_stages[into_rows] == timelines.allowed_stages[into_rows - 1]).all(axis=1))
+        # the rule for which steps record an entry has one home (hmm.exact_entry.entry_steps)
+        exact_rows = entry_steps(model, timelines.allowed_stages, into_rows, into_rows - 1)
         if exact_rows.any():
-            # Second copy of every needed pair with exact-entry columns replaced by the density
-            # sum_{r != s} P(prev -> r) Q[r, s]; Q[s, s] = 0 for an absorbing s, so it is (P Q)[:, s].
-            needed = np.unique(index[exact_rows])
-            pair_generator = np.zeros(matrices.shape[0], dtype=np.int64)
-            pair_generator[index] = group
-            density = matrices[needed] @ generators[pair_generator[needed]]
-            exact_stages = [model.stage_index(s) for s in model.exact_entry_stages]
-            entered = matrices[needed].copy()
-            entered[:, :, exact_stages] = density[:, :, exact_stages]
-            position = np.full(matrices.shape[0], -1)
-            position[needed] = matrices.shape[0] + np.arange(needed.size)
-            matrices = np.concatenate([matrices, entered])
-            index = np.where(exact_rows, position[index], index)
+            matrices, index = _with_entry_densities(model, matrices, index, group, generators, exact_rows)
         if timing:
             matrices, index = unscheduled_steps(model, distinct, group, matrices, index,
                                                  timelines.unscheduled_mask[into_rows] & ~exact_rows)
         step_index[into_rows] = index
     else:
         matrices = np.zeros((0, n_stages, n_stages))
-    starts = timelines.offsets[:-1][order]
-    layout = np.concatenate([starts[:c] + k for k, c in enumerate(active_counts)]) if n else \
-        np.zeros(0, dtype=np.int64)
-    base = np.concatenate([[0], np.cumsum(active_counts)[:-1]]).astype(np.int64)
+    layout = case_layout(timelines.offsets)
     # the likelihoods are computed straight in position-major order (no second copy to reorder)
-    return _Plan(layout, contact_likelihoods(model, timelines, layout), active_counts, base, matrices,
-                 np.take(step_index, layout), unusable_cases=unusable)
+    return _Plan(layout, contact_likelihoods(model, timelines, layout.order), matrices,
+                 np.take(step_index, layout.order), unusable_cases=unusable)
+
+
+def _step_generators(model: StageModel, distinct: np.ndarray, group: np.ndarray, into_rows: np.ndarray,
+                     timelines: Timelines) -> tuple:
+    """Generators (and ``Q - Lambda`` with unscheduled contacts) per distinct covariate row; cases they fail.
+
+    A rate that overflows (or passes MAX_RATE_PER_DAY) fails only the cases that use it: their
+    steps become placeholders (identity) and forward marks them not finite.
+
+    Returns
+    -------
+    generators : ndarray, shape (G, S, S)
+    quiet : ndarray, shape (G, S, S) or None
+    unusable : ndarray of bool, shape (n_cases,), or None when every row is usable
+    """
+    with np.errstate(over="ignore", invalid="ignore"):
+        generators = model.generators(distinct)
+        quiet = model.quiet_generators(distinct) if model.unscheduled_contacts is not None else None
+    usable = model.usable_covariate_rows(distinct)
+    if usable.all():
+        return generators, quiet, None
+    generators[~usable] = 0.0
+    if quiet is not None:
+        quiet[~usable] = 0.0
+    failed_contacts = np.zeros(timelines.n_contacts, dtype=bool)
+    failed_contacts[into_rows[~usable[group]]] = True
+    return generators, quiet, np.add.reduceat(failed_contacts.astype(np.int64), timelines.offsets[:-1]) > 0
+
+
+def _with_entry_densities(model: StageModel, matrices: np.ndarray, index: np.ndarray, group: np.ndarray,
+                          generators: np.ndarray, exact_rows: np.ndarray) -> tuple:
+    """Step matrices with a second copy of every pair a recorded entry uses, its entry columns the density.
+
+    The density is ``sum_{r != s} P(prev -> r) Q[r, s]``; ``Q[s, s] = 0`` for an absorbing ``s``, so it
+    is ``(P Q)[:, s]``. Returns the extended matrices and the index with entry steps pointing at the copies.
+    """
+    needed = np.unique(index[exact_rows])
+    pair_generator = np.zeros(matrices.shape[0], dtype=np.int64)
+    pair_generator[index] = group
+    density = matrices[needed] @ generators[pair_generator[needed]]
+    exact_stages = [model.stage_index(s) for s in model.exact_entry_stages]
+    entered = matrices[needed].copy()
+    entered[:, :, exact_stages] = density[:, :, exact_stages]
+    position = np.full(matrices.shape[0], -1)
+    position[needed] = matrices.shape[0] + np.arange(needed.size)
+    return np.concatenate([matrices, entered]), np.where(exact_rows, position[index], index)
 
 
 # --------------------------------------------------------------------------- forward-backward
@@ -244,18 +259,9 @@ class ForwardResult:
 
 
 def _forward(plan: _Plan, initial: np.ndarray, timelines: Timelines) -> ForwardResult:
-    n, n_stages = plan.likelihood.shape
-    filtered = np.zeros((n, n_stages))
-    scale = np.zeros(n)
-    for k in range(plan.active_counts.size):
-        rows = plan.current(k)
-        if k == 0:
-            alpha = initial[None, :] * plan.likelihood[rows]
-        else:
-            alpha = np.einsum("ns,nst->nt", filtered[plan.previous(k)], plan.steps(k)) * plan.likelihood[rows]
-        total = alpha.sum(axis=1)
-        scale[rows] = total
-        filtered[rows] = alpha / np.where(total > 0, total, 1.0)[:, None]
+    n = plan.likelihood.shape[0]
+    filtered, scale = scaled_forward(plan.case_layout, initial, plan.likelihood, plan.step_matrices,
+                                     plan.step_index)
     with np.errstate(divide="ignore"):
         log_scale = plan.to_rows(np.log(scale))
     filtered = plan.to_rows(filtered)
@@ -304,14 +310,9 @@ def backward(model: StageModel, timelines: Timelines, forward_result: ForwardRes
     if forward_result is None or forward_result._plan is None:
         forward_result = forward(model, timelines)
     plan = forward_result._plan
-    n, n_stages = plan.likelihood.shape
     scale = np.exp(forward_result.log_scale[plan.layout])
     scale = np.where(scale > 0, scale, 1.0)
-    beta = np.ones((n, n_stages))
-    for k in range(plan.active_counts.size - 1, 0, -1):
-        rows = plan.current(k)
-        weighted = plan.likelihood[rows] * beta[rows] / scale[rows][:, None]
-        beta[plan.previous(k)] = np.einsum("nst,nt->ns", plan.steps(k), weighted)
+    beta = scaled_backward(plan.case_layout, plan.likelihood, scale, plan.step_matrices, plan.step_index)
     return plan.to_rows(beta)
 
 

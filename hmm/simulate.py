@@ -11,6 +11,7 @@ from dataclasses import dataclass
 
 import numpy as np
 
+from .exact_entry import exact_entry_stage_mask
 from .model import StageModel
 from .timelines import MISSING, Timelines
 from .transition import covariate_groups
@@ -208,9 +209,9 @@ def _simulate_paths(model: StageModel, layout: _ContactLayout, rng: np.random.Ge
         jump_cdf = np.cumsum(jumps, axis=2) / leave_rate[:, :, None]      # (G, S, S)
     contact_rate = model.unscheduled_rates(distinct) if timing else np.zeros_like(leave_rate)  # (G, S)
     extra = {"case": [], "time": [], "stage": [], "row": []}            # unscheduled contacts
-    exact_mask = np.zeros(n_stages, dtype=bool)
-    if exact_entry:
-        exact_mask[[model.stage_index(s) for s in model.exact_entry_stages]] = True
+    # an entry into an exact-entry stage ends the case's contacts and is recorded as that stage alone on the
+    # day it happened: the record hmm.exact_entry reads as an entry
+    exact_mask = exact_entry_stage_mask(model) if exact_entry else np.zeros(n_stages, dtype=bool)
 
     order = np.argsort(-counts, kind="stable")
     starts = offsets[:-1][order]

@@ -126,6 +126,10 @@ def _csv_body(columns):
         return None
     cells = []
     for column in columns:
+        if len(column) > 1 and isinstance(column[0], str) and "\x00" not in column[0] \
+                and column.count(column[0]) == len(column):
+            cells.append([_csv_cell(column[0])] * len(column))  # one text in every row (advisory, as-of date)
+            continue
         try:
             joined = "\x00".join(column)
         except TypeError:  # not all text
@@ -156,12 +160,47 @@ def _csv_body(columns):
     return "\n".join(map(",".join, zip(*cells))) + "\n"
 
 
+def _csv_cell(value: str) -> str:
+    """One text cell as ``csv.writer`` writes it after :func:`caseview.cell_text.neutralise` (numbers kept)."""
+    import csv
+    import io
+
+    from caseview.cell_text import neutralise
+
+    value = neutralise(value, keep_numbers=True)
+    if not any(mark in value for mark in _NEEDS_QUOTES):
+        return value
+    buffer = io.StringIO()
+    csv.writer(buffer, lineterminator="\n").writerow([value])
+    return buffer.getvalue()[:-1]
+
+
 def format_probabilities(values):
-    """Probabilities as fixed 6-decimal text, vectorised."""
+    """Probabilities (clipped to 0..1) as fixed 6-decimal text, exactly as ``"%.6f"`` writes them, vectorised.
+
+    The digits come from integer arithmetic on ``rint(value * 1e6)``; a value whose scaled form lies
+    within 1e-6 of a rounding tie (where the product may round otherwise than the exact decimal
+    expansion does) and any value that is not finite are written with ``"%.6f"`` itself.
+    """
     import numpy as np
 
-    values = np.clip(np.asarray(values, dtype=float), 0.0, 1.0).tolist()
-    return ("%.6f\n" * len(values) % tuple(values)).split("\n")[:-1] if values else []
+    values = np.clip(np.asarray(values, dtype=float), 0.0, 1.0)
+    if not values.size:
+        return []
+    scaled = values * 1e6
+    micro = np.rint(np.nan_to_num(scaled)).astype(np.int64)  # 0 ..= 1,000,000
+    digits = np.empty((values.size, 8), dtype=np.uint8)
+    digits[:, 0] = 48 + micro // 1_000_000
+    digits[:, 1] = 46  # '.'
+    rest = micro % 1_000_000
+    for k in range(7, 1, -1):
+        digits[:, k] = 48 + rest % 10
+        rest //= 10
+    text = digits.view("S8").reshape(-1).astype("U8").tolist()
+    doubtful = np.flatnonzero(~np.isfinite(values) | (np.abs(scaled - np.floor(scaled) - 0.5) < 1e-6))
+    for i in doubtful.tolist():
+        text[i] = "%.6f" % values[i]
+    return text
 
 
 def format_days(days):

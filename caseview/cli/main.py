@@ -28,6 +28,7 @@ COMMAND_MODULES = (
     "caseview.cli.casework_commands",  # record, correct, void, contacts, close, reopen
     "caseview.cli.outlook_commands",  # outlook, target
     "caseview.cli.window",      # gui
+    "caseview.cli.team_commands",  # team add/remove/list (PostgreSQL workspaces)
     "caseview.cli.copy_command",  # copy (SQLite <-> PostgreSQL)
 )
 

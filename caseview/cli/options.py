@@ -61,9 +61,19 @@ def add_actor_option(parser, what: str = "who is recorded in the audit trail") -
 
 
 def actor_name(args) -> str:
-    """The name recorded in the audit trail: ``--by`` or the operating-system user (attribution only)."""
+    """The name recorded in the audit trail: ``--by`` or the operating-system user (attribution only).
+
+    On a PostgreSQL workspace the server records the login it authenticated (``session_user``), so
+    ``--by`` is refused there rather than silently ignored.
+    """
     from caseview.attribution import os_user
+    from caseview.errors import InputError
+    from caseview.storage.location import is_database_url
     from caseview.textfiles import check_one_line
 
-    given = args.by
+    given = getattr(args, "by", None)   # argparse Namespace: a command without --by has no attribute
+    if given and any(is_database_url(getattr(args, name, None))  # the workspace, a copy's or demo's target
+                     for name in ("workspace", "destination", "path")):
+        raise InputError("--by is not accepted on a PostgreSQL workspace: the server records the login you "
+                         "connected as; connect as that person instead (nothing was changed)")
     return check_one_line(given, "--by") if given else os_user()

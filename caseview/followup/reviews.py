@@ -145,7 +145,7 @@ def record_review(ws, case_id: str, status: str, note: str, actor: str, assessme
     """
     from caseview.storage import followup_store as store
 
-    from caseview.textfiles import check_one_line
+    from caseview.textfiles import check_one_line, printable
 
     case_id = ws.find_case(case_id)  # the typed ID read like an imported one; InputError if no such case
     if not actor or not str(actor).strip():
@@ -158,8 +158,11 @@ def record_review(ws, case_id: str, status: str, note: str, actor: str, assessme
     check_change(case_id, previous.status if previous else "new", status, note)
     flags, p_follow_up, as_of_text = _case_numbers(ws, case_id, assessment, as_of)
     with ws.transaction():
-        previous = store.latest_reviews(ws.connection, case_id).get(case_id)
-        current = previous.status if previous else "new"
+        latest = store.latest_reviews(ws.connection, case_id).get(case_id)
+        if (latest.id if latest else None) != (previous.id if previous else None):
+            raise InputError(f"review of {case_id}: changed by {printable(latest.actor)} a moment ago (now "
+                             f"{latest.status}); nothing was stored - look at the case again")
+        current = latest.status if latest else "new"
         check_change(case_id, current, status, note)
         details = {"from": current, "to": status, "note": note, "flags": flags,
                    "p_follow_up_now": _finite_or_none(p_follow_up), "as_of": as_of_text}

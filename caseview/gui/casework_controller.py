@@ -196,10 +196,12 @@ class CaseworkController(QObject):
         self.window.rescore()
 
     # ------------------------------------------------------------------ one-case refresh
-    def after_change(self, case_id: str, note: str = "") -> float | None:
+    def after_change(self, case_id: str, note: str = "", select: bool = True) -> float | None:
         """Rescore ``case_id`` alone and show it in the table, the case pane and the risk queue.
 
-        Returns the seconds taken (None when the caseload is not scored yet: then it is rescored).
+        ``select=False`` (a colleague's change) leaves the selection where it is; the case pane
+        redraws only when it shows that case. Returns the seconds taken (None when the caseload is
+        not scored yet: then it is rescored).
         """
         from caseview.operations import casework
 
@@ -225,13 +227,13 @@ class CaseworkController(QObject):
                 window.caseload.update_case(loaded, row)
                 if window.caseload.current_case_id() == case_id:
                     window.case_view.show_rescored(row)
-                else:
+                elif select:
                     window.caseload.select_case(case_id)  # shows it in the case pane
                 window.risk_queue.update_case(loaded, row, queue_before)
         if not (was_present and row >= 0):  # a case added or gone: the table's rows change
             window.caseload.set_caseload(loaded)  # re-announces the selected case to the pane
             window.risk_queue.set_caseload(loaded)
-            if row >= 0:
+            if row >= 0 and select:
                 window.caseload.select_case(case_id)
         self.update_case_actions()
         seconds = time.perf_counter() - started
@@ -240,7 +242,7 @@ class CaseworkController(QObject):
             message = (f"{case_id} is closed or has no contact on or before "
                        f"{window.as_of.isoformat()}, so it is not in the table.")
         else:
-            message = f"Saved; {case_id} rescored ({seconds * 1000:.0f} ms)."
+            message = f"{'Saved; ' if select else ''}{case_id} rescored ({seconds * 1000:.0f} ms)."
         window.statusBar().showMessage(" ".join(part for part in (message, note) if part))
         window._start_reasons(loaded)
         self.case_refreshed.emit(case_id, seconds)

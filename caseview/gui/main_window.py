@@ -49,6 +49,9 @@ class MainWindow(QMainWindow):
         from .casework_controller import CaseworkController
 
         self.casework = CaseworkController(self)
+        from .colleague_changes import ColleagueChanges
+
+        self.colleague_changes = ColleagueChanges(self)
         self._restore_state()
 
     # ------------------------------------------------------------------ building
@@ -148,9 +151,36 @@ class MainWindow(QMainWindow):
         return self.source.workspace() if self.source is not None else None
 
     def open_workspace_dialog(self) -> None:
-        path, _ = QFileDialog.getOpenFileName(self, "Open workspace", "", "caseview workspace (*.cvw);;All files (*)")
-        if path:
-            self.open_workspace(path)
+        """A workspace file or a PostgreSQL URL (see :mod:`caseview.gui.open_dialog`)."""
+        from .open_dialog import OpenWorkspaceDialog
+
+        dialog = OpenWorkspaceDialog(self, self.recent_workspaces())
+        if dialog.exec() and dialog.location():
+            self.open_workspace(dialog.location())
+
+    def ask_password(self, url: str, login: str, problem: str = "") -> str | None:
+        """Ask for a server's password (echo off); None when cancelled. Never stored."""
+        from .open_dialog import ask_password
+
+        return ask_password(self, url, login, problem)
+
+    def _open_source(self, path):
+        """A WorkspaceSource, asking for the server's password when it wants one (three tries)."""
+        from caseview.errors import PasswordRequired
+
+        from .data_source import WorkspaceSource
+
+        password, problem = None, ""
+        for _ in range(3):
+            try:
+                return WorkspaceSource(path, password=password)  # None: libpq's own sources first
+            except PasswordRequired as exc:
+                if exc.refused and password is not None:
+                    problem = "The server refused that password; try again."
+                password = self.ask_password(str(path), exc.login, problem)
+                if password is None:
+                    return None
+        raise PasswordRequired(f"{path}: the server refused the password three times (nothing was opened)")
 
     def create_workspace_dialog(self) -> None:
         model_path, _ = QFileDialog.getOpenFileName(self, "Model file for the new workspace", "",
@@ -180,10 +210,11 @@ class MainWindow(QMainWindow):
         """Open a workspace file and score it in the background."""
         from caseview.errors import CaseviewError
 
-        from .data_source import WorkspaceSource
-
         try:
-            source = WorkspaceSource(path)
+            source = self._open_source(path)
+            if source is None:  # the password prompt was cancelled
+                self.statusBar().showMessage("Nothing was opened.")
+                return False
         except CaseviewError as exc:
             self.show_error(str(exc))
             return False
@@ -206,6 +237,7 @@ class MainWindow(QMainWindow):
         self.workspace_label.setText(f"  Workspace: {source.label}")
         self.setWindowTitle(f"caseview — {source.label}")
         self.model_panel.set_source(source)
+        self.colleague_changes.start(source)  # a PostgreSQL workspace: colleagues' changes refresh their rows
         self.rescore()
 
     def show_case(self, case_id: str) -> bool:
@@ -434,6 +466,7 @@ class MainWindow(QMainWindow):
 
     def closeEvent(self, event) -> None:
         self._save_state()
+        self.colleague_changes.stop()
         self.jobs.shutdown()
         self.model_panel.shutdown()
         if self.source is not None:

@@ -317,7 +317,13 @@ class RiskQueue(QWidget):
         if ws is None:
             self.audit_list.addItem("(no workspace: audit trail not available)")
             return
-        entries = ws.audit_entries(case_id=case_id)[-20:]
+        from caseview.errors import CaseviewError
+
+        try:
+            entries = ws.audit_entries(case_id=case_id)[-20:]
+        except CaseviewError:  # a team workspace: a coordinator's role does not read the audit trail
+            self.audit_list.addItem("(the audit trail is not readable with your role in this team workspace)")
+            return
         if not entries:
             self.audit_list.addItem("(no audit entries for this case yet)")
         for e in entries:

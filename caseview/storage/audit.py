@@ -15,7 +15,9 @@ Records protected beyond the chain: an entry whose write changed protected rows 
 (:mod:`caseview.storage.row_check`). Writers pass ``changes=RowChanges(...)`` to :func:`append`.
 
 The actor is a name (the operating-system user unless given), i.e. attribution, not
-authentication.
+authentication - on SQLite. On PostgreSQL the server appends every entry (the SECURITY DEFINER
+function ``caseview_audit_append`` of :mod:`caseview.storage.postgres_roles`), in the writer's
+transaction, with the actor taken from ``session_user``: the login the server authenticated.
 """
 
 from __future__ import annotations
@@ -71,8 +73,15 @@ def utc_now() -> str:
     return _dt.datetime.now(_dt.timezone.utc).strftime("%Y-%m-%dT%H:%M:%S.%fZ")
 
 
+def _on_server(connection) -> bool:
+    """True on a PostgreSQL workspace: entries are appended by the server (see :mod:`.postgres_roles`)."""
+    return getattr(connection, "kind", None) == "postgresql"
+
+
 def next_entry_id(connection) -> int:
     """The id the next appended entry will get (stable while the caller holds the write transaction)."""
+    if _on_server(connection):  # the audit table is not readable by every role; the server holds the id
+        return int(connection.execute("SELECT caseview_next_audit_id()").fetchone()[0])
     row = connection.execute("SELECT MAX(id) FROM audit_log").fetchone()
     return (row[0] or 0) + 1
 
@@ -105,10 +114,14 @@ def append(connection, actor: str, action: str, target: str, details: dict, chan
         rows = record_row_changes(connection, changes)
         if rows:
             details["row_digests"] = rows
+    details_json = canonical_json(details)
+    if _on_server(connection):  # id, chain, hash and the actor (session_user) are decided by the server
+        row = connection.execute("SELECT entry_id, entry_at, entry_actor, entry_prev, entry_hash_hex FROM "
+                                 "caseview_audit_append(?, ?, ?, ?)", (action, target, details_json, at_utc)).fetchone()
+        return AuditEntry(int(row[0]), row[1], row[2], action, target, json.loads(details_json), row[3], row[4])
     row = connection.execute("SELECT id, entry_hash FROM audit_log ORDER BY id DESC LIMIT 1").fetchone()
     entry_id, prev = (row[0] + 1, row[1]) if row else (1, GENESIS_HASH)
     at = at_utc or utc_now()
-    details_json = canonical_json(details)
     digest = entry_hash(entry_id, at, actor, action, target, details_json, prev)
     connection.execute(
         "INSERT INTO audit_log (id, at_utc, actor, action, target, details_json, prev_hash, entry_hash)"
@@ -117,6 +130,8 @@ def append(connection, actor: str, action: str, target: str, details: dict, chan
 
 
 def head(connection) -> str:
+    if _on_server(connection):  # every team role may know the head (it tells nothing about any case)
+        return connection.execute("SELECT head_hash FROM caseview_audit_head()").fetchone()[0]
     row = connection.execute("SELECT entry_hash FROM audit_log ORDER BY id DESC LIMIT 1").fetchone()
     return row[0] if row else GENESIS_HASH
 
@@ -156,6 +171,9 @@ def verify(connection, rows: bool = True) -> AuditVerification:
     """Recompute the chain from the first entry (stop at the first that fails); then, with ``rows``,
     check every protected record against the trail (:func:`caseview.storage.row_check.check_rows`)."""
     chain = _verify_chain(connection)
+    if rows and _on_server(connection) and not connection.execute(
+            "SELECT has_table_privilege('public.cases', 'SELECT')").fetchone()[0]:
+        rows = False  # a team auditor reads the trail only; the records check needs a role that reads every case
     if not chain.ok or not rows:
         return chain
     from .row_check import check_rows

@@ -17,6 +17,7 @@ a case is closed from its closing day on (the closing day itself counts as close
 
 from __future__ import annotations
 
+import sqlite3
 from dataclasses import asdict, dataclass
 
 import numpy as np
@@ -24,6 +25,7 @@ import numpy as np
 from ..dates import day_text
 from ..errors import InputError
 from . import audit as _audit
+from . import case_packs
 from .contact_writer import ContactBatch, encode_batch
 from .contacts import field_layout
 from .row_digests import RowChanges
@@ -282,9 +284,13 @@ def record_contact(ws, batch: ContactBatch, actor: str, create_case: bool) -> di
             raise InputError(f"case {code!r} does not exist; give its coordinator to create it (nothing was stored)")
         if case_id is not None and create_case:
             raise InputError(f"case {code!r} already exists; record a contact for it instead (nothing was stored)")
-        if case_id is None:
-            case_id = int(con.execute("SELECT COALESCE(MAX(id), 0) + 1 FROM cases").fetchone()[0])
-            con.execute("INSERT INTO cases (id, case_code, coordinator) VALUES (?, ?, ?)", (case_id, code, coordinator))
+        if case_id is None:  # the key is the database's (on PostgreSQL a coordinator sees only their cases)
+            try:
+                case_id = int(con.execute("INSERT INTO cases (case_code, coordinator) VALUES (?, ?)",
+                                          (code, coordinator)).lastrowid)
+            except sqlite3.IntegrityError:
+                raise InputError(f"case {code!r} already exists and is not among the cases you can see "
+                                 "(nothing was stored)") from None
         else:
             _refuse_if_closed(con, code, case_id, day)
             if _current_row(con, case_id, day) is not None:
@@ -302,6 +308,7 @@ def record_contact(ws, batch: ContactBatch, actor: str, create_case: bool) -> di
                     " VALUES (?, ?, ?, ?, '')", (case_id, day, at, actor))
         _update_case_coordinator(con, case_id)
         new = _as_version(con, code, day, _current_row(con, case_id, day), CURRENT)
+        case_packs.refresh_case_packs(con, [case_id])  # the packed contacts follow the rows (same transaction)
         details = {"case_id": code, "date": _date(day), "case_created": bool(create_case), "old": None, "new": new}
         _audit.append(con, actor, "contact.record", code, details, changes=_changes(con, code, case_id, [day]))
     return details
@@ -338,6 +345,7 @@ def correct_contact(ws, case_code: str, day: int, batch: ContactBatch, actor: st
                     " VALUES (?, ?, ?, ?, ?)", (case_id, new_day, _audit.utc_now(), actor, reason))
         _update_case_coordinator(con, case_id)
         new = _as_version(con, case_code, new_day, _current_row(con, case_id, new_day), CURRENT)
+        case_packs.refresh_case_packs(con, [case_id])  # the packed contacts follow the rows (same transaction)
         details = {"case_id": case_code, "date": _date(day), "reason": reason, "old": old, "new": new}
         _audit.append(con, actor, "contact.correct", case_code, details,
                       changes=_changes(con, case_code, case_id, [day, new_day], kept))
@@ -355,6 +363,7 @@ def void_contact(ws, case_code: str, day: int, actor: str, reason: str) -> dict:
         kept = keep_earlier_versions(con, [(case_id, day)], VOIDED, actor, reason)
         con.execute("DELETE FROM contacts WHERE case_id = ? AND day = ?", (case_id, day))
         _update_case_coordinator(con, case_id)
+        case_packs.refresh_case_packs(con, [case_id])  # the packed contacts follow the rows (same transaction)
         details = {"case_id": case_code, "date": _date(day), "reason": reason, "old": old, "new": None}
         _audit.append(con, actor, "contact.void", case_code, details,
                       changes=_changes(con, case_code, case_id, [day], kept))

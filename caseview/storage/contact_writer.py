@@ -15,6 +15,7 @@ from dataclasses import dataclass, field
 import numpy as np
 
 from ..errors import WorkspaceError
+from . import case_packs
 from .contacts import field_layout
 from .row_digests import RowChanges, case_digests_from_arrays
 from .schema import BLANK_CODE
@@ -121,17 +122,74 @@ def encode_batch(layout, batch: ContactBatch) -> tuple[np.ndarray, np.ndarray]:
     return obs, covs
 
 
+#: Contacts turned into Python objects at a time while writing (bounds the memory of a million-case import).
+ROWS_PER_STEP = 250_000
+
+
+@dataclass
+class _Rows:
+    """Where each batch row goes: its stored case id and coordinator id (see :func:`_assign_ids`)."""
+
+    row_case: np.ndarray          # (n,) int64 stored case id
+    row_coordinator: np.ndarray   # (n,) object: coordinators.id or None
+    coordinator_code: dict        # coordinators.id -> code (None -> '')
+    case_id: dict                 # case code -> stored id (stored and new)
+    new_codes: list               # codes of the cases this batch adds, in code order
+    next_id: int                  # the first id given to a new case
+    order: np.ndarray             # (n,) batch rows sorted by (case id, day)
+    is_new_case: np.ndarray       # (n,) bool
+
+
 def write_contacts(connection, batch: ContactBatch, replace: bool = False, actor: str = "",
                    reason: str = "") -> WriteCounts:
     """Store ``batch``; the caller holds a write transaction.
 
     With ``replace``, each stored contact that differs is replaced and its earlier version kept in
-    ``contact_versions`` (status superseded, ``reason``, ``actor``), never overwritten.
+    ``contact_versions`` (status superseded, ``reason``, ``actor``), never overwritten. The packed
+    contacts of every case the batch touches (:mod:`.case_packs`) are rewritten in the same transaction.
     """
     layout = field_layout(connection)
     n = batch.n_rows
     obs, covs = encode_batch(layout, batch)
+    ids = _assign_ids(connection, batch)
+    touched_existing = np.unique(ids.row_case[~ids.is_new_case]).tolist()
+    duplicates, updates, replaced_details = [], [], []
+    if touched_existing:
+        connection.execute("CREATE TEMP TABLE IF NOT EXISTS _import_cases (id INTEGER PRIMARY KEY)")
+        connection.execute("DELETE FROM _import_cases")
+        connection.executemany("INSERT INTO _import_cases (id) VALUES (?)", [(i,) for i in touched_existing])
+        duplicates, updates, replaced_details = _compare_with_stored(connection, batch, ids, obs, covs, replace)
 
+    skip = np.zeros(n, dtype=bool)
+    skip[duplicates] = True
+    skip[[u[0] for u in updates]] = True
+    insert_rows = ids.order[~skip[ids.order]]
+    last_coordinator = _insert_new_cases(connection, batch, ids)
+    _insert_contacts(connection, batch, ids, obs, covs, insert_rows)
+    version_ids = _replace_contacts(connection, batch, ids, updates, actor, reason)
+    if touched_existing:
+        connection.execute(
+            "UPDATE cases SET coordinator = COALESCE((SELECT co.code FROM contacts c JOIN coordinators co"
+            " ON co.id = c.coordinator_id WHERE c.case_id = cases.id ORDER BY c.day DESC LIMIT 1), '')"
+            " WHERE id IN (SELECT id FROM _import_cases)")
+        connection.execute("DELETE FROM _import_cases")
+    changed_rows = np.concatenate([insert_rows[~ids.is_new_case[insert_rows]],
+                                   np.array([i for i, _ in updates], dtype=np.int64)])
+    # the packs: new cases from the batch arrays, changed stored cases from their rows
+    _write_new_case_packs(connection, batch, ids, obs, covs)
+    case_packs.refresh_case_packs(connection, ids.row_case[changed_rows].tolist())
+    changed_existing = sorted({str(batch.case_codes[i]) for i in changed_rows.tolist()})
+    kept = {"contact_versions": version_ids, "contact_provenance": [f"{int(ids.row_case[i])}:{int(batch.days[i])}"
+                                                                    for i, _ in updates]} if updates else {}
+    changes = RowChanges(cases=tuple(changed_existing), all_rows=("coordinators",), rows=kept,
+                         case_digests=_new_case_digests(batch, ids, last_coordinator, obs, covs))
+    return WriteCounts(cases_added=len(ids.new_codes), contacts_added=int(insert_rows.size),
+                       duplicates_skipped=len(duplicates), replaced=len(updates), replaced_details=replaced_details,
+                       row_changes=changes)
+
+
+def _assign_ids(connection, batch: ContactBatch) -> _Rows:
+    """Stored ids for the batch's coordinators (added when new) and cases (new ids in code order)."""
     import pandas as pd
 
     # coordinators
@@ -155,127 +213,147 @@ def write_contacts(connection, batch: ContactBatch, replace: bool = False, actor
     for offset, code in enumerate(new_codes):
         case_id[code] = next_id + offset
     row_case = np.array([case_id[c] for c in case_uniques.tolist()], dtype=np.int64)[case_codes_idx]
-    row_coordinator = np.array([coordinator_id[c] for c in coord_uniques.tolist()] + [None], dtype=object)[:-1][coord_codes]
-    order = np.lexsort((batch.days, row_case))
-    is_new_case = row_case >= next_id
+    row_coordinator = np.array([coordinator_id[c] for c in coord_uniques.tolist()] + [None],
+                               dtype=object)[:-1][coord_codes]
+    return _Rows(row_case=row_case, row_coordinator=row_coordinator, coordinator_code=coordinator_code,
+                 case_id=case_id, new_codes=new_codes, next_id=next_id, order=np.lexsort((batch.days, row_case)),
+                 is_new_case=row_case >= next_id)
 
-    # stored contacts of existing cases in the batch
-    touched_existing = sorted({case_id[c] for c in distinct_codes if c in existing})
+
+def _compare_with_stored(connection, batch: ContactBatch, ids: _Rows, obs, covs, replace: bool):
+    """Stored contacts of existing cases in the batch (listed in ``_import_cases``) against the batch.
+
+    Returns (rows that are exact duplicates, [(row, new stored values)] to replace, replaced details);
+    raises :class:`ContactConflicts` for differing rows unless ``replace``.
+    """
     duplicates, updates, conflicts, differing, replaced_details = [], [], [], [], []
-    if touched_existing:
-        connection.execute("CREATE TEMP TABLE IF NOT EXISTS _import_cases (id INTEGER PRIMARY KEY)")
-        connection.execute("DELETE FROM _import_cases")
-        connection.executemany("INSERT INTO _import_cases (id) VALUES (?)", [(i,) for i in touched_existing])
-        stored = {}
-        gc_was_enabled = gc.isenabled()
-        gc.disable()
-        try:
-            for key, o, c, st, co, kind in connection.execute(
-                    "SELECT (c.case_id << 18) + (c.day + 131072), c.observations, c.covariates, c.stage_known,"
-                    " c.coordinator_id, c.contact_kind FROM contacts c JOIN _import_cases t ON t.id = c.case_id"):
-                stored[key] = (o, c, st, co, kind)
-        finally:
-            if gc_was_enabled:
-                gc.enable()
-        candidates = np.flatnonzero(~is_new_case)
-        kinds = batch.contact_kinds()
-        obs_blobs = covs_blobs = None
-        if candidates.size:
-            cand_obs, cand_cov = _blobs(obs[candidates]), _blobs(covs[candidates])
-            for k, i in enumerate(candidates.tolist()):
-                old = stored.get((int(row_case[i]) << 18) + int(batch.days[i]) + 131072)
-                if old is None:
-                    continue
-                stage = batch.stage_known[i] or None
-                coord = row_coordinator[i]
-                new = (cand_obs[k], cand_cov[k], stage, coord, kinds[i])
-                if old == new:
-                    duplicates.append(i)
-                    continue
-                names = [label for label, a, b in zip(("values", "covariates", "stage_known", "coordinator",
-                                                       "contact_kind"), old, new) if a != b]
-                if replace:
-                    updates.append((i, new))
-                    replaced_details.append({
-                        "case_id": str(batch.case_codes[i]), "day": int(batch.days[i]),
-                        "old_sha256": _row_digest(old[0], old[1], old[2], coordinator_code.get(old[3], "")),
-                        "new_sha256": _row_digest(new[0], new[1], new[2], batch.coordinators[i])})
-                    if old[4] != new[4]:
-                        replaced_details[-1]["contact_kind"] = [old[4], new[4]]
-                else:
-                    conflicts.append(i)
-                    differing.append(names)
-        del stored
-        if conflicts:
-            raise ContactConflicts(conflicts, differing)
-
-    skip = np.zeros(n, dtype=bool)
-    skip[duplicates] = True
-    skip[[u[0] for u in updates]] = True
-    insert_rows = order[~skip[order]]
-
-    # new cases with their last recorded coordinator (rows sorted by day within case)
-    if new_codes:
-        rows_new = order[is_new_case[order]]
-        rows_new = rows_new[batch.coordinators[rows_new] != ""]
-        # rows are sorted by (case, day): the last row per case wins in the dict
-        last_coordinator = dict(zip(row_case[rows_new].tolist(), batch.coordinators[rows_new].tolist()))
-        connection.executemany("INSERT INTO cases (id, case_code, coordinator) VALUES (?, ?, ?)",
-                               [(case_id[c], c, last_coordinator.get(case_id[c], "")) for c in new_codes])
-
-    if insert_rows.size:
-        obs_blobs = _blobs(obs[insert_rows])
-        covs_blobs = _blobs(covs[insert_rows])
-        stage = [s or None for s in batch.stage_known[insert_rows].tolist()]
-        coords = row_coordinator[insert_rows].tolist()
-        columns = [row_case[insert_rows].tolist(), batch.days[insert_rows].tolist(), obs_blobs, covs_blobs, stage,
-                   coords]
-        kind_column = ""
-        if batch.unscheduled is not None and np.any(batch.unscheduled[insert_rows]):
-            # contact_kind is named only when some contact is unscheduled (otherwise the column default,
-            # 'scheduled', applies), so a batch without kinds is stored exactly as before the column existed
-            columns.append(batch.contact_kinds()[insert_rows].tolist())
-            kind_column = ", contact_kind"
-        connection.executemany(
-            f"INSERT INTO contacts (case_id, day, observations, covariates, stage_known, coordinator_id{kind_column})"
-            f" VALUES (?, ?, ?, ?, ?, ?{', ?' if kind_column else ''})", zip(*columns))
-    if updates:
-        from .casework_store import keep_earlier_versions
-
-        version_ids = keep_earlier_versions(connection, [(int(row_case[i]), int(batch.days[i])) for i, _ in updates],
-                                            "superseded", actor, reason or "replaced by an import")
-        connection.executemany(
-            "UPDATE contacts SET observations = ?, covariates = ?, stage_known = ?, coordinator_id = ?,"
-            " contact_kind = ? WHERE case_id = ? AND day = ?",
-            [(o, c, s, co, kind, int(row_case[i]), int(batch.days[i])) for i, (o, c, s, co, kind) in updates])
-    if touched_existing:
-        connection.execute(
-            "UPDATE cases SET coordinator = COALESCE((SELECT co.code FROM contacts c JOIN coordinators co"
-            " ON co.id = c.coordinator_id WHERE c.case_id = cases.id ORDER BY c.day DESC LIMIT 1), '')"
-            " WHERE id IN (SELECT id FROM _import_cases)")
-        connection.execute("DELETE FROM _import_cases")
-    changed_existing = sorted({str(batch.case_codes[i]) for i in insert_rows[~is_new_case[insert_rows]].tolist()}
-                              | {str(batch.case_codes[i]) for i, _ in updates})
-    kept = {"contact_versions": version_ids, "contact_provenance": [f"{int(row_case[i])}:{int(batch.days[i])}"
-                                                                    for i, _ in updates]} if updates else {}
-    changes = RowChanges(cases=tuple(changed_existing), all_rows=("coordinators",), rows=kept,
-                         case_digests=_new_case_digests(batch, new_codes, last_coordinator if new_codes else {},
-                                                        case_id, order, is_new_case, row_case, obs, covs))
-    return WriteCounts(cases_added=len(new_codes), contacts_added=int(insert_rows.size),
-                       duplicates_skipped=len(duplicates), replaced=len(updates), replaced_details=replaced_details,
-                       row_changes=changes)
+    stored = {}
+    gc_was_enabled = gc.isenabled()
+    gc.disable()
+    try:
+        for key, o, c, st, co, kind in connection.execute(
+                "SELECT (c.case_id << 18) + (c.day + 131072), c.observations, c.covariates, c.stage_known,"
+                " c.coordinator_id, c.contact_kind FROM contacts c JOIN _import_cases t ON t.id = c.case_id"):
+            stored[key] = (o, c, st, co, kind)
+    finally:
+        if gc_was_enabled:
+            gc.enable()
+    candidates = np.flatnonzero(~ids.is_new_case)
+    kinds = batch.contact_kinds()
+    if candidates.size:
+        cand_obs, cand_cov = _blobs(obs[candidates]), _blobs(covs[candidates])
+        for k, i in enumerate(candidates.tolist()):
+            old = stored.get((int(ids.row_case[i]) << 18) + int(batch.days[i]) + 131072)
+            if old is None:
+                continue
+            stage = batch.stage_known[i] or None
+            new = (cand_obs[k], cand_cov[k], stage, ids.row_coordinator[i], kinds[i])
+            if old == new:
+                duplicates.append(i)
+                continue
+            names = [label for label, a, b in zip(("values", "covariates", "stage_known", "coordinator",
+                                                   "contact_kind"), old, new) if a != b]
+            if replace:
+                updates.append((i, new))
+                replaced_details.append({
+                    "case_id": str(batch.case_codes[i]), "day": int(batch.days[i]),
+                    "old_sha256": _row_digest(old[0], old[1], old[2], ids.coordinator_code.get(old[3], "")),
+                    "new_sha256": _row_digest(new[0], new[1], new[2], batch.coordinators[i])})
+                if old[4] != new[4]:
+                    replaced_details[-1]["contact_kind"] = [old[4], new[4]]
+            else:
+                conflicts.append(i)
+                differing.append(names)
+    del stored
+    if conflicts:
+        raise ContactConflicts(conflicts, differing)
+    return duplicates, updates, replaced_details
 
 
-def _new_case_digests(batch, new_codes, last_coordinator, case_id, order, is_new_case, row_case, obs, covs) -> dict:
-    """Digests of the new cases from the batch arrays (no read-back); see :mod:`.row_digests`."""
-    if not new_codes:
+def _insert_new_cases(connection, batch: ContactBatch, ids: _Rows) -> dict:
+    """Insert the new cases with their last recorded coordinator; returns {case id: coordinator}."""
+    if not ids.new_codes:
         return {}
-    rows = order[is_new_case[order]]  # sorted by case (ids in code order), then day
-    first_id = case_id[new_codes[0]]
-    counts = np.bincount(row_case[rows] - first_id, minlength=len(new_codes))
+    rows_new = ids.order[ids.is_new_case[ids.order]]
+    rows_new = rows_new[batch.coordinators[rows_new] != ""]
+    # rows are sorted by (case, day): the last row per case wins in the dict
+    last_coordinator = dict(zip(ids.row_case[rows_new].tolist(), batch.coordinators[rows_new].tolist()))
+    connection.executemany("INSERT INTO cases (id, case_code, coordinator) VALUES (?, ?, ?)",
+                           [(ids.case_id[c], c, last_coordinator.get(ids.case_id[c], "")) for c in ids.new_codes])
+    return last_coordinator
+
+
+def _insert_contacts(connection, batch: ContactBatch, ids: _Rows, obs, covs, insert_rows: np.ndarray) -> None:
+    """Insert the batch rows ``insert_rows`` (new contacts) into ``contacts``."""
+    if not insert_rows.size:
+        return
+    kinds = None
+    if batch.unscheduled is not None and np.any(batch.unscheduled[insert_rows]):
+        # contact_kind is named only when some contact is unscheduled (otherwise the column default,
+        # 'scheduled', applies), so a batch without kinds is stored exactly as before the column existed
+        kinds = batch.contact_kinds()
+    kind_column = ", contact_kind" if kinds is not None else ""
+    sql = (f"INSERT INTO contacts (case_id, day, observations, covariates, stage_known, coordinator_id{kind_column})"
+           f" VALUES (?, ?, ?, ?, ?, ?{', ?' if kind_column else ''})")
+    for start in range(0, insert_rows.size, ROWS_PER_STEP):  # Python objects for one step at a time
+        rows = insert_rows[start:start + ROWS_PER_STEP]
+        columns = [ids.row_case[rows].tolist(), batch.days[rows].tolist(), _blobs(obs[rows]), _blobs(covs[rows]),
+                   [s or None for s in batch.stage_known[rows].tolist()], ids.row_coordinator[rows].tolist()]
+        if kinds is not None:
+            columns.append(kinds[rows].tolist())
+        connection.executemany(sql, zip(*columns))
+        del columns
+
+
+def _replace_contacts(connection, batch: ContactBatch, ids: _Rows, updates: list, actor: str, reason: str) -> list:
+    """Replace stored contacts by the batch's values, keeping the earlier versions; their ids."""
+    if not updates:
+        return []
+    from .casework_store import keep_earlier_versions
+
+    version_ids = keep_earlier_versions(connection, [(int(ids.row_case[i]), int(batch.days[i])) for i, _ in updates],
+                                        "superseded", actor, reason or "replaced by an import")
+    connection.executemany(
+        "UPDATE contacts SET observations = ?, covariates = ?, stage_known = ?, coordinator_id = ?,"
+        " contact_kind = ? WHERE case_id = ? AND day = ?",
+        [(o, c, s, co, kind, int(ids.row_case[i]), int(batch.days[i])) for i, (o, c, s, co, kind) in updates])
+    return version_ids
+
+
+def _new_cases_in_steps(ids: _Rows):
+    """The new cases in steps of about :data:`ROWS_PER_STEP` contacts: (first case index, last + 1, rows,
+    offsets within the step), rows sorted by case (ids in code order), then day."""
+    rows = ids.order[ids.is_new_case[ids.order]]
+    counts = np.bincount(ids.row_case[rows] - ids.next_id, minlength=len(ids.new_codes))
     offsets = np.concatenate([[0], np.cumsum(counts)])
-    digests = case_digests_from_arrays(
-        new_codes, [last_coordinator.get(case_id[c], "") for c in new_codes], offsets, batch.days[rows],
-        obs[rows], covs[rows], batch.stage_known[rows], batch.coordinators[rows],
-        None if batch.unscheduled is None else np.asarray(batch.unscheduled, dtype=bool)[rows])
-    return dict(zip(new_codes, digests))
+    first = 0
+    while first < len(ids.new_codes):
+        last = max(first + 1, int(np.searchsorted(offsets, offsets[first] + ROWS_PER_STEP, side="right")) - 1)
+        last = min(last, len(ids.new_codes))
+        yield first, last, rows[offsets[first]:offsets[last]], offsets[first:last + 1] - offsets[first]
+        first = last
+
+
+def _write_new_case_packs(connection, batch: ContactBatch, ids: _Rows, obs, covs) -> None:
+    """The packs (:mod:`.case_packs`) of the new cases, from the batch arrays (no read-back), step by step."""
+    for first, last, rows, offsets in _new_cases_in_steps(ids):
+        coordinator_ids = np.array([-1 if c is None else c for c in ids.row_coordinator[rows].tolist()],
+                                   dtype=np.int64)
+        unscheduled = (np.zeros(rows.size, dtype=bool) if batch.unscheduled is None
+                       else np.asarray(batch.unscheduled, dtype=bool)[rows])
+        case_packs.write_case_packs(connection, case_packs.pack_rows(
+            range(ids.next_id + first, ids.next_id + last), offsets, batch.days[rows], obs[rows], covs[rows],
+            coordinator_ids, unscheduled, batch.stage_known[rows]))
+
+
+def _new_case_digests(batch, ids: _Rows, last_coordinator, obs, covs) -> dict:
+    """Digests of the new cases from the batch arrays (no read-back); see :mod:`.row_digests`."""
+    out = {}
+    for first, last, rows, offsets in _new_cases_in_steps(ids):
+        codes = ids.new_codes[first:last]
+        digests = case_digests_from_arrays(
+            codes, [last_coordinator.get(ids.case_id[c], "") for c in codes], offsets, batch.days[rows],
+            obs[rows], covs[rows], batch.stage_known[rows], batch.coordinators[rows],
+            None if batch.unscheduled is None else np.asarray(batch.unscheduled, dtype=bool)[rows])
+        out.update(zip(codes, digests))
+    return out

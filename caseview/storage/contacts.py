@@ -62,8 +62,10 @@ def field_layout(connection) -> FieldLayout:
 def register_model_fields(connection, model: StageModel) -> None:
     """Add the model's channels, categories and covariates to the workspace registry.
 
-    New channels/covariates widen every stored contact (blank / NaN). Call inside a transaction.
+    New channels/covariates widen every stored contact (blank / NaN) and its packed copy
+    (:mod:`.case_packs`, rebuilt). Call inside a transaction.
     """
+    widened = False
     for channel in model.channels:
         row = connection.execute("SELECT id FROM channels WHERE name = ?", (channel.name,)).fetchone()
         if row is None:
@@ -71,6 +73,7 @@ def register_model_fields(connection, model: StageModel) -> None:
             channel_id = connection.execute("INSERT INTO channels (name, position) VALUES (?, ?)",
                                             (channel.name, position)).lastrowid
             connection.execute("UPDATE contacts SET observations = observations || ?", (bytes([BLANK_CODE]),))
+            widened = True
         else:
             channel_id = row[0]
         known = {r[0] for r in connection.execute("SELECT label FROM categories WHERE channel_id = ?", (channel_id,))}
@@ -90,6 +93,11 @@ def register_model_fields(connection, model: StageModel) -> None:
             position = connection.execute("SELECT COALESCE(MAX(position) + 1, 0) FROM covariates").fetchone()[0]
             connection.execute("INSERT INTO covariates (name, position) VALUES (?, ?)", (name, position))
             connection.execute("UPDATE contacts SET covariates = covariates || ?", (_NAN_BYTES,))
+            widened = True
+    if widened and connection.execute("SELECT 1 FROM contacts LIMIT 1").fetchone() is not None:
+        from .case_packs import rebuild_case_packs
+
+        rebuild_case_packs(connection)
 
 
 @dataclass(frozen=True)
@@ -225,25 +233,14 @@ def _rows_of(keys: np.ndarray, pairs: list) -> np.ndarray:
     return np.searchsorted(keys, wanted)  # read in (case, day) order already, the usual case
 
 
-def fetch_contacts(connection, as_of_day: int | None = None, row_by_row: bool = False) -> StoredContacts:
-    """Read every contact (optionally only days <= ``as_of_day``) into numpy arrays.
-
-    ``row_by_row`` uses the portable one-row-per-contact read instead of the per-case aggregate
-    (same result, slower; kept as the reference and for other backends).
-    """
-    layout = field_layout(connection)
-    n_channels, n_covariates = len(layout.channels), len(layout.covariates)
-    read = _contact_columns_by_row if row_by_row else _contact_columns_by_case
-    gc_was_enabled = gc.isenabled()
-    gc.disable()  # hundreds of thousands of short-lived tuples would otherwise trigger useless collections
-    try:
-        cases = connection.execute("SELECT id, case_code FROM cases ORDER BY id").fetchall()
-        case_ids, days, coordinator_ids, value_bytes = read(connection, as_of_day, [c[0] for c in cases])
-        known = _known_stages(connection, as_of_day)
-        unscheduled_pairs = _unscheduled_contacts(connection, as_of_day)
-    finally:
-        if gc_was_enabled:
-            gc.enable()
+def _row_columns(connection, as_of_day: int | None, ids: list, aggregate: bool):
+    """The contact columns through a read of ``contacts`` (see :func:`fetch_contacts`)."""
+    n_channels = connection.execute("SELECT COUNT(*) FROM channels").fetchone()[0]
+    n_covariates = connection.execute("SELECT COUNT(*) FROM covariates").fetchone()[0]
+    read = _contact_columns_by_case if aggregate else _contact_columns_by_row
+    case_ids, days, coordinator_ids, value_bytes = read(connection, as_of_day, ids)
+    known = _known_stages(connection, as_of_day)
+    unscheduled_pairs = _unscheduled_contacts(connection, as_of_day)
     n = case_ids.size
     width = n_channels + 8 * n_covariates
     if len(value_bytes) != n * width:
@@ -254,17 +251,52 @@ def fetch_contacts(connection, as_of_day: int | None = None, row_by_row: bool = 
     stage_known = np.full(n, "", dtype=object)
     if known:
         known_case, known_day, known_text = zip(*known)
-        known_keys = (np.array(known_case, dtype=np.int64) << _DAY_BITS) + (np.array(known_day, dtype=np.int64)
-                                                                            + _DAY_OFFSET)
-        if n > 1 and not np.all(keys[1:] > keys[:-1]):
-            by_key = np.argsort(keys, kind="stable")
-            rows = by_key[np.searchsorted(keys, known_keys, sorter=by_key)]
-        else:  # read in (case, day) order already, the usual case
-            rows = np.searchsorted(keys, known_keys)
-        stage_known[rows] = np.array(known_text, dtype=object)
+        stage_known[_rows_of(keys, list(zip(known_case, known_day)))] = np.array(known_text, dtype=object)
     unscheduled = np.zeros(n, dtype=bool)
     if unscheduled_pairs:
         unscheduled[_rows_of(keys, unscheduled_pairs)] = True
+    covariates = np.ascontiguousarray(packed[:, n_channels:]).view(_NATIVE).astype(np.float64).reshape(n, n_covariates)
+    return case_ids, days, coordinator_ids, packed[:, :n_channels], covariates, unscheduled, stage_known
+
+
+#: How :func:`fetch_contacts` reads: the per-case packs (default), the per-range aggregate of rows
+#: (SQLite ``group_concat``) or one row per contact (the portable reference).
+READ_METHODS = ("packed", "aggregate", "row_by_row")
+
+
+def fetch_contacts(connection, as_of_day: int | None = None, row_by_row: bool = False,
+                   method: str = "packed") -> StoredContacts:
+    """Read every contact (optionally only days <= ``as_of_day``) into numpy arrays.
+
+    ``method`` (one of :data:`READ_METHODS`): ``"packed"`` reads :mod:`.case_packs` (one row per case,
+    kept in step with ``contacts``); ``"aggregate"`` and ``"row_by_row"`` read ``contacts`` itself
+    (``row_by_row=True`` is the same as ``method="row_by_row"``). All give the same result.
+    """
+    from .case_packs import read_case_packs
+
+    if row_by_row:
+        method = "row_by_row"
+    if method not in READ_METHODS:
+        raise ValueError(f"method must be one of {READ_METHODS}, got {method!r}")
+    layout = field_layout(connection)
+    n_channels, n_covariates = len(layout.channels), len(layout.covariates)
+    gc_was_enabled = gc.isenabled()
+    gc.disable()  # hundreds of thousands of short-lived tuples would otherwise trigger useless collections
+    try:
+        cases = connection.execute("SELECT id, case_code FROM cases ORDER BY id").fetchall()
+        ids = [c[0] for c in cases]
+        if method == "packed":
+            columns = read_case_packs(connection, as_of_day, ids)
+        else:
+            columns = _row_columns(connection, as_of_day, ids, aggregate=method == "aggregate")
+    finally:
+        if gc_was_enabled:
+            gc.enable()
+    case_ids, days, coordinator_ids, observations, covariates, unscheduled, stage_known = columns
+    if observations.shape[1] != n_channels or covariates.shape[1] != n_covariates:
+        raise WorkspaceError("stored contacts do not match the workspace's channel/covariate registry; "
+                             "the workspace is damaged - restore a backup")
+    n = case_ids.size
 
     coordinator_codes = dict(connection.execute("SELECT id, code FROM coordinators").fetchall())
     code_table = np.array([""] * (max(coordinator_codes, default=0) + 2), dtype=object)
@@ -296,13 +328,11 @@ def fetch_contacts(connection, as_of_day: int | None = None, row_by_row: bool = 
     sort_key = (rank << _DAY_BITS) + (days + _DAY_OFFSET)
     if n > 1 and not np.all(sort_key[1:] > sort_key[:-1]):
         order = np.argsort(sort_key, kind="stable")
-        rank, days, packed = rank[order], days[order], packed[order]
+        rank, days, observations, covariates = rank[order], days[order], observations[order], covariates[order]
         stage_known, coordinator_ids = stage_known[order], coordinator_ids[order]
         unscheduled = unscheduled[order]
     counts = np.bincount(rank, minlength=present.size)
     offsets = np.concatenate([[0], np.cumsum(counts)]).astype(np.int64)
-    observations = packed[:, :n_channels]
-    covariates = np.ascontiguousarray(packed[:, n_channels:]).view(_NATIVE).astype(np.float64).reshape(n, n_covariates)
     coordinators = code_table[coordinator_ids]  # -1 (none recorded) -> the last entry, ''
     # last non-blank coordinator within each case
     row_index = np.where(coordinator_ids >= 0, np.arange(n), -1)

@@ -61,7 +61,13 @@ def connect(location: DatabaseURL, password: str | None, busy_timeout_ms: int, r
     try:
         raw = psycopg.connect(autocommit=True, **parameters)
     except psycopg.Error as exc:
-        raise WorkspaceError(_describe_connect_error(location, exc)) from None
+        message, lowered = _describe_connect_error(location, exc), str(exc).lower()
+        if "password authentication failed" in lowered or "no password supplied" in lowered:
+            from ..errors import PasswordRequired  # the window asks for it; the command line prints the line
+
+            login = location.user or dict(location.parameters).get("user", "")
+            raise PasswordRequired(message, login, refused="authentication failed" in lowered) from None
+        raise WorkspaceError(message) from None
     con = PgConnection(raw)
     try:
         raw.execute("SET TIME ZONE 'UTC'")

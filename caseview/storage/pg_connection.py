@@ -96,6 +96,11 @@ def _translated(sql: str) -> tuple[str, bool]:
 def as_sqlite_error(exc: psycopg.Error) -> sqlite3.Error:
     """The :mod:`sqlite3` exception class matching a psycopg error (same one-line text)."""
     text = str(exc).strip().splitlines()[0] if str(exc).strip() else type(exc).__name__
+    if isinstance(exc, pg_errors.InsufficientPrivilege):  # the team roles (caseview.storage.postgres_roles)
+        from ..errors import WorkspaceError
+
+        return WorkspaceError(f"the server refused: {text} (your login's role in this team workspace does not "
+                              "allow it; nothing was changed)")
     if isinstance(exc, (pg_errors.LockNotAvailable, pg_errors.DeadlockDetected, pg_errors.SerializationFailure)):
         return sqlite3.OperationalError(f"database is locked ({text})")
     if isinstance(exc, psycopg.IntegrityError):
@@ -212,8 +217,8 @@ class PgConnection:
     def audit_actor(self, given: str) -> str:
         """The actor an audit entry records on this connection (see :func:`caseview.storage.audit.append`).
 
-        The hook for authenticated attribution: the team work takes it from the server's
-        ``session_user`` here; until then the given name is recorded, as on SQLite.
+        Not what is stored: on PostgreSQL the server's ``caseview_audit_append`` records ``session_user``
+        whatever the client gives (:mod:`caseview.storage.postgres_roles`).
         """
         return given
 

@@ -164,11 +164,12 @@ def setup_statements() -> list[str]:
 
 
 def after_migrations(connection, from_version: int, to_version: int) -> None:
-    """PostgreSQL-only DDL after migrations ``from_version`` -> ``to_version`` (same transaction).
+    """PostgreSQL-only DDL after migrations ``from_version`` -> ``to_version`` (same transaction):
+    the team set-up (group roles, GRANTs, row-level security, the audit keeper; idempotent, so
+    tables a migration added get their grants), :func:`caseview.storage.postgres_roles.install`."""
+    from .postgres_roles import install
 
-    Nothing yet; the team set-up (roles, GRANTs, row-level security policies) adds its statements here.
-    """
-    return None
+    install(connection)
 
 
 def schema_version() -> int:

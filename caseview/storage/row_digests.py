@@ -184,7 +184,7 @@ def _all_case_digests(connection) -> dict:
     """Every case's digest through the fast aggregated read (:func:`~.contacts.fetch_contacts`)."""
     from .contacts import fetch_contacts
 
-    stored = fetch_contacts(connection)
+    stored = fetch_contacts(connection, method="aggregate")  # the rows themselves (the record), never the packs
     case_rows = dict(connection.execute("SELECT case_code, coordinator FROM cases").fetchall())
     codes = stored.case_codes.tolist()
     if len(set(codes) - set(case_rows)):

@@ -144,8 +144,22 @@ ALTER TABLE contacts ADD COLUMN contact_kind TEXT NOT NULL DEFAULT 'scheduled'
   CHECK (contact_kind IN ('scheduled', 'unscheduled'));
 """
 
+#: Each case's current contacts packed as column blobs, one row per case (issue 19: the caseload reaches the
+#: engine at close to memory speed). Derived from ``contacts`` and rewritten in the same transaction by every
+#: write; layout and upkeep in :mod:`caseview.storage.case_packs`. Opening an older workspace builds the packs
+#: (``Workspace._migrate``); ``caseview check`` compares them with the rows.
+CASE_PACKS = """
+CREATE TABLE IF NOT EXISTS case_packs (
+  case_id INTEGER PRIMARY KEY REFERENCES cases(id),
+  n_contacts INTEGER NOT NULL,
+  n_channels INTEGER NOT NULL,
+  n_covariates INTEGER NOT NULL,
+  contacts BLOB NOT NULL,
+  stage_known TEXT);
+"""
+
 #: Forward migrations; ``MIGRATIONS[k - 1]`` takes version ``k - 1`` to ``k``.
-MIGRATIONS: list[str] = [SCHEMA_V1, ROW_DIGESTS, CONTACT_KIND, CASEWORK_SCHEMA]
+MIGRATIONS: list[str] = [SCHEMA_V1, ROW_DIGESTS, CONTACT_KIND, CASEWORK_SCHEMA, CASE_PACKS]
 
 
 def schema_version() -> int:

@@ -279,6 +279,10 @@ class Workspace:
             self.backup(backup_path, actor=None)
         with self.transaction():
             self._apply_migrations(from_version)
+            if from_version < _schema.MIGRATIONS.index(_schema.CASE_PACKS) + 1:  # pack the stored contacts
+                from .case_packs import rebuild_case_packs
+
+                rebuild_case_packs(self.connection)
             _audit.append(self.connection, "caseview", "workspace.migrate", self.path.name,
                           {"from_version": from_version, "to_version": _schema.schema_version(),
                            "backup": backup_path.name if backup_path else None})
@@ -483,6 +487,12 @@ class Workspace:
         from .contacts import fetch_contacts
 
         return fetch_contacts(self.connection, as_of_day)
+
+    def check_case_packs(self) -> tuple[int, str]:
+        """(cases compared, first problem or '') of the packed contacts against the rows (:mod:`.case_packs`)."""
+        from .case_packs import check_case_packs
+
+        return check_case_packs(self.connection)
 
     def integrity_check(self) -> str:
         return self.integrity_report(1)[0]

@@ -107,6 +107,12 @@ def _copy_rows(source, destination, tables) -> dict:
         quoted = [f'"{n}"' for n in names]
         cursor = iter(source.execute(_select(source, table, columns)))
         counts[table] = 0
+        if table == "audit_log" and getattr(destination, "kind", "sqlite") == "postgresql":
+            from .postgres_roles import restore_audit_rows
+
+            rows = list(cursor)  # in one call: the server restores a trail only into an empty one
+            counts[table] = restore_audit_rows(destination, names, rows) if rows else 0
+            continue
         while rows := list(islice(cursor, ROWS_PER_STEP)):  # a million contacts never sit in memory at once
             counts[table] += len(rows)
             if hasattr(destination, "copy_rows"):
@@ -177,6 +183,9 @@ def copy_workspace(source_ws, destination, actor: str, password: str | None = No
                     from . import pg_backend
 
                     pg_backend.create_schema(dest_ws)
+                    from .postgres_roles import begin_restore
+
+                    begin_restore(con)  # copied rows keep who recorded them
                 else:
                     dest_ws._apply_migrations(0)
                 tables = [t for t in _in_dependency_order(con, _tables(con)) if t in set(_tables(source))]

@@ -79,7 +79,7 @@ def _phi(mu: np.ndarray) -> np.ndarray:
     return np.where(small, np.exp(0.5 * (a + b)), value)
 
 
-def transition_matrices(cache: EigenCache, pair_generator: np.ndarray, pair_gap: np.ndarray) -> np.ndarray:
+def pair_transition_matrices(cache: EigenCache, pair_generator: np.ndarray, pair_gap: np.ndarray) -> np.ndarray:
     """``expm(Q_g t)`` for each pair, shape (m, S, S) (not clipped, so derivatives stay exact)."""
     m, s = pair_gap.size, cache.generators.shape[1]
     out = np.empty((m, s, s))
@@ -134,7 +134,7 @@ def adjoint_derivative(cache: EigenCache, pair_generator: np.ndarray, pair_gap: 
 
 
 def transition_and_adjoint(generators, pair_generator, pair_gap, weights, method="auto"):
-    """Convenience: both :func:`transition_matrices` and :func:`adjoint_derivative`."""
+    """Convenience: both :func:`pair_transition_matrices` and :func:`adjoint_derivative`."""
     cache = decompose(generators, method)
-    return (transition_matrices(cache, pair_generator, pair_gap),
+    return (pair_transition_matrices(cache, pair_generator, pair_gap),
             adjoint_derivative(cache, pair_generator, pair_gap, weights))

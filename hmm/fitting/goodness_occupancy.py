@@ -27,6 +27,7 @@ from dataclasses import dataclass, field
 
 import numpy as np
 
+from ..exact_entry import exact_entry_stage_mask
 from ..inference import ForwardResult, effective_allowed_stages, forward
 from ..model import StageModel
 from ..timelines import Timelines
@@ -94,9 +95,7 @@ def one_step_predictions(model: StageModel, timelines: Timelines,
         predicted[rows] = np.einsum("ns,nst->nt", filtered[rows - 1],
                                     np.take(plan.step_matrices, step_index[rows], axis=0))
     allowed = effective_allowed_stages(model, timelines.allowed_stages)
-    exact = np.zeros(n_stages, dtype=bool)
-    for name in model.exact_entry_stages:
-        exact[model.stage_index(name)] = True
+    exact = exact_entry_stage_mask(model)
     # a record of being in an exact-entry stage: no evidence, and its step matrix is an entry density
     entry_record = ~(allowed & ~exact).any(axis=1) if n else np.zeros(0, dtype=bool)
     predicted *= allowed

@@ -16,139 +16,27 @@ For one case with contacts ``0..n-1``, step matrices ``M_j`` (``P = expm(Q(x_{j-
   ``lambda`` gets the adjoint's diagonal (minus sign) plus the direct term of the column factor
   (see :mod:`hmm.inference` for the model).
 
-The only Python loop is over contact position; each step is one numpy operation over all cases.
+The recursions are the shared core (:mod:`hmm.forward_backward`): the only Python loops are over
+contact position (and chunks of rows within it) and over distinct pairs. The cases are split into
+blocks evaluated in parallel threads (:mod:`hmm.fitting.likelihood_plan`); only per-pair and
+per-evidence-pattern sums leave a block.
 """
 
 from __future__ import annotations
 
+from concurrent.futures import ThreadPoolExecutor
 from dataclasses import dataclass
 
 import numpy as np
 
-from ..exact_entry import effective_allowed_stages
+from ..forward_backward import scaled_backward, scaled_forward
 from ..model import StageModel
 from ..timelines import Timelines
-from .expm_derivative import adjoint_derivative, decompose, transition_matrices
+from .expm_derivative import adjoint_derivative, decompose, pair_transition_matrices
+from .likelihood_plan import CaseBlock, LikelihoodPlan, prepare
 from .parameters import ParameterSpec, parameter_spec
 
-__all__ = ["LikelihoodPlan", "prepare", "log_likelihood_and_gradient", "Evaluation"]
-
-
-@dataclass
-class LikelihoodPlan:
-    """Parameter-free bookkeeping for one (model structure, timelines); build with :func:`prepare`.
-
-    Contacts are stored *position-major*: block ``k`` holds the ``k``-th contact of every case
-    that has one, cases in decreasing-length order, so block ``k`` continues the first
-    ``block_sizes[k]`` rows of block ``k - 1``. ``order`` maps this layout to timeline rows.
-    """
-
-    spec: ParameterSpec
-    timelines: Timelines
-    n_stages: int
-    order: np.ndarray               # (n_contacts,) timeline row of each position-major row
-    block_starts: np.ndarray        # (K + 1,)
-    block_sizes: np.ndarray         # (K,)
-    case_of_row: np.ndarray         # (n_contacts,) case index of each position-major row
-    step_pair: np.ndarray           # (n_contacts,) pair of the step into each row (-1 in block 0)
-    pair_generator: np.ndarray      # (m,)
-    pair_gap: np.ndarray            # (m,)
-    pair_exact: np.ndarray          # (m,) bool: step into an exact-entry stage (matrix P Q)
-    pair_unscheduled: np.ndarray    # (m,) bool: step into an unscheduled contact (matrix P Lambda)
-    generator_covariates: np.ndarray  # (G, K) distinct covariate rows starting a step
-    steps_by_pair: np.ndarray       # (n_steps,) position-major rows of steps, sorted by pair
-    previous_by_pair: np.ndarray    # (n_steps,) the row before each of those
-    pair_starts: np.ndarray         # (m + 1,) slices of steps_by_pair per pair
-    large_pairs: np.ndarray         # pairs with many steps (one matrix product each)
-    small_steps: np.ndarray         # indices into steps_by_pair of the other pairs' steps
-    small_starts: np.ndarray        # reduceat starts within small_steps
-    small_pairs: np.ndarray         # pair of each small_starts segment
-    one_hot: list                   # per channel: (n_contacts, C) float, 0 rows when missing
-    codes: list                     # per channel: (n_contacts,) int codes (-1 missing)
-    allowed: np.ndarray             # (n_contacts, S) float
-
-
-_LARGE_PAIR = 48
-
-
-def prepare(model: StageModel, timelines: Timelines, spec: ParameterSpec | None = None) -> LikelihoodPlan:
-    """Precompute everything that does not depend on parameter values."""
-    spec = parameter_spec(model) if spec is None else spec
-    s = model.n_stages
-    if timelines.observations.shape[1] != len(model.channels):
-        raise ValueError(f"timelines have {timelines.observations.shape[1]} channels, model has {len(model.channels)}")
-    if timelines.covariates.shape[1] != model.n_covariates:
-        raise ValueError(f"timelines have {timelines.covariates.shape[1]} covariates, model has {model.n_covariates}")
-    counts = timelines.n_contacts_per_case
-    case_order = np.argsort(-counts, kind="stable")
-    starts = timelines.offsets[:-1][case_order]
-    n_max = int(counts.max()) if counts.size else 0
-    block_sizes = np.array([np.count_nonzero(counts > k) for k in range(n_max)], dtype=np.int64)
-    block_starts = np.concatenate([[0], np.cumsum(block_sizes)]).astype(np.int64)
-    order = np.concatenate([starts[:size] + k for k, size in enumerate(block_sizes)]) if n_max else \
-        np.zeros(0, dtype=np.int64)
-    case_of_row = np.concatenate([case_order[:size] for size in block_sizes]) if n_max else order.copy()
-    n = timelines.n_contacts
-    step_rows = np.arange(block_sizes[0] if n_max else 0, n)               # position-major
-    previous = np.concatenate([block_starts[k - 1] + np.arange(size) for k, size in enumerate(block_sizes)
-                               if k > 0]) if n_max > 1 else np.zeros(0, dtype=np.int64)
-    from_rows = order[previous]
-    gaps = timelines.times[order[step_rows]] - timelines.times[from_rows]
-    if model.n_covariates and from_rows.size:
-        generator_covariates, generator_index = np.unique(timelines.covariates[from_rows], axis=0,
-                                                          return_inverse=True)
-        generator_index = generator_index.reshape(-1)
-    else:
-        generator_covariates = np.zeros((1, model.n_covariates))
-        generator_index = np.zeros(from_rows.size, dtype=np.int64)
-    exact_mask = np.zeros(s, dtype=bool)
-    for name in model.exact_entry_stages:
-        exact_mask[model.stage_index(name)] = True
-    allowed_rows = timelines.allowed_stages[order]
-    single = allowed_rows.sum(axis=1) == 1
-    # the exact-entry convention has one home (hmm.exact_entry.effective_allowed_stages)
-    allowed_rows = effective_allowed_stages(model, allowed_rows)
-    allowed_steps = allowed_rows[step_rows]
-    # an entry is a single-stage record of an exact-entry stage not already known at the contact before
-    exact = single[step_rows] & (allowed_steps & exact_mask).any(axis=1) & \
-        ~(single[previous] & (allowed_rows[previous] == allowed_steps).all(axis=1))
-    columns = [generator_index.astype(float), gaps, exact.astype(float)]
-    if model.unscheduled_contacts is not None:
-        # a step into an unscheduled contact (not a record of exact entry) has the matrix P Lambda
-        columns.append((timelines.unscheduled_mask[order[step_rows]] & ~exact).astype(float))
-    keys = np.stack(columns, axis=1)
-    pairs, pair_index = np.unique(keys, axis=0, return_inverse=True)
-    pair_index = pair_index.reshape(-1)
-    step_pair = np.full(n, -1, dtype=np.int64)
-    step_pair[step_rows] = pair_index
-    sort = np.argsort(pair_index, kind="stable")
-    pair_starts = np.searchsorted(pair_index[sort], np.arange(pairs.shape[0] + 1))
-    sizes = np.diff(pair_starts)
-    large = np.flatnonzero(sizes >= _LARGE_PAIR)
-    small = np.flatnonzero(sizes < _LARGE_PAIR)
-    small_steps = np.concatenate([np.arange(pair_starts[p], pair_starts[p + 1]) for p in small]) if small.size \
-        else np.zeros(0, dtype=np.int64)
-    small_starts = np.concatenate([[0], np.cumsum(sizes[small])[:-1]]).astype(np.int64) if small.size \
-        else np.zeros(0, dtype=np.int64)
-    one_hot, codes = [], []
-    for c, channel in enumerate(model.channels):
-        code = timelines.observations[order, c].astype(np.int64)
-        if code.size and code.max() >= channel.n_categories:
-            raise ValueError(f"channel {channel.name!r}: category code {code.max()} out of range")
-        hot = np.zeros((n, channel.n_categories))
-        seen = code >= 0
-        hot[np.flatnonzero(seen), code[seen]] = 1.0
-        one_hot.append(hot)
-        codes.append(code)
-    return LikelihoodPlan(
-        spec=spec, timelines=timelines, n_stages=s, order=order, block_starts=block_starts,
-        block_sizes=block_sizes, case_of_row=case_of_row, step_pair=step_pair,
-        pair_generator=pairs[:, 0].astype(np.int64), pair_gap=pairs[:, 1], pair_exact=pairs[:, 2] > 0.5,
-        pair_unscheduled=pairs[:, 3] > 0.5 if pairs.shape[1] > 3 else np.zeros(pairs.shape[0], dtype=bool),
-        generator_covariates=generator_covariates, steps_by_pair=step_rows[sort], previous_by_pair=previous[sort],
-        pair_starts=pair_starts, large_pairs=large, small_steps=small_steps, small_starts=small_starts,
-        small_pairs=small, one_hot=one_hot, codes=codes,
-        allowed=allowed_rows.astype(float))
+__all__ = ["LikelihoodPlan", "prepare", "evaluate", "log_likelihood_and_gradient", "Evaluation"]
 
 
 @dataclass
@@ -161,12 +49,25 @@ class Evaluation:
     gradient : ndarray, shape (n_free,) or None
     case_log_likelihood : ndarray, shape (n_cases,)
     smoothed : ndarray, shape (n_contacts, S) or None
+        Smoothed stage probabilities in timelines row order (only when asked for).
     """
 
     log_likelihood: float
     gradient: np.ndarray | None
     case_log_likelihood: np.ndarray
     smoothed: np.ndarray | None = None
+
+
+@dataclass
+class _BlockSums:
+    """What one case block contributes: log-likelihood and the sums the gradient needs."""
+
+    log_likelihood: float
+    case_log_likelihood: np.ndarray      # (n_cases,), zero outside the block
+    step_weights: np.ndarray | None      # (m, S, S): d l / d (step matrix) summed per pair
+    evidence_counts: np.ndarray | None   # (J, S): smoothed probabilities summed per evidence pattern
+    initial_counts: np.ndarray | None    # (S,): smoothed probabilities at first contacts
+    smoothed: np.ndarray | None = None   # (n_rows, S) position-major, when asked for
 
 
 def _generators(plan: LikelihoodPlan, rates, effects) -> np.ndarray:
@@ -189,10 +90,8 @@ def _contact_rates(plan: LikelihoodPlan, arrays) -> np.ndarray | None:
     return arrays.unscheduled_rates[None, :] * np.exp(plan.generator_covariates @ arrays.unscheduled_effects)[:, None]
 
 
-def evaluate(plan: LikelihoodPlan, theta: np.ndarray, gradient: bool = True, method: str = "auto") -> Evaluation:
-    """Log-likelihood (and gradient with respect to ``theta``) over the caseload of ``plan``."""
-    spec = plan.spec
-    arrays = spec.arrays(np.asarray(theta, dtype=float))
+def _step_matrices(plan: LikelihoodPlan, arrays, method: str) -> tuple:
+    """Generators, their eigen cache, ``P = expm(Q t)`` per pair and the step matrices (``P Q``, ``P Lambda``)."""
     q, q_off, src, dst = _generators(plan, arrays.rates, arrays.effects)
     contact_rates = _contact_rates(plan, arrays)
     if contact_rates is None:
@@ -201,7 +100,7 @@ def evaluate(plan: LikelihoodPlan, theta: np.ndarray, gradient: bool = True, met
         quiet = q.copy()
         quiet[:, np.arange(plan.n_stages), np.arange(plan.n_stages)] -= contact_rates
         cache = decompose(quiet, method)
-    p_matrices = transition_matrices(cache, plan.pair_generator, plan.pair_gap)
+    p_matrices = pair_transition_matrices(cache, plan.pair_generator, plan.pair_gap)
     steps = p_matrices.copy()
     if plan.pair_exact.any():
         ex = np.flatnonzero(plan.pair_exact)
@@ -209,72 +108,144 @@ def evaluate(plan: LikelihoodPlan, theta: np.ndarray, gradient: bool = True, met
     if plan.pair_unscheduled.any():
         un = np.flatnonzero(plan.pair_unscheduled)
         steps[un] = p_matrices[un] * contact_rates[plan.pair_generator[un]][:, None, :]
-    e = plan.allowed.copy()
-    for c, table in enumerate(arrays.emissions):
-        with_missing = np.hstack([table, np.ones((plan.n_stages, 1))]).T
-        e *= with_missing[plan.codes[c]]
-    n, s = e.shape
-    bs, sizes = plan.block_starts, plan.block_sizes
-    alpha = np.empty((n, s))
-    scale = np.ones(n)
-    if n:
-        first = slice(0, sizes[0])
-        a0 = arrays.initial[None, :] * e[first]
-        c0 = a0.sum(axis=1)
-        alpha[first] = a0 / np.where(c0 > 0, c0, 1.0)[:, None]
-        scale[first] = c0
-    for k in range(1, sizes.size):
-        cur, prev = slice(bs[k], bs[k] + sizes[k]), slice(bs[k - 1], bs[k - 1] + sizes[k])
-        a = np.einsum("ni,nij->nj", alpha[prev], steps[plan.step_pair[cur]]) * e[cur]
-        c = a.sum(axis=1)
-        alpha[cur] = a / np.where(c > 0, c, 1.0)[:, None]
-        scale[cur] = c
+    return (q, q_off, src, dst), contact_rates, cache, p_matrices, steps
+
+
+def _evidence_table(plan: LikelihoodPlan, arrays) -> np.ndarray:
+    """Likelihood of each evidence pattern given each stage, shape (J, S) (a missing value contributes 1)."""
+    table = plan.evidence_allowed.copy()
+    for c, emission in enumerate(arrays.emissions):
+        with_missing = np.vstack([emission.T, np.ones((1, plan.n_stages))])   # row -1 = not observed
+        table *= with_missing[plan.evidence_codes[:, c]]
+    return table
+
+
+def _block_pass(plan: LikelihoodPlan, block: CaseBlock, initial: np.ndarray, evidence_table: np.ndarray,
+                steps: np.ndarray, gradient: bool, want_smoothed: bool) -> _BlockSums:
+    """Forward (and for the gradient backward) over one case block; per-pair and per-pattern sums."""
+    n, s = block.n_rows, plan.n_stages
+    likelihood = np.take(evidence_table, block.evidence, axis=0, out=block.buffer("likelihood", (n, s)), mode="clip")
+    alpha, scale = scaled_forward(block.layout, initial, likelihood, steps, block.step_pair,
+                                  block.buffer("alpha", (n, s)), block.buffer("scale", (n,)))
     with np.errstate(divide="ignore", invalid="ignore"):
         log_scale = np.log(np.where(scale > 0, scale, 0.0))
-    case_ll = np.bincount(plan.case_of_row, weights=log_scale, minlength=plan.timelines.n_cases)
+    case_ll = np.bincount(block.case_of_row, weights=log_scale, minlength=plan.timelines.n_cases)
     total = float(log_scale.sum())
     if not gradient or not np.isfinite(total):
-        return Evaluation(total, None if not gradient else np.full(spec.n_free, np.nan), case_ll)
+        return _BlockSums(total, case_ll, None, None, None)
+    # backward; the likelihood buffer receives b_j = e_j * beta_j / c_j row by row (rows after position 0)
+    beta = scaled_backward(block.layout, likelihood, scale, steps, block.step_pair,
+                           block.buffer("beta", (n, s)), weighted=likelihood)
+    weights, counts = _pair_sums(block, alpha, beta, likelihood, steps.shape[0], evidence_table.shape[0])
+    smoothed = alpha   # alpha * beta, written in place by _pair_sums
+    first = int(block.layout.block_sizes[0]) if block.layout.n_positions else 0
+    return _BlockSums(total, case_ll, weights, counts, smoothed[:first].sum(axis=0),
+                      smoothed.copy() if want_smoothed else None)
 
-    # backward pass; b_store[j] = e_j * beta_j / c_j for every row after a case's first
-    beta = np.ones((n, s))
-    b_store = np.zeros((n, s))
-    for k in range(sizes.size - 1, 0, -1):
-        cur, prev = slice(bs[k], bs[k] + sizes[k]), slice(bs[k - 1], bs[k - 1] + sizes[k])
-        b = e[cur] * beta[cur] / scale[cur][:, None]
-        b_store[cur] = b
-        beta[prev] = np.einsum("nij,nj->ni", steps[plan.step_pair[cur]], b)
-    smoothed = alpha * beta
+
+#: Steps gathered at a time for the per-pair sums.
+_PAIR_CHUNK_STEPS = 1 << 16
+
+
+def _pair_sums(block: CaseBlock, alpha: np.ndarray, beta: np.ndarray, weighted: np.ndarray, n_pairs: int,
+               n_patterns: int) -> tuple:
+    """Per-pair step weights and per-pattern smoothed counts of one block.
+
+    ``weights[p] = sum over the steps of pair p of a_{j-1} b_j'`` (``d log L / d M_p``, ``b_j`` in
+    ``weighted``); then ``alpha`` is overwritten with the smoothed probabilities ``alpha * beta``,
+    summed per evidence pattern into ``counts`` (J, S).
+    """
+    s = alpha.shape[1]
+    weights = np.zeros((n_pairs, s, s))
+    size = block.steps_by_pair.size
+    width = max(min(_PAIR_CHUNK_STEPS, size), 1)
+    a_chunk, b_chunk = block.buffer("a_sorted", (width, s)), block.buffer("b_sorted", (width, s))
+    product = np.empty((s, s))
+    starts = block.pair_starts
+    for lo in range(0, size, width):
+        hi = min(lo + width, size)
+        # the steps in pair order, a chunk at a time (a few MB however large the caseload)
+        np.take(alpha, block.previous_by_pair[lo:hi], axis=0, out=a_chunk[:hi - lo], mode="clip")
+        np.take(weighted, block.steps_by_pair[lo:hi], axis=0, out=b_chunk[:hi - lo], mode="clip")
+        first, last = np.searchsorted(starts, lo, side="right") - 1, np.searchsorted(starts, hi, side="left")
+        for p in range(int(first), int(last)):
+            begin, end = max(int(starts[p]), lo) - lo, min(int(starts[p + 1]), hi) - lo
+            if end > begin:
+                np.matmul(a_chunk[begin:end].T, b_chunk[begin:end], out=product)
+                weights[p] += product
+    smoothed = np.multiply(alpha, beta, out=alpha)
+    counts = np.empty((n_patterns, s))
+    for stage in range(s):
+        counts[:, stage] = np.bincount(block.evidence, weights=smoothed[:, stage], minlength=n_patterns)
+    return weights, counts
+
+
+def _run_blocks(plan: LikelihoodPlan, *args) -> list:
+    """:func:`_block_pass` over every block, in parallel threads when there are several."""
+    if len(plan.blocks) == 1:
+        return [_block_pass(plan, plan.blocks[0], *args)]
+    with ThreadPoolExecutor(max_workers=len(plan.blocks), thread_name_prefix="caseview-likelihood") as pool:
+        futures = [pool.submit(_block_pass, plan, block, *args) for block in plan.blocks]
+        return [future.result() for future in futures]
+
+
+def evaluate(plan: LikelihoodPlan, theta: np.ndarray, gradient: bool = True, method: str = "auto",
+             smoothed: bool = False) -> Evaluation:
+    """Log-likelihood (and gradient with respect to ``theta``) over the caseload of ``plan``.
+
+    Parameters
+    ----------
+    plan : LikelihoodPlan
+    theta : ndarray, shape (n_free,)
+    gradient : bool
+    method : {"auto", "eigen", "expm"}
+        Matrix-exponential path (``"expm"`` forces the scipy/Van Loan fallback).
+    smoothed : bool
+        Also return the smoothed stage probabilities (with the gradient only).
+
+    Returns
+    -------
+    Evaluation
+    """
+    spec = plan.spec
+    arrays = spec.arrays(np.asarray(theta, dtype=float))
+    generator_parts, contact_rates, cache, p_matrices, steps = _step_matrices(plan, arrays, method)
+    with plan.lock:  # the blocks' buffers are reused between evaluations
+        sums = _run_blocks(plan, arrays.initial, _evidence_table(plan, arrays), steps, gradient, smoothed)
+    total = float(sum(part.log_likelihood for part in sums))
+    case_ll = sums[0].case_log_likelihood
+    for part in sums[1:]:
+        case_ll = case_ll + part.case_log_likelihood
+    if not gradient or not np.isfinite(total):
+        return Evaluation(total, None if not gradient else np.full(spec.n_free, np.nan), case_ll)
     grad = np.zeros(spec.n_free)
+    s = plan.n_stages
 
     # --- transitions: dl/dM aggregated per distinct pair
-    if plan.steps_by_pair.size:
-        weights = np.zeros((plan.pair_gap.size, s, s))
-        a_sorted = alpha[plan.previous_by_pair]
-        b_sorted = b_store[plan.steps_by_pair]
-        for p in plan.large_pairs:
-            part = slice(plan.pair_starts[p], plan.pair_starts[p + 1])
-            weights[p] = a_sorted[part].T @ b_sorted[part]
-        if plan.small_pairs.size:
-            outer = (a_sorted[plan.small_steps][:, :, None] * b_sorted[plan.small_steps][:, None, :]).reshape(-1, s * s)
-            weights[plan.small_pairs] = np.add.reduceat(outer, plan.small_starts, axis=0).reshape(-1, s, s)
+    if plan.n_pairs:
+        weights = sum(part.step_weights for part in sums)
+        q, q_off, src, dst = generator_parts
         _transition_gradient(plan, spec, cache, p_matrices, q, q_off, src, dst, weights, grad, arrays,
                              contact_rates)
 
     # --- observation probabilities: expected counts N[s, k]
+    pattern_counts = sum(part.evidence_counts for part in sums)            # (J, S)
     for c, rows_spec in enumerate(spec.emission_rows):
         if all(r is None for r in rows_spec):
             continue
-        counts = smoothed.T @ plan.one_hot[c]                   # (S, C)
+        counts = pattern_counts.T @ plan.evidence_one_hot[c]                 # (S, C)
         for r, row in enumerate(rows_spec):
             if row is not None:
                 grad[row.slots] += counts[r, row.free] - arrays.emissions[c][r, row.free] * counts[r, row.support].sum()
     if spec.initial_row is not None:
         row = spec.initial_row
-        first = smoothed[:plan.block_sizes[0]].sum(axis=0)
+        first = sum(part.initial_counts for part in sums)
         grad[row.slots] += first[row.free] - arrays.initial[row.free] * first[row.support].sum()
-    smoothed_rows = np.empty_like(smoothed)
-    smoothed_rows[plan.order] = smoothed
+    smoothed_rows = None
+    if smoothed:
+        smoothed_rows = np.empty((plan.timelines.n_contacts, s))
+        for block, part in zip(plan.blocks, sums):
+            smoothed_rows[block.layout.order] = part.smoothed
     return Evaluation(total, grad, case_ll, smoothed_rows)
 
 

@@ -1,37 +1,44 @@
 """Profile-likelihood intervals for any smooth function of the free parameters.
 
 The 95% profile-likelihood interval of a quantity ``psi = g(theta)`` is the set of values ``psi``
-whose profile log-likelihood ``max {l(theta) : g(theta) = psi}`` is within ``q / 2`` of the
-maximum, ``q = chi2_1(0.95) = 3.841`` (``scipy.stats.chi2.ppf(0.95, 1)``): the likelihood-ratio test
-of ``psi`` inverted (Pawitan 2001, *In All Likelihood*, sections 2.6 and 3.4).
+whose profile log-likelihood ``l_p(psi) = max {l(theta) : g(theta) = psi}`` is within ``q / 2`` of
+the maximum, ``q = chi2_1(0.95) = 3.841`` (``scipy.stats.chi2.ppf(0.95, 1)``): the likelihood-ratio
+test of ``psi`` inverted (Pawitan 2001, *In All Likelihood*, sections 2.6 and 3.4).
 
-How the ends are found (constrained optimisation, not a grid): ``psi`` lies in that set exactly
-when some ``theta`` with ``g(theta) = psi`` has ``l(theta) >= l_max - q / 2``, so the upper end is
+How an end is found: a one-dimensional root search along the profile. The profile deviance
+``D(psi) = 2 (l_max - l_p(psi))`` is evaluated at trial values of ``psi`` walking out from the
+estimate (first the Wald end, then steps predicted from the signed root ``sqrt(D)``, which is nearly
+linear in ``psi``) until ``D`` passes ``q`` - the end is then bracketed - and
+``scipy.optimize.brentq`` finds the root of ``sqrt(D(psi)) - sqrt(q)`` in the bracket (the same
+root as ``D - q``; the square root is nearly linear, so Brent's method needs few steps).
 
-    max g(theta)  subject to  l(theta) >= l_max - q / 2  (and the optimiser's bounds on theta),
+Each ``l_p(psi)`` is an inner maximisation over the nuisance directions (L-BFGS-B with the analytic
+gradient), warm-started from the nuisance optimum of the nearest ``psi`` already profiled. It works
+in *whitened* coordinates ``theta = theta_hat + A z`` with ``A A' = I^-1`` (eigenvalues of the
+observed information floored), where ``l`` is close to ``l_max - |z|^2 / 2``: with ``d`` the unit
+gradient of ``g`` in ``z``, ``z = s d + w`` with ``w`` orthogonal to ``d`` free and ``s`` solved
+from ``g = psi`` (exactly, for a coordinate; by Newton's method otherwise), and the gradient in
+``w`` follows from the implicit function theorem. So the same code serves a coordinate (a log rate,
+a log hazard ratio), an observation probability (a softmax of several logits) and a mean time in
+stage ``-1/q_rr`` (a function of every rate out of the stage), and parameters added to the vector
+later get intervals for free. The optimiser's bounds on ``theta`` are kept by evaluating ``l`` at
+the clipped point with a quadratic penalty on the distance outside.
 
-and the lower end the same with min (Neale & Miller 1997, Behavior Genetics 27:113-120; the same
-formulation as Venzon & Moolgavkar 1988, Applied Statistics 37:87-94, solved with a general
-constrained optimiser instead of their Newton iteration). This holds for *any* function ``g`` -
-a coordinate (a log rate, a log hazard ratio), an observation probability (a softmax of several
-logits) or a mean time in stage ``-1/q_rr`` (a function of every rate out of the stage) - so there is
-no reparametrisation per kind, and parameters added to the vector later get intervals for free.
-Each end is one ``scipy.optimize.minimize(method="SLSQP")`` run with the analytic gradient of
-``l`` and a finite-difference gradient of ``g``. It is started at the Wald end and works in
-*whitened* coordinates ``theta = theta_hat + A z`` with ``A A' = I^-1`` (eigenvalues of the observed
-information floored), where ``l`` is close to ``l_max - |z|^2 / 2``: SLSQP's initial Hessian guess
-(the identity) is then about right, and it usually converges in a few iterations.
+An end has one of three outcomes (:attr:`ProfileEnd.outcome`):
 
-An end is *open* when the optimum sits on one of the optimiser's bounds (a log rate at
-``log 1e-12`` or ``log 10``, a log hazard ratio at +/-20, a logit at +/-25) while the likelihood
-constraint is still slack: the profile never falls to the threshold on that side inside the
-allowed range. For a rate's lower end or a probability's end that means "the data allow 0 (or 1)";
-otherwise (no upper bound on a rate or mean time, either end of a log hazard ratio) the quantity is
-*weakly identified*.
+* ``"profile"``: the root was found;
+* ``"bound reached"``: ``psi`` reached its limit (a log rate at ``log 1e-12`` or ``log 10``, a log
+  hazard ratio at +/-20, a logit at +/-23, or no ``theta`` inside the bounds gives that ``psi``)
+  with the deviance still below ``q``: the interval is one-sided there. For a rate's lower end or a
+  probability's end that means "the data allow 0 (or 1)"; otherwise (no upper bound on a rate or
+  mean time, either end of a log hazard ratio) the quantity is *weakly identified*;
+* ``"failed"``: the search gave up (:attr:`ProfileEnd.reason` says why); the caller shows the Wald
+  interval and says so.
 """
 
 from __future__ import annotations
 
+import math
 from dataclasses import dataclass
 
 import numpy as np
@@ -42,17 +49,16 @@ __all__ = ["ProfileEnd", "ProfileProblem", "profile_interval", "PROFILE_THRESHOL
 
 #: chi-squared(1) 95% point: the LR statistic at which the interval ends.
 PROFILE_THRESHOLD = float(scipy.stats.chi2.ppf(0.95, 1))
-#: Distance (on the unconstrained scale) below which a parameter counts as on its bound.
-_ON_BOUND = 1e-4
-#: Likelihood slack (log-likelihood units) above which the LR constraint counts as not active.
-_SLACK = 0.05
-_MAX_ITERATIONS = 40
-_MAX_EVALUATIONS = 100
-_TOLERANCE = 1e-3
-#: Optimiser bounds further than this many Wald standard errors from the estimate are left out.
-_REACH = 12.0
-#: Bound on each whitened coordinate (the quadratic approximation puts the end at |z| = 1.96).
-_Z_LIMIT = 12.0
+#: Likelihood evaluations one end may use before the search gives up.
+MAX_EVALUATIONS_PER_END = 250
+#: Trial values of psi while walking out to bracket the end.
+_MAX_WALK = 10
+#: Quadratic penalty (log-likelihood units per unit^2 of theta) outside the optimiser's bounds.
+_PENALTY = 100.0
+#: Root accuracy on the link scale, as a fraction of the Wald standard error of psi.
+_ROOT_TOLERANCE = 0.01
+#: Largest distance (link scale) from the estimate a search walks for a quantity without given limits.
+_FAR = 30.0
 
 
 @dataclass(frozen=True)
@@ -62,23 +68,32 @@ class ProfileEnd:
     Attributes
     ----------
     value : float
-        ``g`` at the end (link scale); meaningful only when ``found``.
-    found : bool
-        The optimiser converged to a point on the likelihood-ratio boundary or on a bound.
-    open : bool
-        The end lies on an optimiser bound with the likelihood constraint slack (see module docstring).
+        ``g`` at the end (link scale); nan when the search failed.
+    outcome : {"profile", "bound reached", "failed"}
+        See the module docstring.
     evaluations : int
         Likelihood evaluations used.
+    reason : str
+        Why the search failed ("" otherwise).
     better_log_likelihood : float or None
         A log-likelihood above the reported maximum met on the way (the fit had not reached the
         maximum), else None.
     """
 
     value: float
-    found: bool
-    open: bool
+    outcome: str
     evaluations: int
+    reason: str = ""
     better_log_likelihood: float | None = None
+
+    @property
+    def found(self) -> bool:
+        return self.outcome != "failed"
+
+    @property
+    def open(self) -> bool:
+        """The profile stays under the threshold up to the limit: a one-sided end."""
+        return self.outcome == "bound reached"
 
 
 class ProfileProblem:
@@ -94,7 +109,7 @@ class ProfileProblem:
     log_likelihood_max : float
         ``objective(theta_hat)[0]``.
     information : ndarray, shape (p, p)
-        Observed information at ``theta_hat`` (for whitening and the start only; not for the interval).
+        Observed information at ``theta_hat`` (for whitening and the first step only).
     lower, upper : ndarray, shape (p,)
         The optimiser's bounds.
     threshold : float
@@ -113,46 +128,43 @@ class ProfileProblem:
         if info.shape != (p, p) or not np.all(np.isfinite(info)):
             info = np.eye(p)
         values, vectors = np.linalg.eigh(0.5 * (info + info.T))
-        floor = max(values.max(initial=0.0), 1.0) * 1e-8
+        floor = 0.25          # directions with a standard error above 2 are whitened as if it were 2
         values = np.maximum(values, floor)
         self.whitening = vectors / np.sqrt(values)          # A: theta = theta_hat + A z, A A' = I^-1
-        self._cache_key = None
-        self._cache = None
         self.evaluations = 0
         self.budget = np.inf
+        #: Ends already found for a coordinate theta_i (quantities affine in it reuse them).
+        self.coordinate_ends = {}
         #: The highest objective value met above the maximum + 0.01 (the fit had not finished), else None.
         self.better_log_likelihood = None
 
-    def _log_likelihood(self, theta, gradient: bool = True):
-        """Objective (and gradient) at ``theta`` clipped to the bounds (SLSQP may step outside them).
-
-        SLSQP asks for the value at every trial point of its line search and the gradient only at
-        accepted points, so the gradient is computed on demand (a value alone costs a fraction).
-        """
-        theta = np.clip(theta, self.lower, self.upper)
-        key = theta.tobytes()
-        if key != self._cache_key or (gradient and self._cache[1] is None):
-            if self.evaluations >= self.budget:
-                raise _OutOfBudget()
-            try:
-                with np.errstate(all="ignore"):
-                    value, grad = self.objective(theta, gradient)
-            except (np.linalg.LinAlgError, FloatingPointError, ValueError):
-                value, grad = -np.inf, None
-            self.evaluations += 1
-            if not np.isfinite(value):
-                value, grad = -1e10, np.zeros_like(theta)
-            elif grad is not None and not np.all(np.isfinite(grad)):
-                grad = np.zeros_like(theta)
-            if value > self.log_likelihood_max + 0.01 and (self.better_log_likelihood is None
-                                                            or value > self.better_log_likelihood):
-                self.better_log_likelihood = float(value)
-            self._cache_key, self._cache = key, (float(value), None if grad is None else np.asarray(grad, float))
-        return self._cache
+    def penalised_log_likelihood(self, theta):
+        """``l`` at ``theta`` clipped to the bounds minus the penalty outside them, and its gradient."""
+        if self.evaluations >= self.budget:
+            raise _OutOfBudget()
+        clipped = np.clip(theta, self.lower, self.upper)
+        outside = theta - clipped
+        try:
+            with np.errstate(all="ignore"):
+                value, grad = self.objective(clipped, True)
+        except (np.linalg.LinAlgError, FloatingPointError, ValueError):
+            value, grad = -np.inf, None
+        self.evaluations += 1
+        if not np.isfinite(value) or grad is None or not np.all(np.isfinite(grad)):
+            raise _NotFinite()
+        if value > self.log_likelihood_max + 0.01 and (self.better_log_likelihood is None
+                                                        or value > self.better_log_likelihood):
+            self.better_log_likelihood = float(value)
+        grad = np.where(outside != 0, 0.0, np.asarray(grad, float)) - 2 * _PENALTY * outside
+        return float(value) - _PENALTY * float(outside @ outside), grad
 
 
 class _OutOfBudget(Exception):
     """The search for one end used its share of likelihood evaluations."""
+
+
+class _NotFinite(Exception):
+    """The log-likelihood or its gradient is not finite at a trial point."""
 
 
 def _gradient(function, theta, depends_on):
@@ -166,7 +178,7 @@ def _gradient(function, theta, depends_on):
     return grad
 
 
-def profile_interval(problem: ProfileProblem, quantity, depends_on=None) -> tuple:
+def profile_interval(problem: ProfileProblem, quantity, depends_on=None, limits=None) -> tuple:
     """Both ends of the profile-likelihood interval of ``quantity(theta)`` (a link-scale value).
 
     Parameters
@@ -176,6 +188,9 @@ def profile_interval(problem: ProfileProblem, quantity, depends_on=None) -> tupl
         The quantity on its link scale (log of a rate or time, a log hazard ratio, a logit).
     depends_on : array of int, optional
         Parameter positions the quantity depends on (default: found by perturbation).
+    limits : (float, float), optional
+        The smallest and largest link-scale value the quantity can take (default: 30 from the
+        estimate, or where no ``theta`` inside the bounds gives the value).
 
     Returns
     -------
@@ -184,10 +199,22 @@ def profile_interval(problem: ProfileProblem, quantity, depends_on=None) -> tupl
     theta_hat = problem.theta_hat
     if depends_on is None:
         base = quantity(theta_hat)
-        depends_on = [i for i in range(theta_hat.size)
-                      if _changes(quantity, theta_hat, i, base)]
+        depends_on = [i for i in range(theta_hat.size) if _changes(quantity, theta_hat, i, base)]
     depends_on = np.asarray(depends_on, dtype=np.int64)
-    return tuple(_one_end(problem, quantity, depends_on, sign) for sign in (-1.0, 1.0))
+    affine = _affine_in_one_coordinate(quantity, theta_hat, depends_on)
+    if affine is None:
+        search = _Search(problem, quantity, depends_on, limits, coordinate=None)
+        return tuple(search.end(sign) for sign in (-1.0, 1.0))
+    # a*theta_i + b (a log rate, a log hazard ratio, the log mean time in a stage with one exit): profile
+    # theta_i once and map its ends (the profile is invariant under one-to-one transformations)
+    i, a, b = affine
+    ends = problem.coordinate_ends.get(i)
+    if ends is None:
+        search = _Search(problem, lambda th: th[i], depends_on, None, coordinate=i)
+        ends = problem.coordinate_ends[i] = tuple(search.end(sign) for sign in (-1.0, 1.0))
+    mapped = tuple(ProfileEnd(a * e.value + b, e.outcome, e.evaluations, e.reason, e.better_log_likelihood)
+                   for e in ends)
+    return mapped if a > 0 else mapped[::-1]
 
 
 def _changes(quantity, theta, i, base) -> bool:
@@ -196,78 +223,175 @@ def _changes(quantity, theta, i, base) -> bool:
     return bool(quantity(up) != base)
 
 
-def _one_end(problem: ProfileProblem, quantity, depends_on, sign: float) -> ProfileEnd:
-    A = problem.whitening
-    theta_hat, l_max = problem.theta_hat, problem.log_likelihood_max
-    target = l_max - problem.threshold / 2.0
-    start_evaluations = problem.evaluations
-    g0 = _gradient(quantity, theta_hat, depends_on)
-    direction = A.T @ g0                                   # gradient of g in z
-    norm = float(np.linalg.norm(direction))
-    if norm == 0.0 or not np.isfinite(norm):
-        return ProfileEnd(float(quantity(theta_hat)), False, False, 0)
-    scale = np.sqrt(problem.threshold) / norm               # Lagrange multiplier about 1 at the end
-    z0 = sign * np.sqrt(problem.threshold) * direction / norm
-    # keep the start inside the bounds (shrink towards the estimate)
-    for _ in range(40):
-        theta0 = theta_hat + A @ z0
-        if np.all(theta0 >= problem.lower) and np.all(theta0 <= problem.upper):
-            break
-        z0 = 0.5 * z0
-    best = {"value": None}
+class _Search:
+    """The profile of one quantity: the constraint ``g(theta) = psi`` and the inner maximisation."""
 
-    def theta_of(z):
-        return theta_hat + A @ z
+    def __init__(self, problem: ProfileProblem, quantity, depends_on, limits, coordinate):
+        self.problem, self.quantity, self.depends_on = problem, quantity, depends_on
+        A = problem.whitening
+        self.psi_hat = float(quantity(problem.theta_hat))
+        g_z = A.T @ _gradient(quantity, problem.theta_hat, depends_on)
+        self.se = float(np.linalg.norm(g_z))                 # Wald standard error of psi (link scale)
+        self.d = g_z / self.se if self.se > 0 and np.isfinite(self.se) else g_z
+        # a coordinate: g = theta_i exactly, so s follows from psi in closed form
+        self.coordinate = coordinate
+        if self.coordinate is not None:
+            limits = (problem.lower[self.coordinate], problem.upper[self.coordinate])
+        elif limits is None:
+            limits = (self.psi_hat - _FAR, self.psi_hat + _FAR)
+        self.limits = (max(limits[0], self.psi_hat - _FAR), min(limits[1], self.psi_hat + _FAR))
 
-    def fun(z):
-        return -sign * scale * quantity(theta_of(z))
+    # ---------------------------------------------------------------- the constraint
+    def _theta(self, s, w):
+        return self.problem.theta_hat + self.problem.whitening @ (s * self.d + w)
 
-    def fun_grad(z):
-        return -sign * scale * (A.T @ _gradient(quantity, theta_of(z), depends_on))
+    def _solve_s(self, psi, w, s0):
+        """``s`` with ``g(theta(s, w)) = psi`` (None when Newton's method cannot reach it)."""
+        if self.coordinate is not None:
+            i = self.coordinate
+            A = self.problem.whitening
+            return (psi - self.problem.theta_hat[i] - A[i] @ w) / (A[i] @ self.d)
+        s = s0
+        for _ in range(30):
+            theta = self._theta(s, w)
+            value = self.quantity(theta)
+            if not np.isfinite(value):
+                return None
+            miss = value - psi
+            if abs(miss) < 1e-9 * max(1.0, abs(psi)):
+                return s
+            slope = float(_gradient(self.quantity, theta, self.depends_on) @ (self.problem.whitening @ self.d))
+            if slope <= 0 or not np.isfinite(slope):
+                return None
+            step = -miss / slope
+            s += float(np.clip(step, -5.0, 5.0))
+        return None
 
-    def con(z):
-        value, _ = problem._log_likelihood(theta_of(z), gradient=False)
-        if value > l_max + 1e-3 and (best["value"] is None or value > best["value"]):
-            best["value"] = value
-        return np.array([value - target])
+    def _inner(self, psi, w0, s0):
+        """Maximise ``l`` over ``g(theta) = psi`` from ``(w0, s0)``; ``(l_p, w, s)`` or None."""
+        problem, d = self.problem, self.d
+        A = problem.whitening
+        state = {"s": s0}
 
-    def con_grad(z):
-        _, grad = problem._log_likelihood(theta_of(z))
-        return (A.T @ grad)[None, :]
+        def minus(u):
+            w = u - d * (d @ u)
+            s = self._solve_s(psi, w, state["s"])
+            if s is None:
+                raise _NotFinite()
+            state["s"] = s
+            theta = self._theta(s, w)
+            value, grad = problem.penalised_log_likelihood(theta)
+            l_z = A.T @ grad
+            g_z = A.T @ _gradient(self.quantity, theta, self.depends_on) if self.coordinate is None \
+                else A[self.coordinate]
+            along = g_z @ d
+            ds = -(g_z - d * along) / along                   # ds/dw (implicit function theorem)
+            grad_u = (l_z - d * (l_z @ d)) + (l_z @ d) * ds
+            grad_u = grad_u - d * (d @ grad_u)
+            return problem.log_likelihood_max - value, -grad_u
 
-    # Only the optimiser bounds the search could reach (within REACH Wald standard errors) become
-    # constraints: each one costs SLSQP's quadratic subproblem time, and most are far away.
-    spread = np.sqrt(np.sum(A * A, axis=1))
-    reach_low = np.flatnonzero(theta_hat - problem.lower < _REACH * spread)
-    reach_high = np.flatnonzero(problem.upper - theta_hat < _REACH * spread)
-    constraints = [{"type": "ineq", "fun": con, "jac": con_grad}]
-    if reach_low.size:
-        constraints.append({"type": "ineq", "fun": lambda z: theta_of(z)[reach_low] - problem.lower[reach_low],
-                            "jac": lambda z: A[reach_low]})
-    if reach_high.size:
-        constraints.append({"type": "ineq", "fun": lambda z: problem.upper[reach_high] - theta_of(z)[reach_high],
-                            "jac": lambda z: -A[reach_high]})
-    z_bounds = [(-_Z_LIMIT, _Z_LIMIT)] * z0.size     # keeps line-search trials near the likelihood region
-    problem.budget = problem.evaluations + _MAX_EVALUATIONS
-    try:
-        with np.errstate(all="ignore"):
-            res = scipy.optimize.minimize(fun, z0, jac=fun_grad, method="SLSQP", constraints=constraints,
-                                          bounds=z_bounds, options={"maxiter": _MAX_ITERATIONS, "ftol": _TOLERANCE})
-    except _OutOfBudget:
-        return ProfileEnd(float("nan"), False, False, problem.evaluations - start_evaluations, best["value"])
-    finally:
-        problem.budget = np.inf
-    theta = np.clip(theta_of(res.x), problem.lower, problem.upper)
-    value = float(quantity(theta))
-    slack = float(con(res.x)[0])
-    low, high = theta <= problem.lower + _ON_BOUND, theta >= problem.upper - _ON_BOUND
-    # the whitened box counts as a bound too: the profile is still above the threshold that far out
-    on_bound = bool(np.any(low | high)) or bool(np.any(np.abs(res.x) >= _Z_LIMIT - 1e-6))
-    own_bound = bool(np.any((low | high)[depends_on]))
-    feasible = slack > -0.02
-    active = abs(slack) <= _SLACK
-    found = bool(feasible and (res.success or active or on_bound) and np.isfinite(value))
-    # open: stopped by a bound rather than by the likelihood
-    # (or, for a single coordinate, that coordinate at its own bound)
-    is_open = bool(found and ((on_bound and slack > _SLACK) or (depends_on.size == 1 and own_bound)))
-    return ProfileEnd(value, found, is_open, problem.evaluations - start_evaluations, best["value"])
+        best = {"f": np.inf}
+
+        def tracked(u):
+            try:
+                f, g = minus(u)
+            except _NotFinite:
+                return 1e6, np.zeros_like(u)
+            if f < best["f"]:
+                best.update(f=f, u=u.copy(), s=state["s"])
+            return f, g
+
+        scipy.optimize.minimize(tracked, w0, jac=True, method="L-BFGS-B",
+                                options={"maxiter": 40, "ftol": 2e-3, "gtol": 2e-2, "maxcor": 10})
+        if not np.isfinite(best["f"]) or best["f"] >= 1e5:
+            return None
+        return problem.log_likelihood_max - best["f"], best["u"], best["s"]
+
+    # ---------------------------------------------------------------- one end
+    def end(self, sign: float) -> ProfileEnd:
+        problem = self.problem
+        start = problem.evaluations
+        if not (self.se > 0 and np.isfinite(self.se)):
+            return ProfileEnd(float("nan"), "failed", 0, "no direction in which the quantity changes")
+        q = problem.threshold
+        limit = self.limits[1] if sign > 0 else self.limits[0]
+        points = {self.psi_hat: (0.0, np.zeros_like(self.d), 0.0)}   # psi -> (deviance, w, s)
+
+        def deviance(psi):
+            near = min(points, key=lambda x: abs(x - psi))
+            _, w0, s0 = points[near]
+            s_guess = s0 + (psi - near) / self.se
+            found = self._inner(psi, w0, s_guess)
+            if found is None:
+                return None
+            l_p, w, s = found
+            points[psi] = (max(0.0, 2.0 * (problem.log_likelihood_max - l_p)), w, s)
+            return points[psi][0]
+
+        problem.budget = problem.evaluations + MAX_EVALUATIONS_PER_END
+        try:
+            with np.errstate(all="ignore"):
+                inside, outside = self.psi_hat, None
+                distance = math.sqrt(q) * self.se
+                for _ in range(_MAX_WALK):
+                    psi = self.psi_hat + sign * distance
+                    at_limit = sign * (psi - limit) >= 0
+                    if at_limit:
+                        psi = limit
+                    value = deviance(psi)
+                    if value is None:          # no theta inside the bounds gives psi: the limit is before it
+                        return self._result("bound reached", inside, start)
+                    if value >= q:
+                        outside = psi
+                        break
+                    inside = psi
+                    if at_limit:
+                        return self._result("bound reached", limit, start)
+                    root = math.sqrt(value)
+                    predicted = distance * math.sqrt(q) / root * 1.1 if root > 1e-6 else 4 * distance
+                    distance = min(max(predicted, 1.25 * distance), 4 * distance)
+                if outside is None:
+                    return self._result("failed", float("nan"), start,
+                                        f"the deviance stayed below {q:.2f} for {_MAX_WALK} steps")
+
+                def signed(psi):
+                    value = points[psi][0] if psi in points else deviance(psi)
+                    if value is None:
+                        raise _NotFinite()
+                    return math.sqrt(value) - math.sqrt(q)
+
+                root = scipy.optimize.brentq(signed, min(inside, outside), max(inside, outside),
+                                             xtol=_ROOT_TOLERANCE * self.se, maxiter=30)
+                return self._result("profile", float(root), start)
+        except _OutOfBudget:
+            return self._result("failed", float("nan"), start,
+                                f"used {MAX_EVALUATIONS_PER_END} likelihood evaluations")
+        except _NotFinite:
+            return self._result("failed", float("nan"), start, "the likelihood is not finite along the profile")
+        except (RuntimeError, ValueError) as exc:
+            return self._result("failed", float("nan"), start, f"root search: {exc}")
+        finally:
+            problem.budget = np.inf
+
+    def _result(self, outcome, value, start, reason=""):
+        return ProfileEnd(float(value), outcome, self.problem.evaluations - start, reason,
+                          self.problem.better_log_likelihood)
+
+
+def _affine_in_one_coordinate(quantity, theta, depends_on):
+    """``(i, a, b)`` when ``quantity(theta) = a theta[i] + b`` near ``theta`` (checked at three points), else None."""
+    if depends_on.size != 1:
+        return None
+    i = int(depends_on[0])
+    probe = theta.copy()
+    values = []
+    for delta in (0.0, 0.37, -1.3):
+        probe[i] = theta[i] + delta
+        values.append(float(quantity(probe)))
+    a = (values[1] - values[0]) / 0.37
+    b = values[0] - a * theta[i]
+    if not (np.isfinite(a) and np.isfinite(b)) or a == 0:
+        return None
+    if abs(values[2] - (a * (theta[i] - 1.3) + b)) > 1e-8 * max(1.0, abs(values[2])):
+        return None
+    return i, a, b

@@ -117,6 +117,16 @@ class FitSummary:
         return tuple(e.name for e in self.all_estimates if e.weakly_identified and not e.fixed)
 
     @property
+    def profile_fallbacks(self) -> tuple:
+        """Names of the quantities whose profile search failed (a Wald interval is shown, labelled so)."""
+        return tuple(e.name for e in self.all_estimates if e.profile_failed and not e.fixed)
+
+    @property
+    def one_sided(self) -> tuple:
+        """Names of the quantities whose profile interval reached a limit (one-sided there)."""
+        return tuple(e.name for e in self.all_estimates if e.bound_reached and not e.fixed)
+
+    @property
     def at_bound(self) -> tuple:
         return tuple(e.name for e in self.all_estimates if e.at_bound and not e.fixed)
 
@@ -284,6 +294,14 @@ def format_summary_table(summary: FitSummary) -> str:
     weak = summary.weakly_identified
     if weak:
         lines.append(f"weakly identified   {len(weak)}: {'; '.join(weak)}")
+    failed = summary.profile_fallbacks
+    if failed:
+        lines.append(f"profile failed      {len(failed)}: {'; '.join(failed)} - Wald intervals shown instead, labelled "
+                     "'wald (profile search failed: ...)'")
+    if summary.interval_kind == "profile":
+        from .intervals import coverage_caveat
+
+        lines.append(f"caveat: {coverage_caveat()}")
     for w in summary.warnings:
         lines.append(f"warning: {w}")
     return "\n".join(lines)

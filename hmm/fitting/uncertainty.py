@@ -54,6 +54,11 @@ class ParameterEstimate:
         Plain words for the flags (for example ``"no upper bound: weakly identified"``).
     stage : str or None
         The stage of a mean time in stage.
+    bound_reached : {"", "lower", "upper", "both"}
+        Profile intervals only: the ends at which the profile stayed under the threshold up to the
+        quantity's limit (the interval is one-sided there; see :mod:`hmm.fitting.profile`).
+    profile_failed : str
+        Why the profile search gave up when a Wald interval is shown in its place ("" otherwise).
     """
 
     name: str
@@ -68,6 +73,20 @@ class ParameterEstimate:
     at_bound: bool = False
     note: str = ""
     stage: str | None = None
+    bound_reached: str = ""
+    profile_failed: str = ""
+
+    @property
+    def interval_method(self) -> str:
+        """How the interval was obtained, in words: ``"profile"``, ``"profile, bound reached (lower)"``,
+        ``"wald"``, ``"wald (profile search failed: ...)"``, or ``""`` without an interval."""
+        if self.lower is None or self.upper is None or not self.interval_kind:
+            return ""
+        if self.interval_kind == "profile" and self.bound_reached:
+            return f"profile, bound reached ({self.bound_reached})"
+        if self.interval_kind == "wald" and self.profile_failed:
+            return f"wald (profile search failed: {self.profile_failed})"
+        return self.interval_kind
 
     @property
     def interval_is_informative(self) -> bool:
@@ -97,14 +116,19 @@ class ParameterEstimate:
             return "(fixed)"
         if self.lower is None or self.upper is None:
             return "(no interval)" + (f" - {self.note}" if self.note else "")
+        if self.weakly_identified and self.bound_reached == "upper" and self.lower is not None and self.lower > 0:
+            # one-sided: the profile bounds the value from below only (for example a mean time when the rate may be 0)
+            return f"[{fmt(self.lower)}, no upper bound] {self.interval_method} - {self.note}"
         if not self.interval_is_informative:
             return f"(no useful interval: {self.note or 'the data hardly inform this value'})"
-        text = f"[{fmt(self.lower)}, {fmt(self.upper)}] {self.interval_kind or ''}".rstrip()
+        text = f"[{fmt(self.lower)}, {fmt(self.upper)}] {self.interval_method}".rstrip()
         return text + (f" - {self.note}" if self.note else "")
 
     def to_dict(self) -> dict:
         out = {k: getattr(self, k) for k in ("name", "kind", "estimate", "standard_error", "lower", "upper", "fixed",
-                                             "interval_kind", "weakly_identified", "at_bound", "note", "stage")}
+                                             "interval_kind", "weakly_identified", "at_bound", "note", "stage",
+                                             "bound_reached", "profile_failed")}
+        out["interval_method"] = self.interval_method
         out["informative"] = self.interval_is_informative
         return out
 
@@ -130,19 +154,59 @@ class ParameterEstimate:
                    interval_kind=interval_kind, weakly_identified=weak, at_bound=bool(data.get("at_bound", False)),
                    note=str(data.get("note") or ("" if not weak or not legacy else
                                                  "the data hardly inform this value")),
-                   stage=None if stage is None else str(stage))
+                   stage=None if stage is None else str(stage),
+                   bound_reached=str(data.get("bound_reached") or ""),
+                   profile_failed=str(data.get("profile_failed") or ""))
 
 
-def observed_information(gradient_function, theta: np.ndarray, step: float = 1e-4, callback=None) -> np.ndarray:
-    """Minus the Hessian of the function whose gradient is ``gradient_function``, shape (p, p)."""
+#: Step of one-sided differences of the analytic gradient (relative to ``max(1, |theta_i| / 10)``).
+ONE_SIDED_STEP = 1e-7
+
+
+def observed_information(gradient_function, theta: np.ndarray, step: float | None = None, callback=None,
+                         differences: str = "central", gradient_at_theta: np.ndarray | None = None) -> np.ndarray:
+    """Minus the Hessian of the function whose gradient is ``gradient_function``, shape (p, p).
+
+    Parameters
+    ----------
+    gradient_function : callable(theta) -> ndarray, shape (p,)
+    theta : ndarray, shape (p,)
+    step : float, optional
+        Relative step ``h_i = step * max(1, |theta_i| / 10)``; default 1e-4 for central and
+        :data:`ONE_SIDED_STEP` for one-sided differences.
+    callback : callable(fraction), optional
+    differences : {"central", "one-sided"}
+        ``"central"``: ``(g(theta + h e_i) - g(theta - h e_i)) / 2h``, two gradients per parameter,
+        error O(h^2). ``"one-sided"``: ``(g(theta + h e_i) - g(theta)) / h``, one gradient per
+        parameter (plus ``g(theta)`` unless given), error O(h): with the analytic gradient (accurate
+        to rounding) a step of 1e-7 keeps it near 1e-6 relative, about what the central
+        differences give (Nocedal & Wright 2006, section 8.1: forward differences of a gradient, step
+        near the square root of its relative accuracy).
+    gradient_at_theta : ndarray, shape (p,), optional
+        ``g(theta)``, for one-sided differences.
+
+    Returns
+    -------
+    ndarray, shape (p, p)
+        Symmetrised: ``-(H + H') / 2``.
+    """
+    if differences not in ("central", "one-sided"):
+        raise ValueError(f"differences must be 'central' or 'one-sided', got {differences!r}")
+    central = differences == "central"
+    step = (1e-4 if central else ONE_SIDED_STEP) if step is None else step
     p = theta.size
     hessian = np.zeros((p, p))
+    if not central and p:
+        gradient_at_theta = gradient_function(theta) if gradient_at_theta is None else gradient_at_theta
     for i in range(p):
         h = step * max(1.0, abs(theta[i]) * 0.1)
         up, down = theta.copy(), theta.copy()
         up[i] += h
         down[i] -= h
-        hessian[:, i] = (gradient_function(up) - gradient_function(down)) / (2 * h)
+        if central:
+            hessian[:, i] = (gradient_function(up) - gradient_function(down)) / (2 * h)
+        else:
+            hessian[:, i] = (gradient_function(up) - gradient_at_theta) / (up[i] - theta[i])
         if callback is not None:
             callback((i + 1) / p)
     return -0.5 * (hessian + hessian.T)

@@ -169,3 +169,43 @@ def test_fit_without_standard_errors_gives_the_same_estimate_and_no_intervals(rn
     assert without.n_likelihood_evaluations < with_se.n_likelihood_evaluations
     assert all(p.lower is None for p in without.parameters if not p.fixed)
     assert any(p.lower is not None for p in with_se.parameters if not p.fixed)
+
+
+def test_one_sided_information_matches_central_differences_with_half_the_gradients(rng):
+    # Hessian from differences of the analytic gradient (Nocedal & Wright 2006, section 8.1): one-sided with a
+    # small step against central with the usual one; the fit uses the one-sided form (one gradient per parameter)
+    from hmm.fitting.likelihood import evaluate, prepare
+    from hmm.fitting.parameters import parameter_spec
+    from hmm.fitting.uncertainty import covariance_from_information, observed_information
+
+    model = three_stage_model()
+    timelines = simulate(model, rng, n_cases=300).timelines
+    spec = parameter_spec(model)
+    plan = prepare(model, timelines, spec)
+    theta = spec.to_vector() + rng.normal(0, 0.1, spec.n_free)
+    calls = []
+
+    def gradient(x):
+        calls.append(1)
+        return evaluate(plan, x).gradient
+
+    central = observed_information(gradient, theta)
+    assert len(calls) == 2 * spec.n_free
+    calls.clear()
+    one_sided = observed_information(gradient, theta, differences="one-sided")
+    assert len(calls) == spec.n_free + 1
+    np.testing.assert_allclose(one_sided, central, rtol=1e-5, atol=1e-5 * np.abs(central).max())
+    errors = [np.sqrt(np.diag(covariance_from_information(m, spec.names)[0])) for m in (central, one_sided)]
+    np.testing.assert_allclose(errors[1], errors[0], rtol=1e-5)
+    with pytest.raises(ValueError, match="differences"):
+        observed_information(gradient, theta, differences="backward")
+
+
+def test_fit_spends_one_gradient_per_free_parameter_on_the_information(rng):
+    model = three_stage_model()
+    timelines = simulate(model, rng, n_cases=200).timelines
+    with_errors = fit_model(model, timelines, starts=1, intervals="wald")
+    without = fit_model(model, timelines, starts=1, standard_errors=False)
+    # the information: one gradient per free parameter, and g(theta) unless the optimiser's last one was there
+    extra = with_errors.n_likelihood_evaluations - without.n_likelihood_evaluations
+    assert with_errors.n_parameters <= extra <= with_errors.n_parameters + 1

@@ -9,7 +9,7 @@ import pytest
 import scipy.linalg
 
 from fitting_helpers import progressive_equal_rates, simulate, three_stage_model
-from hmm.fitting.expm_derivative import adjoint_derivative, decompose, transition_matrices
+from hmm.fitting.expm_derivative import adjoint_derivative, decompose, pair_transition_matrices
 from hmm.fitting.likelihood import evaluate, log_likelihood_and_gradient, prepare
 from hmm.fitting.parameters import parameter_spec
 from hmm.inference import forward
@@ -64,7 +64,7 @@ def test_adjoint_frechet_derivative_against_scipy(rng):
     weights = rng.normal(size=(4, 3, 3))
     for method in ("auto", "expm"):
         cache = decompose(q, method)
-        p = transition_matrices(cache, gens, gaps)
+        p = pair_transition_matrices(cache, gens, gaps)
         grad = adjoint_derivative(cache, gens, gaps, weights)
         for i in range(4):
             np.testing.assert_allclose(p[i], scipy.linalg.expm(q[gens[i]] * gaps[i]), atol=1e-12)
@@ -75,9 +75,9 @@ def test_adjoint_frechet_derivative_against_scipy(rng):
 
 @pytest.mark.parametrize("n_cases", [1, 200])
 def test_log_likelihood_equals_engine_forward(rng, n_cases):
-    # cross-check with the engine's own forward algorithm (hmm.inference.forward, separate code).
-    # Without exact-entry stages: with them this likelihood also excludes exact-entry stages at
-    # ordinary contacts (see hmm.fitting.likelihood.prepare), which hmm.inference does not (yet).
+    # cross-check with the engine's own forward pass (hmm.inference.forward: the same recursion core,
+    # separate step-matrix and evidence code); with exact entry see
+    # test_smoothed_probabilities_equal_the_engine_smoother
     model = three_stage_model(exact_entry=False)
     sim = simulate(model, rng, n_cases=n_cases, exact_entry=False)
     spec = parameter_spec(model)
@@ -126,3 +126,64 @@ def test_equal_gaps_match_hmmlearn_score(rng):
     reference.emissionprob_ = joint
     expected = reference.score(symbols.reshape(-1, 1).astype(int), lengths=sim.timelines.n_contacts_per_case)
     assert value == pytest.approx(expected, rel=1e-10)
+
+
+@pytest.mark.parametrize("threads", [2, 3])
+def test_case_blocks_in_threads_give_the_one_block_result(rng, monkeypatch, threads):
+    # the same sums, added block by block: equal up to rounding; small chunks walk the chunk boundaries
+    import hmm.fitting.likelihood as likelihood
+    import hmm.forward_backward as core
+
+    monkeypatch.setattr(core, "CHUNK_ROWS", 5)
+    monkeypatch.setattr(likelihood, "_PAIR_CHUNK_STEPS", 7)   # pairs split across chunks of steps
+    model = three_stage_model()
+    sim = simulate(model, rng, n_cases=60, n_contacts=7)
+    spec = parameter_spec(model)
+    theta = spec.to_vector() + rng.normal(0, 0.3, spec.n_free)
+    one = evaluate(prepare(model, sim.timelines, spec, threads=1), theta, smoothed=True)
+    plan = prepare(model, sim.timelines, spec, threads=threads)
+    assert len(plan.blocks) == threads
+    many = evaluate(plan, theta, smoothed=True)
+    assert many.log_likelihood == pytest.approx(one.log_likelihood, rel=1e-13)
+    np.testing.assert_allclose(many.gradient, one.gradient, rtol=1e-10, atol=1e-10)
+    np.testing.assert_allclose(many.case_log_likelihood, one.case_log_likelihood, rtol=1e-12)
+    np.testing.assert_allclose(many.smoothed, one.smoothed, rtol=1e-12, atol=1e-15)
+    # a second evaluation reuses the blocks' buffers and gives the same numbers
+    again = evaluate(plan, theta)
+    assert again.log_likelihood == many.log_likelihood
+    np.testing.assert_array_equal(again.gradient, many.gradient)
+    numeric = _finite_difference(plan, theta, "auto")
+    np.testing.assert_allclose(many.gradient, numeric, atol=1e-6 * abs(many.log_likelihood), rtol=1e-5)
+
+
+def test_smoothed_probabilities_equal_the_engine_smoother(rng):
+    # the fitting likelihood's smoothed probabilities against hmm.inference.smoothed_probabilities
+    # (the same forward-backward core, separate step-matrix and evidence code), with exact entry
+    from hmm.inference import smoothed_probabilities
+
+    model = three_stage_model()
+    sim = simulate(model, rng, n_cases=80, n_contacts=6)
+    spec = parameter_spec(model)
+    theta = spec.to_vector() + rng.normal(0, 0.3, spec.n_free)
+    ev = evaluate(prepare(model, sim.timelines, spec, threads=2), theta, smoothed=True)
+    fitted = spec.to_model(theta)
+    total = ev.smoothed.sum(axis=1, keepdims=True)
+    np.testing.assert_allclose(ev.smoothed / total, smoothed_probabilities(fitted, sim.timelines), atol=1e-9)
+    assert ev.log_likelihood == pytest.approx(forward(fitted, sim.timelines).log_likelihood.sum(), rel=1e-10)
+
+
+@pytest.mark.parametrize("threads", [1, 2])
+def test_caseload_of_single_contacts_has_no_steps_and_a_gradient(threads):
+    # no case has a second contact: the log-likelihood is sum log(initial . e) and only the initial and
+    # observation probabilities have a gradient (by hand: no step matrix enters)
+    model = three_stage_model()
+    n = 5
+    timelines = Timelines(offsets=np.arange(n + 1), times=np.zeros(n), observations=np.zeros((n, 2), np.int16),
+                          allowed_stages=np.ones((n, 3), bool), covariates=np.zeros((n, 1)))
+    spec = parameter_spec(model)
+    ev = evaluate(prepare(model, timelines, spec, threads=threads), spec.to_vector())
+    e = model.channels[0].probabilities[:, 0] * model.channels[1].probabilities[:, 0]
+    assert ev.log_likelihood == pytest.approx(n * np.log(model.initial @ e), rel=1e-12)
+    rates = [i for i, kind in enumerate(spec.kinds) if kind in ("rate", "log_hazard_ratio")]
+    assert rates
+    np.testing.assert_array_equal(ev.gradient[rates], 0.0)

@@ -171,3 +171,124 @@ def test_profile_and_wald_agree_when_the_likelihood_is_nearly_quadratic():
             width = np.log(w.upper) - np.log(w.lower)
             assert abs(np.log(p.lower) - np.log(w.lower)) < 0.15 * width
             assert abs(np.log(p.upper) - np.log(w.upper)) < 0.15 * width
+
+
+def _exact_entry_caseload(entries, censored, step=GAP):
+    """Two stages A -> B with B entered exactly: a case is seen in A every ``step`` days from day 0 and either
+    recorded entering B on day ``t`` (``entries``) or last seen in A on day ``t`` (``censored``)."""
+    rows = []   # (case, day, stage)
+    for case, (t, moved) in enumerate([(t, True) for t in entries] + [(t, False) for t in censored]):
+        days = list(np.arange(0.0, t, step)) + [float(t)]
+        if not moved and len(days) > 1 and days[-1] == days[-2]:
+            days.pop()
+        rows += [(case, d, 0) for d in days[:-1]] + [(case, days[-1], 1 if moved else 0)]
+    counts = np.bincount([r[0] for r in rows])
+    allowed = np.zeros((len(rows), 2), dtype=bool)
+    allowed[np.arange(len(rows)), [r[2] for r in rows]] = True
+    return Timelines(np.concatenate([[0], np.cumsum(counts)]).astype(np.int64),
+                     np.array([r[1] for r in rows], dtype=float), np.full((len(rows), 1), -1, dtype=np.int16),
+                     allowed, np.zeros((len(rows), 0)))
+
+
+def _exact_entry_model():
+    return StageModel(stages=("A", "B"), initial=np.array([1.0, 0.0]), transitions=(Transition(0, 1, 0.01),),
+                      channels=(_silent_channel(2),), initial_fixed=True, exact_entry_stages=("B",),
+                      name="two stages, exact entry")
+
+
+def test_profile_interval_of_a_rate_matches_the_closed_form_exponential_likelihood():
+    # Stage A is seen at every contact and the move to B is dated exactly, so the time in A is an exponential
+    # sojourn observed with right censoring: l(q) = d log q - q T, d moves and T days at risk in A (Cox & Oakes
+    # 1984, Analysis of Survival Data, section 3.2, exponential distribution with censored data; the Poisson
+    # form of the same likelihood). q_hat = d / T, and the 95% likelihood interval is {q : 2 (l(q_hat) - l(q))
+    # <= chi2_1(0.95)} (Pawitan 2001, In All Likelihood, section 2.6), found here with scipy.optimize.brentq.
+    entries = [12.0, 40.0, 55.0, 73.0, 90.0, 130.0, 150.0, 200.0]
+    censored = [180.0, 240.0, 240.0]
+    d, T = len(entries), sum(entries) + sum(censored)
+    result = fit_model(_exact_entry_model(), _exact_entry_caseload(entries, censored), starts=1, intervals="profile")
+    loglik = lambda q: d * np.log(q) - q * T  # noqa: E731
+    q_hat = d / T
+    drop = lambda q: 2 * (loglik(q_hat) - loglik(q)) - CHI2_95  # noqa: E731
+    low, high = scipy.optimize.brentq(drop, q_hat * 1e-6, q_hat), scipy.optimize.brentq(drop, q_hat, q_hat * 1e3)
+    rate = next(e for e in result.parameters if e.kind == "rate")
+    assert rate.estimate == pytest.approx(q_hat, rel=1e-5)
+    assert rate.interval_method == "profile" and not rate.weakly_identified and not rate.profile_failed
+    assert rate.lower == pytest.approx(low, rel=2e-3) and rate.upper == pytest.approx(high, rel=2e-3)
+    stay = result.mean_time_in_stage[0]      # 1 / q: the image of the same interval
+    assert stay.interval_method == "profile"
+    assert stay.lower == pytest.approx(1 / high, rel=2e-3) and stay.upper == pytest.approx(1 / low, rel=2e-3)
+    # Wald on the log scale is symmetric about log q_hat; the profile interval is not (Pawitan 2001, 2.6)
+    wald = next(e for e in fit_model(_exact_entry_model(), _exact_entry_caseload(entries, censored), starts=1,
+                                     intervals="wald").parameters if e.kind == "rate")
+    assert wald.interval_method == "wald" and abs(np.log(wald.lower / low)) > 0.01
+
+
+def test_a_rate_with_no_moves_gets_a_one_sided_interval_that_says_the_bound_was_reached():
+    # No case leaves A: l(q) = -q T is largest at q = 0, so the likelihood interval is [0, chi2_1(0.95) / (2 T)]
+    # (Cox & Oakes 1984, section 3.2 with d = 0; Pawitan 2001, section 2.6). The lower end is the bound q = 0,
+    # reached with the deviance still under the threshold: one-sided, and said so.
+    censored = [150.0, 200.0, 240.0, 300.0, 90.0]
+    T = sum(censored)
+    result = fit_model(_exact_entry_model(), _exact_entry_caseload([], censored), starts=1, intervals="profile")
+    rate = next(e for e in result.parameters if e.kind == "rate")
+    assert rate.interval_kind == "profile" and rate.bound_reached == "lower"
+    assert rate.interval_method == "profile, bound reached (lower)"
+    assert rate.lower == 0.0 and rate.at_bound and "the data allow 0" in rate.note
+    assert rate.upper == pytest.approx(CHI2_95 / (2 * T), rel=5e-3)
+    assert not rate.weakly_identified and rate.interval_is_informative
+    stay = result.mean_time_in_stage[0]      # 1 / q: at least 1 / upper, with no upper bound
+    assert stay.bound_reached == "upper" and stay.weakly_identified and "no upper bound" in stay.note
+    assert stay.lower == pytest.approx(2 * T / CHI2_95, rel=5e-3)
+    assert "no upper bound] profile, bound reached (upper)" in result.format_table()
+    stored = type(result.to_summary()).from_dict(result.to_summary().to_dict())
+    assert next(e for e in stored.parameters if e.kind == "rate").interval_method == "profile, bound reached (lower)"
+
+
+def test_a_failed_profile_search_shows_the_wald_interval_and_says_so(monkeypatch):
+    # Starve the search (two likelihood evaluations per end): every profile fails, and each estimate must then
+    # carry its Wald interval labelled as a fallback with the reason, in the result, the table and stored JSON.
+    import hmm.fitting.profile as profile_module
+    from hmm.fitting.summary import FitSummary
+
+    monkeypatch.setattr(profile_module, "MAX_EVALUATIONS_PER_END", 2)
+    model = three_stage_model(with_covariate=False)
+    sim = simulate(model, np.random.default_rng(5), n_cases=120, n_contacts=6)
+    result = fit_model(model, sim.timelines, starts=1, intervals="profile")
+    rates = [e for e in result.parameters if e.kind == "rate" and not e.fixed]
+    assert rates and all(e.interval_kind == "wald" and "used 2 likelihood evaluations" in e.profile_failed
+                         for e in rates)
+    assert all(e.interval_method.startswith("wald (profile search failed: ") for e in rates)
+    assert all("profile search failed: Wald interval shown" in e.note for e in rates)
+    stored = FitSummary.from_dict(result.to_summary().to_dict())
+    assert set(e.name for e in rates) <= set(stored.profile_fallbacks)
+    table = stored.format_table()
+    assert "profile failed" in table and "wald (profile search failed: " in table
+    assert "caveat: " in table
+
+
+def test_profile_interval_of_an_observation_probability_matches_the_binomial_likelihood_interval():
+    # The stage is recorded at every contact, so a channel's recordings in stage A are a multinomial sample;
+    # maximising over how the other categories share the rest, the profile of P(k | A) is the binomial
+    # log-likelihood n_k log p + (n - n_k) log(1 - p) (Pawitan 2001, In All Likelihood, section 2.6 and the
+    # multinomial profile of section 3.4). P(k | A) is a softmax of two logits: the non-coordinate path.
+    counts = {0: 31, 1: 12, 2: 3}                       # recordings of each category while in A
+    n_a = sum(counts.values())
+    codes = np.concatenate([np.full(c, k) for k, c in counts.items()]).astype(np.int16)
+    n = codes.size
+    timelines = Timelines(np.arange(n + 1, dtype=np.int64), np.zeros(n), codes[:, None],
+                          np.tile(np.array([True, False]), (n, 1)), np.zeros((n, 0)))
+    channel = Channel("sign", ("x", "y", "z"), np.array([[0.6, 0.3, 0.1], [0.2, 0.3, 0.5]]),
+                      fixed_stages=frozenset({1}))
+    model = StageModel(stages=("A", "B"), initial=np.array([1.0, 0.0]), transitions=(Transition(0, 1, 0.01),),
+                       channels=(channel,), initial_fixed=True, name="recorded stages")
+    model = dataclasses.replace(model, transitions=(dataclasses.replace(model.transitions[0], fixed_rate=True),))
+    result = fit_model(model, timelines, starts=1, intervals="profile")
+    for k, count in counts.items():
+        loglik = lambda p, _c=count: _c * np.log(p) + (n_a - _c) * np.log1p(-p)  # noqa: E731
+        p_hat = count / n_a
+        drop = lambda p, _l=loglik, _p=p_hat: 2 * (_l(_p) - _l(p)) - CHI2_95  # noqa: E731
+        low, high = scipy.optimize.brentq(drop, 1e-9, p_hat), scipy.optimize.brentq(drop, p_hat, 1 - 1e-9)
+        estimate = next(e for e in result.parameters if e.name == f"sign: P({'xyz'[k]} | A)")
+        assert estimate.interval_method == "profile", estimate
+        assert estimate.estimate == pytest.approx(p_hat, rel=1e-4)
+        assert estimate.lower == pytest.approx(low, rel=5e-3) and estimate.upper == pytest.approx(high, rel=5e-3)

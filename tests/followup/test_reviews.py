@@ -131,3 +131,26 @@ def test_rules_stored_in_workspace(ws):
     assert entry.action == "setting.change" and entry.actor == "sup"
     a = assess_caseload(ws, LATE)
     assert a.rules["in_follow_up_now"].threshold == 0.3
+
+
+def test_a_review_made_meanwhile_by_someone_else_is_named_and_nothing_is_stored(ws, tmp_path, monkeypatch):
+    """Two people review the same flag at once: the first is stored, the second is told who changed it."""
+    import caseview.followup.reviews as reviews
+    from caseview.storage import Workspace
+
+    real_numbers = reviews._case_numbers
+
+    def colleague_reviews_meanwhile(workspace, case_id, assessment, as_of):
+        numbers = real_numbers(workspace, case_id, assessment, as_of)  # between the first read and the write
+        if workspace is ws:
+            with Workspace.open(ws.path) as other:
+                record_review(other, case_id, "acknowledged", "seen", "kim", None, LATE)
+        return numbers
+
+    monkeypatch.setattr(reviews, "_case_numbers", colleague_reviews_meanwhile)
+    before = len(ws.audit_entries())
+    with pytest.raises(InputError, match=r"^review of HS-0001: changed by kim a moment ago \(now acknowledged\); "
+                                         r"nothing was stored"):
+        record_review(ws, "HS-0001", "acknowledged", "looking", "sup", None, LATE)
+    assert len(ws.audit_entries()) == before + 1  # kim's review only
+    assert store.latest_reviews(ws.connection, "HS-0001")["HS-0001"].actor == "kim"

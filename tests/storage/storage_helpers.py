@@ -46,3 +46,12 @@ def generated_rows(n_cases: int, per_case: int, rng) -> list:
     return rows
 
 
+
+
+def as_caseview_before_case_packs(patch) -> None:
+    """Make the writers behave like a caseview from before ``case_packs`` existed (for tests that build an
+    older workspace with fewer migrations): no packed contacts are written."""
+    from caseview.storage import case_packs
+
+    for name in ("write_case_packs", "refresh_case_packs", "rebuild_case_packs"):
+        patch.setattr(case_packs, name, lambda *args, **kwargs: None)

@@ -17,7 +17,7 @@ from caseview.storage import Workspace
 from caseview.storage import row_digests as digests
 from caseview.storage import schema
 from caseview.timeline_io import import_timelines
-from storage_helpers import ROWS, generated_rows, write_csv
+from storage_helpers import ROWS, as_caseview_before_case_packs, generated_rows, write_csv
 
 
 @pytest.fixture
@@ -168,6 +168,7 @@ def test_older_workspace_gets_a_baseline_entry(tmp_path, model_text, small_csv, 
     digests_at = schema.MIGRATIONS.index(schema.ROW_DIGESTS)
     with monkeypatch.context() as patch:  # a workspace made before row digests existed
         patch.setattr(schema, "MIGRATIONS", schema.MIGRATIONS[:digests_at])
+        as_caseview_before_case_packs(patch)
         from caseview.storage import audit
 
         patch.setattr(audit, "append", _append_without_digests(audit.append))
