@@ -19,6 +19,8 @@ from dataclasses import dataclass
 
 import numpy as np
 
+from caseview.dates import day_text
+
 
 def covariate_range_problem(name: str, low: float, high: float) -> str:
     """The one wording of "outside the covariate's range" (import, record and scoring use it)."""
@@ -164,7 +166,7 @@ IMPOSSIBLE_REASON = ("impossible under the current model: its records have proba
 
 
 def _date(day) -> str:
-    return str(np.datetime64(int(day), "D"))
+    return day_text(day)
 
 
 def unscorable_reasons(model, timelines) -> np.ndarray:

@@ -15,6 +15,8 @@ from typing import Any
 import numpy as np
 
 from hmm.model import UNDECLARED_RANGE, Channel, ModelError, StageModel, Transition, UnscheduledContacts, rate_limit_problem
+from hmm.model_rules import (first_duplicate, name_clash_problem, self_transition_problem, stage_count_problem,
+                             sum_to_one_problem)
 
 from .errors import InputError
 from .textfiles import decode_json, read_utf8_text
@@ -63,18 +65,53 @@ def model_from_dict(data: Any, source: str = "model") -> StageModel:
     unit = data.get("time_unit", "day")
     if unit != "day":
         p.fail("time_unit", f'only "day" is supported, got {unit!r}')
+    stages = _stages(p, data)
+    stage_ref = _StageReference(p, stages)
+    covariates, ranges = _covariates(p, data)
+    initial = _initial(p, data, stages, stage_ref)
+    transitions = _transitions(p, data, stages, stage_ref, covariates, ranges)
+    channels = _channels(p, data, stages, stage_ref, covariates)
+    follow_up = _stage_list(p, data, "follow_up_stages", stage_ref)
+    exact = _stage_list(p, data, "exact_entry_stages", stage_ref)
+    _check_model_names(p, stages, channels, covariates)
+    unscheduled = _unscheduled_contacts_from_dict(p, data, stages, covariates)
+    try:
+        return StageModel(
+            stages=tuple(stages), initial=initial, transitions=tuple(transitions), channels=tuple(channels),
+            covariates=tuple(covariates), follow_up_stages=tuple(follow_up), exact_entry_stages=tuple(exact),
+            initial_fixed=_bool(p, "initial_fixed", data.get("initial_fixed", False)),
+            name=str(data.get("name", "stage model")), unscheduled_contacts=unscheduled,
+            covariate_ranges=tuple(ranges.get(c) for c in covariates) if ranges else (),
+        )
+    except ModelError as exc:
+        raise InputError(f"{source}: {exc}") from None
 
+
+class _StageReference:
+    """Stage name at a JSON path -> its index, or fail naming the path and the known stages."""
+
+    def __init__(self, p: _Path, stages: list):
+        self.p, self.stages = p, stages
+        self.index = {s: i for i, s in enumerate(stages)}
+
+    def __call__(self, where: str, value) -> int:
+        if not isinstance(value, str) or value not in self.index:
+            self.p.fail(where, f"unknown stage {value!r} (stages: {', '.join(self.stages)})")
+        return self.index[value]
+
+
+def _stages(p: _Path, data: dict) -> list:
+    """``stages``: at least two distinct names."""
     stages = _string_list(p, data, "stages", required=True)
-    if len(stages) < 2:
-        p.fail("stages", "a model needs at least two stages")
+    problem = stage_count_problem(len(stages))
+    if problem:
+        p.fail("stages", problem)
     _no_duplicates(p, "stages", stages)
-    index = {s: i for i, s in enumerate(stages)}
+    return stages
 
-    def stage_ref(where: str, value) -> int:
-        if not isinstance(value, str) or value not in index:
-            p.fail(where, f"unknown stage {value!r} (stages: {', '.join(stages)})")
-        return index[value]
 
+def _covariates(p: _Path, data: dict) -> tuple:
+    """``covariates``: names (model order) and the declared ranges by name."""
     covariates, ranges = [], {}
     for i, cov in enumerate(_list(p, data, "covariates")):
         where = f"covariates[{i}]"
@@ -86,16 +123,26 @@ def model_from_dict(data: Any, source: str = "model") -> StageModel:
         if "range" in cov:
             ranges[cov["name"]] = _range(p, f"{where}.range", cov["range"])
     _no_duplicates(p, "covariates", covariates)
+    return covariates, ranges
 
+
+def _initial(p: _Path, data: dict, stages: list, stage_ref: _StageReference) -> np.ndarray:
+    """``initial``: probability of each stage at the first contact, shape (n_stages,), summing to 1."""
     initial = data.get("initial")
     if not isinstance(initial, dict):
         p.fail("initial", "expected an object mapping each stage to its probability at the first contact")
     init = np.zeros(len(stages))
     for name, value in initial.items():
         init[stage_ref(f"initial.{name}", name)] = _number(p, f"initial.{name}", value, low=0.0)
-    if abs(init.sum() - 1.0) > 1e-6:
-        p.fail("initial", f"probabilities must sum to 1 within 1e-6, they sum to {init.sum():.8g}")
+    problem = sum_to_one_problem(init)
+    if problem:
+        p.fail("initial", problem)
+    return init
 
+
+def _transitions(p: _Path, data: dict, stages: list, stage_ref: _StageReference, covariates: list,
+                 ranges: dict) -> list:
+    """``transitions``: one :class:`Transition` each, rates within the limit over the covariate ranges."""
     transitions = []
     seen = {}
     for i, t in enumerate(_list(p, data, "transitions", required=True)):
@@ -106,20 +153,14 @@ def model_from_dict(data: Any, source: str = "model") -> StageModel:
         if unknown:
             p.fail(where, f"unknown key(s) {', '.join(sorted(unknown))}")
         r, s = stage_ref(f"{where}.from", t.get("from")), stage_ref(f"{where}.to", t.get("to"))
-        if r == s:
-            p.fail(where, f"a transition from {stages[r]} to itself is not allowed")
+        problem = self_transition_problem(stages[r], stages[s])
+        if problem:
+            p.fail(where, problem)
         if (r, s) in seen:
             p.fail(where, f"transition {stages[r]} -> {stages[s]} already given at transitions[{seen[(r, s)]}]")
         seen[(r, s)] = i
         rate = _number(p, f"{where}.rate", t.get("rate"), low=0.0)
-        effects = {}
-        raw_effects = t.get("effects", {})
-        if not isinstance(raw_effects, dict):
-            p.fail(f"{where}.effects", "expected an object mapping covariate names to log hazard ratios")
-        for cov, beta in raw_effects.items():
-            if cov not in covariates:
-                p.fail(f"{where}.effects.{cov}", f"unknown covariate (declared: {', '.join(covariates) or 'none'})")
-            effects[cov] = _number(p, f"{where}.effects.{cov}", beta)
+        effects = _effects(p, where, t, covariates)
         problem = rate_limit_problem(rate, effects, ranges)
         if problem:  # name the value to correct: the rate itself, or the effect that can push it furthest
             reach = {c: abs(b) * max(map(abs, ranges.get(c) or UNDECLARED_RANGE)) for c, b in effects.items()}
@@ -133,7 +174,24 @@ def model_from_dict(data: Any, source: str = "model") -> StageModel:
                 p.fail(f"{where}.fixed_effects", f"{cov!r} has no effect on this transition to keep fixed")
         transitions.append(Transition(r, s, rate, effects, fixed_rate=_bool(p, f"{where}.fixed", t.get("fixed", False)),
                                       fixed_effects=frozenset(fixed_effects)))
+    return transitions
 
+
+def _effects(p: _Path, where: str, transition: dict, covariates: list) -> dict:
+    """A transition's ``effects``: covariate name -> log hazard ratio."""
+    effects = {}
+    raw_effects = transition.get("effects", {})
+    if not isinstance(raw_effects, dict):
+        p.fail(f"{where}.effects", "expected an object mapping covariate names to log hazard ratios")
+    for cov, beta in raw_effects.items():
+        if cov not in covariates:
+            p.fail(f"{where}.effects.{cov}", f"unknown covariate (declared: {', '.join(covariates) or 'none'})")
+        effects[cov] = _number(p, f"{where}.effects.{cov}", beta)
+    return effects
+
+
+def _channels(p: _Path, data: dict, stages: list, stage_ref: _StageReference, covariates: list) -> list:
+    """``channels``: one :class:`Channel` (observation channel) each, a probability row per stage."""
     channels = []
     for i, c in enumerate(_list(p, data, "channels")):
         where = f"channels[{i}]"
@@ -145,22 +203,7 @@ def model_from_dict(data: Any, source: str = "model") -> StageModel:
         if len(cats) < 2:
             p.fail(f"{where}.categories", "a channel needs at least two categories")
         _no_duplicates(p, f"{where}.categories", cats)
-        probs = c.get("probabilities")
-        if not isinstance(probs, dict):
-            p.fail(f"{where}.probabilities", "expected an object with one list of probabilities per stage")
-        table = np.zeros((len(stages), len(cats)))
-        for stage in stages:
-            if stage not in probs:
-                p.fail(f"{where}.probabilities", f"missing the row for stage {stage!r}")
-        for stage, row in probs.items():
-            r = stage_ref(f"{where}.probabilities.{stage}", stage)
-            if not isinstance(row, list) or len(row) != len(cats):
-                p.fail(f"{where}.probabilities.{stage}", f"expected a list of {len(cats)} probabilities "
-                                                         f"(one per category: {', '.join(cats)})")
-            table[r] = [_number(p, f"{where}.probabilities.{stage}[{j}]", v, low=0.0, high=1.0)
-                        for j, v in enumerate(row)]
-            if abs(table[r].sum() - 1.0) > 1e-6:
-                p.fail(f"{where}.probabilities.{stage}", f"must sum to 1 within 1e-6, sums to {table[r].sum():.8g}")
+        table = _probability_table(p, where, c.get("probabilities"), stages, cats, stage_ref)
         fixed_stages = set()
         if _bool(p, f"{where}.fixed", c.get("fixed", False)):
             fixed_stages = set(range(len(stages)))
@@ -168,28 +211,40 @@ def model_from_dict(data: Any, source: str = "model") -> StageModel:
             fixed_stages.add(stage_ref(f"{where}.fixed_stages", stage))
         channels.append(Channel(c["name"], tuple(cats), table, frozenset(fixed_stages)))
     _no_duplicates(p, "channels", [c.name for c in channels])
-    clash = {c.name for c in channels} & set(covariates)
-    if clash:
-        p.fail("channels", f"name used for both a channel and a covariate: {', '.join(sorted(clash))}")
+    problem = name_clash_problem([c.name for c in channels], covariates)
+    if problem:
+        p.fail("channels", problem)
+    return channels
 
-    follow_up = _string_list(p, data, "follow_up_stages")
-    for j, s in enumerate(follow_up):
-        stage_ref(f"follow_up_stages[{j}]", s)
-    exact = _string_list(p, data, "exact_entry_stages")
-    for j, s in enumerate(exact):
-        stage_ref(f"exact_entry_stages[{j}]", s)
-    _check_model_names(p, stages, channels, covariates)
-    unscheduled = _unscheduled_contacts_from_dict(p, data, stages, covariates)
-    try:
-        return StageModel(
-            stages=tuple(stages), initial=init, transitions=tuple(transitions), channels=tuple(channels),
-            covariates=tuple(covariates), follow_up_stages=tuple(follow_up), exact_entry_stages=tuple(exact),
-            initial_fixed=_bool(p, "initial_fixed", data.get("initial_fixed", False)),
-            name=str(data.get("name", "stage model")), unscheduled_contacts=unscheduled,
-            covariate_ranges=tuple(ranges.get(c) for c in covariates) if ranges else (),
-        )
-    except ModelError as exc:
-        raise InputError(f"{source}: {exc}") from None
+
+def _probability_table(p: _Path, where: str, probs, stages: list, cats: list,
+                       stage_ref: _StageReference) -> np.ndarray:
+    """A channel's ``probabilities``: shape (n_stages, n_categories), each row summing to 1."""
+    if not isinstance(probs, dict):
+        p.fail(f"{where}.probabilities", "expected an object with one list of probabilities per stage")
+    table = np.zeros((len(stages), len(cats)))
+    for stage in stages:
+        if stage not in probs:
+            p.fail(f"{where}.probabilities", f"missing the row for stage {stage!r}")
+    for stage, row in probs.items():
+        r = stage_ref(f"{where}.probabilities.{stage}", stage)
+        if not isinstance(row, list) or len(row) != len(cats):
+            p.fail(f"{where}.probabilities.{stage}", f"expected a list of {len(cats)} probabilities "
+                                                     f"(one per category: {', '.join(cats)})")
+        table[r] = [_number(p, f"{where}.probabilities.{stage}[{j}]", v, low=0.0, high=1.0)
+                    for j, v in enumerate(row)]
+        problem = sum_to_one_problem(table[r])
+        if problem:
+            p.fail(f"{where}.probabilities.{stage}", problem)
+    return table
+
+
+def _stage_list(p: _Path, data: dict, key: str, stage_ref: _StageReference) -> list:
+    """``follow_up_stages`` / ``exact_entry_stages``: names of stages the model has."""
+    names = _string_list(p, data, key)
+    for j, s in enumerate(names):
+        stage_ref(f"{key}[{j}]", s)
+    return names
 
 
 def model_to_dict(model: StageModel, extra: dict | None = None) -> dict:
@@ -343,11 +398,9 @@ def _string_list(p: _Path, data: dict, key: str, required: bool = False, prefix:
 
 
 def _no_duplicates(p: _Path, where: str, names: list) -> None:
-    seen = set()
-    for i, n in enumerate(names):
-        if n in seen:
-            p.fail(f"{where}[{i}]", f"duplicate name {n!r}")
-        seen.add(n)
+    duplicate = first_duplicate(names)
+    if duplicate:
+        p.fail(f"{where}[{duplicate[0]}]", duplicate[1])
 
 
 def _number(p: _Path, where: str, value, low: float | None = None, high: float | None = None) -> float:

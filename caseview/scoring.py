@@ -9,6 +9,7 @@ from __future__ import annotations
 
 import datetime as dt
 from dataclasses import dataclass, field
+from typing import TYPE_CHECKING
 
 import numpy as np
 
@@ -16,28 +17,10 @@ from hmm import StageModel, Timelines
 from hmm.forecasting import forecast, reach_probability, stage_probabilities_now
 from hmm.inference import forward
 
-EPOCH = dt.date(1970, 1, 1)
+from .dates import EPOCH, from_day, parse_date, to_day  # noqa: F401  (their home is caseview.dates)
 
-
-def to_day(date: dt.date) -> int:
-    """Days since 1970-01-01."""
-    return (date - EPOCH).days
-
-
-def from_day(day: int) -> dt.date:
-    return EPOCH + dt.timedelta(days=int(day))
-
-
-def parse_date(text: str, what: str = "date") -> dt.date:
-    """Parse an ISO 8601 calendar date (YYYY-MM-DD) or raise InputError naming ``what``."""
-    from .errors import InputError
-
-    try:
-        if len(text) != 10:
-            raise ValueError
-        return dt.date.fromisoformat(text)
-    except (TypeError, ValueError):
-        raise InputError(f"{what}: expected a date as YYYY-MM-DD, got {text!r}") from None
+if TYPE_CHECKING:
+    from .storage.caseload import Caseload
 
 
 def observation_end_day(timelines: Timelines) -> float:
@@ -138,7 +121,7 @@ class CaseloadScores:
     p_reach_follow_up: np.ndarray
     last_covariates: np.ndarray
     log_likelihood: np.ndarray
-    caseload: object
+    caseload: Caseload
     timelines: Timelines
     p_at_last_contact: np.ndarray | None = None
     unscorable: UnscorableCases = field(default_factory=_no_unscorable)

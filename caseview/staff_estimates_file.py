@@ -18,7 +18,9 @@ import json
 from pathlib import Path
 from typing import Any
 
-from hmm.fitting.staff_estimates import CheckEstimate, UsualResult, staff_estimate_problems
+# The staff-estimate functions the window's dialog uses come through here too (the faces never import hmm).
+from hmm.fitting.staff_estimates import (CheckEstimate, UsualResult, check_probabilities, model_from_staff_estimates,
+                                         staff_estimate_problems, staff_estimates_from_model)
 from hmm.model import StageModel
 
 from .modelfile import _check_format, _list, _no_duplicates, _number, _Path, _string_list
@@ -47,8 +49,6 @@ def parse_staff_estimates(text: str, source: str = "staff estimates") -> dict:
 
 def model_from_estimates_file(path) -> StageModel:
     """The stage model a staff-estimate file describes (validated)."""
-    from hmm.fitting.staff_estimates import model_from_staff_estimates
-
     return model_from_staff_estimates(**load_staff_estimates(path))
 
 

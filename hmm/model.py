@@ -250,23 +250,29 @@ class StageModel:
     # ------------------------------------------------------------------ checks
     def validate(self) -> None:
         """Raise :class:`ModelError` with a precise message if anything is inconsistent."""
+        from .model_rules import (exact_entry_problem, first_duplicate, name_clash_problem, self_transition_problem,
+                                  stage_count_problem, sum_to_one_problem)
+
         n = len(self.stages)
-        if n < 2:
-            raise ModelError("a stage model needs at least two stages")
-        if len(set(self.stages)) != n:
-            dup = sorted({s for s in self.stages if list(self.stages).count(s) > 1})
-            raise ModelError(f"duplicate stage name(s): {', '.join(dup)}")
+        problem = stage_count_problem(n)
+        if problem:
+            raise ModelError(f"stages: {problem}")
+        duplicate = first_duplicate(self.stages)
+        if duplicate:
+            raise ModelError(f"stages[{duplicate[0]}]: {duplicate[1]}")
         initial = np.asarray(self.initial, dtype=float)
         if initial.shape != (n,):
             raise ModelError(f"initial distribution has {initial.size} values, expected {n}")
-        if np.any(initial < 0) or abs(initial.sum() - 1.0) > 1e-6:
-            raise ModelError(f"initial probabilities must be >= 0 and sum to 1 (sum is {initial.sum():.8g})")
+        problem = sum_to_one_problem(initial)
+        if problem:
+            raise ModelError(f"initial: {problem}")
         seen = set()
-        for t in self.transitions:
+        for i, t in enumerate(self.transitions):
             if not (0 <= t.source < n and 0 <= t.target < n):
                 raise ModelError(f"transition {t.source}->{t.target} refers to a stage that does not exist")
-            if t.source == t.target:
-                raise ModelError(f"transition from {self.stages[t.source]} to itself is not allowed")
+            problem = self_transition_problem(self.stages[t.source], self.stages[t.target])
+            if problem:
+                raise ModelError(f"transitions[{i}]: {problem}")
             key = (t.source, t.target)
             if key in seen:
                 raise ModelError(f"transition {self.stages[t.source]} -> {self.stages[t.target]} is listed twice")
@@ -283,8 +289,9 @@ class StageModel:
                 if not np.isfinite(beta):
                     raise ModelError(f"effect of {cov!r} on {self.stages[t.source]} -> "
                                      f"{self.stages[t.target]} must be a finite number")
-        if len(set(self.covariates)) != len(self.covariates):
-            raise ModelError("duplicate covariate names")
+        duplicate = first_duplicate(self.covariates)
+        if duplicate:
+            raise ModelError(f"covariates[{duplicate[0]}]: {duplicate[1]}")
         if self.covariate_ranges:
             if len(self.covariate_ranges) != len(self.covariates):
                 raise ModelError(f"covariate_ranges has {len(self.covariate_ranges)} entries, expected one per "
@@ -300,28 +307,31 @@ class StageModel:
             if problem:
                 raise ModelError(f"transition {self.stages[t.source]} -> {self.stages[t.target]}: {problem}")
         names = [c.name for c in self.channels]
-        if len(set(names)) != len(names):
-            raise ModelError("duplicate channel names")
-        clash = set(names) & set(self.covariates)
-        if clash:
-            raise ModelError(f"name used for both a channel and a covariate: {', '.join(sorted(clash))}")
-        for c in self.channels:
+        duplicate = first_duplicate(names)
+        if duplicate:
+            raise ModelError(f"channels[{duplicate[0]}]: {duplicate[1]}")
+        problem = name_clash_problem(names, self.covariates)
+        if problem:
+            raise ModelError(f"channels: {problem}")
+        for i, c in enumerate(self.channels):
             p = np.asarray(c.probabilities, dtype=float)
-            if len(set(c.categories)) != len(c.categories):
-                raise ModelError(f"channel {c.name!r}: duplicate category names")
+            duplicate = first_duplicate(c.categories)
+            if duplicate:
+                raise ModelError(f"channels[{i}].categories[{duplicate[0]}]: {duplicate[1]}")
             if p.shape != (n, len(c.categories)):
                 raise ModelError(f"channel {c.name!r}: probabilities must have one row per stage and one "
                                  f"column per category, shape {(n, len(c.categories))}, got {p.shape}")
             for r in range(n):
-                if np.any(p[r] < 0) or abs(p[r].sum() - 1.0) > 1e-6:
-                    raise ModelError(f"channel {c.name!r}, stage {self.stages[r]}: probabilities must be >= 0 "
-                                     f"and sum to 1 within 1e-6 (sum is {p[r].sum():.8g})")
+                problem = sum_to_one_problem(p[r])
+                if problem:
+                    raise ModelError(f"channels[{i}].probabilities.{self.stages[r]}: {problem}")
         for s in self.follow_up_stages + self.exact_entry_stages:
             if s not in self.stages:
                 raise ModelError(f"unknown stage {s!r} (stages: {', '.join(self.stages)})")
-        for s in self.exact_entry_stages:
-            if self.stage_index(s) not in self.absorbing_stages:
-                raise ModelError(f"exact entry is only for absorbing stages; {s!r} has a way out")
+        for j, s in enumerate(self.exact_entry_stages):
+            problem = exact_entry_problem(s, self.stage_index(s) not in self.absorbing_stages)
+            if problem:
+                raise ModelError(f"exact_entry_stages[{j}]: {problem}")
         if self.unscheduled_contacts is not None:
             self._validate_unscheduled(self.unscheduled_contacts)
 

@@ -123,12 +123,48 @@ def simulate_caseload(model: StageModel, contact_times, covariates, rng: np.rand
         current stage (competing with the stage's jumps, exactly), carry the covariates of the
         contact before them, and are marked in ``timelines.unscheduled``.
     """
+    layout = _contact_layout(model, contact_times, covariates)
+    timing = model.unscheduled_contacts is not None
+    if timing and end_times is not None:
+        layout = _with_end_stops(layout, end_times)
+    paths = _simulate_paths(model, layout, rng, timing, exact_entry)
+    return _recorded_caseload(model, layout, paths, rng, missing_probability, timing)
+
+
+@dataclass
+class _ContactLayout:
+    """The contacts to simulate at, flat and case-ordered (n contacts over all cases)."""
+
+    counts: np.ndarray      # (n_cases,) contacts per case
+    offsets: np.ndarray     # (n_cases + 1,)
+    times: np.ndarray       # (n,)
+    covariates: np.ndarray  # (n, n_covariates)
+    case_of: np.ndarray     # (n,)
+    virtual: np.ndarray     # (n,) bool: an unrecorded stop at a case's end (not a contact)
+
+
+@dataclass
+class _Paths:
+    """Where each case's path was at each contact, and what happened between contacts."""
+
+    order: np.ndarray        # (n_cases,) cases by decreasing number of contacts (the stepping order)
+    true_stage: np.ndarray   # (n,) stage at each contact (-1 after an exact entry stopped the case)
+    recorded: np.ndarray     # (n,) bool: the contact happened (the case had not stopped)
+    stopped: np.ndarray      # (n_cases,) bool, by position in ``order``: entered an exact-entry stage
+    entry_time: np.ndarray   # (n_cases,) by position: when
+    entry_stage: np.ndarray  # (n_cases,) by position: which stage
+    entry_row: np.ndarray    # (n_cases,) by position: the contact before the entry
+    extra: dict              # unscheduled contacts: lists of arrays "case", "time", "stage", "row"
+
+
+def _contact_layout(model: StageModel, contact_times, covariates) -> _ContactLayout:
+    """Check the schedule and lay the contacts out flat, with the covariates of each."""
     counts = np.array([len(t) for t in contact_times], dtype=np.int64)
     if counts.size == 0 or counts.min() < 1:
         raise ValueError("every case needs at least one contact time")
     offsets = np.concatenate([[0], np.cumsum(counts)])
     times = np.concatenate([np.asarray(t, dtype=float) for t in contact_times])
-    n_cases, n_flat, n_stages = counts.size, times.size, model.n_stages
+    n_cases, n_flat = counts.size, times.size
     if isinstance(covariates, np.ndarray) and covariates.ndim == 2 and covariates.shape[0] == n_cases \
             and not (n_cases == n_flat):
         cov = np.repeat(covariates.astype(float), counts, axis=0)
@@ -141,23 +177,30 @@ def simulate_caseload(model: StageModel, contact_times, covariates, rng: np.rand
     case_of = np.repeat(np.arange(n_cases), counts)
     if n_flat > 1 and np.any((np.diff(times) < 0) & (case_of[1:] == case_of[:-1])):
         raise ValueError("contact times must be sorted within each case")
-    timing = model.unscheduled_contacts is not None
-    virtual = np.zeros(n_flat, dtype=bool)
-    if timing and end_times is not None:
-        # one unrecorded stop at each case's end (where it is after the last scheduled contact)
-        end = np.broadcast_to(np.asarray(end_times, dtype=float), (n_cases,))
-        last = offsets[1:] - 1
-        extend = end > times[last]
-        insert_at = offsets[1:][extend]
-        times = np.insert(times, insert_at, end[extend])
-        cov = np.insert(cov, insert_at, cov[last[extend]], axis=0)
-        virtual = np.insert(virtual, insert_at, True)
-        counts = counts + extend
-        offsets = np.concatenate([[0], np.cumsum(counts)])
-        n_flat = times.size
-        case_of = np.repeat(np.arange(n_cases), counts)
+    return _ContactLayout(counts, offsets, times, cov, case_of, np.zeros(n_flat, dtype=bool))
 
-    distinct, group = covariate_groups(cov)
+
+def _with_end_stops(layout: _ContactLayout, end_times) -> _ContactLayout:
+    """One unrecorded stop at each case's end (where it is after the last scheduled contact)."""
+    n_cases = layout.counts.size
+    end = np.broadcast_to(np.asarray(end_times, dtype=float), (n_cases,))
+    last = layout.offsets[1:] - 1
+    extend = end > layout.times[last]
+    insert_at = layout.offsets[1:][extend]
+    times = np.insert(layout.times, insert_at, end[extend])
+    cov = np.insert(layout.covariates, insert_at, layout.covariates[last[extend]], axis=0)
+    virtual = np.insert(layout.virtual, insert_at, True)
+    counts = layout.counts + extend
+    offsets = np.concatenate([[0], np.cumsum(counts)])
+    return _ContactLayout(counts, offsets, times, cov, np.repeat(np.arange(n_cases), counts), virtual)
+
+
+def _simulate_paths(model: StageModel, layout: _ContactLayout, rng: np.random.Generator, timing: bool,
+                    exact_entry: bool) -> _Paths:
+    """Run every case's chain from contact to contact, all cases at once (Gillespie steps)."""
+    counts, offsets, times = layout.counts, layout.offsets, layout.times
+    n_cases, n_flat, n_stages = counts.size, times.size, model.n_stages
+    distinct, group = covariate_groups(layout.covariates)
     generators = model.generators(distinct)
     leave_rate = -np.einsum("gss->gs", generators)                      # (G, S)
     jumps = np.clip(generators, 0.0, None)
@@ -226,9 +269,19 @@ def simulate_caseload(model: StageModel, contact_times, covariates, rng: np.rand
         going_on = ~stopped[active]
         true_stage[rows[going_on]] = s[going_on]
         recorded[rows[going_on]] = True
+    return _Paths(order, true_stage, recorded, stopped, entry_time, entry_stage, entry_row, extra)
 
+
+def _recorded_caseload(model: StageModel, layout: _ContactLayout, paths: _Paths, rng: np.random.Generator,
+                       missing_probability, timing: bool) -> SimulatedCaseload:
+    """What the contacts record: evidence drawn from each channel's probabilities at the true stage,
+    the unscheduled contacts as extra rows, and a contact dating each exact entry."""
+    n_cases, n_stages = layout.counts.size, model.n_stages
+    case_of, times, cov, true_stage = layout.case_of, layout.times, layout.covariates, paths.true_stage
+    extra, order, stopped = paths.extra, paths.order, paths.stopped
+    entry_time, entry_stage, entry_row = paths.entry_time, paths.entry_stage, paths.entry_row
+    recorded = paths.recorded & ~layout.virtual
     # Evidence at scheduled contacts (and at the unscheduled ones, appended as extra rows).
-    recorded &= ~virtual
     n_extra = int(sum(a.size for a in extra["time"]))
     if n_extra:
         first_extra = times.size

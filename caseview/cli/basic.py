@@ -8,6 +8,8 @@ from pathlib import Path
 
 from caseview import ADVISORY_NOTICE
 
+from .options import actor_name, add_actor_option, add_as_of_option, add_horizon_option, as_of_date
+
 ROOT = Path(__file__).resolve().parents[2]
 DEMO_TIMELINES = ROOT / "demo_cases" / "home_support_demo.csv"
 DEMO_MODEL = ROOT / "demo_cases" / "home_support_model.json"
@@ -18,8 +20,8 @@ def register(sub) -> None:
                        description="Score every case whose first contact is on or before the as-of date, "
                                    "using only contacts on or before it. " + ADVISORY_NOTICE)
     p.add_argument("workspace", metavar="WS")
-    p.add_argument("--as-of", required=True, metavar="YYYY-MM-DD")
-    p.add_argument("--horizon", type=float, default=90.0, metavar="DAYS", help="forecast horizon (default 90)")
+    add_as_of_option(p)
+    add_horizon_option(p)
     p.add_argument("--out", required=True, metavar="SCORES.csv", help="output CSV ('-' for standard output)")
     p.add_argument("--include-closed", action="store_true", help="also cases closed on or before the as-of date")
     p.set_defaults(run=run_score)
@@ -30,7 +32,7 @@ def register(sub) -> None:
                                    "the most likely stage path (Viterbi). " + ADVISORY_NOTICE)
     p.add_argument("workspace", metavar="WS")
     p.add_argument("case_id", metavar="CASE_ID")
-    p.add_argument("--as-of", metavar="YYYY-MM-DD", help="use contacts up to this date (default: all)")
+    add_as_of_option(p, required=False, help="use contacts up to this date (default: all)")
     p.add_argument("--out", required=True, metavar="HISTORY.csv", help="output CSV ('-' for standard output)")
     p.set_defaults(run=run_history)
 
@@ -43,31 +45,6 @@ def register(sub) -> None:
 
 
 # ---------------------------------------------------------------- helpers
-def add_actor_option(parser, what: str = "who is recorded in the audit trail") -> None:
-    """The ``--by NAME`` option every audited command takes (read back by :func:`actor_name`)."""
-    parser.add_argument("--by", metavar="NAME", help=f"{what} (default: the operating-system user; "
-                                                      "attribution, not authentication)")
-
-
-def actor_name(args) -> str:
-    """The name recorded in the audit trail: ``--by`` or the operating-system user (attribution only).
-
-    On a PostgreSQL workspace the server records the login it authenticated (``session_user``), so
-    ``--by`` is refused there rather than silently ignored.
-    """
-    from caseview.attribution import os_user
-    from caseview.errors import InputError
-    from caseview.storage.location import is_database_url
-    from caseview.textfiles import check_one_line
-
-    given = getattr(args, "by", None)
-    if given and any(is_database_url(getattr(args, name, None))  # the workspace, a copy's or demo's target
-                     for name in ("workspace", "destination", "path")):
-        raise InputError("--by is not accepted on a PostgreSQL workspace: the server records the login you "
-                         "connected as; connect as that person instead (nothing was changed)")
-    return check_one_line(given, "--by") if given else os_user()
-
-
 def open_workspace(path, read_only: bool | None = None):
     """Open a workspace for a command; read-only when asked, or when the file or folder cannot be written."""
     from caseview.storage import Workspace
@@ -227,9 +204,10 @@ def format_probabilities(values):
 
 
 def format_days(days):
-    import numpy as np
+    """ISO texts of day numbers (:func:`caseview.dates.days_text`)."""
+    from caseview.dates import days_text
 
-    return np.datetime_as_string(np.asarray(days, dtype="int64").astype("datetime64[D]")).tolist()
+    return days_text(days)
 
 
 def safe_text(values):
@@ -243,19 +221,13 @@ def safe_text(values):
 def run_score(args) -> int:
     import numpy as np
 
-    from caseview.scoring import parse_date, score_caseload
+    from caseview.followup import assess_caseload
 
-    as_of = parse_date(args.as_of, "--as-of")
+    as_of = as_of_date(args)
     with open_workspace(args.workspace) as ws:
-        flags = None
-        try:
-            from caseview.followup import assess_caseload
-        except ModuleNotFoundError:
-            scores = score_caseload(ws, as_of, args.horizon, include_closed=args.include_closed)
-        else:
-            assessment = assess_caseload(ws, as_of, args.horizon, reopen=False, explain_reasons=False,
-                                         include_closed=args.include_closed)
-            scores, flags = assessment.scores, assessment.flags
+        assessment = assess_caseload(ws, as_of, args.horizon, reopen=False, explain_reasons=False,
+                                     include_closed=args.include_closed)
+        scores, flags = assessment.scores, assessment.flags
     model = scores.model
     n = scores.n_cases
     header = ["case_id", "as_of", "last_contact", "days_since_contact"]
@@ -270,7 +242,7 @@ def run_score(args) -> int:
         header.append(f"p_reach_{stage}")
         columns.append(format_probabilities(scores.p_reach[:, s]))
     header += ["flags", "coordinator", "p_follow_up_now", "p_reach_follow_up"]
-    columns += [list(flags) if flags is not None else [""] * n, safe_text(scores.coordinators),
+    columns += [list(flags), safe_text(scores.coordinators),
                 format_probabilities(scores.p_follow_up_now), format_probabilities(scores.p_reach_follow_up)]
     lost = scores.unscorable
     if lost.n_cases:  # one row each, in case order: blank numbers, the reason in the flags column
@@ -282,7 +254,7 @@ def run_score(args) -> int:
         columns = merge_case_rows(columns, scores.case_ids, extra, lost.case_ids)
     write_table(args.out, header, columns)
     if args.out != "-":
-        flagged = int(np.count_nonzero([bool(f) for f in flags])) if flags is not None else 0
+        flagged = int(np.count_nonzero(assessment.is_flagged))
         print(f"scored {n} cases as of {as_of.isoformat()} (horizon {scores.horizon_days:g} days, "
               f"model version {scores.model_version}); {flagged} flagged"
               + (f"; {lost.n_cases} cannot be scored" if lost.n_cases else "") + f"; wrote {args.out}")
@@ -321,58 +293,38 @@ def report_unscorable(lost, where: str = f"marked '{CANNOT_BE_SCORED}' in the ou
 
 # ---------------------------------------------------------------- history
 def run_history(args) -> int:
-    import numpy as np
+    from caseview.dates import to_day
+    from caseview.operations.case_history import case_history
 
-    from caseview.errors import InputError
-    from caseview.scoring import parse_date, to_day
-    from hmm.inference import forward, most_likely_path, smoothed_probabilities
-
-    as_of_day = to_day(parse_date(args.as_of, "--as-of")) if args.as_of else None
+    as_of = as_of_date(args)
     with open_workspace(args.workspace) as ws:
-        case_id = ws.find_case(args.case_id)
-        model, version = ws.current_model()
-        caseload = ws.load_case(model, case_id, as_of_day=as_of_day)  # that case's rows only (by its index)
-    if not caseload.n_cases:
-        raise InputError(f"case {case_id}: no contact on or before {args.as_of} in {args.workspace}")
-    timelines = caseload.timelines
-    rows = slice(0, timelines.n_contacts)
-    from caseview.case_checks import IMPOSSIBLE_REASON, unscorable_reasons
-
-    reason = unscorable_reasons(model, timelines)[0]
-    if not reason:
-        result = forward(model, timelines)
-        reason = "" if result.finite[0] else IMPOSSIBLE_REASON
-    if reason:  # the recorded values, with blank probabilities and path; named on stderr, exit 4
-        smoothed, path = np.full((timelines.n_contacts, model.n_stages), np.nan), None
-    else:
-        smoothed = smoothed_probabilities(model, timelines, forward_result=result)
-        path = most_likely_path(model, timelines, forward_result=result)
-    n = timelines.n_contacts
+        h = case_history(ws, args.case_id, None if as_of is None else to_day(as_of))
+    model, n, scored = h.model, h.n_contacts, h.path is not None
     header = ["case_id", "date"]
-    columns = [[case_id] * n, format_days(caseload.contact_days[rows])]
+    columns = [[h.case_id] * n, format_days(h.contact_days)]
     for channel in model.channels:
         header.append(channel.name)
-        columns.append(list(caseload.raw_values[channel.name][rows]))
+        columns.append(list(h.raw_values[channel.name]))
     for k, name in enumerate(model.covariates):
         header.append(name)
-        columns.append([f"{v:g}" for v in timelines.covariates[:, k]])
-    if "stage_known" in caseload.raw_values:
+        columns.append([f"{v:g}" for v in h.covariates[:, k]])
+    if "stage_known" in h.raw_values:
         header.append("stage_known")
-        columns.append(list(caseload.raw_values["stage_known"][rows]))
+        columns.append(list(h.raw_values["stage_known"]))
     for s, stage in enumerate(model.stages):
         header.append(f"p_{stage}")
-        columns.append(format_probabilities(smoothed[:, s]) if path is not None else [""] * n)
+        columns.append(format_probabilities(h.smoothed[:, s]) if scored else [""] * n)
     header.append("path_stage")
-    columns.append([model.stages[i] for i in path] if path is not None else [""] * n)
+    columns.append([model.stages[i] for i in h.path] if scored else [""] * n)
     write_table(args.out, header, columns)
     if args.out != "-":
-        print(f"case {case_id}: {n} contacts (model version {version.id}); wrote {args.out}")
+        print(f"case {h.case_id}: {n} contacts (model version {h.version_id}); wrote {args.out}")
         print("path_stage is the most likely sequence of stages: an estimate, not a record.")
         print(ADVISORY_NOTICE)
-    if reason:
+    if h.reason:  # the recorded values, with blank probabilities and path; named on stderr, exit 4
         from caseview.errors import EXIT_CASES_NOT_SCORED
 
-        print(f"caseview: case {args.case_id} cannot be scored: {reason} (its contacts are listed without "
+        print(f"caseview: case {args.case_id} cannot be scored: {h.reason} (its contacts are listed without "
               "probabilities)", file=sys.stderr)
         return EXIT_CASES_NOT_SCORED
     return 0

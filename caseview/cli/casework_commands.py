@@ -8,7 +8,8 @@ from __future__ import annotations
 
 from caseview import ADVISORY_NOTICE
 
-from .basic import actor_name, add_actor_option, open_workspace
+from .basic import open_workspace
+from .options import actor_name, add_actor_option
 
 
 def _pairs(items, what: str, option: str) -> dict:

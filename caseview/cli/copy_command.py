@@ -2,7 +2,7 @@
 
 from __future__ import annotations
 
-from .basic import actor_name, add_actor_option
+from .options import actor_name, add_actor_option
 
 
 def register(sub) -> None:

@@ -6,7 +6,7 @@ import sys
 
 from caseview import ADVISORY_NOTICE
 
-from .basic import add_actor_option
+from .options import actor_name, add_actor_option, add_as_of_option, add_seed_option, as_of_date
 
 
 def register(sub) -> None:
@@ -27,15 +27,14 @@ def register(sub) -> None:
                    help="simulated caseloads for the p-value (default 99; 0 = no p-value)")
     p.add_argument("--refit", action="store_true",
                    help="refit the model to every simulated caseload (accounts for estimation; much slower)")
-    p.add_argument("--seed", type=int, default=1, metavar="S", help="seed for the simulations (default 1)")
+    add_seed_option(p, "the simulations")
     p.add_argument("--gap-bands", type=int, default=3, metavar="N",
                    help="gap-length bands, cut at quantiles of the gaps (default 3)")
     p.add_argument("--no-covariate-groups", action="store_true", help="do not group pairs by covariate pattern")
     p.add_argument("--time-bins", type=int, default=12, metavar="N",
                    help="calendar-time bins for the occupancy table (default 12)")
     p.add_argument("--out", metavar="TABLE.csv", help="write the observed/expected table ('-' for standard output)")
-    p.add_argument("--as-of", metavar="YYYY-MM-DD",
-                   help="check against contacts on or before this date (default: every stored contact)")
+    add_as_of_option(p, required=False, help="check against contacts on or before this date (default: every stored contact)")
     p.add_argument("--occupancy-out", metavar="OCC.csv",
                    help="write observed versus expected occupancy of each category over calendar time")
     add_actor_option(p)
@@ -54,9 +53,8 @@ def run_check_fit(args) -> int:
 
     from caseview.errors import Cancelled, InputError
     from caseview.operations.fitting import FitCheckOptions, run_fit_check
-    from caseview.scoring import parse_date
 
-    from .basic import actor_name, format_days, open_workspace, stderr_progress, write_table
+    from .basic import format_days, open_workspace, stderr_progress, write_table
 
     _check_options(args)
     for option, value, least in (("--bootstrap", args.bootstrap, 0), ("--gap-bands", args.gap_bands, 1),
@@ -66,7 +64,7 @@ def run_check_fit(args) -> int:
     options = FitCheckOptions(channel=args.channel, group_by=args.group_by, gap_bands=args.gap_bands,
                               covariate_groups=not args.no_covariate_groups, bootstrap=args.bootstrap,
                               refit=args.refit, seed=args.seed, time_bins=args.time_bins)
-    as_of = None if args.as_of is None else parse_date(args.as_of, "--as-of")
+    as_of = as_of_date(args)
     actor = actor_name(args)
     with open_workspace(args.workspace) as ws:
         progress = stderr_progress("checking fit")

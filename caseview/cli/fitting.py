@@ -10,7 +10,7 @@ import sys
 
 from caseview import ADVISORY_NOTICE
 
-from .basic import add_actor_option
+from .options import actor_name, add_actor_option, add_as_of_option, add_seed_option, as_of_date
 
 
 def register(sub) -> None:
@@ -21,15 +21,14 @@ def register(sub) -> None:
     p.add_argument("workspace", metavar="WS")
     p.add_argument("--out", metavar="MODEL.json", help="also write the fitted model to this file")
     p.add_argument("--starts", type=int, default=3, metavar="N", help="seeded starting points (default 3)")
-    p.add_argument("--seed", type=int, default=1, metavar="S", help="seed for the extra starts (default 1)")
+    add_seed_option(p, "the extra starts")
     p.add_argument("--penalised", action="store_true",
                    help="weakly informative priors for small caseloads (see README)")
     p.add_argument("--max-iterations", type=int, default=500, metavar="N")
     p.add_argument("--intervals", choices=("auto", "profile", "wald"), default="auto",
                    help="95%% intervals: profile likelihood or Wald (delta method); default auto = profile below "
                         "5,000 cases or when the observed information is ill-conditioned")
-    p.add_argument("--as-of", metavar="YYYY-MM-DD",
-                   help="fit to contacts on or before this date (default: every stored contact)")
+    add_as_of_option(p, required=False, help="fit to contacts on or before this date (default: every stored contact)")
     p.add_argument("--keep-current", action="store_true",
                    help="store the fitted version without making it current (make it current later with "
                         "'models --use')")
@@ -46,7 +45,7 @@ def register(sub) -> None:
     p.add_argument("--bootstrap", type=int, default=0, metavar="B",
                    help="with --compare: parametric-bootstrap p-value from B caseloads simulated from the "
                         "restricted fit (both models refitted to each; slow)")
-    p.add_argument("--seed", type=int, default=1, metavar="S", help="seed for --bootstrap (default 1)")
+    add_seed_option(p, "--bootstrap")
     p.add_argument("--use", type=int, metavar="ID")
     add_actor_option(p)
     p.set_defaults(run=run_models)
@@ -64,14 +63,13 @@ def run_fit(args) -> int:
     from caseview.errors import Cancelled
     from caseview.modelfile import save_model
     from caseview.operations.fitting import FitOptions, compute_fit, fit_inputs, save_fit
-    from caseview.scoring import parse_date
 
-    from .basic import actor_name, open_workspace, stderr_progress
+    from .basic import open_workspace, stderr_progress
 
     options = FitOptions(starts=args.starts, seed=args.seed, penalised=args.penalised, intervals=args.intervals,
                          max_iterations=args.max_iterations)
     options.check()
-    as_of = None if args.as_of is None else parse_date(args.as_of, "--as-of")
+    as_of = as_of_date(args)
     actor = actor_name(args)
     if args.out:  # before the (long) fit: never a saved version and then a failed --out
         from caseview.private_files import ensure_can_write
@@ -113,7 +111,7 @@ def run_models(args) -> int:
     from caseview.errors import InputError
     from caseview.operations.fitting import make_version_current
 
-    from .basic import actor_name, open_workspace
+    from .basic import open_workspace
 
     with open_workspace(args.workspace) as ws:
         versions = {v.id: v for v in ws.model_versions()}

@@ -11,7 +11,8 @@ import sys
 
 from caseview import ADVISORY_NOTICE
 
-from .basic import (CANNOT_BE_SCORED, actor_name, add_actor_option, format_days, format_probabilities,
+from .options import actor_name, add_actor_option, add_as_of_option, add_horizon_option, as_of_date
+from .basic import (CANNOT_BE_SCORED, format_days, format_probabilities,
                     open_workspace, report_unscorable, safe_text, write_table)
 
 STATUS_CHOICES = ("acknowledged", "actioned", "dismissed")
@@ -25,8 +26,8 @@ def register(sub) -> None:
                                    "next contact due (a date for every case; before the as-of date means "
                                    "overdue) and the review status. " + ADVISORY_NOTICE)
     p.add_argument("workspace", metavar="WS")
-    p.add_argument("--as-of", required=True, metavar="YYYY-MM-DD")
-    p.add_argument("--horizon", type=float, default=90.0, metavar="DAYS", help="forecast horizon (default 90)")
+    add_as_of_option(p)
+    add_horizon_option(p)
     p.add_argument("--out", required=True, metavar="FLAGS.csv", help="output CSV ('-' for standard output)")
     p.add_argument("--save", action="store_true",
                    help="store this run as a snapshot (the sharp_rise rule compares with the latest earlier one)")
@@ -44,8 +45,7 @@ def register(sub) -> None:
     p.add_argument("--status", required=True, choices=STATUS_CHOICES)
     p.add_argument("--note", required=True, metavar="TEXT")
     add_actor_option(p, "who made the change")
-    p.add_argument("--as-of", metavar="YYYY-MM-DD",
-                   help="date whose P(follow-up now) is recorded with the review (default: today, UTC)")
+    add_as_of_option(p, required=False, help="date whose P(follow-up now) is recorded with the review (default: today, UTC)")
     p.set_defaults(run=run_review)
 
     p = sub.add_parser("reviews", help="list reviews (supervisor view)",
@@ -64,8 +64,8 @@ def register(sub) -> None:
                                    "values from the as-of date on. " + ADVISORY_NOTICE)
     p.add_argument("workspace", metavar="WS")
     p.add_argument("case_id", metavar="CASE_ID")
-    p.add_argument("--as-of", required=True, metavar="YYYY-MM-DD")
-    p.add_argument("--horizon", type=float, default=90.0, metavar="DAYS")
+    add_as_of_option(p)
+    add_horizon_option(p)
     p.add_argument("--set", action="append", default=[], metavar="NAME=VALUE", dest="changes",
                    help="covariate value from the as-of date on (repeatable), e.g. balance_programme=1")
     p.add_argument("--out", required=True, metavar="FORECAST.csv", help="output CSV ('-' for standard output)")
@@ -77,8 +77,8 @@ def register(sub) -> None:
                                    "with and without the changed covariate values for every case. "
                                    + ADVISORY_NOTICE)
     p.add_argument("workspace", metavar="WS")
-    p.add_argument("--as-of", required=True, metavar="YYYY-MM-DD")
-    p.add_argument("--horizon", type=float, default=90.0, metavar="DAYS")
+    add_as_of_option(p)
+    add_horizon_option(p)
     p.add_argument("--set", action="append", required=True, metavar="NAME=VALUE", dest="changes")
     p.add_argument("--include-closed", action="store_true", help="also cases closed on or before the as-of date")
     p.set_defaults(run=run_whatif)
@@ -101,9 +101,8 @@ def run_flags(args) -> int:
 
     from caseview.followup import assess_caseload
     from caseview.followup.wording import plural
-    from caseview.scoring import parse_date
 
-    as_of = parse_date(args.as_of, "--as-of")
+    as_of = as_of_date(args)
     with open_workspace(args.workspace) as ws:
         if ws.read_only and not args.save:
             print(f"caseview: note: {ws.path} is read-only: dismissed flags that would re-open are not re-opened",
@@ -163,9 +162,8 @@ def run_flags(args) -> int:
 # ---------------------------------------------------------------- reviews
 def run_review(args) -> int:
     from caseview.followup import record_review
-    from caseview.scoring import parse_date
 
-    as_of = parse_date(args.as_of, "--as-of") if args.as_of else None
+    as_of = as_of_date(args)
     actor = actor_name(args)
     with open_workspace(args.workspace) as ws:
         row = record_review(ws, args.case_id, args.status, args.note, actor, None, as_of)
@@ -209,9 +207,8 @@ def run_reviews(args) -> int:
 def run_forecast(args) -> int:
     from caseview.followup import whatif_forecast
     from caseview.followup.whatif import parse_changes
-    from caseview.scoring import parse_date
 
-    as_of = parse_date(args.as_of, "--as-of")
+    as_of = as_of_date(args)
     with open_workspace(args.workspace) as ws:
         model, _ = ws.current_model()
         changes = parse_changes(args.changes, model)
@@ -250,9 +247,9 @@ def run_forecast(args) -> int:
 def run_whatif(args) -> int:
     from caseview.followup import caseload_whatif, workspace_rules
     from caseview.followup.whatif import parse_changes
-    from caseview.scoring import parse_date, score_caseload
+    from caseview.scoring import score_caseload
 
-    as_of = parse_date(args.as_of, "--as-of")
+    as_of = as_of_date(args)
     with open_workspace(args.workspace) as ws:
         model, _ = ws.current_model()
         changes = parse_changes(args.changes, model)

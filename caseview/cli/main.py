@@ -47,13 +47,7 @@ def build_parser() -> argparse.ArgumentParser:
     parser.add_argument("--version", action="version", version=f"caseview {__version__}")
     sub = parser.add_subparsers(dest="command", metavar="COMMAND", parser_class=_Parser)
     for name in COMMAND_MODULES:
-        try:
-            module = importlib.import_module(name)
-        except ModuleNotFoundError as exc:
-            if exc.name == name:
-                continue  # that capability has not landed yet
-            raise
-        module.register(sub)
+        importlib.import_module(name).register(sub)
     return parser
 
 

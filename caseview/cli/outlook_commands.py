@@ -11,6 +11,7 @@ import sys
 from caseview import ADVISORY_NOTICE
 
 from .basic import open_workspace, stderr_progress
+from .options import add_as_of_option, add_horizon_option, add_seed_option, as_of_date
 
 
 def register(sub) -> None:
@@ -21,7 +22,7 @@ def register(sub) -> None:
                                    "parameter uncertainty. One row per month end and stage, plus a combined "
                                    "'follow-up stages' row. " + ADVISORY_NOTICE)
     p.add_argument("workspace", metavar="WS")
-    p.add_argument("--as-of", required=True, metavar="YYYY-MM-DD")
+    add_as_of_option(p)
     p.add_argument("--months", default="12", metavar="N", help="month ends ahead (default 12, at most 120)")
     p.add_argument("--referrals", default="auto", metavar="auto|none|N",
                    help="new referrals: estimated from first contacts in the last year (auto, default), left out "
@@ -31,7 +32,7 @@ def register(sub) -> None:
                         "estimated sampling distribution and moving each case's stage probabilities now and its "
                         "forecast with every draw (needs a fitted model; default none)")
     p.add_argument("--draws", default="200", metavar="N", help="parameter draws (default 200)")
-    p.add_argument("--seed", default="1", metavar="N", help="seed of the parameter draws (default 1)")
+    add_seed_option(p, "the parameter draws", as_text=True)
     p.add_argument("--coordinator", metavar="CODE", help="only this coordinator's cases and referrals")
     p.add_argument("--out", required=True, metavar="OUTLOOK.csv", help="output CSV ('-' for standard output)")
     p.set_defaults(run=run_outlook_command)
@@ -43,14 +44,14 @@ def register(sub) -> None:
                                    "highest-risk cases or N cases at random. The ranking is a statistical estimate "
                                    "for planning, not a decision about any person's care. " + ADVISORY_NOTICE)
     p.add_argument("workspace", metavar="WS")
-    p.add_argument("--as-of", required=True, metavar="YYYY-MM-DD")
+    add_as_of_option(p)
     p.add_argument("--set", action="append", required=True, metavar="NAME=VALUE", dest="changes",
                    help="the covariate value a place brings, e.g. balance_programme=1 (repeatable)")
     p.add_argument("--places", required=True, metavar="N", help="number of places")
-    p.add_argument("--horizon", default="180", metavar="DAYS", help="days within which reaching counts (default 180)")
+    add_horizon_option(p, 180, help="days within which reaching counts (default 180)", as_text=True)
     p.add_argument("--among", default="flagged", metavar="flagged|all",
                    help="candidates: flagged open cases (default) or all open cases")
-    p.add_argument("--seed", default="1", metavar="N", help="seed of the random-choice comparison (default 1)")
+    add_seed_option(p, "the random-choice comparison", as_text=True)
     p.add_argument("--out", required=True, metavar="TARGET.csv",
                    help="ranking CSV ('-' for standard output); the comparison goes to TARGET_summary.csv")
     p.set_defaults(run=run_target_command)
@@ -71,9 +72,8 @@ def _interrupt_safe(function):
 def run_outlook_command(args) -> int:
     from .basic import report_unscorable
     from caseview.operations.outlook import export_outlook, outlook_notes, run_outlook
-    from caseview.scoring import parse_date
 
-    as_of = parse_date(args.as_of, "--as-of")
+    as_of = as_of_date(args)
     with open_workspace(args.workspace) as ws:
         outlook = _interrupt_safe(lambda: run_outlook(ws, as_of, args.months, args.referrals, args.uncertainty,
                                                       args.draws, args.seed, args.coordinator,
@@ -98,9 +98,8 @@ def run_outlook_command(args) -> int:
 
 def run_target_command(args) -> int:
     from caseview.operations.outlook import export_targeting, run_targeting, targeting_summary_lines
-    from caseview.scoring import parse_date
 
-    as_of = parse_date(args.as_of, "--as-of")
+    as_of = as_of_date(args)
     with open_workspace(args.workspace) as ws:
         result = _interrupt_safe(lambda: run_targeting(ws, as_of, args.changes, args.places, args.horizon,
                                                        args.among, args.seed, callback=stderr_progress("target")))

@@ -5,7 +5,7 @@ Heavy libraries (matplotlib, openpyxl, the engine) are imported inside :func:`ru
 
 from __future__ import annotations
 
-from .basic import actor_name, add_actor_option
+from .options import actor_name, add_actor_option, add_as_of_option, add_horizon_option, add_seed_option, as_of_date
 
 
 def register(subparsers) -> None:
@@ -15,17 +15,16 @@ def register(subparsers) -> None:
                     "workbook or a CSV stage summary (format from the extension of --out). The report is "
                     "recorded in the workspace's audit trail. Advisory only.")
     parser.add_argument("workspace", metavar="WS", help="workspace file")
-    parser.add_argument("--as-of", required=True, metavar="YYYY-MM-DD", help="date the caseload is assessed on")
+    add_as_of_option(parser, help="date the caseload is assessed on")
     parser.add_argument("--out", required=True, metavar="FILE", help="output file: .pdf, .xlsx or .csv")
-    parser.add_argument("--horizon", type=float, default=90.0, metavar="DAYS",
-                        help="forecast horizon in days (default 90)")
+    add_horizon_option(parser)
     parser.add_argument("--coordinator", metavar="C", help="only this coordinator's cases")
     parser.add_argument("--flagged-only", action="store_true", help="list only flagged cases")
     parser.add_argument("--since", metavar="YYYY-MM-DD", help="show what changed since this earlier date")
     parser.add_argument("--dates", choices=("calendar", "relative", "shifted"), default="calendar",
                         help="calendar (default); relative = days since each case's first contact (safer for "
                              "sharing); shifted = a random offset per case (NOT Safe Harbor de-identification)")
-    parser.add_argument("--seed", type=int, metavar="N", help="seed for --dates shifted (default: random)")
+    add_seed_option(parser, "--dates shifted", default=None)
     parser.add_argument("--include-closed", action="store_true",
                         help="also cases closed on or before the as-of date")
     add_actor_option(parser, "who is making the report, recorded in the audit trail")
@@ -37,17 +36,17 @@ def run_report(args) -> int:
 
     from caseview import ADVISORY_NOTICE
     from caseview.reports import build_report, report_format
-    from caseview.scoring import parse_date
+    from caseview.dates import parse_date
     from caseview.storage import Workspace
 
     report_format(args.out)                      # fail on a bad extension before opening anything
     actor = actor_name(args)                     # one line of text (the audit trail is listed line by line)
-    as_of = parse_date(args.as_of, "--as-of")
+    as_of = as_of_date(args)
     since = parse_date(args.since, "--since") if args.since else None
     if args.seed is not None and args.dates != "shifted":
         print("caseview: note: --seed only matters with --dates shifted", file=sys.stderr)
     with Workspace.open(args.workspace) as ws:
-        for warning in getattr(ws, "warnings", []) or []:
+        for warning in ws.warnings:
             print(f"caseview: warning: {warning}", file=sys.stderr)
         result = build_report(ws, as_of, args.out, horizon_days=args.horizon, coordinator=args.coordinator,
                               flagged_only=args.flagged_only, since=since, dates=args.dates, seed=args.seed,

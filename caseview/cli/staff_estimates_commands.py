@@ -4,7 +4,7 @@ from __future__ import annotations
 
 from caseview import ADVISORY_NOTICE
 
-from .basic import add_actor_option
+from .options import actor_name, add_actor_option
 
 
 def register(sub) -> None:
@@ -44,7 +44,7 @@ def run_model_from_estimates(args) -> int:
     from caseview.modelfile import dump_model
     from caseview.staff_estimates_file import model_from_estimates_file
 
-    from .basic import actor_name, open_workspace
+    from .basic import open_workspace
 
     model = model_from_estimates_file(args.estimates)
     text = dump_model(model, extra={"note": f"built from staff estimates in {args.estimates}"})

@@ -4,6 +4,8 @@ from __future__ import annotations
 
 import sys
 
+from .options import add_as_of_option, as_of_date
+
 
 def register(subparsers) -> None:
     p = subparsers.add_parser("gui", help="open the desktop window (or render it to a PNG with --screenshot)",
@@ -12,7 +14,7 @@ def register(subparsers) -> None:
     p.add_argument("--demo", action="store_true",
                    help="open the invented demo caseload (created on first use in your user data folder)")
     p.add_argument("--case", metavar="ID", help="select this case")
-    p.add_argument("--as-of", metavar="DATE", help="as-of date YYYY-MM-DD (default today)")
+    add_as_of_option(p, required=False, help="as-of date YYYY-MM-DD (default today)", metavar="DATE")
     p.add_argument("--screenshot", metavar="PNG", help="render the window offscreen to this PNG and exit")
     p.add_argument("--panel", choices=("caseload", "queue", "model", "outlook"), default="caseload",
                    help="panel to show in the screenshot (default caseload)")
@@ -24,9 +26,8 @@ def register(subparsers) -> None:
 
 def run(args) -> int:
     from caseview.errors import InputError
-    from caseview.scoring import parse_date
 
-    as_of = parse_date(args.as_of, "--as-of") if args.as_of else None
+    as_of = as_of_date(args)
     try:
         width, height = (int(v) for v in args.size.lower().split("x"))
     except ValueError:
@@ -58,12 +59,14 @@ def _demo_workspace(args):
     import os
     from pathlib import Path
 
-    from .basic import actor_name, create_demo_workspace
+    from caseview.attribution import os_user
+
+    from .basic import create_demo_workspace
 
     base = Path(os.environ.get("XDG_DATA_HOME") or Path.home() / ".local" / "share") / "caseview"
     path = base / "demo.cvw"
     if not path.exists():
         base.mkdir(parents=True, exist_ok=True)
-        create_demo_workspace(path, actor_name(args))
+        create_demo_workspace(path, os_user())
         print(f"created the invented demo workspace at {path}", file=sys.stderr)
     return path

@@ -10,8 +10,8 @@ from __future__ import annotations
 import sys
 
 
-from .basic import actor_name as _actor
-from .basic import add_actor_option
+from .options import actor_name as _actor
+from .options import add_actor_option
 from .basic import open_workspace as _open
 
 

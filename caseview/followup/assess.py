@@ -13,20 +13,30 @@ from __future__ import annotations
 
 import datetime as dt
 from dataclasses import dataclass
+from typing import TYPE_CHECKING
 
 import numpy as np
 
 from .flags import INFLUENCE_CONTACTS, RuleEvaluation, evaluate_rules, explain, explain_cases
 from .rules import SCHEDULE_RULE, RuleSet, default_rules, workspace_rules
+from .schedule import SEARCH_LIMIT_DAYS, contact_due_day
+
+if TYPE_CHECKING:
+    from caseview.scoring import CaseloadScores
 
 #: The rule whose threshold (days since the last contact) is the longest a case waits for a contact.
 ROUTINE_RULE = "long_gap_uncertain"
-from .schedule import SEARCH_LIMIT_DAYS, contact_due_day
 
 
-@dataclass(frozen=True)
+@dataclass(eq=False)
 class CaseloadAssessment:
     """Flags, reasons, schedule and review state; arrays aligned with ``scores`` rows.
+
+    Not frozen, and honest about it: the reasons of flagged cases are worked out later, in place
+    (:meth:`explain_cases`, from a background job while the window reads), and a recorded review is
+    written in by :meth:`note_review` (which :func:`caseview.followup.record_review` calls). Those
+    two methods, and :func:`caseview.operations.single_case.rescore_one` (which consumes the old
+    object), are the only writers; views read.
 
     Attributes
     ----------
@@ -49,29 +59,30 @@ class CaseloadAssessment:
         '' (not flagged, never reviewed) | new | acknowledged | actioned | dismissed.
     reviewed_by, reviewed_at : ndarray of object, shape (n_cases,)
         Actor and UTC time of the latest review ('' when none).
-    review_note : ndarray of object, shape (n_cases,) or None
+    review_note : ndarray of object, shape (n_cases,)
         Note of the latest review ('' when none).
     priority : ndarray, shape (n_cases,)
         Higher = contact sooner: ``is_flagged + (p_follow_up_now + p_reach_follow_up) / 2``, so
         every flagged case ranks above every unflagged one and, within each group, cases rank by
         their follow-up probabilities.
-    previous_as_of : date or None
-        As-of date of the saved run used by ``sharp_rise``.
-    previous_p_follow_up : ndarray, shape (n_cases,)
-        P(follow-up now) in that run (NaN where the case was not in it).
-    reopened : list[str]
-        Case IDs whose dismissed flag this assessment re-opened.
-    saved_run_id : int or None
-    evaluation : RuleEvaluation or None
+    evaluation : RuleEvaluation
         Which rules fired and their values (kept to explain flags later).
-    explained : ndarray of bool, shape (n_cases,) or None
+    explained : ndarray of bool, shape (n_cases,)
         True where ``reasons``/``reason_text`` are final: every unflagged case, and the flagged
         cases whose reasons were worked out (all of them unless ``explain_reasons=False``).
+    previous_as_of : date or None
+        As-of date of the saved run used by ``sharp_rise`` (None: no earlier run).
+    previous_p_follow_up : ndarray, shape (n_cases,)
+        P(follow-up now) in that run (NaN where the case was not in it, or no run).
+    reopened : tuple of str
+        Case IDs whose dismissed flag this assessment re-opened.
+    saved_run_id : int or None
+        The stored snapshot of this run (None: not saved).
     influence_contacts : int
         Recent contacts tested by leaving them out.
     """
 
-    scores: object
+    scores: CaseloadScores
     rules: RuleSet
     flags: np.ndarray
     is_flagged: np.ndarray
@@ -81,26 +92,30 @@ class CaseloadAssessment:
     review_status: np.ndarray
     reviewed_by: np.ndarray
     reviewed_at: np.ndarray
+    review_note: np.ndarray
     priority: np.ndarray
-    previous_as_of: dt.date | None = None
-    previous_p_follow_up: np.ndarray | None = None
+    evaluation: RuleEvaluation
+    explained: np.ndarray
+    previous_as_of: dt.date | None
+    previous_p_follow_up: np.ndarray
     reopened: tuple = ()
     saved_run_id: int | None = None
-    evaluation: RuleEvaluation | None = None
-    explained: np.ndarray | None = None
     influence_contacts: int = INFLUENCE_CONTACTS
-    review_note: np.ndarray | None = None
+
+    def note_review(self, case: int, review) -> None:
+        """Show a review just stored (a ``followup_store.ReviewRow``) for case row ``case``."""
+        self.review_status[case] = review.status
+        self.reviewed_by[case], self.reviewed_at[case] = review.actor, review.at_utc
+        self.review_note[case] = review.note or ""
 
     @property
     def reasons_pending(self) -> np.ndarray:
         """Flagged cases (rows) whose reasons are not worked out yet, shape (m,)."""
-        if self.explained is None:
-            return np.zeros(0, dtype=np.int64)
         return np.flatnonzero(~self.explained)
 
     def has_reasons(self, case: int) -> bool:
         """True when case row ``case`` needs no more work for its reasons."""
-        return self.explained is None or bool(self.explained[case])
+        return bool(self.explained[case])
 
     def explain_cases(self, cases) -> np.ndarray:
         """Work out the reasons of the flagged, not yet explained cases among ``cases`` (rows).
@@ -115,7 +130,7 @@ class CaseloadAssessment:
             The rows newly explained.
         """
         cases = np.asarray(cases, dtype=np.int64).reshape(-1)
-        if self.explained is None or self.evaluation is None or not cases.size:
+        if not cases.size:
             return np.zeros(0, dtype=np.int64)
         todo = cases[~self.explained[cases]]
         if not todo.size:
@@ -199,9 +214,9 @@ def assess_scores(scores, rules: RuleSet | None = None, previous_p_follow_up=Non
                           rules[ROUTINE_RULE].threshold, schedule_limit_days)
     status, by, at, note = _review_arrays(scores.case_ids, is_flagged, latest_reviews or {})
     priority = is_flagged.astype(float) + 0.5 * (scores.p_follow_up_now + scores.p_reach_follow_up)
-    return CaseloadAssessment(scores, rules, flags, is_flagged, reasons, reason_text, due, status, by, at,
-                              priority, previous_as_of, previous, evaluation=evaluation, explained=explained,
-                              influence_contacts=influence_contacts, review_note=note)
+    return CaseloadAssessment(scores, rules, flags, is_flagged, reasons, reason_text, due, status, by, at, note,
+                              priority, evaluation, explained, previous_as_of, previous,
+                              influence_contacts=influence_contacts)
 
 
 def assess_caseload(ws, as_of: dt.date, horizon_days: float = 90.0, rules: RuleSet | None = None,

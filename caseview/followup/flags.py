@@ -19,6 +19,8 @@ from hmm import MISSING, Timelines
 from hmm.forecasting import reach_probability, stage_probabilities_now
 from hmm.inference import forward
 
+from caseview.dates import from_day
+
 from . import wording
 from .rules import RuleSet
 
@@ -27,7 +29,6 @@ INFLUENCE_CONTACTS = 3
 #: Flagged cases explained together (the result of a case does not depend on the batch).
 EXPLAIN_BATCH = 5000
 
-_EPOCH = dt.date(1970, 1, 1)
 
 
 @dataclass(frozen=True)
@@ -304,7 +305,7 @@ def explain_cases(scores, rules: RuleSet, evaluation: RuleEvaluation, cases, pre
                                                       threshold, previous_as_of)
             present = np.flatnonzero(days[i] >= 0)
             order = present[np.argsort(-changes[present], kind="stable")]
-            contacts = [ContactInfluence(_EPOCH + dt.timedelta(days=int(days[i, k])), float(changes[k]),
+            contacts = [ContactInfluence(from_day(days[i, k]), float(changes[k]),
                                          int(days[i, k]), evidence[i][k]) for k in order]
             reasons.append(FlagReason(rule.name, message, value, threshold, contacts))
             line.append(message)

@@ -25,21 +25,23 @@ from caseview.errors import InputError
 
 def fit_covariance(version) -> tuple:
     """``(names, covariance)`` stored with a fitted model version, or raise InputError saying why not."""
-    summary = getattr(version, "fit_summary", None)
-    if hasattr(summary, "to_dict"):
-        summary = summary.to_dict()
-    label = f"model version {version.id}" if getattr(version, "id", None) is not None else "the current model"
-    if not summary:
-        raise InputError(f"--uncertainty parameters: {label} was entered, not fitted, so there is no estimated "
-                         "sampling distribution to draw from; fit the model first or use --uncertainty none")
-    names = summary.get("free_parameters")
-    matrix = summary.get("covariance")
+    from hmm.fitting import FitSummary
+
+    label = "the current model" if version is None else f"model version {version.id}"   # None: not stored
+    if version is None or not version.fit_summary:
+        raise InputError(f"parameter uncertainty: {label} was entered, not fitted, so there is no estimated "
+                         "sampling distribution to draw from; fit the model first or leave parameter uncertainty out")
+    try:
+        summary = FitSummary.from_dict(version.fit_summary)
+    except ValueError as exc:
+        raise InputError(f"parameter uncertainty: {label}: {exc}") from None
+    names, matrix = summary.free_parameters, summary.covariance
     if not names or matrix is None:
-        raise InputError(f"--uncertainty parameters: {label} was fitted before caseview stored the parameters' "
-                         "covariance; fit it again or use --uncertainty none")
+        raise InputError(f"parameter uncertainty: {label} was fitted before caseview stored the parameters' "
+                         "covariance; fit it again or leave parameter uncertainty out")
     covariance = np.array([[np.nan if v is None else v for v in row] for row in matrix], dtype=float)
     if covariance.shape != (len(names), len(names)):
-        raise InputError(f"--uncertainty parameters: {label}: the stored covariance is {covariance.shape}, "
+        raise InputError(f"parameter uncertainty: {label}: the stored covariance is {covariance.shape}, "
                          f"expected {len(names)} x {len(names)}")
     return list(names), covariance
 
@@ -50,8 +52,8 @@ def _drawn_block(names: list, covariance: np.ndarray) -> tuple:
     if usable and not np.all(np.isfinite(covariance[np.ix_(usable, usable)])):
         usable = []
     if names and not usable:
-        raise InputError("--uncertainty parameters: the fit could not estimate the uncertainty of its parameters "
-                         "(no finite covariance, for example an estimate on the boundary); use --uncertainty none")
+        raise InputError("parameter uncertainty: the fit could not estimate the uncertainty of its parameters "
+                         "(no finite covariance, for example an estimate on the boundary); leave parameter uncertainty out")
     return [names[i] for i in usable], covariance[np.ix_(usable, usable)], [names[i] for i in range(len(names))
                                                                               if i not in usable]
 
@@ -88,7 +90,7 @@ class _Layout:
                 where[f"effect of {cov} on the unscheduled contact rate"] = ("contact_effect", cov)
         missing = [n for n in names if n not in where]
         if missing:
-            raise InputError(f"--uncertainty parameters: the stored covariance names {missing[0]!r}, which the "
+            raise InputError(f"parameter uncertainty: the stored covariance names {missing[0]!r}, which the "
                              "current model does not have; fit the model again")
         self.model = model
         self.slots = {n: where[n] for n in names}
@@ -101,7 +103,7 @@ class _Layout:
             support = set(np.flatnonzero(self._row(key) > 0).tolist())
             rest = sorted(support - free)
             if len(rest) != 1 or not free <= support:
-                raise InputError("--uncertainty parameters: the stored covariance does not match the current model's "
+                raise InputError("parameter uncertainty: the stored covariance does not match the current model's "
                                  "probability rows; fit the model again")
             self.references[key] = rest[0]
 

@@ -103,7 +103,7 @@ def referral_assumption(option, first_contact_day: np.ndarray, first_covariates:
         Covariates recorded at each case's first contact.
     as_of_day : int
     """
-    from caseview.scoring import from_day
+    from caseview.dates import from_day
 
     text = str(option).strip().lower()
     zeros = np.zeros((1, n_covariates))
@@ -115,20 +115,20 @@ def referral_assumption(option, first_contact_day: np.ndarray, first_covariates:
         try:
             rate = float(text)
         except ValueError:
-            raise InputError(f"--referrals: expected auto, none or a number of new referrals a month, "
+            raise InputError(f"new referrals: expected auto, none or a number of new referrals a month, "
                              f"got {option!r}") from None
         if not math.isfinite(rate) or rate < 0:
-            raise InputError(f"--referrals: expected a number of referrals a month >= 0, got {option!r}")
+            raise InputError(f"new referrals: expected a number of referrals a month >= 0, got {option!r}")
         covariates, weights = _arrival_mix(first_covariates, n_covariates)
         return ReferralAssumption("fixed", rate, covariates=covariates, weights=weights)
     if first_contact_day.size == 0:
-        raise InputError("--referrals auto: no first contacts on or before the as-of date to estimate a rate "
-                         "from; give --referrals N or none")
+        raise InputError("new referrals (auto): no first contacts on or before the as-of date to estimate a rate "
+                         "from; give a number of referrals a month, or none")
     earliest = int(first_contact_day.min())
     days = min(WINDOW_DAYS, int(as_of_day) - earliest + 1)
     if days < MIN_WINDOW_DAYS:
-        raise InputError(f"--referrals auto: first contacts span only {days} days before the as-of date "
-                         f"(at least {MIN_WINDOW_DAYS} needed); give --referrals N or none")
+        raise InputError(f"new referrals (auto): first contacts span only {days} days before the as-of date "
+                         f"(at least {MIN_WINDOW_DAYS} needed); give a number of referrals a month, or none")
     start = int(as_of_day) - days + 1
     recent = (first_contact_day >= start) & (first_contact_day <= as_of_day)
     count = int(recent.sum())

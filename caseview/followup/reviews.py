@@ -61,7 +61,7 @@ def check_change(case_id: str, current: str, status: str, note: str) -> None:
         raise InputError(f"review of {case_id}: cannot go from {current} to {status}; "
                          f"from {current} the allowed status is {' or '.join(allowed)}")
     if status == "dismissed" and not (note or "").strip():
-        raise InputError(f"review of {case_id}: a dismissal needs a reason; give it with --note TEXT")
+        raise InputError(f"review of {case_id}: a dismissal needs a reason; write it in the note")
 
 
 def check_note(case_id: str, note: str) -> str:
@@ -149,8 +149,8 @@ def record_review(ws, case_id: str, status: str, note: str, actor: str, assessme
 
     case_id = ws.find_case(case_id)  # the typed ID read like an imported one; InputError if no such case
     if not actor or not str(actor).strip():
-        raise InputError(f"review of {case_id}: the actor name is empty; give one with --by NAME")
-    check_one_line(actor, f"review of {case_id}: the name recorded (--by)")
+        raise InputError(f"review of {case_id}: the name recorded with the review is empty; give a name")
+    check_one_line(actor, f"review of {case_id}: the name recorded with the review")
     note = check_note(case_id, note or "")
     # Validate against the stored status before the (possibly slow) scoring, then again inside
     # the write transaction so that a concurrent change cannot slip in between.
@@ -168,7 +168,12 @@ def record_review(ws, case_id: str, status: str, note: str, actor: str, assessme
                    "p_follow_up_now": _finite_or_none(p_follow_up), "as_of": as_of_text}
         _audited_review(ws, actor, f"review.{status}", case_id, details, status, note, flags,
                         _finite_or_none(p_follow_up), as_of_text)
-    return store.latest_reviews(ws.connection, case_id)[case_id]
+    stored = store.latest_reviews(ws.connection, case_id)[case_id]
+    if assessment is not None:
+        row = assessment.scores.row_of(case_id)
+        if row >= 0:
+            assessment.note_review(row, stored)
+    return stored
 
 
 def _audited_review(ws, actor, action, case_id, details, status, note, flags, p_follow_up, as_of_text):

@@ -144,7 +144,7 @@ class RuleSet:
         data = self.to_dict()
         by_name = {r["name"]: r for r in data["rules"]}
         for text in assignments:
-            where = f"--set {text}"
+            where = f"rule change {text!r}"
             left, sep, value = str(text).partition("=")
             name, dot, key = left.strip().partition(".")
             if not sep or not dot or not key:
@@ -169,7 +169,7 @@ class RuleSet:
                 if not low <= number <= high:
                     raise InputError(f"{where}: expected a number between {low:g} and {high:g}, got {value!r}")
                 by_name[name][key] = number
-        return rules_from_dict(data, source="--set")
+        return rules_from_dict(data, source="rule changes")
 
 
 def default_rules() -> RuleSet:

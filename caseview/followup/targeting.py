@@ -17,11 +17,13 @@ The ranking is a statistical estimate for planning, not a decision about any per
 
 from __future__ import annotations
 
+import datetime as dt
 from dataclasses import dataclass
 
 import numpy as np
 
 from hmm.forecasting import reach_probability
+from hmm.random_state import random_generator
 
 from .whatif import changed_covariates, check_changes
 
@@ -47,7 +49,7 @@ class Targeting:
         Expected number of pool cases reaching a follow-up stage within the horizon without the change.
     """
 
-    as_of: object
+    as_of: dt.date
     horizon_days: float
     changes: dict
     among: str
@@ -108,8 +110,11 @@ def random_choices(reduction: np.ndarray, places: int, rng: np.random.Generator,
 
 
 def rank_places(scores, pool: np.ndarray, changes: dict, places: int, horizon_days: float, among: str,
-                seed: int = 1, n_left_out: int = 0) -> Targeting:
-    """Rank the cases in ``pool`` (rows of ``scores``) and compare the three ways of filling the places."""
+                seed, n_left_out: int = 0) -> Targeting:
+    """Rank the cases in ``pool`` (rows of ``scores``) and compare the three ways of filling the places.
+
+    ``seed`` (int, Generator or None for fresh entropy) drives the random-choice comparison only.
+    """
     model = scores.model
     without, with_change = reach_without_and_with(model, scores.p_now[pool], scores.last_covariates[pool],
                                                   changes, horizon_days)
@@ -117,7 +122,7 @@ def rank_places(scores, pool: np.ndarray, changes: dict, places: int, horizon_da
     ids = np.asarray(scores.case_ids)[pool].astype(str)
     chosen = _top(reduction, ids, places)
     by_risk = _top(without, ids, places)
-    rng = np.random.default_rng(seed)
+    rng = random_generator(seed)
     return Targeting(scores.as_of, float(horizon_days), dict(changes), among, int(places), int(pool.size), ids[chosen],
                      np.asarray(scores.coordinators)[pool][chosen].astype(str), without[chosen], with_change[chosen],
                      reduction[chosen], float(reduction[chosen].sum()), float(reduction[by_risk].sum()),

@@ -72,11 +72,11 @@ def parse_changes(assignments, model) -> dict:
         name, sep, value = str(text).partition("=")
         name = name.strip()
         if not sep or not name:
-            raise InputError(f"--set {text}: expected NAME=VALUE, for example balance_programme=1")
+            raise InputError(f"change {text!r}: expected NAME=VALUE, for example balance_programme=1")
         try:
             changes[name] = float(value)
         except ValueError:
-            raise InputError(f"--set {text}: expected a number after '=', got {value.strip()!r}") from None
+            raise InputError(f"change {text!r}: expected a number after '=', got {value.strip()!r}") from None
     return check_changes(changes, model)
 
 
@@ -113,7 +113,7 @@ def changed_covariates(covariates: np.ndarray, model, changes: dict) -> np.ndarr
         out[:, model.covariates.index(name)] = value
     if changes and out.size and not model.usable_covariate_rows(out).all():
         text = ", ".join(f"{k}={v:g}" for k, v in changes.items())
-        raise InputError(f"--set {text}: these values make a transition rate overflow (above "
+        raise InputError(f"change {text}: these values make a transition rate overflow (above "
                          f"{MAX_RATE_PER_DAY:g} per day) for some case; choose values the model is meant for")
     return out
 
@@ -160,7 +160,7 @@ def whatif_forecast(ws_or_scores, case_id: str, as_of: dt.date | None = None, ho
                                     f"the caseload with a contact on or before {scores.as_of.isoformat()}")
     else:
         if as_of is None:
-            raise InputError("forecast: an as-of date is needed (--as-of YYYY-MM-DD)")
+            raise InputError("forecast: an as-of date is needed (YYYY-MM-DD)")
         case_id = ws_or_scores.find_case(case_id)
         scores = score_caseload(ws_or_scores, as_of, 90.0 if horizon is None else horizon)
         if horizon is None:

@@ -26,11 +26,12 @@ from __future__ import annotations
 
 import datetime as dt
 
+from caseview.dates import day_text
+
 #: (lowest chance of the band, words), highest band first. Caseview's own bands (see above).
 CHANCE_BANDS = ((0.90, "very likely"), (0.65, "likely"), (0.35, "about as likely as not"),
                 (0.10, "unlikely"), (0.0, "very unlikely"))
 
-_EPOCH = dt.date(1970, 1, 1)
 
 
 def plural(n: int, singular: str, plural_form: str | None = None) -> str:
@@ -124,7 +125,7 @@ def duration_with_interval(days: float, lower: float | None = None, upper: float
 
 def short_date(day: int) -> str:
     """Day number (since 1970-01-01) as ISO ``YYYY-MM-DD`` (reports rewrite ISO dates when de-identifying)."""
-    return (_EPOCH + dt.timedelta(days=int(day))).isoformat()
+    return day_text(day)
 
 
 def due_words(due_day: int, as_of_day: int) -> str:

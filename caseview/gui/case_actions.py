@@ -72,7 +72,7 @@ class CaseActions(QWidget):
         self.case_id = case_id or ""
         self.closed = closure is not None
         if closure is not None:
-            from caseview.scoring import from_day
+            from caseview.dates import from_day
 
             self.hint.setText(f"This case is closed from {from_day(closure.closed_day).isoformat()} "
                               f"({closure.reason}).")

@@ -12,10 +12,10 @@ from PySide6.QtWidgets import (QCheckBox, QDoubleSpinBox, QFormLayout, QGroupBox
                                QVBoxLayout, QWidget)
 
 from caseview.followup.wording import chance_words, days_ago, due_words, percent
-from caseview.scoring import from_day
+from caseview.dates import from_day
 
 from . import theme
-from .case_chart import case_chart_data
+from caseview.operations.case_history import case_chart_data
 
 
 @functools.lru_cache(maxsize=1)
@@ -239,14 +239,14 @@ class CaseView(QWidget):
     def _why_text(self, r: int) -> str:
         """Next contact due and, for a flagged case, why (plain sentences from the assessment)."""
         a = self.assessment
-        if a is None:
+        if a is None:  # no caseload shown yet
             return ""
         due = f"Next contact due: <b>{due_words(a.next_contact_due_day[r], self.scores.as_of_day)}</b>."
         if not a.is_flagged[r]:
             return due + " Not flagged by the follow-up rules."
         if not a.has_reasons(r):
             a.explain_cases([r])  # one case, a few milliseconds (the background job may not be here yet)
-        note = str(a.review_note[r]) if a.review_note is not None else ""
+        note = str(a.review_note[r])
         review = str(a.review_status[r] or "new")
         review_text = f" Review: {review}" + (f" — “{note}”" if note else "") + "."
         return f"{due} Flagged: {html.escape(str(a.reason_text[r]))}{html.escape(review_text)}"

@@ -14,7 +14,7 @@ import numpy as np
 from PySide6.QtCore import QAbstractTableModel, QModelIndex, Qt
 
 from caseview.followup.wording import due_words
-from caseview.scoring import from_day
+from caseview.dates import from_day
 
 COLUMNS = ("Case", "Coordinator", "Last contact", "Days since", "Likely stage now",
            "Follow-up now", "Reach follow-up", "Next contact due", "Flags", "Review")
@@ -86,23 +86,13 @@ class CaseloadTableModel(QAbstractTableModel):
         self.most_likely = np.asarray(scores.most_likely_stage, dtype=np.int64)
         self.most_likely_p = scores.p_now[np.arange(n), self.most_likely] if n else np.zeros(0)
         a = self.assessment
-        if a is not None:
-            self.flag_names = np.array(a.flags, dtype=object)
-            self.is_flagged = np.asarray(a.is_flagged, dtype=bool)
-            self.reason_text = np.asarray(a.reason_text, dtype=object)
-            self.next_due = np.asarray(a.next_contact_due_day, dtype=np.int64)
-            self.review = np.array(a.review_status, dtype=object)
-            self.review_note = (np.asarray(a.review_note, dtype=object) if a.review_note is not None
-                                else np.full(n, "", dtype=object))
-            self.priority = np.asarray(a.priority, dtype=float)
-        else:
-            self.flag_names = np.full(n, "", dtype=object)
-            self.is_flagged = np.zeros(n, dtype=bool)
-            self.reason_text = np.full(n, "", dtype=object)
-            self.next_due = np.full(n, -1, dtype=np.int64)
-            self.review = np.full(n, "", dtype=object)
-            self.review_note = np.full(n, "", dtype=object)
-            self.priority = np.asarray(scores.p_reach_follow_up, dtype=float)
+        self.flag_names = np.array(a.flags, dtype=object)
+        self.is_flagged = np.asarray(a.is_flagged, dtype=bool)
+        self.reason_text = np.asarray(a.reason_text, dtype=object)
+        self.next_due = np.asarray(a.next_contact_due_day, dtype=np.int64)
+        self.review = np.array(a.review_status, dtype=object)
+        self.review_note = np.array(a.review_note, dtype=object)
+        self.priority = np.asarray(a.priority, dtype=float)
         due_key = np.where(self.next_due < 0, np.iinfo(np.int64).max, self.next_due)
         self._keys = {
             CASE: _ranks(self.case_ids), COORDINATOR: _ranks(self.coordinators),
@@ -124,7 +114,7 @@ class CaseloadTableModel(QAbstractTableModel):
         reveal the row; then call :meth:`set_caseload`.
         """
         scores, a = loaded.scores, loaded.assessment
-        if self.scores is None or scores.n_cases != self._n or (a is None) != (self.assessment is None):
+        if self.scores is None or scores.n_cases != self._n:
             return False
         self.scores, self.assessment = scores, a
         before = {COORDINATOR: self.coordinators[row], FLAGS: self.flag_names[row], REVIEW: self.review[row]}
@@ -132,13 +122,10 @@ class CaseloadTableModel(QAbstractTableModel):
         self.coordinators[row] = scores.coordinators[row]
         self.most_likely[row] = int(scores.most_likely_stage[row])
         self.most_likely_p[row] = scores.p_now[row, self.most_likely[row]]
-        if a is not None:
-            for name, source in (("flag_names", a.flags), ("is_flagged", a.is_flagged),
-                                 ("reason_text", a.reason_text), ("next_due", a.next_contact_due_day),
-                                 ("review", a.review_status), ("priority", a.priority)):
-                getattr(self, name)[row] = source[row]
-        else:
-            self.priority[row] = scores.p_reach_follow_up[row]
+        for name, source in (("flag_names", a.flags), ("is_flagged", a.is_flagged),
+                             ("reason_text", a.reason_text), ("next_due", a.next_contact_due_day),
+                             ("review", a.review_status), ("priority", a.priority)):
+            getattr(self, name)[row] = source[row]
         keys = self._keys
         keys[LAST_CONTACT], keys[DAYS_SINCE] = scores.last_contact_day, scores.days_since_contact
         keys[P_NOW], keys[P_REACH], keys[-1] = scores.p_follow_up_now, scores.p_reach_follow_up, self.priority
@@ -247,7 +234,7 @@ class CaseloadTableModel(QAbstractTableModel):
         """Reason line of scores row ``row``; worked out on the spot (one case, a few milliseconds)
         if the window's background job has not reached it yet."""
         a = self.assessment
-        if a is not None and hasattr(a, "has_reasons") and not a.has_reasons(row):
+        if a is not None and not a.has_reasons(row):
             a.explain_cases([row])
         return str(self.reason_text[row])
 

@@ -140,9 +140,7 @@ class CaseloadPanel(QWidget):
                              [(c, c) for c in self.model.coordinator_names()])
             self._fill_combo(self.stage, "Any likely stage", -1,
                              [(s, i) for i, s in enumerate(loaded.scores.model.stages)])
-            self._show_not_scored(getattr(loaded.scores, "unscorable", None))
-            self.flagged.setEnabled(loaded.assessment is not None)
-            self.review.setEnabled(loaded.assessment is not None)
+            self._show_not_scored(loaded.scores.unscorable)
             self._update_count()
             if not (keep and self.select_case(keep)) and self.model.rowCount():
                 self.table.selectRow(0)
@@ -257,7 +255,7 @@ class CaseloadPanel(QWidget):
     def _update_count(self) -> None:
         shown, total = self.model.rowCount(), self.model._n
         flagged = int(self.model.is_flagged.sum()) if self.model.scores is not None else 0
-        lost = getattr(self.model.scores, "unscorable", None)
+        lost = self.model.scores.unscorable if self.model.scores is not None else None   # None: nothing loaded
         missing = f" · {lost.n_cases:,} cannot be scored" if lost is not None and lost.n_cases else ""
         self.count.setText(f"{shown:,} of {plural(total, 'case')} shown · {flagged:,} flagged{missing}")
 

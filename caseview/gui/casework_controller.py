@@ -212,7 +212,7 @@ class CaseworkController(QObject):
             return None
         window.jobs.cancel("reasons")  # the splice writes the changed case's row in place
         started = time.perf_counter()
-        include_closed = bool(getattr(window.source, "include_closed", False))
+        include_closed = bool(window.source.include_closed)
         before = window.loaded
         ids = before.scores.case_ids
         position = int(np.searchsorted(ids, case_id))

@@ -16,26 +16,31 @@ import threading
 from contextlib import contextmanager
 from dataclasses import dataclass, field
 from pathlib import Path
+from typing import TYPE_CHECKING
+
+if TYPE_CHECKING:
+    from caseview.followup.assess import CaseloadAssessment
+    from caseview.scoring import CaseloadScores
 
 
 @dataclass
 class LoadedCaseload:
-    """Scores of one caseload as of one date, with the follow-up assessment when available.
+    """Scores of one caseload as of one date, with its follow-up assessment.
 
     Attributes
     ----------
     scores : caseview.scoring.CaseloadScores
-    assessment : caseview.followup.CaseloadAssessment or None
-        None when follow-up rules are not available (then priority = P(reach follow-up)).
+    assessment : caseview.followup.CaseloadAssessment
+        Flags (reasons worked out later by the window), schedule and review state.
     notes : list[str]
-        Plain messages for the status bar (for example "follow-up rules not available yet").
+        Plain messages for the status bar.
     reopen_candidates : list of (case_id, value_at_dismissal, value_now)
         Dismissed flags whose risk rose enough to re-open them; loading does not re-open them (it
         never writes), the risk queue offers the explicit step.
     """
 
-    scores: object
-    assessment: object | None = None
+    scores: CaseloadScores
+    assessment: CaseloadAssessment
     notes: list = field(default_factory=list)
     reopen_candidates: list = field(default_factory=list)
 
@@ -91,15 +96,6 @@ def reason_steps(assessment, first, per_step: int = REASONS_PER_STEP) -> list:
     return steps + [rest[i:i + per_step] for i in range(0, rest.size, per_step)]
 
 
-def followup_module():
-    """``caseview.followup`` or None if that capability has not landed."""
-    try:
-        import caseview.followup as followup  # noqa: PLC0415
-        return followup
-    except ImportError:
-        return None
-
-
 class WorkspaceSource:
     """A caseview workspace file. Worker threads open their own connection (one per thread)."""
 
@@ -112,7 +108,7 @@ class WorkspaceSource:
         self._workspace = Workspace.open(self.path, password=password)  # main-thread connection; raises WorkspaceError
         self.label = self.path.name
         self.include_closed = False  # the window's "Show closed" filter
-        self.warnings = list(getattr(self._workspace, "warnings", []) or [])
+        self.warnings = list(self._workspace.warnings)
 
     def workspace(self):
         return self._workspace
@@ -121,26 +117,17 @@ class WorkspaceSource:
         return self._workspace.current_model()[0]
 
     def load(self, as_of: dt.date, horizon_days: float, callback=None) -> LoadedCaseload:
+        from caseview.followup import assess_caseload
+        from caseview.followup.reviews import pending_reopens
         from caseview.storage import Workspace
 
-        notes = []
         with full_collections_postponed(), Workspace.open(self.path, password=self._password) as ws:
-            followup = followup_module()
-            if followup is not None:
-                # flags now, reasons later: the window explains flagged cases in a second job
-                # (risk queue first) and on the spot for a case the user selects
-                # reopen=False: loading never writes (re-opening is the queue's explicit step)
-                assessment = followup.assess_caseload(ws, as_of, horizon_days, callback=callback,
-                                                      explain_reasons=False, reopen=False,
-                                                      include_closed=self.include_closed)
-                from caseview.followup.reviews import pending_reopens
-
-                return LoadedCaseload(assessment.scores, assessment, notes, pending_reopens(ws, assessment))
-            from caseview.scoring import score_caseload
-
-            scores = score_caseload(ws, as_of, horizon_days, callback=callback, include_closed=self.include_closed)
-            notes.append("Follow-up flags are not available yet; ordered by chance of reaching follow-up.")
-            return LoadedCaseload(scores, None, notes)
+            # flags now, reasons later: the window explains flagged cases in a second job
+            # (risk queue first) and on the spot for a case the user selects
+            # reopen=False: loading never writes (re-opening is the queue's explicit step)
+            assessment = assess_caseload(ws, as_of, horizon_days, callback=callback, explain_reasons=False,
+                                         reopen=False, include_closed=self.include_closed)
+            return LoadedCaseload(assessment.scores, assessment, [], pending_reopens(ws, assessment))
 
     def open_workspace(self):
         """A new connection to the same workspace for a worker thread (with the prompted password, if any)."""

@@ -15,13 +15,13 @@ from PySide6.QtCore import Signal
 from PySide6.QtWidgets import (QHBoxLayout, QLabel, QProgressBar, QPushButton, QScrollArea, QSpinBox, QVBoxLayout,
                                QWidget)
 
-from caseview.operations.fitting import WINDOW_SEED
+from caseview.operations import DEFAULT_SEED
 
 from . import theme
 from .workers import JobRunner
 
 #: Seed of the simulated caseloads, so a check repeated on the same data gives the same p-value.
-CHECK_SEED = WINDOW_SEED   # the command line's default seed too
+CHECK_SEED = DEFAULT_SEED   # the command line's default seed too
 
 
 def summary_text(result) -> str:

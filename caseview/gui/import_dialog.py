@@ -191,9 +191,9 @@ class ImportDialog(QDialog):
         self.check()
 
     def _show_notes(self, result) -> None:
-        for w in getattr(result, "warnings", []) or []:
+        for w in result.warnings:
             self.problems.addItem(f"warning: {w}")
-        for n in getattr(result, "notes", []) or []:
+        for n in result.notes:
             self.problems.addItem(f"note: {n}")
 
     def mapping_arguments(self) -> tuple:

@@ -195,15 +195,12 @@ class MainWindow(QMainWindow):
         from caseview.errors import CaseviewError
         from caseview.modelfile import parse_model
 
+        from caseview.storage import Workspace
+
         try:
             text = Path(model_path).read_text(encoding="utf-8-sig")
             parse_model(text, source=str(model_path))
-            from caseview.storage import Workspace
-
             Workspace.create(path, text, self.actor).close()
-        except ImportError:
-            self.show_error("Workspaces are not available in this build yet.")
-            return False
         except (CaseviewError, OSError) as exc:
             self.show_error(str(exc))
             return False
@@ -218,9 +215,6 @@ class MainWindow(QMainWindow):
             if source is None:  # the password prompt was cancelled
                 self.statusBar().showMessage("Nothing was opened.")
                 return False
-        except ImportError:
-            self.show_error("Workspaces are not available in this build yet (storage is missing).")
-            return False
         except CaseviewError as exc:
             self.show_error(str(exc))
             return False
@@ -273,7 +267,7 @@ class MainWindow(QMainWindow):
     def reopen_risen_flags(self) -> list:
         """Re-open the dismissed flags whose risk rose (audited), then rescore to show them."""
         ws, loaded = self.workspace(), self.loaded
-        if ws is None or loaded is None or loaded.assessment is None:
+        if ws is None or loaded is None:
             return []
         from caseview.followup.reviews import reopen_risen
         from caseview.followup.wording import plural
@@ -339,8 +333,6 @@ class MainWindow(QMainWindow):
         the spot (one case takes a few milliseconds), see :meth:`RiskQueue.reasons_arrived`.
         """
         a = loaded.assessment
-        if a is None or not hasattr(a, "explain_cases"):
-            return
         from .data_source import REASONS_PER_STEP, full_collections_postponed, reason_steps
 
         from .risk_queue import FIRST_REASONS

@@ -69,7 +69,7 @@ class ModelPanel(QWidget):
         self.diagram = TransitionDiagram()
         self.heading = QLabel("No model loaded")
         self.heading.setWordWrap(True)
-        self.sojourn = _table(["Stage", "Mean time in stage (days)", "95% interval (kind)"])
+        self.time_in_stage_table = _table(["Stage", "Mean time in stage (days)", "95% interval (kind)"])
         self.hazards = _table(["Effect", "Hazard ratio", "95% interval (kind)"])
         self.emissions = _table(["Channel", "Stage", "Probabilities"])
         self.contact_rates = _table(["Stage", "Unscheduled contacts per year", "95% interval"])
@@ -97,7 +97,7 @@ class ModelPanel(QWidget):
         self.details = QTabWidget()
         self.details.setUsesScrollButtons(True)
         self.details.addTab(self.summary_view, "In plain words")
-        self.details.addTab(self.sojourn, "Time in stage")
+        self.details.addTab(self.time_in_stage_table, "Time in stage")
         self.details.addTab(self.hazards, "Hazard ratios")
         self.details.addTab(self.emissions, "Observation probabilities")
         self.details.addTab(self.contact_rates, "Unscheduled contacts")
@@ -182,7 +182,7 @@ class ModelPanel(QWidget):
         self.heading.setText(f"<b>{self.model.name}</b> — {label}, {fitted}. Rates and probabilities are "
                              "estimates; advisory only.")
         self.summary_view.set_model(self.model, self.version)
-        self._fill_sojourn(summary)
+        self._fill_time_in_stage(summary)
         self._fill_hazards(summary)
         self._fill_emissions()
         self._fill_contact_rates(summary)
@@ -204,14 +204,14 @@ class ModelPanel(QWidget):
         except InputError:
             return None
 
-    def _fill_sojourn(self, summary) -> None:
+    def _fill_time_in_stage(self, summary) -> None:
         if summary is not None and summary.mean_time_in_stage:
             rows = [(e.stage or e.name, f"{e.estimate:,.1f}", _interval(e)) for e in summary.mean_time_in_stage]
         else:
             q = self.model.generator()
             rows = [(s, f"{-1 / q[r, r]:,.1f}" if q[r, r] < 0 else "no way out", "–")
                     for r, s in enumerate(self.model.stages)]
-        _fill(self.sojourn, rows)
+        _fill(self.time_in_stage_table, rows)
 
     def _fill_hazards(self, summary) -> None:
         if summary is not None and summary.hazard_ratios:

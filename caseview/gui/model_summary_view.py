@@ -24,7 +24,7 @@ class ModelSummaryView(QTextBrowser):
         if model is None:
             self.setHtml("<p>No model loaded.</p>")
             return
-        summary = getattr(version, "fit_summary", None)
+        summary = None if version is None else version.fit_summary
         sentences = model_sentences(model, summary)
         source = ("fitted to this caseload; the ranges in brackets are 95% intervals" if summary
                   else "as entered, not fitted to this caseload yet (no ranges)")

@@ -14,6 +14,7 @@ from PySide6.QtWidgets import (QComboBox, QDoubleSpinBox, QFileDialog, QHBoxLayo
                                QSpinBox, QSplitter, QVBoxLayout, QWidget)
 
 from caseview import ADVISORY_NOTICE
+from caseview.operations import DEFAULT_SEED
 
 from .outlook_targeting import TargetingArea
 
@@ -170,7 +171,7 @@ class OutlookPanel(QWidget):
         referrals = self.referrals.currentData()
         return {"months": self.months.value(),
                 "referrals": self.referral_rate.value() if referrals == "fixed" else referrals,
-                "uncertainty": self.uncertainty.currentData(), "draws": self.draws.value(), "seed": 1,
+                "uncertainty": self.uncertainty.currentData(), "draws": self.draws.value(), "seed": DEFAULT_SEED,
                 "coordinator": self.coordinator.currentData()}
 
     def compute(self) -> None:

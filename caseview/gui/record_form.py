@@ -212,6 +212,6 @@ class RecordForm(QDialog):
 
 
 def _iso(day: int) -> str:
-    from caseview.scoring import from_day
+    from caseview.dates import day_text
 
-    return from_day(day).isoformat()
+    return day_text(day)

@@ -20,12 +20,7 @@ class ReportDialog(QDialog):
         self.setWindowTitle("Team-meeting report")
         self.jobs = JobRunner(self, max_threads=1)
         layout = QVBoxLayout(self)
-        try:
-            import caseview.reports  # noqa: F401
-            self.available = True
-        except ImportError:
-            self.available = False
-        note = QLabel(ADVISORY_NOTICE if self.available else "Reports are not available yet in this build.")
+        note = QLabel(ADVISORY_NOTICE)
         note.setWordWrap(True)
         layout.addWidget(note)
         form = QFormLayout()
@@ -67,7 +62,6 @@ class ReportDialog(QDialog):
         layout.addWidget(self.message)
         self.buttons = QDialogButtonBox(QDialogButtonBox.Close)
         self.make = self.buttons.addButton("Make report", QDialogButtonBox.ActionRole)
-        self.make.setEnabled(self.available)
         self.make.clicked.connect(self.start)
         self.buttons.rejected.connect(self.reject)
         layout.addWidget(self.buttons)

@@ -41,7 +41,7 @@ class RiskQueue(QWidget):
         self.window = window  # for the workspace, the actor and error messages only
         self.loaded = None
         self.model = RiskQueueModel(self)
-        self.placeholder = QLabel("Follow-up flags are not available yet: open a workspace to see flagged cases.")
+        self.placeholder = QLabel("Open a workspace to see its flagged cases.")
         self.placeholder.setWordWrap(True)
         self.coordinator = QComboBox()
         self.coordinator.setAccessibleName("Show the flags of one coordinator")
@@ -159,12 +159,6 @@ class RiskQueue(QWidget):
     def set_caseload(self, loaded) -> None:
         self.loaded = loaded
         a = loaded.assessment
-        if a is None:
-            self.placeholder.setText("Follow-up flags are not available yet; the caseload table is ordered by "
-                                     "the chance of reaching a follow-up stage.")
-            self._set_available(False)
-            self.model.set_rows(None, [])
-            return
         self._set_available(True)
         self.coordinator.blockSignals(True)
         current = self.coordinator.currentData() if self.coordinator.count() else ALL
@@ -250,7 +244,7 @@ class RiskQueue(QWidget):
 
     def reasons_arrived(self, case_rows) -> None:
         """Reasons for ``case_rows`` were just worked out (by the window's background job)."""
-        if self.loaded is None or self.loaded.assessment is None or not self.rows.size:
+        if self.loaded is None or not self.rows.size:
             return
         self.model.dataChanged.emit(self.model.index(0, RULES), self.model.index(self.model.rowCount() - 1, RULES))
         selected = self.selected_row()
@@ -289,7 +283,7 @@ class RiskQueue(QWidget):
 
     def _selection_changed(self) -> None:
         r = self.selected_row()
-        if r < 0 or self.loaded is None or self.loaded.assessment is None:
+        if r < 0 or self.loaded is None:
             return
         a = self.loaded.assessment
         if not a.has_reasons(r):
@@ -302,7 +296,7 @@ class RiskQueue(QWidget):
         if contacts:
             lines.append("Each of the last contacts (the chance with it, compared with leaving it out): "
                          + " ".join(html.escape(c.sentence()) for c in contacts[:3]))
-        note = "" if a.review_note is None else str(a.review_note[r] or "")
+        note = str(a.review_note[r] or "")
         if note:
             lines.append(f"Latest review note ({html.escape(str(a.reviewed_by[r]))}): “{html.escape(note)}”")
         self.reasons.setText("<br>".join(lines))
@@ -360,12 +354,7 @@ class RiskQueue(QWidget):
         except Exception as exc:  # a failed write is never silent (issue 12, item 1)
             self.window.show_error(f"review of {case_id} was not recorded: {type(exc).__name__}: {exc}")
             return False
-        new_status = row.status
-        a = self.loaded.assessment
-        a.review_status[r] = new_status
-        a.reviewed_by[r], a.reviewed_at[r] = row.actor, row.at_utc
-        if a.review_note is not None:
-            a.review_note[r] = row.note or ""
+        new_status = row.status  # record_review has written it into the assessment the queue shows
         self.model.case_changed(r)
         self._fill_supervisor()
         self._update_buttons(new_status)

@@ -132,7 +132,7 @@ class RiskQueueModel(QAbstractTableModel):
         if column == REVIEW:
             return str(self.status[r] or "new")
         if column == NOTE:
-            return "" if a.review_note is None else str(a.review_note[r] or "")
+            return str(a.review_note[r] or "")
         if column == RULES:
             return str(a.flags[r]).replace("_", " ").replace(";", ", ")
         return ""

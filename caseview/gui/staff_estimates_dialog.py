@@ -25,7 +25,7 @@ from PySide6.QtGui import QBrush, QColor, QFont
 from PySide6.QtWidgets import (QDialog, QDialogButtonBox, QHBoxLayout, QLabel, QLineEdit, QListWidget,
                                QListWidgetItem, QPlainTextEdit, QSplitter, QTabWidget, QVBoxLayout, QWidget)
 
-from hmm.fitting.staff_estimates import model_from_staff_estimates, staff_estimate_problems, staff_estimates_from_model
+from caseview.staff_estimates_file import model_from_staff_estimates, staff_estimate_problems, staff_estimates_from_model
 
 from . import theme
 from .staff_estimates_tables import NOT_CHECKED, CheckTable, HazardTable, StageTable

@@ -14,7 +14,7 @@ import textwrap
 from PySide6.QtCore import Qt, Signal
 from PySide6.QtWidgets import QComboBox, QHeaderView, QTableWidget, QTableWidgetItem
 
-from hmm.fitting.staff_estimates import CheckEstimate, UsualResult, check_probabilities
+from caseview.staff_estimates_file import CheckEstimate, UsualResult, check_probabilities
 
 NOT_CHECKED = "(not checked)"
 _VALUE = Qt.UserRole + 1          # exact number behind a rounded cell text

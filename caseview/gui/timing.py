@@ -85,7 +85,7 @@ def measure_reasons(loaded) -> dict:
     from .risk_queue import FIRST_REASONS
 
     a = loaded.assessment
-    if a is None or not hasattr(a, "explain_cases"):
+    if a is None:
         return {}
     queue = queue_rows(a)[:FIRST_REASONS]  # the window's first step: the top of the risk queue
     result = {"n_flagged": int(np.count_nonzero(a.is_flagged))}

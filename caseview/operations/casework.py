@@ -78,7 +78,7 @@ class ContactChange:
 
 # ------------------------------------------------------------------ validation (the import's rules)
 def _day(date) -> int:
-    from ..scoring import parse_date, to_day
+    from ..dates import parse_date, to_day
 
     if isinstance(date, dt.date):
         return to_day(date)
@@ -114,11 +114,8 @@ def _validated(ws, source: str, case_id: str, date, coordinator: str, values: di
     cells = [str(case_id), date if isinstance(date, str) else str(date), coordinator or "",
              *[str(values.get(name, "") or "") for name in channels],
              *[_number_text(covariates.get(name)) for name in model.covariates], stage_known or ""]
-    extra = {}
-    if "covariate_ranges" in getattr(Rules, "__dataclass_fields__", {}):  # the import's range check, once landed
-        extra["covariate_ranges"] = getattr(model, "range_of", {})
     rules = Rules(channels=channels, covariates=tuple(model.covariates), stages=tuple(model.stages),
-                  present=tuple(columns), **extra)
+                  present=tuple(columns), covariate_ranges=model.range_of)
     problems = Problems(source)
     validator = ChunkValidator(rules, problems, lambda line: "the contact")
     encoded = validator.validate(1, pd.DataFrame([cells], columns=list(range(len(columns))), dtype=object))
@@ -149,20 +146,15 @@ def _with_kind(batch, contact_kind, source: str):
 
 def _existing_case(ws, case_id: str, source: str) -> str:
     """The stored case that a typed ID names (the workspace's one lookup, letter case ignored)."""
-    if hasattr(ws, "find_case"):
-        return ws.find_case(case_id)
-    return _case_code(ws, case_id, source)
+    return ws.find_case(case_id)
 
 
 def _case_code(ws, case_id: str, source: str) -> str:
     """The case ID as the import would store it (checked and screened like an imported one)."""
-    if hasattr(ws, "find_case"):
-        from ..errors import InputError as _Missing
-
-        try:
-            return ws.find_case(case_id)  # an existing case, however it was typed
-        except _Missing:
-            pass  # a new case: checked below like an imported ID
+    try:
+        return ws.find_case(case_id)  # an existing case, however it was typed
+    except InputError:
+        pass  # a new case: checked below like an imported ID
     model, _ = ws.current_model()
     covariates = {name: 0 for name in model.covariates}
     batch = _validated(ws, source, case_id, "2000-01-01", "", {}, covariates, "")
@@ -198,7 +190,8 @@ def contact_form_defaults(ws, case_id: str, date=None) -> dict:
 
 def case_estimate(ws, case_id: str, as_of, horizon_days: float = 90.0) -> CaseEstimate:
     """The case's stage probabilities on ``as_of`` from its current contacts (reads only that case)."""
-    from ..scoring import from_day, score_loaded
+    from ..dates import from_day
+    from ..scoring import score_loaded
 
     model, version = ws.current_model()
     day = _day(as_of)
@@ -312,7 +305,7 @@ def record_contact(ws, case_id: str, date, actor: str, values: dict | None = Non
     if new_case is False and not exists:
         raise InputError(f"{source}: case {code!r} does not exist (nothing was stored)")
     if not exists and not (coordinator or "").strip():
-        raise InputError(f"{source}: case {code!r} is new; give its coordinator (--coordinator C2) to create it "
+        raise InputError(f"{source}: case {code!r} is new; give its coordinator (for example C2) to create it "
                          "(nothing was stored)")
     given = dict(covariates or {})
     carried = tuple(name for name in ws.current_model()[0].covariates
@@ -321,7 +314,7 @@ def record_contact(ws, case_id: str, date, actor: str, values: dict | None = Non
     if missing:
         why = "it has no earlier contact" if exists else "it is a new case"
         raise InputError(f"{source}: covariate {missing[0]!r} needs a value because {why} to carry it over from; "
-                         f"give --covariate {missing[0]}=NUMBER (nothing was stored)")
+                         f"give {missing[0]} a number (nothing was stored)")
     for name in carried:
         given[name] = defaults["covariates"][name]
     batch = _validated(ws, source, code, date_text, coordinator or "", dict(values or {}), given, stage_known or "")
@@ -353,7 +346,7 @@ def _looks_like_date(text: str) -> bool:
 def _reason(reason: str, source: str) -> str:
     text = " ".join(str(reason or "").split())
     if not text:
-        raise InputError(f"{source}: a reason is required (--reason TEXT); nothing was stored")
+        raise InputError(f"{source}: a reason is required; nothing was stored")
     if len(text) > 500:
         raise InputError(f"{source}: the reason is {len(text)} characters long; expected at most 500 "
                          "(nothing was stored)")

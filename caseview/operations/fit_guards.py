@@ -64,7 +64,7 @@ def fitted_model_to_save(fitted, timelines):
         When the log-likelihood is not a finite number, or the fitted rates overflow over the
         covariate values seen (nothing is saved).
     """
-    log_likelihood = getattr(fitted, "log_likelihood", None)
+    log_likelihood = fitted.log_likelihood
     if log_likelihood is None or not np.isfinite(log_likelihood):
         raise FitRefused(f"the fit failed: its log-likelihood is {log_likelihood} (some case is impossible under "
                          "the model); nothing was saved")

@@ -21,19 +21,26 @@ from __future__ import annotations
 
 import datetime as dt
 from dataclasses import dataclass
+from typing import TYPE_CHECKING
 
 import numpy as np
 
+from hmm.random_state import random_generator
+
 from ..errors import InputError
+from . import DEFAULT_SEED
+
+if TYPE_CHECKING:
+    from hmm import StageModel
+    from hmm.fitting import FitResult, FitSummary, GoodnessOfFit
+
+    from ..storage.caseload import Caseload
 
 __all__ = ["FitOptions", "FitInputs", "FitOutcome", "SavedFit", "FitPreview", "FitCheckOptions", "FitCheckOutcome",
            "fit_inputs", "inputs_from_caseload", "compute_fit", "save_fit", "make_version_current", "run_fit",
            "preview_fit", "compute_fit_check", "record_fit_check", "run_fit_check", "stored_fit_summary",
            "stored_fit_failed",
-           "WINDOW_SEED"]
-
-#: The seed the window uses for extra starts and simulated caseloads (the command line's default too).
-WINDOW_SEED = 1
+           "DEFAULT_SEED"]
 
 
 @dataclass(frozen=True)
@@ -41,7 +48,7 @@ class FitOptions:
     """How to fit: ``starts`` seeded from ``seed``; ``intervals`` ``auto`` | ``profile`` | ``wald``."""
 
     starts: int = 3
-    seed: int = WINDOW_SEED
+    seed: int = DEFAULT_SEED
     penalised: bool = False
     intervals: str = "auto"
     max_iterations: int = 500
@@ -70,9 +77,9 @@ class FitInputs:
         None: every stored contact.
     """
 
-    model: object
+    model: StageModel
     version_id: int | None
-    caseload: object
+    caseload: Caseload
     contacts_as_of: dt.date | None
     entered_not_fitted: bool = False
 
@@ -92,8 +99,8 @@ class FitOutcome:
 
     inputs: FitInputs
     options: FitOptions
-    result: object            # hmm.fitting.FitResult
-    summary: object           # hmm.fitting.FitSummary, with provenance
+    result: FitResult
+    summary: FitSummary       # with provenance
 
 
 @dataclass(frozen=True)
@@ -103,7 +110,7 @@ class SavedFit:
     outcome: FitOutcome
     version_id: int
     made_current: bool
-    model: object = None      # hmm.StageModel as stored (covariate ranges seen at fit time filled in)
+    model: StageModel | None = None      # as stored (covariate ranges seen at fit time filled in)
 
     @property
     def note(self) -> str:
@@ -112,7 +119,7 @@ class SavedFit:
 
 def fit_inputs(ws, as_of: dt.date | None = None) -> FitInputs:
     """The current model and the contacts on or before ``as_of`` (all when None)."""
-    from ..scoring import to_day
+    from ..dates import to_day
 
     model, version = ws.current_model()
     caseload = ws.load_caseload(model, as_of_day=None if as_of is None else to_day(as_of))
@@ -137,7 +144,7 @@ def compute_fit(inputs: FitInputs, options: FitOptions, callback=None, on_progre
     options.check()
     refuse_unscorable_cases(inputs.caseload, inputs.model)   # the same refusal from both faces
     result = run_guarded(lambda: fit_model(
-        inputs.model, inputs.timelines, starts=options.starts, rng=np.random.default_rng(options.seed),
+        inputs.model, inputs.timelines, starts=options.starts, rng=random_generator(options.seed),
         penalised=options.penalised, callback=callback, max_iterations=options.max_iterations,
         intervals=options.intervals, on_progress=on_progress,
         observed_until=observation_end_day(inputs.timelines)))
@@ -239,7 +246,8 @@ def preview_fit(outcome: FitOutcome, as_of: dt.date, horizon_days: float, rules=
     earlier saved run (a sharp rise) are evaluated without one, the same way for both models.
     """
     from ..followup import assess_scores
-    from ..scoring import score_loaded, to_day
+    from ..dates import to_day
+    from ..scoring import score_loaded
 
     day = to_day(as_of)
     caseload = outcome.inputs.caseload
@@ -268,7 +276,7 @@ class FitCheckOptions:
     covariate_groups: bool = True
     bootstrap: int = 99
     refit: bool = False
-    seed: int = WINDOW_SEED
+    seed: int = DEFAULT_SEED
     time_bins: int = 12
 
     def check(self, model) -> None:
@@ -286,7 +294,7 @@ class FitCheckOptions:
 class FitCheckOutcome:
     inputs: FitInputs
     options: FitCheckOptions
-    result: object            # hmm.fitting.GoodnessOfFit
+    result: GoodnessOfFit
 
 
 def compute_fit_check(inputs: FitInputs, options: FitCheckOptions, callback=None) -> FitCheckOutcome:
@@ -301,7 +309,7 @@ def compute_fit_check(inputs: FitInputs, options: FitCheckOptions, callback=None
         result = goodness_of_fit(inputs.model, inputs.timelines, channel=options.channel, group_by=options.group_by,
                                  gap_bands=options.gap_bands, covariate_groups=options.covariate_groups,
                                  bootstrap=options.bootstrap, refit=options.refit,
-                                 rng=np.random.default_rng(options.seed), time_bins=options.time_bins,
+                                 rng=random_generator(options.seed), time_bins=options.time_bins,
                                  callback=callback)
     except ValueError as exc:
         raise InputError(f"cannot check the fit: {exc}") from None

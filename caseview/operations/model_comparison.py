@@ -10,11 +10,16 @@ from __future__ import annotations
 
 import datetime as dt
 from dataclasses import dataclass
+from typing import TYPE_CHECKING
 
-import numpy as np
+from hmm.random_state import random_generator
 
 from ..errors import InputError
-from .fitting import WINDOW_SEED, stored_fit_failed, stored_fit_summary
+from . import DEFAULT_SEED
+from .fitting import stored_fit_failed, stored_fit_summary
+
+if TYPE_CHECKING:
+    from hmm.fitting import FitSummary
 
 __all__ = ["VersionComparison", "compare_versions"]
 
@@ -44,8 +49,8 @@ class VersionComparison:
 
     first: int
     second: int
-    first_summary: object
-    second_summary: object
+    first_summary: FitSummary
+    second_summary: FitSummary
     aic_difference: float
     bic_difference: float
     restricted: int | None
@@ -66,32 +71,32 @@ def _fitted(versions: dict, vid: int):
     from ..modelfile import parse_model
 
     if vid not in versions:
-        raise InputError(f"--compare: no model version {vid} (versions: {', '.join(map(str, versions))})")
+        raise InputError(f"comparison: no model version {vid} (versions: {', '.join(map(str, versions))})")
     if stored_fit_failed(versions[vid]):   # stored by an earlier caseview, whose failed fits were saved
-        raise InputError(f"--compare: model version {vid} has no log-likelihood to compare (its fit failed)")
+        raise InputError(f"comparison: model version {vid} has no log-likelihood to compare (its fit failed)")
     summary = stored_fit_summary(versions[vid])
     if summary is None:
-        raise InputError(f"--compare: model version {vid} was not fitted (no log-likelihood to compare)")
+        raise InputError(f"comparison: model version {vid} was not fitted (no log-likelihood to compare)")
     if summary.penalised:
-        raise InputError(f"--compare: model version {vid} is a penalised fit; a penalised log-likelihood is not a "
+        raise InputError(f"comparison: model version {vid} is a penalised fit; a penalised log-likelihood is not a "
                          "maximum of the likelihood, so likelihood-ratio tests and AIC/BIC do not apply (refit "
-                         "without --penalised to compare)")
+                         "without the penalty to compare)")
     if summary.log_likelihood is None:
-        raise InputError(f"--compare: model version {vid} has no log-likelihood to compare (its fit failed)")
+        raise InputError(f"comparison: model version {vid} has no log-likelihood to compare (its fit failed)")
     return summary, parse_model(versions[vid].json_text, source=f"model version {vid}")
 
 
-def compare_versions(ws, first: int, second: int, bootstrap: int = 0, seed: int = WINDOW_SEED,
+def compare_versions(ws, first: int, second: int, bootstrap: int = 0, seed: int = DEFAULT_SEED,
                      callback=None) -> VersionComparison:
     """Compare two fitted versions of ``ws``; ``bootstrap`` > 0 adds a parametric-bootstrap p-value."""
     from hmm.fitting.compare import bootstrap_p_value, information_criteria_difference, likelihood_ratio_test, nesting
 
     if bootstrap < 0:
-        raise InputError(f"--bootstrap: expected a whole number >= 0, got {bootstrap}")
+        raise InputError(f"bootstrap replicates: expected a whole number >= 0, got {bootstrap}")
     versions = {v.id: v for v in ws.model_versions()}
     (a, model_a), (b, model_b) = _fitted(versions, first), _fitted(versions, second)
     if (a.n_cases, a.n_contacts, a.contacts_as_of) != (b.n_cases, b.n_contacts, b.contacts_as_of):
-        raise InputError(f"--compare: versions {first} and {second} were fitted to different contacts "
+        raise InputError(f"comparison: versions {first} and {second} were fitted to different contacts "
                          f"({a.n_cases} cases / {a.n_contacts} contacts vs {b.n_cases} / {b.n_contacts}); "
                          "refit both to the same contacts")
     diff = information_criteria_difference(a, b)
@@ -104,13 +109,13 @@ def compare_versions(ws, first: int, second: int, bootstrap: int = 0, seed: int 
         statistic, df, p_chi = test.statistic, test.df, test.p_value
         if bootstrap:
             as_of = None if low.contacts_as_of is None else dt.date.fromisoformat(low.contacts_as_of)
-            from ..scoring import to_day
+            from ..dates import to_day
 
             caseload = ws.load_caseload(low_model, as_of_day=None if as_of is None else to_day(as_of))
             p_boot, _ = bootstrap_p_value(low_model, high_model, caseload.timelines, statistic, bootstrap,
-                                          np.random.default_rng(seed), callback=callback)
+                                          random_generator(seed), callback=callback)
     elif bootstrap:
-        raise InputError(f"--bootstrap: versions {first} and {second} are not nested ({nest.reason}); a "
+        raise InputError(f"bootstrap p-value: versions {first} and {second} are not nested ({nest.reason}); a "
                          "likelihood-ratio test does not apply")
     return VersionComparison(first, second, a, b, diff["aic"], diff["bic"],
                              low_id if nest.nested else None, high_id if nest.nested else None, nest.nested,

@@ -13,7 +13,10 @@ import math
 
 import numpy as np
 
+from hmm.random_state import random_generator
+
 from caseview.errors import InputError
+from caseview.operations import DEFAULT_SEED
 
 UNCERTAINTY_CHOICES = ("none", "parameters")
 AMONG_CHOICES = ("flagged", "all")
@@ -43,7 +46,7 @@ def _check_coordinator(scores, coordinator):
 
 
 def run_outlook(ws, as_of: dt.date, months: int = 12, referrals="auto", uncertainty: str = "none", draws: int = 200,
-                seed: int = 1, coordinator: str | None = None, callback=None):
+                seed: int = DEFAULT_SEED, coordinator: str | None = None, callback=None):
     """The caseload outlook as of ``as_of`` (:class:`caseview.followup.outlook.Outlook`).
 
     Parameters
@@ -68,21 +71,21 @@ def run_outlook(ws, as_of: dt.date, months: int = 12, referrals="auto", uncertai
     model, version = ws.current_model()
     scale = (lambda lo, hi: (lambda f: callback(lo + (hi - lo) * f))) if callback else (lambda lo, hi: None)
     if uncertainty == "parameters":
-        draw_models(model, version, 1, np.random.default_rng(seed))      # refuses before any long work
+        draw_models(model, version, 1, random_generator(seed))      # refuses before any long work
     scores = score_caseload(ws, as_of, 0.0, model=model, callback=scale(0.0, 0.4))   # no horizon forecast needed
     return outlook_from_scores(scores, version, as_of, months, referrals, uncertainty, draws, seed, coordinator,
                                callback=scale(0.4, 1.0))
 
 
 def _check_options(months, uncertainty, draws, seed) -> tuple:
-    months = _check_int(months, "--months", 1, MAX_MONTHS)
+    months = _check_int(months, "number of month ends", 1, MAX_MONTHS)
     if uncertainty not in UNCERTAINTY_CHOICES:
-        raise InputError(f"--uncertainty: expected one of {', '.join(UNCERTAINTY_CHOICES)}, got {uncertainty!r}")
-    return months, _check_int(draws, "--draws", 1, MAX_DRAWS), _check_int(seed, "--seed", 0, 2**32 - 1)
+        raise InputError(f"parameter uncertainty: expected one of {', '.join(UNCERTAINTY_CHOICES)}, got {uncertainty!r}")
+    return months, _check_int(draws, "number of parameter draws", 1, MAX_DRAWS), _check_int(seed, "seed", 0, 2**32 - 1)
 
 
 def outlook_from_scores(scores, version, as_of: dt.date, months: int = 12, referrals="auto", uncertainty: str = "none",
-                        draws: int = 200, seed: int = 1, coordinator: str | None = None, callback=None,
+                        draws: int = 200, seed: int = DEFAULT_SEED, coordinator: str | None = None, callback=None,
                         now_sample: int | None = None):
     """:func:`run_outlook` for an already scored caseload (the report uses its assessment's scores).
 
@@ -96,9 +99,9 @@ def outlook_from_scores(scores, version, as_of: dt.date, months: int = 12, refer
 
     months, draws, seed = _check_options(months, uncertainty, draws, seed)
     model = scores.model
-    rng = np.random.default_rng(seed)
+    rng = random_generator(seed)
     drawn = draw_models(model, version, draws, rng) if uncertainty == "parameters" else None
-    scores = _with_version(scores, getattr(version, "id", None))
+    scores = _with_version(scores, None if version is None else version.id)   # None: not from a workspace
     coordinator = _check_coordinator(scores, coordinator)
     open_cases = open_case_rows(scores, coordinator)
     mine = np.ones(scores.n_cases, dtype=bool) if coordinator is None else \
@@ -113,7 +116,7 @@ def outlook_from_scores(scores, version, as_of: dt.date, months: int = 12, refer
     result = compute_outlook(scores, as_of, months, assumption, open_cases, drawn, rates,
                              seed if drawn is not None else None, coordinator, callback=callback,
                              now_sample=now_sample, now_rng=rng)
-    return replace(result, not_scored=getattr(scores, "unscorable", None))
+    return replace(result, not_scored=scores.unscorable)
 
 
 def _with_version(scores, version_id):
@@ -167,13 +170,13 @@ def check_horizon(horizon) -> float:
     try:
         value = float(horizon)
     except (TypeError, ValueError):
-        raise InputError(f"--horizon: expected a number of days > 0, got {horizon!r}") from None
+        raise InputError(f"horizon: expected a number of days > 0, got {horizon!r}") from None
     if not math.isfinite(value) or value <= 0:
-        raise InputError(f"--horizon: expected a number of days > 0, got {horizon!r}")
+        raise InputError(f"horizon: expected a number of days > 0, got {horizon!r}")
     return value
 
 
-def run_targeting(ws, as_of: dt.date, changes, places, horizon=180.0, among: str = "flagged", seed: int = 1,
+def run_targeting(ws, as_of: dt.date, changes, places, horizon=180.0, among: str = "flagged", seed: int = DEFAULT_SEED,
                   callback=None):
     """Rank cases for a limited number of places (:class:`caseview.followup.targeting.Targeting`).
 
@@ -200,13 +203,13 @@ def _check_targeting(model, changes, places, horizon, among, seed) -> tuple:
     from caseview.followup.whatif import check_changes, parse_changes
 
     if among not in AMONG_CHOICES:
-        raise InputError(f"--among: expected one of {', '.join(AMONG_CHOICES)}, got {among!r}")
-    places = _check_int(places, "--places", 1, 10**7)
+        raise InputError(f"candidates: expected one of {', '.join(AMONG_CHOICES)}, got {among!r}")
+    places = _check_int(places, "number of places", 1, 10**7)
     horizon = check_horizon(horizon)
-    seed = _check_int(seed, "--seed", 0, 2**32 - 1)
+    seed = _check_int(seed, "seed", 0, 2**32 - 1)
     changes = parse_changes(changes, model) if isinstance(changes, (list, tuple)) else check_changes(changes, model)
     if not changes:
-        raise InputError("--set: give the change a place brings, for example --set balance_programme=1")
+        raise InputError("the change a place brings is missing: give it as NAME=VALUE, for example balance_programme=1")
     return changes, places, horizon, among, seed
 
 
@@ -227,7 +230,7 @@ def targeting_from_assessment(assessment, changes, places, horizon=180.0, among:
         pool = pool[np.asarray(assessment.is_flagged, dtype=bool)[pool]]
     if pool.size == 0:
         raise InputError(f"no {'flagged ' if among == 'flagged' else ''}open cases as of {scores.as_of.isoformat()} "
-                         "to rank" + (" (try --among all)" if among == "flagged" else ""))
+                         "to rank" + (" (try all open cases as candidates)" if among == "flagged" else ""))
     return rank_places(scores, pool, changes, places, horizon, among, seed, left_out)
 
 

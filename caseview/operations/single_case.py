@@ -183,16 +183,15 @@ def _timelines(old, new, splice: _Splice):
     parts = {"offsets": splice.offsets(old.offsets, count).astype(np.int64), "times": rows("times"),
              "observations": rows("observations"), "allowed_stages": rows("allowed_stages"),
              "covariates": rows("covariates")}
-    if "unscheduled" in getattr(Timelines, "__dataclass_fields__", {}):  # contact_kind, when recorded
-        old_kind, new_kind = old.unscheduled, (new.unscheduled if splice.keep else None)
-        if old_kind is None and new_kind is None:
-            parts["unscheduled"] = None
-        else:
-            if old_kind is None:
-                old_kind = np.zeros(old.n_contacts, dtype=bool)
-            if splice.keep and new_kind is None:
-                new_kind = np.zeros(new.n_contacts, dtype=bool)
-            parts["unscheduled"] = splice.per_contact(old_kind, new_kind, old.offsets)
+    old_kind, new_kind = old.unscheduled, (new.unscheduled if splice.keep else None)   # contact_kind
+    if old_kind is None and new_kind is None:
+        parts["unscheduled"] = None
+    else:
+        if old_kind is None:
+            old_kind = np.zeros(old.n_contacts, dtype=bool)
+        if splice.keep and new_kind is None:
+            new_kind = np.zeros(new.n_contacts, dtype=bool)
+        parts["unscheduled"] = splice.per_contact(old_kind, new_kind, old.offsets)
     # Every part was checked when it was loaded (the caseload, and the case alone), and the splice
     # keeps the case order, so the 1.2-million-row check of Timelines.__post_init__ is not run again.
     spliced = object.__new__(Timelines)
@@ -257,9 +256,7 @@ def _rescore_one(ws, loaded, case_id: str, include_closed: bool):
     new_scores = dataclasses.replace(scores, caseload=caseload, timelines=timelines,
                                      case_rows=np.arange(n, dtype=np.int64), **changes)
 
-    assessment = loaded.assessment
-    if assessment is not None:
-        assessment = _reassess(ws, assessment, new_scores, fresh, splice, case_id)
+    assessment = _reassess(ws, loaded.assessment, new_scores, fresh, splice, case_id)
     return dataclasses.replace(loaded, scores=new_scores, assessment=assessment), (row if keep else -1)
 
 
@@ -291,9 +288,8 @@ def _reassess(ws, old, new_scores, fresh, splice: _Splice, case_id: str):
     else:
         reasons.insert(splice.row, one.reasons[0])
     evaluation = old.evaluation
-    if evaluation is not None:
-        evaluation = RuleEvaluation(
-            fired=splice.per_case(evaluation.fired, one.evaluation.fired if keep else None),
-            values=splice.per_case(evaluation.values, one.evaluation.values if keep else None),
-            rule_names=evaluation.rule_names)
+    evaluation = RuleEvaluation(
+        fired=splice.per_case(evaluation.fired, one.evaluation.fired if keep else None),
+        values=splice.per_case(evaluation.values, one.evaluation.values if keep else None),
+        rule_names=evaluation.rule_names)
     return dataclasses.replace(old, scores=new_scores, reasons=reasons, evaluation=evaluation, **changes)

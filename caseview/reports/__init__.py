@@ -68,7 +68,7 @@ def report_format(path) -> str:
     """"pdf", "xlsx" or "csv" from the file extension, else InputError."""
     suffix = Path(path).suffix.lower()
     if suffix not in FORMATS:
-        raise InputError(f"--out {path}: unknown report type {suffix or '(no extension)'!r}; "
+        raise InputError(f"report file {path}: unknown report type {suffix or '(no extension)'!r}; "
                          f"expected a file name ending in .pdf, .xlsx or .csv")
     return FORMATS[suffix]
 
@@ -76,7 +76,7 @@ def report_format(path) -> str:
 def _as_date(value, what: str) -> dt.date | None:
     if value is None or isinstance(value, dt.date):
         return value
-    from caseview.scoring import parse_date
+    from caseview.dates import parse_date
 
     return parse_date(str(value), what)
 
@@ -114,10 +114,10 @@ def build_report(ws, as_of, out_path, *, horizon_days: float = 90, coordinator: 
 
     out_path = Path(out_path)
     kind = report_format(out_path)
-    as_of = _as_date(as_of, "--as-of")
-    since = _as_date(since, "--since")
+    as_of = _as_date(as_of, "as-of date")
+    since = _as_date(since, "changes since")
     if not out_path.parent.exists():
-        raise InputError(f"--out {out_path}: folder {out_path.parent} does not exist")
+        raise InputError(f"report file {out_path}: folder {out_path.parent} does not exist")
     progress = callback or (lambda fraction: None)
     data = collect_report_data(ws, as_of, horizon_days=float(horizon_days), coordinator=coordinator,
                                flagged_only=flagged_only, since=since, dates=dates, seed=seed, assess=assess,

@@ -9,12 +9,14 @@ from __future__ import annotations
 
 import numpy as np
 
+from caseview.dates import days_as_datetime64
+
 from . import style
 
 
 def _as_dates(day_numbers) -> np.ndarray:
     """Day numbers (days since 1970-01-01, float) -> numpy datetime64[D] for date axes."""
-    return np.round(np.asarray(day_numbers, dtype=float)).astype(np.int64).astype("datetime64[D]")
+    return days_as_datetime64(day_numbers)
 
 
 def _date_axis(ax) -> None:

@@ -9,14 +9,18 @@ from __future__ import annotations
 
 import datetime as dt
 from dataclasses import dataclass, field
+from typing import TYPE_CHECKING
 
 import numpy as np
 
 from caseview.errors import InputError
-from caseview.scoring import to_day
 
 from .deidentify import DateView, withhold_dates
 from .model_summary import ModelSummary, summarise_model
+
+if TYPE_CHECKING:
+    from caseview.followup.assess import CaseloadAssessment
+    from caseview.followup.outlook import Outlook
 
 #: Review statuses that count as "review done" (a supervisor has looked at the flag).
 REVIEW_DONE = ("acknowledged", "actioned", "dismissed")
@@ -84,7 +88,7 @@ class ReportData:
         Expected number of cases in each stage (sum of probabilities).
     """
 
-    assessment: object
+    assessment: CaseloadAssessment
     as_of: dt.date
     horizon_days: float
     coordinator: str | None
@@ -104,7 +108,7 @@ class ReportData:
     model: ModelSummary
     audit_head: str
     options: dict = field(default_factory=dict)
-    outlook: object | None = None   # caseview.followup.outlook.Outlook (reports/outlook_page.py)
+    outlook: Outlook | None = None   # reports/outlook_page.py
     outlook_note: str = ""
     not_scored: list = field(default_factory=list)  # [(case_id, coordinator, reason)] in scope, never in figures
 
@@ -146,9 +150,9 @@ def collect_report_data(ws, as_of: dt.date, *, horizon_days: float = 90.0, coord
             return assess_caseload(ws, date, horizon_days=horizon_days, callback=callback, reopen=False,
                                    include_closed=include_closed)
     if not np.isfinite(horizon_days) or horizon_days <= 0:
-        raise InputError(f"--horizon: expected a number of days > 0, got {horizon_days!r}")
+        raise InputError(f"horizon: expected a number of days > 0, got {horizon_days!r}")
     if since is not None and since >= as_of:
-        raise InputError(f"--since: expected a date before the as-of date {as_of.isoformat()}, "
+        raise InputError(f"changes since: expected a date before the as-of date {as_of.isoformat()}, "
                          f"got {since.isoformat()}")
     progress = callback or (lambda fraction: None)
     progress(0.0)
@@ -157,8 +161,8 @@ def collect_report_data(ws, as_of: dt.date, *, horizon_days: float = 90.0, coord
     scores = assessment.scores
     if scores.n_cases == 0:
         if scores.unscorable.n_cases:
-            raise InputError(f"--as-of {as_of.isoformat()}: no case can be scored; {scores.unscorable.summary()}")
-        raise InputError(f"--as-of {as_of.isoformat()}: no case has a contact on or before this date")
+            raise InputError(f"as of {as_of.isoformat()}: no case can be scored; {scores.unscorable.summary()}")
+        raise InputError(f"as of {as_of.isoformat()}: no case has a contact on or before this date")
     coordinators = np.asarray(scores.coordinators, dtype=object)
     in_scope = np.ones(scores.n_cases, dtype=bool)
     if coordinator:
@@ -330,7 +334,3 @@ def case_history(scores, rows: np.ndarray, n_points: int = 60) -> list:
             "projection": projection[i, keep],
         })
     return out
-
-
-def day_of(date: dt.date) -> int:
-    return to_day(date)

@@ -30,8 +30,10 @@ import re
 
 import numpy as np
 
+from hmm.random_state import random_generator
+
+from caseview.dates import from_day, timestamp_day, to_day  # noqa: F401  (timestamp_day: read from here too)
 from caseview.errors import InputError
-from caseview.scoring import from_day
 
 DATE_MODES = ("calendar", "relative", "shifted")
 
@@ -61,12 +63,12 @@ class DateView:
 
     def __init__(self, mode: str, first_contact_day, seed=None):
         if mode not in DATE_MODES:
-            raise InputError(f"--dates: expected one of {', '.join(DATE_MODES)}, got {mode!r}")
+            raise InputError(f"date mode: expected one of {', '.join(DATE_MODES)}, got {mode!r}")
         self.mode = mode
         self.first_contact_day = np.asarray(first_contact_day, dtype=np.int64)
         n = self.first_contact_day.shape[0]
         if mode == "shifted":
-            rng = np.random.default_rng(seed)
+            rng = random_generator(seed)
             size = rng.integers(1, MAX_SHIFT_DAYS + 1, size=n)
             sign = np.where(rng.random(n) < 0.5, -1, 1)
             self.offsets = (size * sign).astype(np.int64)
@@ -144,19 +146,6 @@ class DateView:
         return {"calendar": "", "relative": RELATIVE_NOTE, "shifted": SHIFTED_CAVEAT}[self.mode]
 
 
-def timestamp_day(timestamp) -> int | None:
-    """Days since 1970-01-01 of an ISO date or date-time text, or None if blank/unreadable."""
-    if timestamp is None:
-        return None
-    text = str(timestamp).strip()
-    if len(text) < 10:
-        return None
-    try:
-        return (dt.date.fromisoformat(text[:10]) - dt.date(1970, 1, 1)).days
-    except ValueError:
-        return None
-
-
 _ISO_DATE = re.compile(r"(?<!\d)(\d{4})-(\d{2})-(\d{2})(?!\d)")
 
 
@@ -171,7 +160,7 @@ def rewrite_dates(text: str, view: DateView, row: int) -> str:
 
     def replace(match):
         try:
-            day = (dt.date(int(match.group(1)), int(match.group(2)), int(match.group(3))) - dt.date(1970, 1, 1)).days
+            day = to_day(dt.date(int(match.group(1)), int(match.group(2)), int(match.group(3))))
         except ValueError:
             return "(date withheld)"
         return view.case_text(row, day)

@@ -16,56 +16,26 @@ import numpy as np
 
 from caseview.followup.wording import duration_with_interval, frequency_words
 
-from .model_summary import SojournRow, baseline_sojourn
-
-
-def _number(value):
-    try:
-        value = float(value)
-    except (TypeError, ValueError):
-        return None
-    return value if math.isfinite(value) else None
-
-
-def _stage_of(name: str, stages) -> str | None:
-    """'mean time in Stable (days)' -> 'Stable' (None when no stage matches)."""
-    text = str(name)
-    if text.startswith("mean time in "):
-        text = text[len("mean time in "):]
-    if text.endswith(" (days)"):
-        text = text[:-len(" (days)")]
-    return text if text in stages else None
+from .model_summary import as_fit_summary, baseline_time_in_stage, fitted_time_in_stage
 
 
 def time_in_stage(model, fit_summary=None) -> list:
-    """Mean time in each stage (days) with its 95% interval when the fit stored one.
+    """Mean time in each stage (days) with its 95% interval when the fit found an informative one.
 
     Parameters
     ----------
     model : hmm.StageModel
-    fit_summary : dict or None
-        The summary stored with the model version (``ModelVersion.fit_summary``); its
-        ``mean_time_in_stage`` rows (``name``, ``estimate``, ``lower``, ``upper``,
-        ``informative``) are used where present.
+    fit_summary : hmm.fitting.FitSummary, its stored JSON (``ModelVersion.fit_summary``) or None
+        Read with :func:`caseview.reports.model_summary.as_fit_summary`; the same rows as the
+        report's model page (:func:`~caseview.reports.model_summary.fitted_time_in_stage`).
 
     Returns
     -------
-    list[SojournRow], one per stage in model order; ``mean`` None for a stage nobody leaves.
+    list[TimeInStageRow], one per stage in model order; ``mean`` None for a stage nobody leaves.
     """
-    rows = {r.stage: r for r in baseline_sojourn(model)}
-    items = (fit_summary or {}).get("mean_time_in_stage") if isinstance(fit_summary, dict) else None
-    for item in items or []:
-        if not isinstance(item, dict):
-            continue
-        stage = _stage_of(item.get("name", ""), model.stages)
-        mean = _number(item.get("estimate"))
-        if stage is None or mean is None:
-            continue
-        lower, upper = _number(item.get("lower")), _number(item.get("upper"))
-        if item.get("informative") is False or item.get("fixed"):
-            lower = upper = None
-        rows[stage] = SojournRow(stage, mean, lower, upper)
-    return [rows[s] for s in model.stages]
+    fit = as_fit_summary(fit_summary)
+    fitted = fitted_time_in_stage(model, fit) if fit is not None else None
+    return fitted if fitted else baseline_time_in_stage(model)
 
 
 def _next_stages(model, stage_index: int) -> list:

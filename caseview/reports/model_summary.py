@@ -9,14 +9,18 @@ from __future__ import annotations
 
 import math
 from dataclasses import dataclass, field
+from typing import TYPE_CHECKING
 
 import numpy as np
+
+if TYPE_CHECKING:
+    from hmm.fitting import FitSummary
 
 NOT_FITTED = "rates not fitted to this caseload"
 
 
 @dataclass(frozen=True)
-class SojournRow:
+class TimeInStageRow:
     """Mean time in one stage (days) with an optional interval; ``mean`` None = absorbing."""
 
     stage: str
@@ -41,27 +45,39 @@ class ContactRateRow:
 _DAYS_PER_YEAR = 365.25
 
 
-def unscheduled_contacts_per_year(model, fit_summary: dict | None = None) -> list:
+def as_fit_summary(fit_summary) -> FitSummary | None:
+    """The one way readers here take a fit summary: a :class:`hmm.fitting.FitSummary`, or the JSON
+    stored with a model version read by :meth:`FitSummary.from_dict`; None when not fitted or when
+    the stored summary cannot be read (the model's own values are shown then)."""
+    from hmm.fitting import FitSummary
+
+    if not fit_summary:
+        return None
+    if isinstance(fit_summary, FitSummary):
+        return fit_summary
+    try:
+        return FitSummary.from_dict(fit_summary)
+    except ValueError:
+        return None
+
+
+def unscheduled_contacts_per_year(model, fit_summary=None) -> list:
     """Rows of unscheduled contacts per year in each stage (empty without the block).
 
-    Fitted values and intervals come from the stored fit summary (``unscheduled_contacts_per_year``,
-    written by :meth:`hmm.fitting.FitResult.to_summary`); otherwise the model's rates (covariates 0).
-    The window's model panel and the report both use this.
+    Fitted values and intervals come from the fit summary (a ``FitSummary`` or its stored JSON, read
+    by :func:`as_fit_summary`; written by :meth:`hmm.fitting.FitResult.to_summary`); otherwise the
+    model's rates (covariates 0). The window's model panel and the report both use this.
     """
-    block = getattr(model, "unscheduled_contacts", None)
+    block = model.unscheduled_contacts
     if block is None:
         return []
-    if hasattr(fit_summary, "to_dict"):   # a hmm.fitting.FitSummary rather than the stored JSON
-        fit_summary = fit_summary.to_dict()
-    stored = {}
-    for item in (fit_summary or {}).get("unscheduled_contacts_per_year") or []:
-        stored[item.get("name", "")] = item
+    fit = as_fit_summary(fit_summary)
+    stored = {e.name: e for e in fit.unscheduled_contacts_per_year} if fit is not None else {}
     rows = []
     for stage, rate in zip(model.stages, block.rates):
         item = stored.get(f"unscheduled contacts in {stage} (per year)")
-        if item is not None and _number(item.get("estimate")) is not None:
-            rows.append(ContactRateRow(stage, float(item["estimate"]), _number(item.get("lower")),
-                                       _number(item.get("upper"))))
+        if item is not None and _number(item.estimate) is not None:
+            rows.append(ContactRateRow(stage, float(item.estimate), _number(item.lower), _number(item.upper)))
         else:
             rows.append(ContactRateRow(stage, float(rate) * _DAYS_PER_YEAR))
     return rows
@@ -75,8 +91,8 @@ class ModelSummary:
     note: str
     fitted: bool
     statistics: list = field(default_factory=list)     # (label, text)
-    sojourn: list = field(default_factory=list)        # SojournRow
-    sojourn_source: str = ""
+    time_in_stage: list = field(default_factory=list)  # TimeInStageRow per stage
+    time_in_stage_source: str = ""
     follow_up_stages: tuple = ()
     covariates: tuple = ()
     unscheduled_per_year: list = field(default_factory=list)  # ContactRateRow; empty without the block
@@ -106,25 +122,27 @@ def format_statistic(value) -> str:
     return f"{number:,.2f}"
 
 
-def baseline_sojourn(model) -> list:
+def baseline_time_in_stage(model) -> list:
     """Mean time in each stage at all covariates 0: ``1 / (sum of rates out of the stage)`` days."""
     leave = -np.diag(model.generator())
-    return [SojournRow(stage, (1.0 / rate) if rate > 0 else None) for stage, rate in zip(model.stages, leave)]
+    return [TimeInStageRow(stage, (1.0 / rate) if rate > 0 else None) for stage, rate in zip(model.stages, leave)]
 
 
-def _fitted_sojourn(model, fit) -> list | None:
+def fitted_time_in_stage(model, fit: FitSummary) -> list | None:
+    """Mean time in each stage from a fit (:class:`TimeInStageRow` per stage, model order), with its interval
+    when informative (else ``note`` says why not); None when the fit reported no mean times."""
     fitted = fit.mean_time_by_stage()
     if not fitted:
         return None
     rows = []
-    for row in baseline_sojourn(model):
+    for row in baseline_time_in_stage(model):
         e = fitted.get(row.stage)
         if e is None:
             rows.append(row)
         elif e.interval_is_informative:
-            rows.append(SojournRow(row.stage, e.estimate, e.lower, e.upper, e.note))
+            rows.append(TimeInStageRow(row.stage, e.estimate, e.lower, e.upper, e.note))
         else:
-            rows.append(SojournRow(row.stage, e.estimate, None, None, e.note or "no useful interval"))
+            rows.append(TimeInStageRow(row.stage, e.estimate, None, None, e.note or "no useful interval"))
     return rows
 
 
@@ -149,7 +167,7 @@ def summarise_model(model, version) -> ModelSummary:
     from hmm.fitting import FitSummary
 
     fit = None
-    statistics, sojourn, source, kind = [], None, "", ""
+    statistics, time_in_stage, source, kind = [], None, "", ""
     if version is not None and version.fit_summary:
         try:
             fit = FitSummary.from_dict(version.fit_summary)
@@ -158,19 +176,19 @@ def summarise_model(model, version) -> ModelSummary:
     if fit is not None:
         statistics = _statistics(fit)
         kind = fit.interval_kind
-        sojourn = _fitted_sojourn(model, fit)
-        if sojourn:
+        time_in_stage = fitted_time_in_stage(model, fit)
+        if time_in_stage:
             source = f"fitted to this caseload; {fit.interval_label()}"
-    if not sojourn:
-        sojourn = baseline_sojourn(model)
+    if not time_in_stage:
+        time_in_stage = baseline_time_in_stage(model)
         source = ("from the fitted rates with all covariates 0" if fit
                   else f"from the model's rates with all covariates 0 ({NOT_FITTED})")
     return ModelSummary(
         name=model.name, version_id=None if version is None else version.id,
         created_utc="" if version is None else str(version.created_utc or ""),
         note="" if version is None else str(version.note or ""),
-        fitted=bool(version is not None and version.fit_summary), statistics=statistics, sojourn=sojourn,
-        sojourn_source=source, follow_up_stages=tuple(model.follow_up_stages), covariates=tuple(model.covariates),
+        fitted=bool(version is not None and version.fit_summary), statistics=statistics, time_in_stage=time_in_stage,
+        time_in_stage_source=source, follow_up_stages=tuple(model.follow_up_stages), covariates=tuple(model.covariates),
         interval_kind=kind,
-        unscheduled_per_year=unscheduled_contacts_per_year(model, None if version is None else version.fit_summary),
+        unscheduled_per_year=unscheduled_contacts_per_year(model, fit),
     )

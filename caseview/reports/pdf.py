@@ -280,10 +280,10 @@ def _model_page(data) -> Page:
         page.paragraph(NOT_FITTED.capitalize() + (": the current model's rates are as written in its model file."
                        if not m.fitted else ": the stored fit summary has no statistics."))
     page.heading("Mean time in each stage", size=style.BODY_SIZE + 1)
-    page.paragraph(f"Days before moving on, {m.sojourn_source}.", size=style.BODY_SIZE - 1, colour=style.MUTED)
-    has_interval = any(row.lower is not None and row.upper is not None for row in m.sojourn)
+    page.paragraph(f"Days before moving on, {m.time_in_stage_source}.", size=style.BODY_SIZE - 1, colour=style.MUTED)
+    has_interval = any(row.lower is not None and row.upper is not None for row in m.time_in_stage)
     rows = []
-    for row in m.sojourn:
+    for row in m.time_in_stage:
         cells = [row.stage, "absorbing" if row.mean is None else f"{row.mean:,.0f}"]
         if has_interval:
             cells.append(f"{row.lower:,.0f} to {row.upper:,.0f}" if row.lower is not None and row.upper is not None
@@ -296,14 +296,7 @@ def _model_page(data) -> Page:
     _unscheduled_contacts_table(page, m)
     page.paragraph(f"Follow-up stages: {', '.join(m.follow_up_stages) or 'none'}. Covariates: "
                    f"{', '.join(m.covariates) or 'none'}.", size=style.BODY_SIZE - 0.5)
-    rules = getattr(data.assessment, "rules", None)
-    items = []
-    try:
-        for rule in rules or ():
-            if getattr(rule, "enabled", True):
-                items.append(f"{rule.name} (threshold {rule.threshold:g})")
-    except TypeError:
-        items = []
+    items = [f"{rule.name} (threshold {rule.threshold:g})" for rule in data.assessment.rules if rule.enabled]
     if items:
         page.paragraph("Follow-up rules in use: " + "; ".join(items) + ".", size=style.BODY_SIZE - 0.5)
     page.heading("Audit trail", size=style.BODY_SIZE + 1)

@@ -7,8 +7,6 @@ them ``<name>_day_relative`` and fills them with days since the case's first con
 
 from __future__ import annotations
 
-import datetime as dt
-
 import numpy as np
 
 from caseview.followup.wording import points
@@ -58,7 +56,7 @@ def reason_text(data, r: int) -> str:
 
 def review_note(data, r: int) -> str:
     """The latest review note of case row ``r`` ('' when none; left out when the report is de-identified)."""
-    note = str(_column(getattr(data.assessment, "review_note", None), r) or "")
+    note = str(_column(data.assessment.review_note, r) or "")
     if note and data.dates.deidentified:
         return NOTE_LEFT_OUT
     return note
@@ -66,10 +64,7 @@ def review_note(data, r: int) -> str:
 
 def contact_day(contact) -> int:
     """Day number (since 1970-01-01) of a ContactInfluence."""
-    day = int(getattr(contact, "day", 0) or 0)
-    if day:
-        return day
-    return (contact.date - dt.date(1970, 1, 1)).days
+    return int(contact.day)
 
 
 def short_reasons(data, r: int) -> str:
@@ -78,21 +73,21 @@ def short_reasons(data, r: int) -> str:
     The probabilities themselves are in the table's own columns and the thresholds on the model
     page, so only the rule and the contact that raised the probability most are named here.
     """
-    reasons = list(_column(getattr(data.assessment, "reasons", None), r, []) or [])
+    reasons = list(_column(data.assessment.reasons, r, []) or [])
     if not reasons:
         return reason_text(data, r) or str(_column(data.assessment.flags, r))
     lines = []
     for reason in reasons:
-        template = _SHORT.get(getattr(reason, "rule", ""))
+        template = _SHORT.get(reason.rule)
         try:
             lines.append(template.format(value=float(reason.value), threshold=float(reason.threshold),
                                          points=points(float(reason.value))))
         except (AttributeError, TypeError, ValueError):
-            lines.append(rewrite_dates(str(getattr(reason, "message", reason)), data.dates, r))
-    contacts = [c for c in (getattr(reasons[0], "contacts", None) or []) if getattr(c, "change", 0) > 0.005]
+            lines.append(rewrite_dates(str(reason.message), data.dates, r))
+    contacts = [c for c in reasons[0].contacts if c.change > 0.005]
     if contacts:
         top = contacts[0]
-        evidence = f": {top.evidence.replace('=', ' ')}" if getattr(top, "evidence", "") else ""
+        evidence = f": {top.evidence.replace('=', ' ')}" if top.evidence else ""
         lines.append(f"the contact on {data.dates.case_text(r, contact_day(top))} raised it by "
                      f"{points(top.change)}{evidence}")
     return "; ".join(lines)

@@ -123,21 +123,20 @@ def _flag_rows(data) -> tuple:
         due_value = view.case_value(r, due if due >= 0 else None)
         status = str(a.review_status[r] or "") or "not reviewed"
         note = review_note(data, r)
-        reasons = list(a.reasons[r]) if getattr(a, "reasons", None) is not None else []
+        reasons = list(a.reasons[r])
         if not reasons:
             rows.append([str(s.case_ids[r]), str(s.coordinators[r] or ""), str(a.flags[r]), reason_text(data, r),
                          None, None, "", due_value, status, note])
         for reason in reasons:
-            value = getattr(reason, "value", None)
-            threshold = getattr(reason, "threshold", None)
+            value, threshold = reason.value, reason.threshold
             contacts = " ".join(
                 f"The contact on {view.case_text(r, contact_day(c))}"
-                + (f" ({c.evidence.replace('=', ' ')})" if getattr(c, "evidence", "") else "")
+                + (f" ({c.evidence.replace('=', ' ')})" if c.evidence else "")
                 + (f" {'raised' if c.change > 0 else 'lowered'} it by {points(c.change)}."
                    if abs(c.change) >= 0.005 else " changed it by less than 1 point.")
-                for c in (getattr(reason, "contacts", None) or []))
-            rows.append([str(s.case_ids[r]), str(s.coordinators[r] or ""), str(getattr(reason, "rule", "")),
-                         rewrite_dates(str(getattr(reason, "message", "")), view, r),
+                for c in reason.contacts)
+            rows.append([str(s.case_ids[r]), str(s.coordinators[r] or ""), reason.rule,
+                         rewrite_dates(reason.message, view, r),
                          float(value) if isinstance(value, (int, float)) else None,
                          float(threshold) if isinstance(threshold, (int, float)) else None,
                          contacts, due_value, status, note])

@@ -22,6 +22,7 @@ from dataclasses import asdict, dataclass
 
 import numpy as np
 
+from ..dates import day_text
 from ..errors import InputError
 from . import audit as _audit
 from . import case_packs
@@ -35,7 +36,7 @@ CURRENT, SUPERSEDED, VOIDED = "current", "superseded", "voided"
 
 
 def _date(day: int) -> str:
-    return str(np.datetime64(int(day), "D"))
+    return day_text(day)
 
 
 @dataclass(frozen=True)
@@ -280,7 +281,7 @@ def record_contact(ws, batch: ContactBatch, actor: str, create_case: bool) -> di
     with ws.transaction() as con:
         case_id = case_key(con, code)
         if case_id is None and not create_case:
-            raise InputError(f"case {code!r} does not exist; give --coordinator to create it (nothing was stored)")
+            raise InputError(f"case {code!r} does not exist; give its coordinator to create it (nothing was stored)")
         if case_id is not None and create_case:
             raise InputError(f"case {code!r} already exists; record a contact for it instead (nothing was stored)")
         if case_id is None:  # the key is the database's (on PostgreSQL a coordinator sees only their cases)

@@ -151,7 +151,7 @@ def stored_version(con: PgConnection, location: DatabaseURL) -> int:
     if pg_schema.META_TABLE not in names:
         if not names:
             raise WorkspaceError(f"{location}: the database is empty, not a caseview workspace yet "
-                                 f"(create one with 'caseview init {location} --model MODEL.json')")
+                                 "(create one first: caseview init, or New workspace in the window)")
         raise WorkspaceError(f"{location}: not a caseview workspace (the database holds other tables)")
     row = con.execute(f"SELECT application_id, schema_version FROM {pg_schema.META_TABLE}").fetchone()
     if row is None or int(row[0]) != _schema.APPLICATION_ID:

@@ -66,9 +66,9 @@ def add_member(connection, login: str, role: str, coordinators=()) -> TeamMember
         raise InputError(f"role {role!r}: expected one of {', '.join(TEAM_ROLES)}")
     codes = tuple(dict.fromkeys(str(c).strip() for c in coordinators if str(c).strip()))
     if role == "coordinator" and not codes:
-        raise InputError(f"team add {login}: a coordinator needs at least one --coordinator CODE (nothing was changed)")
+        raise InputError(f"team add {login}: a coordinator needs at least one coordinator code (nothing was changed)")
     if role != "coordinator" and codes:
-        raise InputError(f"team add {login}: --coordinator applies to the coordinator role only (nothing was changed)")
+        raise InputError(f"team add {login}: coordinator codes apply to the coordinator role only (nothing was changed)")
     with connection.transaction():
         cur = connection.cursor()
         database = _owner_only(cur, "add")

@@ -168,7 +168,7 @@ def match_coordinator_code(typed: str, known, where: str) -> str:
 
     value, why = normalise_coordinator_code(typed)
     if why is not None:
-        raise InputError(f"--coordinator {str(typed)!r}: {why}")
+        raise InputError(f"coordinator {str(typed)!r}: {why}")
     codes = sorted({str(c) for c in known} - {""})
     if value in codes:
         return value
@@ -176,10 +176,10 @@ def match_coordinator_code(typed: str, known, where: str) -> str:
     if len(same) == 1:
         return same[0]
     if same:
-        raise InputError(f"--coordinator {str(typed)!r} matches {', '.join(same)}, which differ only in letter "
+        raise InputError(f"coordinator {str(typed)!r} matches {', '.join(same)}, which differ only in letter "
                          "case; type one of them exactly")
     listed = ", ".join(codes[:20]) + (f" and {len(codes) - 20} more" if len(codes) > 20 else "")
-    raise InputError(f"--coordinator: no coordinator {str(typed)!r} in {where} (coordinators: "
+    raise InputError(f"no coordinator {str(typed)!r} in {where} (coordinators: "
                      f"{listed or 'none recorded'})")
 
 

@@ -13,6 +13,7 @@ from pathlib import Path
 
 import numpy as np
 
+from ..dates import days_text
 from ..errors import InputError
 
 
@@ -63,7 +64,7 @@ def timeline_table(ws):
     counts = np.diff(stored.offsets)
     columns = {
         "case_id": escape_text(np.repeat(stored.case_codes, counts)),
-        "date": np.datetime_as_string(stored.days.astype("datetime64[D]"), unit="D").astype(object),
+        "date": np.array(days_text(stored.days), dtype=object),
         "coordinator": escape_text(stored.coordinators),
     }
     for channel in model.channels:

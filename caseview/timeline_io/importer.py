@@ -25,6 +25,7 @@ from pathlib import Path
 import numpy as np
 
 from ..case_checks import contradiction_message, stored_contradictions
+from ..dates import day_text
 from ..errors import InputError, WorkspaceError
 from ..privacy.file_names import audited_file_name
 from .reader import CHUNK_ROWS, TimelineSource, scan_file
@@ -164,7 +165,7 @@ def _duplicates_in_file(data: dict, problems: Problems, where) -> np.ndarray:
     for a, b in zip(first[~equal].tolist(), later[~equal].tolist()):
         problems.add(where(int(data["lines"][b])), None,
                      f"case {data['case_codes'][b]!r} has a second contact on "
-                     f"{np.datetime64(int(data['days'][b]), 'D')} with different values (first at "
+                     f"{day_text(data['days'][b])} with different values (first at "
                      f"{where(int(data['lines'][a]))}); keep one row per case and date")
     return keep
 
@@ -316,7 +317,7 @@ def import_timelines(ws, path, actor: str, mapping: dict | None = None, drop=(),
         for i, names in zip(conflict.rows, conflict.differing):
             problems.add(source.where(int(data["lines"][i])), None,
                          f"case {data['case_codes'][i]!r} already has a contact on "
-                         f"{np.datetime64(int(data['days'][i]), 'D')} with different {', '.join(names)}; "
+                         f"{day_text(data['days'][i])} with different {', '.join(names)}; "
                          "use --replace to replace stored contacts (audited) or correct the row")
         problems.raise_if_any("nothing was imported")
         raise

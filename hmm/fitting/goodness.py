@@ -42,6 +42,7 @@ import numpy as np
 
 from ..inference import forward
 from ..model import StageModel
+from ..random_state import random_generator
 from ..simulate import simulate_caseload
 from ..timelines import MISSING, Timelines
 from .goodness_occupancy import occupancy_over_calendar_time, one_step_predictions
@@ -273,8 +274,9 @@ def goodness_of_fit(model: StageModel, timelines: Timelines, *, channel=None, gr
         Number of simulated caseloads for the p-value (0 = none).
     refit : bool
         Refit each replicate (one start from ``model``) before computing its statistic.
-    rng : numpy.random.Generator, optional
-        For the simulations (default ``numpy.random.default_rng(0)``).
+    rng : numpy.random.Generator, int or None
+        For the simulations (:func:`hmm.random_state.random_generator`; None: fresh entropy, so pass
+        a seed for a repeatable p-value).
     time_bins : int or array_like
         Calendar-time bins for the occupancy check (:func:`occupancy_over_calendar_time`).
     callback : callable(fraction), optional
@@ -289,32 +291,54 @@ def goodness_of_fit(model: StageModel, timelines: Timelines, *, channel=None, gr
     if int(bootstrap) < 0:
         raise ValueError(f"bootstrap must be 0 or more replicates, got {bootstrap}")
     channels = _channel_indices(model, channel)
-    rng = np.random.default_rng(0) if rng is None else rng
+    rng = random_generator(rng)
     warnings = []
     predictions = one_step_predictions(model, timelines)
+    layout, n_pairs = _cell_layout(model, timelines, predictions, channels, group_by, int(gap_bands),
+                                   max_covariate_groups if covariate_groups else 0, warnings)
+    observed, expected, impossible = _tabulate(model, timelines, layout, predictions)
+    if impossible:
+        warnings.append(f"{impossible} contact(s) left out: the model gives their earlier evidence probability zero")
+    statistic = _pearson(observed, expected)
+    replicates, p_value = _bootstrap(model, timelines, layout, statistic, int(bootstrap), refit, rng, callback,
+                                     warnings)
+    entries, obs, exp = _long_table(model, layout, observed, expected, warnings)
+    occupancy = occupancy_over_calendar_time(model, timelines, time_bins, channels=channels,
+                                             predictions=predictions)
+    if callback is not None:
+        callback(1.0)
+    return GoodnessOfFit(**entries, observed=obs, expected=exp, statistic=statistic, p_value=float(p_value),
+                         bootstrap_statistics=replicates, refit=bool(refit), group_by=group_by,
+                         n_pairs=n_pairs, gap_band_edges=layout.gap_inner_edges, warnings=tuple(warnings),
+                         occupancy=occupancy)
+
+
+def _cell_layout(model: StageModel, timelines: Timelines, predictions, channels, group_by: str, gap_bands: int,
+                 max_covariate_groups: int, warnings: list) -> tuple:
+    """The cells pairs fall into, fixed from the observed data: ``(_Layout, number of pairs)``."""
     pairs = {c: _pairs(timelines, predictions.usable, c) for c in channels}
     later = np.concatenate(list(pairs.values()))
     if later.size == 0:
         names = ", ".join(model.channels[c].name for c in channels)
         raise ValueError(f"no two consecutive contacts of a case both record {names}; nothing to compare")
-    gap_edges, gap_labels = _gap_layout(timelines.times[later] - timelines.times[later - 1], int(gap_bands), warnings)
-    columns, keys, covariate_labels = _covariate_layout(model, timelines.covariates, max_covariate_groups
-                                                        if covariate_groups else 0, warnings)
+    gap_edges, gap_labels = _gap_layout(timelines.times[later] - timelines.times[later - 1], gap_bands, warnings)
+    columns, keys, covariate_labels = _covariate_layout(model, timelines.covariates, max_covariate_groups, warnings)
     to_labels = [[str(k) for k in model.channels[c].categories] for c in channels]
     from_labels = [list(model.stages) if group_by == "stage" else labels for labels in to_labels]
     layout = _Layout(channels, group_by, from_labels, to_labels, gap_edges, gap_labels, columns, keys,
                      covariate_labels)
+    return layout, int(later.size)
 
-    observed, expected, impossible = _tabulate(model, timelines, layout, predictions)
-    if impossible:
-        warnings.append(f"{impossible} contact(s) left out: the model gives their earlier evidence probability zero")
-    statistic = _pearson(observed, expected)
 
-    replicates = np.zeros(int(bootstrap))
+def _bootstrap(model: StageModel, timelines: Timelines, layout: _Layout, statistic: float, bootstrap: int,
+               refit: bool, rng: np.random.Generator, callback, warnings: list) -> tuple:
+    """Parametric bootstrap: the statistic of ``bootstrap`` caseloads simulated from ``model`` at the
+    observed contact times (refitted first with ``refit``); ``(replicate statistics (B,), p-value)``."""
+    replicates = np.zeros(bootstrap)
     if bootstrap:
         schedule = _schedule(model, timelines)
         not_converged = 0
-        for b in range(int(bootstrap)):
+        for b in range(bootstrap):
             sample = _replicate(model, schedule, rng)
             scoring_model = model
             if refit:
@@ -336,20 +360,25 @@ def goodness_of_fit(model: StageModel, timelines: Timelines, *, channel=None, gr
     if bootstrap and not refit:
         warnings.append("the bootstrap did not re-estimate the parameters (refit=False); the p-value is "
                         "conservative (tends to be too large)")
+    return replicates, p_value
 
-    # keep the groups that hold at least one pair, in layout order
+
+def _long_table(model: StageModel, layout: _Layout, observed: np.ndarray, expected: np.ndarray,
+                warnings: list) -> tuple:
+    """The cells that hold at least one pair, in layout order, as long-form columns:
+    ``(labels by column name, observed (m,), expected (m,))``."""
     group_total = observed.sum(axis=-1)
     entries = {name: [] for name in ("channel", "from_group", "gap_band", "covariate_group", "to_category")}
     obs, exp = [], []
     for index in zip(*np.nonzero(group_total > 0)):
         position, source, band, group = (int(i) for i in index)
-        n_to = len(to_labels[position])
+        n_to = len(layout.to_labels[position])
         for k in range(n_to):
-            entries["channel"].append(model.channels[channels[position]].name)
-            entries["from_group"].append(from_labels[position][source])
-            entries["gap_band"].append(gap_labels[band])
-            entries["covariate_group"].append(covariate_labels[group])
-            entries["to_category"].append(to_labels[position][k])
+            entries["channel"].append(model.channels[layout.channels[position]].name)
+            entries["from_group"].append(layout.from_labels[position][source])
+            entries["gap_band"].append(layout.gap_labels[band])
+            entries["covariate_group"].append(layout.covariate_labels[group])
+            entries["to_category"].append(layout.to_labels[position][k])
         obs.append(observed[index][:n_to])
         exp.append(expected[index][:n_to])
     obs, exp = np.concatenate(obs), np.concatenate(exp)
@@ -362,11 +391,4 @@ def goodness_of_fit(model: StageModel, timelines: Timelines, *, channel=None, gr
     if zero:
         warnings.append(f"{zero} cell(s) hold pairs the model calls impossible (expected 0); they are left out of "
                         "the statistic")
-    occupancy = occupancy_over_calendar_time(model, timelines, time_bins, channels=channels,
-                                             predictions=predictions)
-    if callback is not None:
-        callback(1.0)
-    return GoodnessOfFit(**entries, observed=obs, expected=exp, statistic=statistic, p_value=float(p_value),
-                         bootstrap_statistics=replicates, refit=bool(refit), group_by=group_by,
-                         n_pairs=int(later.size), gap_band_edges=gap_edges, warnings=tuple(warnings),
-                         occupancy=occupancy)
+    return entries, obs, exp

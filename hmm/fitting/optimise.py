@@ -18,6 +18,7 @@ import numpy as np
 import scipy.optimize
 
 from ..model import StageModel
+from ..random_state import random_generator
 from ..timelines import Timelines
 from .likelihood import evaluate, prepare
 from .parameters import parameter_spec
@@ -91,7 +92,7 @@ def fit_model(model: StageModel, timelines: Timelines, *, starts: int = 3, rng: 
     starts : int
         Number of starts (1 = only the given model).
     rng : numpy.random.Generator, optional
-        For the perturbed starts (default ``numpy.random.default_rng(0)``).
+        For the perturbed starts (seed or Generator; None: fresh entropy, see ``hmm.random_state``).
     penalised : bool
         Maximise log-likelihood + log prior (``prior`` or :class:`Prior` defaults).
     prior : Prior, optional
@@ -124,7 +125,7 @@ def fit_model(model: StageModel, timelines: Timelines, *, starts: int = 3, rng: 
     """
     if starts < 1:
         raise ValueError("starts must be at least 1")
-    rng = np.random.default_rng(0) if rng is None else rng
+    rng = random_generator(rng)
     if prior is not None:
         penalised = True
     prior = (prior or Prior()) if penalised else None

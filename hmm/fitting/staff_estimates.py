@@ -50,6 +50,7 @@ from numbers import Real
 import numpy as np
 
 from ..model import Channel, ModelError, StageModel, Transition
+from ..model_rules import exact_entry_problem, first_duplicate, name_clash_problem, stage_count_problem
 
 __all__ = ["UsualResult", "CheckEstimate", "Problem", "StaffEstimateError", "model_from_staff_estimates",
            "staff_estimate_problems", "staff_estimates_from_model", "check_probabilities", "SUM_TOLERANCE"]
@@ -211,146 +212,43 @@ def _rates_out(problems, r, stage, stages, index, typical_stay_days, next_stage,
         rates[r, index[target]] = (share / total) / float(stay)
 
 
+class _Estimates:
+    """The stages being described and the problems found so far (shared by the steps of :func:`_build`)."""
+
+    def __init__(self, stages: tuple):
+        self.stages = stages
+        self.index = {s: i for i, s in enumerate(stages)}
+        self.n = len(stages)
+        self.problems = []
+
+    def unknown_stage(self, path, value, what="stage"):
+        self.problems.append(Problem(path, f"unknown {what} {value!r} (stages: {', '.join(self.stages)})"))
+
+
 def _build(stages, typical_stay_days, next_stage, initial, checks, covariates, hazard_ratios, follow_up_stages,
            exact_entry_stages, name):
     """Validate everything; return (StageModel or None, list of Problem)."""
-    problems = []
     stages = tuple(stages)
-    if len(stages) < 2:
-        return None, [Problem(("stages",), "a model needs at least two stages")]
-    for i, s in enumerate(stages):
-        if not isinstance(s, str) or not s.strip():
-            problems.append(Problem(("stages", i), f"a stage name must be a non-empty text, got {s!r}"))
-        elif s in stages[:i]:
-            problems.append(Problem(("stages", i), f"stage {s!r} is listed twice"))
-    if problems:
-        return None, problems
-    index = {s: i for i, s in enumerate(stages)}
-    n = len(stages)
-
-    def unknown_stage(path, value, what="stage"):
-        problems.append(Problem(path, f"unknown {what} {value!r} (stages: {', '.join(stages)})"))
-
+    stage_problems = _stage_name_problems(stages)
+    if stage_problems:
+        return None, stage_problems
+    e = _Estimates(stages)
     for key in typical_stay_days:
-        if key not in index:
-            unknown_stage(("typical_stay_days", key), key)
+        if key not in e.index:
+            e.unknown_stage(("typical_stay_days", key), key)
     for key in next_stage:
-        if key not in index:
-            unknown_stage(("next_stage", key), key)
-
-    # ---- typical stays and where people go next -> rates
-    rates = np.zeros((n, n))
-    leaves = np.zeros(n, dtype=bool)
-    unsettled = set()           # stages whose stay or shares have a problem
-    for r, stage in enumerate(stages):
-        before = len(problems)
-        _rates_out(problems, r, stage, stages, index, typical_stay_days, next_stage, rates, leaves)
-        if len(problems) > before:
-            unsettled.add(stage)
-
-    # ---- initial distribution
-    init = np.zeros(n)
-    initial_ok = True
-    for key, value in initial.items():
-        if key not in index:
-            unknown_stage(("initial", key), key)
-            initial_ok = False
-        elif not _is_number(value) or not 0.0 <= value <= 1.0:
-            problems.append(Problem(("initial", key), f"stage {key!r}: the share of cases in it at their first "
-                                    f"contact must be between 0 and 1, got {value!r}"))
-            initial_ok = False
-        else:
-            init[index[key]] = value
-    if initial_ok and abs(init.sum() - 1.0) > SUM_TOLERANCE:
-        problems.append(Problem(("initial",), f"the shares of cases in each stage at their first contact add up to "
-                                f"{init.sum():.6g}; expected 1"))
-
-    # ---- covariates and hazard ratios
+        if key not in e.index:
+            e.unknown_stage(("next_stage", key), key)
+    rates, leaves, unsettled = _rates_from_stays_and_shares(e, typical_stay_days, next_stage)
+    init = _initial_shares(e, initial)
     covariates = tuple(covariates)
-    for i, cov in enumerate(covariates):
-        if not isinstance(cov, str) or not cov.strip():
-            problems.append(Problem(("covariates", i), f"a covariate name must be a non-empty text, got {cov!r}"))
-        elif cov in covariates[:i]:
-            problems.append(Problem(("covariates", i), f"covariate {cov!r} is listed twice"))
-    effects = {}
-    for key, ratios in (hazard_ratios or {}).items():
-        source, target = key
-        if source not in index or target not in index:
-            unknown_stage(("hazard_ratios", key), target if source in index else source)
-            continue
-        if rates[index[source], index[target]] == 0:
-            if source in unsettled:
-                continue            # its stay or shares are already reported
-            why = (f"no share of moves out of {source!r} goes to {target!r}" if leaves[index[source]]
-                   else f"{source!r} has no valid typical stay or is never left")
-            problems.append(Problem(("hazard_ratios", key), f"hazard ratios for {source} -> {target}, but {why}"))
-            continue
-        for cov, ratio in ratios.items():
-            if cov not in covariates:
-                problems.append(Problem(("hazard_ratios", key, cov), f"{source} -> {target}: unknown covariate "
-                                        f"{cov!r} (covariates: {', '.join(covariates) or 'none'})"))
-            elif not _is_number(ratio) or ratio <= 0:
-                problems.append(Problem(("hazard_ratios", key, cov), f"{source} -> {target}: the hazard ratio of "
-                                        f"{cov!r} must be a positive number (1 = no effect), got {ratio!r}"))
-            else:
-                effects.setdefault((index[source], index[target]), {})[cov] = math.log(ratio)
-
-    # ---- checks (observation channels)
-    channels = []
-    names = []
-    for c, check in enumerate(checks):
-        where = ("checks", c)
-        if not isinstance(check.name, str) or not check.name.strip():
-            problems.append(Problem(where + ("name",), f"a check name must be a non-empty text, got {check.name!r}"))
-            continue
-        if check.name in names:
-            problems.append(Problem(where + ("name",), f"check {check.name!r} is listed twice"))
-            continue
-        names.append(check.name)
-        cats = tuple(check.categories)
-        if len(cats) < 2 or len(set(cats)) != len(cats):
-            problems.append(Problem(where + ("categories",), f"check {check.name!r}: needs at least two different "
-                                    f"results, got {list(cats)!r}"))
-            continue
-        table = np.zeros((n, len(cats)))
-        fixed = set()
-        ok = True
-        for key in check.results:
-            if key not in index:
-                unknown_stage(where + ("results", key), key)
-                ok = False
-        for r, stage in enumerate(stages):
-            if stage not in check.results:
-                if leaves[r] or stage not in typical_stay_days:
-                    problems.append(Problem(where + ("results", stage), f"check {check.name!r}: no results given "
-                                            f"for stage {stage!r}"))
-                    ok = False
-                else:
-                    table[r] = 1.0 / len(cats)   # never checked there: even, fixed
-                    fixed.add(r)
-                continue
-            before = len(problems)
-            _check_row(problems, where + ("results", stage), stage, check, check.results[stage])
-            if len(problems) > before:
-                ok = False
-            else:
-                table[r] = check_probabilities(cats, check.results[stage])
-        if ok:
-            channels.append(Channel(check.name, cats, table, frozenset(fixed)))
-    clash = set(names) & set(covariates)
-    if clash:
-        problems.append(Problem(("checks",), f"name used for both a check and a covariate: {', '.join(sorted(clash))}"))
-
-    for key, listed in (("follow_up_stages", follow_up_stages), ("exact_entry_stages", exact_entry_stages)):
-        for i, s in enumerate(listed):
-            if s not in index:
-                unknown_stage((key, i), s)
-            elif key == "exact_entry_stages" and leaves[index[s]]:
-                problems.append(Problem((key, i), f"exact entry dates are only for stages people never leave; "
-                                        f"{s!r} has a typical stay"))
-    if problems:
-        return None, problems
-
+    _covariate_name_problems(e, covariates)
+    effects = _effects_from_hazard_ratios(e, hazard_ratios, covariates, rates, leaves, unsettled)
+    channels = _check_channels(e, checks, covariates, typical_stay_days, leaves)
+    _listed_stage_problems(e, follow_up_stages, exact_entry_stages, leaves)
+    if e.problems:
+        return None, e.problems
+    n = e.n
     transitions = tuple(Transition(r, s, float(rates[r, s]), effects.get((r, s), {}))
                         for r in range(n) for s in range(n) if rates[r, s] > 0)
     try:
@@ -360,6 +258,148 @@ def _build(stages, typical_stay_days, next_stage, initial, checks, covariates, h
     except ModelError as exc:   # not expected after the checks above; reported the same way
         return None, [Problem((), str(exc))]
     return model, []
+
+
+def _stage_name_problems(stages: tuple) -> list:
+    """At least two stages, each a non-empty text listed once."""
+    problem = stage_count_problem(len(stages))
+    if problem:
+        return [Problem(("stages",), problem)]
+    problems = []
+    for i, s in enumerate(stages):
+        if not isinstance(s, str) or not s.strip():
+            problems.append(Problem(("stages", i), f"a stage name must be a non-empty text, got {s!r}"))
+        elif s in stages[:i]:
+            problems.append(Problem(("stages", i), first_duplicate(stages[:i + 1])[1]))
+    return problems
+
+
+def _rates_from_stays_and_shares(e: _Estimates, typical_stay_days, next_stage) -> tuple:
+    """Typical stays and where people go next -> rates (n, n), which stages are left (n,), and the
+    stages whose stay or shares have a problem."""
+    rates = np.zeros((e.n, e.n))
+    leaves = np.zeros(e.n, dtype=bool)
+    unsettled = set()
+    for r, stage in enumerate(e.stages):
+        before = len(e.problems)
+        _rates_out(e.problems, r, stage, e.stages, e.index, typical_stay_days, next_stage, rates, leaves)
+        if len(e.problems) > before:
+            unsettled.add(stage)
+    return rates, leaves, unsettled
+
+
+def _initial_shares(e: _Estimates, initial) -> np.ndarray:
+    """The share of cases in each stage at their first contact, shape (n_stages,), adding up to 1."""
+    init = np.zeros(e.n)
+    initial_ok = True
+    for key, value in initial.items():
+        if key not in e.index:
+            e.unknown_stage(("initial", key), key)
+            initial_ok = False
+        elif not _is_number(value) or not 0.0 <= value <= 1.0:
+            e.problems.append(Problem(("initial", key), f"stage {key!r}: the share of cases in it at their first "
+                                      f"contact must be between 0 and 1, got {value!r}"))
+            initial_ok = False
+        else:
+            init[e.index[key]] = value
+    if initial_ok and abs(init.sum() - 1.0) > SUM_TOLERANCE:
+        e.problems.append(Problem(("initial",), f"the shares of cases in each stage at their first contact add up to "
+                                  f"{init.sum():.6g}; expected 1"))
+    return init
+
+
+def _covariate_name_problems(e: _Estimates, covariates: tuple) -> None:
+    for i, cov in enumerate(covariates):
+        if not isinstance(cov, str) or not cov.strip():
+            e.problems.append(Problem(("covariates", i), f"a covariate name must be a non-empty text, got {cov!r}"))
+        elif cov in covariates[:i]:
+            e.problems.append(Problem(("covariates", i), first_duplicate(covariates[:i + 1])[1]))
+
+
+def _effects_from_hazard_ratios(e: _Estimates, hazard_ratios, covariates: tuple, rates, leaves, unsettled) -> dict:
+    """Hazard ratios -> log hazard ratios by (source, target) index pair, on transitions that exist."""
+    effects = {}
+    for key, ratios in (hazard_ratios or {}).items():
+        source, target = key
+        if source not in e.index or target not in e.index:
+            e.unknown_stage(("hazard_ratios", key), target if source in e.index else source)
+            continue
+        if rates[e.index[source], e.index[target]] == 0:
+            if source in unsettled:
+                continue            # its stay or shares are already reported
+            why = (f"no share of moves out of {source!r} goes to {target!r}" if leaves[e.index[source]]
+                   else f"{source!r} has no valid typical stay or is never left")
+            e.problems.append(Problem(("hazard_ratios", key), f"hazard ratios for {source} -> {target}, but {why}"))
+            continue
+        for cov, ratio in ratios.items():
+            if cov not in covariates:
+                e.problems.append(Problem(("hazard_ratios", key, cov), f"{source} -> {target}: unknown covariate "
+                                          f"{cov!r} (covariates: {', '.join(covariates) or 'none'})"))
+            elif not _is_number(ratio) or ratio <= 0:
+                e.problems.append(Problem(("hazard_ratios", key, cov), f"{source} -> {target}: the hazard ratio of "
+                                          f"{cov!r} must be a positive number (1 = no effect), got {ratio!r}"))
+            else:
+                effects.setdefault((e.index[source], e.index[target]), {})[cov] = math.log(ratio)
+    return effects
+
+
+def _check_channels(e: _Estimates, checks, covariates: tuple, typical_stay_days, leaves) -> list:
+    """Checks -> observation channels (a probability row per stage; even and fixed where never checked)."""
+    channels = []
+    names = []
+    for c, check in enumerate(checks):
+        where = ("checks", c)
+        if not isinstance(check.name, str) or not check.name.strip():
+            e.problems.append(Problem(where + ("name",), f"a check name must be a non-empty text, got {check.name!r}"))
+            continue
+        if check.name in names:
+            e.problems.append(Problem(where + ("name",), first_duplicate(names + [check.name])[1]))
+            continue
+        names.append(check.name)
+        cats = tuple(check.categories)
+        if len(cats) < 2 or len(set(cats)) != len(cats):
+            e.problems.append(Problem(where + ("categories",), f"check {check.name!r}: needs at least two different "
+                                      f"results, got {list(cats)!r}"))
+            continue
+        table = np.zeros((e.n, len(cats)))
+        fixed = set()
+        ok = True
+        for key in check.results:
+            if key not in e.index:
+                e.unknown_stage(where + ("results", key), key)
+                ok = False
+        for r, stage in enumerate(e.stages):
+            if stage not in check.results:
+                if leaves[r] or stage not in typical_stay_days:
+                    e.problems.append(Problem(where + ("results", stage), f"check {check.name!r}: no results given "
+                                              f"for stage {stage!r}"))
+                    ok = False
+                else:
+                    table[r] = 1.0 / len(cats)   # never checked there: even, fixed
+                    fixed.add(r)
+                continue
+            before = len(e.problems)
+            _check_row(e.problems, where + ("results", stage), stage, check, check.results[stage])
+            if len(e.problems) > before:
+                ok = False
+            else:
+                table[r] = check_probabilities(cats, check.results[stage])
+        if ok:
+            channels.append(Channel(check.name, cats, table, frozenset(fixed)))
+    problem = name_clash_problem(names, covariates, channel_word="check")
+    if problem:
+        e.problems.append(Problem(("checks",), problem))
+    return channels
+
+
+def _listed_stage_problems(e: _Estimates, follow_up_stages, exact_entry_stages, leaves) -> None:
+    """Follow-up and exact-entry stages exist; exact entry only for stages people never leave."""
+    for key, listed in (("follow_up_stages", follow_up_stages), ("exact_entry_stages", exact_entry_stages)):
+        for i, s in enumerate(listed):
+            if s not in e.index:
+                e.unknown_stage((key, i), s)
+            elif key == "exact_entry_stages" and leaves[e.index[s]]:
+                e.problems.append(Problem((key, i), exact_entry_problem(s, True)))
 
 
 def staff_estimate_problems(*, stages, typical_stay_days, next_stage, initial, checks=(), covariates=(),

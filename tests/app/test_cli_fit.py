@@ -1,19 +1,16 @@
-"""`caseview fit` and `caseview models` on the demo workspace (subprocess, as a user runs them)."""
+"""`caseview fit` and `caseview models` on the demo workspace (in-process through caseview.cli.main.main)."""
 
 from __future__ import annotations
-
-import subprocess
-import sys
 
 import numpy as np
 
 from caseview.modelfile import load_model
 from caseview.storage import Workspace
+from cli_runner import run_cli
 
 
 def run(*args):
-    return subprocess.run([sys.executable, "-m", "caseview", *map(str, args)], capture_output=True, text=True,
-                          timeout=600)
+    return run_cli(*args)
 
 
 def test_fit_saves_a_new_current_version_and_keeps_fixed_rows(tmp_path):

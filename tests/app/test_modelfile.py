@@ -50,7 +50,7 @@ def _mutated(demo_dict, change):
     (lambda d: d["transitions"][0].update(rate=-0.1), "transitions[0].rate: must be >= 0"),
     (lambda d: d["transitions"].append(dict(d["transitions"][0])), "already given at transitions[0]"),
     (lambda d: d["channels"][0]["probabilities"].update(Stable=[0.5, 0.4, 0.2]),
-     "channels[0].probabilities.Stable: must sum to 1 within 1e-6"),
+     "channels[0].probabilities.Stable: probabilities must sum to 1 within 1e-6"),
     (lambda d: d["initial"].update(Stable=0.9), "initial: probabilities must sum to 1"),
     (lambda d: d["stages"].append("Stable"), "stages[5]: duplicate name 'Stable'"),
     (lambda d: d["transitions"][0]["effects"].update(age=1.0), "transitions[0].effects.age: unknown covariate"),

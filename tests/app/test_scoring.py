@@ -1,38 +1,23 @@
-"""caseview.scoring against a plain, loop-by-loop computation with scipy.linalg.expm (the reference)."""
+"""caseview.scoring against the tests' reference filter (tests/reference_filter.py: loop by loop, scipy.linalg.expm)."""
 
 from __future__ import annotations
-
-from types import SimpleNamespace
 
 import numpy as np
 import pytest
 from scipy.linalg import expm
 
-from caseview.scoring import from_day, score_loaded, to_day
-from hmm import MISSING, Timelines
+from caseview.dates import from_day, to_day
+
+from caseview.scoring import score_loaded
+from caseview.storage.caseload import Caseload
 from hmm.simulate import simulate_caseload
-
-
-def _reference_now(model, times, obs, allowed, covs, as_of):
-    """Filter one case contact by contact with scipy's expm, then propagate to as_of (textbook HMM filter)."""
-    p = None
-    for j in range(len(times)):
-        like = allowed[j].astype(float)
-        for c, channel in enumerate(model.channels):
-            if obs[j, c] != MISSING:
-                like = like * channel.probabilities[:, obs[j, c]]
-        if p is None:
-            p = model.initial * like
-        else:
-            p = (p @ expm(model.generator(covs[j - 1]) * (times[j] - times[j - 1]))) * like
-        p = p / p.sum()
-    return p @ expm(model.generator(covs[-1]) * (as_of - times[-1]))
+from reference_filter import reference_p_now
 
 
 @pytest.fixture
 def demo_model(demo_model):
-    # The plain reference filter below has no exact-entry term, so compare on the model without it
-    # (the exact-entry likelihood has its own hand-worked checks in tests/engine).
+    # Simulated without exact entries, so compare on the model without exact-entry stages (the
+    # exact-entry likelihood has its own hand-worked checks in tests/engine).
     from dataclasses import replace
 
     return replace(demo_model, exact_entry_stages=())
@@ -46,9 +31,9 @@ def caseload(demo_model, rng):
                   for t in contact_times]
     sim = simulate_caseload(demo_model, contact_times, covariates, rng, missing_probability=0.2, exact_entry=False)
     tl = sim.timelines
-    return SimpleNamespace(case_ids=np.array([f"HS-{i:04d}" for i in range(tl.n_cases)], dtype=object),
-                           coordinators=np.array(["C1"] * tl.n_cases, dtype=object),
-                           contact_days=tl.times.astype(np.int64), timelines=tl, raw_values={})
+    return Caseload(case_ids=np.array([f"HS-{i:04d}" for i in range(tl.n_cases)], dtype=object),
+                    coordinators=np.array(["C1"] * tl.n_cases, dtype=object),
+                    contact_days=tl.times.astype(np.int64), timelines=tl, raw_values={})
 
 
 def test_scores_match_a_contact_by_contact_reference(demo_model, caseload):
@@ -59,7 +44,7 @@ def test_scores_match_a_contact_by_contact_reference(demo_model, caseload):
     for row, case in enumerate(scores.case_rows):
         rows = slice(tl.offsets[case], tl.offsets[case + 1])
         keep = tl.times[rows] <= as_of
-        expected = _reference_now(demo_model, tl.times[rows][keep], tl.observations[rows][keep],
+        expected = reference_p_now(demo_model, tl.times[rows][keep], tl.observations[rows][keep],
                                   tl.allowed_stages[rows][keep], tl.covariates[rows][keep], as_of)
         np.testing.assert_allclose(scores.p_now[row], expected, atol=1e-10)
         q = demo_model.generator(tl.covariates[rows][keep][-1])

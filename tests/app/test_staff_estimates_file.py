@@ -4,8 +4,6 @@ from __future__ import annotations
 
 import copy
 import json
-import subprocess
-import sys
 
 import numpy as np
 import pytest
@@ -91,8 +89,9 @@ def test_problems_name_file_json_path_value_and_expectation(example, change, exp
 
 
 def run(*args):
-    return subprocess.run([sys.executable, "-m", "caseview", *map(str, args)], capture_output=True, text=True,
-                          timeout=300)
+    from cli_runner import run_cli
+
+    return run_cli(*args)
 
 
 def test_cli_writes_the_model_and_adds_it_to_a_workspace(tmp_path):

@@ -330,14 +330,9 @@ def test_occupancy_first_contacts_follow_the_initial_distribution():
 # ------------------------------------------------------------------ the command
 def test_check_fit_command_prints_writes_and_changes_nothing_but_the_audit_trail(tmp_path):
     import csv
-    import subprocess
-    import sys
 
     from caseview.storage import Workspace
-
-    def run(*args):
-        return subprocess.run([sys.executable, "-m", "caseview", *map(str, args)], capture_output=True, text=True,
-                              timeout=300)
+    from cli_runner import run_cli as run
 
     ws = tmp_path / "demo.cvw"
     assert run("demo", ws).returncode == 0

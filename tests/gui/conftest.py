@@ -7,7 +7,7 @@ from pathlib import Path
 
 import pytest
 
-from caseview.scoring import from_day
+from caseview.dates import from_day
 
 from .standin import AS_OF, MemorySource, make_caseload
 
@@ -71,8 +71,8 @@ def write_timeline_csv(path, model, caseload, n_cases=None):
 @pytest.fixture
 def workspace_path(tmp_path, demo_model, rng):
     """A real workspace (caseview.storage) holding 120 simulated cases."""
-    storage = pytest.importorskip("caseview.storage")
-    timeline_io = pytest.importorskip("caseview.timeline_io")
+    import caseview.storage as storage
+    import caseview.timeline_io as timeline_io
     caseload = make_caseload(demo_model, 120, rng)
     source_csv = tmp_path / "contacts.csv"
     write_timeline_csv(source_csv, demo_model, caseload)

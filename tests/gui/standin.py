@@ -11,8 +11,10 @@ from dataclasses import dataclass
 
 import numpy as np
 
+from caseview.followup import assess_scores
 from caseview.gui.data_source import LoadedCaseload
-from caseview.scoring import score_loaded, to_day
+from caseview.dates import to_day
+from caseview.scoring import score_loaded
 
 AS_OF = dt.date(2026, 11, 30)
 
@@ -51,7 +53,7 @@ def make_caseload(model, n_cases: int, rng: np.random.Generator, as_of: dt.date 
 
 
 class MemorySource:
-    """Source for the window: scores an in-memory caseload (no workspace, no follow-up)."""
+    """Source for the window: scores and assesses an in-memory caseload (no workspace)."""
 
     def __init__(self, model, caseload, label="stand-in caseload"):
         self.model = model
@@ -59,6 +61,7 @@ class MemorySource:
         self.label = label
         self.warnings = []
         self.loads = 0
+        self.include_closed = False  # the window's "Show closed" filter (WorkspaceSource has it too)
 
     def workspace(self):
         return None
@@ -69,7 +72,8 @@ class MemorySource:
     def load(self, as_of, horizon_days, callback=None) -> LoadedCaseload:
         self.loads += 1
         scores = score_loaded(self.caseload, self.model, to_day(as_of), horizon_days, callback=callback)
-        return LoadedCaseload(scores, None, ["stand-in caseload (tests)"])
+        # flags with default rules, reasons later: what WorkspaceSource gives, without the database
+        return LoadedCaseload(scores, assess_scores(scores, explain_reasons=False), ["stand-in caseload (tests)"])
 
     def close(self):
         pass

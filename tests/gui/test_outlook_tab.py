@@ -99,9 +99,13 @@ def test_the_tab_says_the_parameter_draws_move_where_cases_are_now(window, qtbot
     with Workspace.open(workspace_path) as ws:
         model, version = ws.current_model()
         names = list(parameter_spec(model).names)
-        ws.add_model_version(version.json_text, "with a covariance (test)", "tester",
-                             fit_summary={"free_parameters": names,
-                                          "covariance": (0.04 * np.eye(len(names))).tolist()})
+        from hmm.fitting import FitSummary
+
+        # a stored summary as every fit stores it (read back through FitSummary.from_dict)
+        stored = FitSummary(-100.0, -100.0, False, len(names), 120, 600, 0.0, 0.0, 10, 20, True,
+                            free_parameters=tuple(names),
+                            covariance=tuple(map(tuple, (0.04 * np.eye(len(names))).tolist()))).to_dict()
+        ws.add_model_version(version.json_text, "with a covariance (test)", "tester", fit_summary=stored)
     panel, plain, _ = _show_outlook(window, qtbot, workspace_path)
     panel.uncertainty.setCurrentIndex(panel.uncertainty.findData("parameters"))
     panel.draws.setValue(20)

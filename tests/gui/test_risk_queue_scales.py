@@ -13,7 +13,8 @@ from caseview.followup import assess_scores, default_rules
 from caseview.followup.queue import overdue_mask, queue_status
 from caseview.gui.data_source import LoadedCaseload
 from caseview.gui.risk_queue_model import NEXT_DUE, NOTE, REVIEW
-from caseview.scoring import score_loaded, to_day
+from caseview.dates import to_day
+from caseview.scoring import score_loaded
 
 from .conftest import open_ws
 from .standin import AS_OF, make_caseload
@@ -123,7 +124,7 @@ def test_loading_never_writes_reopening_is_an_explicit_step(window, qtbot, works
         r = int(np.argmax(a.scores.p_follow_up_now))
         case_id = str(a.scores.case_ids[r])
         early = a.scores.first_contact_day[r]
-        from caseview.scoring import from_day
+        from caseview.dates import from_day
 
         record_review(ws, case_id, "acknowledged", "looked", "sup", None, from_day(int(early)))
         row = record_review(ws, case_id, "dismissed", "family visiting daily", "sup", None, from_day(int(early)))

@@ -11,7 +11,8 @@ from caseview.followup import assess_scores, default_rules
 from caseview.followup.queue import QUEUE_STATUSES, counts_by_coordinator, overdue_mask, queue_rows
 from caseview.gui.caseload_model import CaseloadTableModel
 from caseview.gui.data_source import LoadedCaseload
-from caseview.scoring import score_loaded, to_day
+from caseview.dates import to_day
+from caseview.scoring import score_loaded
 
 from .conftest import open_ws
 from .standin import AS_OF, make_caseload

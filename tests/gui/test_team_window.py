@@ -4,7 +4,7 @@ from __future__ import annotations
 
 import pytest
 
-from caseview.scoring import from_day
+from caseview.dates import from_day
 
 from .standin import AS_OF
 

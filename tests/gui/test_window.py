@@ -6,7 +6,7 @@ import numpy as np
 import pytest
 from PySide6.QtCore import Qt
 
-from caseview.gui.caseload_model import CASE, DAYS_SINCE, P_REACH, PROBABILITY_ROLE
+from caseview.gui.caseload_model import CASE, DAYS_SINCE, P_REACH
 from caseview.gui.main_window import MainWindow
 
 from .standin import AS_OF
@@ -28,9 +28,9 @@ def test_open_sort_filter(window, qtbot, standin):
     loaded = load(window, qtbot, standin)
     model = window.caseload.model
     assert model.rowCount() == loaded.scores.n_cases
-    # default order: priority = P(reach follow-up) without follow-up rules, highest first
-    shown = np.array(column_values(model, P_REACH, PROBABILITY_ROLE))
-    assert np.all(np.diff(shown) <= 1e-12)
+    # default order: the assessment's priority (flagged first, then by follow-up probabilities), highest first
+    shown = loaded.assessment.priority[[model.case_row(i) for i in range(model.rowCount())]]
+    assert np.all(np.diff(shown) <= 1e-12) and loaded.assessment.is_flagged.any()
     # the view shows the percentage of the model's array for the top row
     top_row = model.case_row(0)
     assert column_values(model, P_REACH)[0] == f"{loaded.scores.p_reach_follow_up[top_row] * 100:.0f}%"
@@ -70,7 +70,7 @@ def test_select_case_updates_chart_and_contacts(window, qtbot, standin):
     assert view.data.case_id == case_id
     assert view.contacts.rowCount() == int(loaded.scores.n_contacts[target_row])
     assert view.contacts.item(0, 0).text() == \
-        __import__("caseview.scoring", fromlist=["from_day"]).from_day(view.data.contact_days[0]).isoformat()
+        __import__("caseview.dates", fromlist=["from_day"]).from_day(view.data.contact_days[0]).isoformat()
     assert case_id in view.title.text()
     # the chart carries the smoothed probabilities (rows sum to 1) and the "now" curve ends at p_now
     assert np.allclose(view.data.smoothed.sum(axis=1), 1.0)
@@ -95,19 +95,18 @@ def test_whatif_overlay_changes_forecast(window, qtbot, standin):
     assert np.allclose(view.data.ahead, before)
     # the demo model gives the programme hazard ratios < 1 on worsening moves (resources/models),
     # so the chance of a follow-up stage at the horizon must fall
-    assert view.data.whatif_follow_up < view.data.follow_up_at_horizon
+    assert view.data.whatif_follow_up_at_horizon < view.data.follow_up_at_horizon
     assert "What-if" in view.whatif_summary.text()
     # the window's numbers are those of `caseview forecast` (one what-if function for both faces)
     from caseview.followup import whatif_forecast
 
     w = whatif_forecast(loaded.scores, case_id, changes={"balance_programme": 1.0})
-    assert w.changed.p_follow_up_at_horizon == pytest.approx(view.data.whatif_follow_up, abs=1e-9)
+    assert w.changed.p_follow_up_at_horizon == pytest.approx(view.data.whatif_follow_up_at_horizon, abs=1e-9)
     assert f"→ {w.changed.p_follow_up_at_horizon * 100:.0f}%" in view.whatif_summary.text()
     assert any(line.get_label() == "follow-up, what-if" for line in view.figure.axes[0].lines)
 
 
 def test_fit_can_be_cancelled(window, qtbot, standin):
-    pytest.importorskip("hmm.fitting")
     load(window, qtbot, standin)
     panel = window.model_panel
     panel.starts.setValue(5)

@@ -12,7 +12,7 @@ from PySide6.QtCore import QPoint, Qt
 from PySide6.QtWidgets import QDateTimeEdit
 
 from caseview.gui.caseload_model import CASE, COORDINATOR, DAYS_SINCE
-from caseview.scoring import from_day
+from caseview.dates import from_day
 
 from .conftest import open_ws
 from .test_window import column_values, load

@@ -12,7 +12,6 @@ pytestmark = pytest.mark.gui
 
 
 def test_failing_review_write_is_shown_and_stores_nothing(window, qtbot, workspace_path, monkeypatch):
-    pytest.importorskip("caseview.followup")
     open_ws(window, qtbot, workspace_path)
     queue = window.risk_queue
     queue.table.selectRow(0)

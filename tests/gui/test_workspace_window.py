@@ -15,7 +15,6 @@ pytestmark = pytest.mark.gui
 
 
 def test_review_flag_writes_audit_entry(window, qtbot, workspace_path):
-    pytest.importorskip("caseview.followup")
     loaded = open_ws(window, qtbot, workspace_path)
     queue = window.risk_queue
     assert loaded.assessment is not None and queue.model.rowCount() > 0
@@ -43,7 +42,6 @@ def test_review_flag_writes_audit_entry(window, qtbot, workspace_path):
 
 
 def test_import_bad_file_lists_every_error(window, qtbot, workspace_path, tmp_path):
-    pytest.importorskip("caseview.timeline_io")
     open_ws(window, qtbot, workspace_path)
     before = window.workspace().contact_count()
     bad = tmp_path / "bad.csv"
@@ -68,7 +66,6 @@ def test_import_bad_file_lists_every_error(window, qtbot, workspace_path, tmp_pa
 
 
 def test_import_good_file_after_check(window, qtbot, workspace_path, tmp_path):
-    pytest.importorskip("caseview.timeline_io")
     open_ws(window, qtbot, workspace_path)
     before = window.workspace().contact_count()
     good = tmp_path / "good.csv"
@@ -142,8 +139,8 @@ def test_fit_in_worker_previews_then_asks_before_the_new_version_becomes_current
     assert ws.audit_entries()[-1].action == "model.current"
     # the panel now shows fitted mean times in stage with intervals and their kind
     assert "fitted" in panel.heading.text() and "intervals" in panel.heading.text()
-    assert panel.sojourn.rowCount() == len(fitted.fit_summary["mean_time_in_stage"])
-    kinds = {panel.sojourn.item(r, 2).text() for r in range(panel.sojourn.rowCount())}
+    assert panel.time_in_stage_table.rowCount() == len(fitted.fit_summary["mean_time_in_stage"])
+    kinds = {panel.time_in_stage_table.item(r, 2).text() for r in range(panel.time_in_stage_table.rowCount())}
     assert any(k.endswith("wald") for k in kinds), kinds
 
 

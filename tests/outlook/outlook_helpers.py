@@ -7,7 +7,9 @@ from types import SimpleNamespace
 
 import numpy as np
 
-from caseview.scoring import score_loaded, to_day
+from caseview.dates import to_day
+
+from caseview.scoring import score_loaded
 from hmm.simulate import simulate_caseload
 
 AS_OF = dt.date(2026, 11, 30)

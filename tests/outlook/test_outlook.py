@@ -171,7 +171,7 @@ def test_referral_rate_and_its_exact_interval():
     from scipy.stats import chi2
 
     from caseview.followup.referrals import poisson_rate_interval, referral_assumption
-    from caseview.scoring import to_day
+    from caseview.dates import to_day
 
     as_of = to_day(AS_OF)
     first = np.array([as_of - 400, as_of - 300, as_of - 200, as_of - 100, as_of - 10, as_of])

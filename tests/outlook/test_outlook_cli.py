@@ -16,7 +16,7 @@ from caseview.cli.main import main
 from caseview.followup.targeting import PLANNING_NOTE
 from caseview.followup.whatif import whatif_forecast
 from caseview.modelfile import dump_model
-from caseview.scoring import parse_date
+from caseview.dates import parse_date
 from caseview.storage import Workspace
 
 sys.path.insert(0, str(Path(__file__).resolve().parents[1] / "fitting"))
@@ -88,13 +88,13 @@ def test_outlook_csv_rows_columns_and_advisory(demo_ws, tmp_path, capsys):
 
 
 @pytest.mark.parametrize("options,message", [
-    (["--months", "0"], "--months: expected a whole number from 1 to 120"),
-    (["--referrals", "lots"], "--referrals: expected auto, none or a number"),
-    (["--referrals", "-3"], "--referrals: expected a number of referrals a month >= 0"),
-    (["--draws", "2.5"], "--draws: expected a whole number"),
-    (["--uncertainty", "maybe"], "--uncertainty: expected one of none, parameters"),
+    (["--months", "0"], "number of month ends: expected a whole number from 1 to 120"),
+    (["--referrals", "lots"], "new referrals: expected auto, none or a number"),
+    (["--referrals", "-3"], "new referrals: expected a number of referrals a month >= 0"),
+    (["--draws", "2.5"], "number of parameter draws: expected a whole number"),
+    (["--uncertainty", "maybe"], "parameter uncertainty: expected one of none, parameters"),
     (["--uncertainty", "parameters"], "was entered, not fitted"),
-    (["--coordinator", "C9"], "--coordinator: no coordinator 'C9'"),
+    (["--coordinator", "C9"], "no coordinator 'C9'"),
 ])
 def test_outlook_errors_are_one_line(demo_ws, tmp_path, capsys, options, message):
     out = tmp_path / "x.csv"
@@ -149,9 +149,9 @@ def test_target_ranking_matches_per_case_whatif_forecasts(demo_ws, tmp_path, cap
 
 @pytest.mark.parametrize("options,message", [
     (["--set", "walks=1", "--places", "3"], "covariate 'walks': not in the model"),
-    (["--set", "balance_programme=1", "--places", "0"], "--places: expected a whole number from 1"),
-    (["--set", "balance_programme=1", "--places", "3", "--horizon", "-5"], "--horizon: expected a number of days > 0"),
-    (["--set", "balance_programme=1", "--places", "3", "--among", "some"], "--among: expected one of flagged, all"),
+    (["--set", "balance_programme=1", "--places", "0"], "number of places: expected a whole number from 1"),
+    (["--set", "balance_programme=1", "--places", "3", "--horizon", "-5"], "horizon: expected a number of days > 0"),
+    (["--set", "balance_programme=1", "--places", "3", "--among", "some"], "candidates: expected one of flagged, all"),
 ])
 def test_target_errors_are_one_line(demo_ws, tmp_path, capsys, options, message):
     out = tmp_path / "t.csv"

@@ -24,7 +24,12 @@ def _version(model, standard_error: float):
     """A stored fit summary for ``model`` whose free parameters all have this standard error."""
     names = list(parameter_spec(model).names)
     covariance = (standard_error ** 2 * np.eye(len(names))).tolist()
-    return SimpleNamespace(id=5, fit_summary={"free_parameters": names, "covariance": covariance})
+    from hmm.fitting import FitSummary
+
+    # the stored JSON of a summary (read back through FitSummary.from_dict like every stored fit)
+    stored = FitSummary(-100.0, -100.0, False, len(names), 50, 400, 0.0, 0.0, 10, 20, True,
+                        free_parameters=tuple(names), covariance=tuple(map(tuple, covariance))).to_dict()
+    return SimpleNamespace(id=5, fit_summary=stored)
 
 
 def _outlook(scores, model, standard_error, draws=40, seed=3, now_sample=None, rng_seed=11):

@@ -4,7 +4,7 @@ from __future__ import annotations
 
 import sys
 from pathlib import Path
-from types import SimpleNamespace
+from dataclasses import replace
 
 import numpy as np
 import pytest
@@ -17,13 +17,24 @@ sys.path.insert(0, str(Path(__file__).resolve().parents[1] / "fitting"))
 from fitting_helpers import simulate, three_stage_model  # noqa: E402
 
 
+def _stored_version(version_id, result):
+    """The ModelVersion a workspace returns for a fitted model (the summary as its stored JSON)."""
+    import json
+
+    from caseview.modelfile import dump_model
+    from caseview.storage.workspace import ModelVersion
+
+    stored = json.loads(json.dumps(result.to_summary().to_dict(), allow_nan=False))
+    return ModelVersion(version_id, "2026-12-03T09:00:00Z", "fitted", dump_model(result.model), stored, True)
+
+
 @pytest.fixture(scope="module")
 def fitted():
     rng = np.random.default_rng(20261203)
     model = three_stage_model()
     sim = simulate(model, rng, n_cases=300)
     result = fit_model(model, sim.timelines, rng=np.random.default_rng(1))
-    return result, SimpleNamespace(id=7, fit_summary=result.to_summary().to_dict())   # as stored
+    return result, _stored_version(7, result)
 
 
 def test_draws_have_the_fitted_mean_and_covariance(fitted):
@@ -55,7 +66,7 @@ def test_an_unidentified_effect_is_kept_at_its_fitted_value_and_named(rng):
                                          timelines.times, timelines.observations, timelines.allowed_stages,
                                          np.zeros_like(timelines.covariates))
     result = fit_model(model, flat, rng=np.random.default_rng(2))
-    version = SimpleNamespace(id=3, fit_summary=result.to_summary().to_dict())   # as stored
+    version = _stored_version(3, result)
     draws = draw_models(result.model, version, 50, np.random.default_rng(1))
     assert draws.kept_fixed == ["effect of alone on Well -> Unwell"]
     assert {m.transitions[0].effects["alone"] for m in draws.models} == {result.model.transitions[0].effects["alone"]}
@@ -65,7 +76,7 @@ def test_an_unidentified_effect_is_kept_at_its_fitted_value_and_named(rng):
 def test_refuses_models_without_a_fit_covariance(fitted):
     result, version = fitted
     with pytest.raises(InputError, match="entered, not fitted"):
-        fit_covariance(SimpleNamespace(id=1, fit_summary=None))
+        fit_covariance(replace(version, id=1, fit_summary=None))
     old = {k: v for k, v in version.fit_summary.items() if k != "covariance"}
     with pytest.raises(InputError, match="fitted before caseview stored"):
-        draw_models(result.model, SimpleNamespace(id=2, fit_summary=old), 5, np.random.default_rng(1))
+        draw_models(result.model, replace(version, id=2, fit_summary=old), 5, np.random.default_rng(1))

@@ -23,11 +23,19 @@ def test_stays_come_from_the_rates_when_not_fitted(demo_model):
 
 
 def test_fitted_interval_is_shown_in_the_estimates_unit(demo_model):
-    summary = {"mean_time_in_stage": [
-        {"name": "mean time in Stable (days)", "estimate": 548.0, "lower": 365.0, "upper": 761.0, "informative": True},
-        {"name": "mean time in Slipping (days)", "estimate": 120.0, "lower": 1.0, "upper": 9000.0,
-         "informative": False}]}
-    stays = model_sentences(demo_model, summary)["stays"]
+    from hmm.fitting import FitSummary
+    from hmm.fitting.uncertainty import ParameterEstimate
+
+    def mean_time(stage, estimate, lower, upper):
+        return ParameterEstimate(f"mean time in {stage} (days)", "mean_time_in_stage", estimate, None, lower, upper,
+                                 False, "wald", stage=stage)
+
+    # the stored JSON form (FitSummary.to_dict), read back as every reader does
+    stored = FitSummary(-100.0, -100.0, False, 5, 50, 400, 210.0, 220.0, 20, 40, True,
+                        mean_time_in_stage=(mean_time("Stable", 548.0, 365.0, 761.0),
+                                            mean_time("Slipping", 120.0, 1.0, 90000.0))).to_dict()
+    assert [row["informative"] for row in stored["mean_time_in_stage"]] == [True, False]
+    stays = model_sentences(demo_model, stored)["stays"]
     assert stays[0].startswith("People typically stay Stable for about 18 months (12 to 25), then move to Slipping")
     assert stays[1].startswith("People typically stay Slipping for about 4 months,")  # no useless interval
 

@@ -43,9 +43,9 @@ def test_cli_csv_report_is_audited(workspace_copy, tmp_path, capsys):
 
 @pytest.mark.parametrize("args, message", [
     (["--out", "{tmp}/r.docx"], "expected a file name ending in .pdf, .xlsx or .csv"),
-    (["--out", "{tmp}/r.csv", "--since", "2026-12-31"], "--since: expected a date before the as-of date"),
+    (["--out", "{tmp}/r.csv", "--since", "2026-12-31"], "changes since: expected a date before the as-of date"),
     (["--out", "{tmp}/r.csv", "--coordinator", "C9"], "no coordinator 'C9'"),
-    (["--out", "{tmp}/r.csv", "--horizon", "-5"], "--horizon"),
+    (["--out", "{tmp}/r.csv", "--horizon", "-5"], "horizon: expected a number of days > 0"),
 ])
 def test_cli_errors_are_one_line_and_change_nothing(workspace_copy, tmp_path, capsys, args, message):
     from caseview.cli.main import main

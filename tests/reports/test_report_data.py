@@ -87,13 +87,13 @@ def test_counts(data):
 def test_model_summary_unfitted_and_sojourn_from_rates(data, demo_model):
     from caseview.reports.model_summary import NOT_FITTED
 
-    assert not data.model.fitted and NOT_FITTED in data.model.sojourn_source
+    assert not data.model.fitted and NOT_FITTED in data.model.time_in_stage_source
     # Mean sojourn in a stage of a continuous-time Markov chain is 1 / (total exit rate)
     # (Norris, Markov Chains, 1997, section 2.6). Stable's only exit is Stable -> Slipping.
-    stable = data.model.sojourn[0]
+    stable = data.model.time_in_stage[0]
     assert stable.stage == "Stable"
     assert stable.mean == pytest.approx(1.0 / demo_model.transition("Stable", "Slipping").rate)
-    assert data.model.sojourn[-1].mean is None     # absorbing
+    assert data.model.time_in_stage[-1].mean is None     # absorbing
 
 
 def test_fit_summary_stored_before_format_versions_is_read(demo_model):
@@ -110,11 +110,11 @@ def test_fit_summary_stored_before_format_versions_is_read(demo_model):
     summary = summarise_model(demo_model, version)
     labels = dict(summary.statistics)
     assert labels["log-likelihood"] == "-8,933.50" and labels["converged"] == "yes" and labels["cases"] == "400"
-    stable = summary.sojourn[0]
+    stable = summary.time_in_stage[0]
     assert stable.stage == "Stable" and stable.mean == pytest.approx(536.9, abs=0.1)
     assert (stable.lower, stable.upper) == (pytest.approx(385.8, abs=0.1), pytest.approx(747.05, abs=0.1))
-    assert "Wald" in summary.sojourn_source
-    assert summary.sojourn[-1].mean is None
+    assert "Wald" in summary.time_in_stage_source
+    assert summary.time_in_stage[-1].mean is None
     unreadable = summarise_model(demo_model, ModelVersion(5, "", "", "{}", {"aic": "n/a"}, False))
     assert unreadable.fitted and "unreadable" in dict(unreadable.statistics)["fit summary"]
 

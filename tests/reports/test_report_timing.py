@@ -2,10 +2,11 @@
 
 from __future__ import annotations
 
+import json
+
 import sys
 from dataclasses import replace
 from pathlib import Path
-from types import SimpleNamespace
 
 import numpy as np
 import pytest
@@ -25,7 +26,11 @@ def test_fitted_rates_per_year_reach_the_report(rng):
     sim = simulate_caseload(model, schedule, rng.integers(0, 2, size=(80, 1)).astype(float), rng)
     result = fit_model(model, sim.timelines, starts=1)
     summary = result.to_summary()
-    version = SimpleNamespace(id=7, created_utc="2026-12-03T10:00:00", note="fitted", fit_summary=summary)
+    from caseview.modelfile import dump_model
+    from caseview.storage.workspace import ModelVersion
+
+    stored = json.loads(json.dumps(summary.to_dict(), allow_nan=False))   # as the workspace keeps it
+    version = ModelVersion(7, "2026-12-03T10:00:00Z", "fitted", dump_model(result.model), stored, True)
     rows = unscheduled_contacts_per_year(result.model, summary)
     assert [r.stage for r in rows] == ["Well", "Unwell", "Gone"]
     unwell = rows[1]

@@ -154,7 +154,7 @@ def test_team_commands_owner_only_and_postgresql_only(team, tmp_path):
     missing = run("add", owner_url, "nobody_here", "--role", "analyst")
     assert "no login role 'nobody_here' on this server" in missing.stderr and missing.stderr.count("\n") == 1
     no_code = run("add", owner_url, team.login("ann"), "--role", "coordinator")
-    assert "a coordinator needs at least one --coordinator CODE" in no_code.stderr
+    assert "a coordinator needs at least one coordinator code" in no_code.stderr
     sqlite = run("list", str(tmp_path / "one.cvw"))
     assert sqlite.returncode != 0
     by = subprocess.run([sys.executable, "-m", "caseview", "record", team.url(team.login("alice")),
