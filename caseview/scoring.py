@@ -8,7 +8,7 @@ as-of date, and forecasts to the horizon. Every number it returns is advisory.
 from __future__ import annotations
 
 import datetime as dt
-from dataclasses import dataclass, field
+from dataclasses import dataclass, field, replace
 from typing import TYPE_CHECKING
 
 import numpy as np
@@ -99,6 +99,10 @@ class CaseloadScores:
         Cases left out of every array above because they cannot be scored (a covariate outside
         its range, a rate that overflows, a contradictory or impossible record), with the reason;
         one case's failure never stops the others.
+    is_closed : ndarray of bool, shape (n_cases,), or None
+        True for a case closed on the as-of date; present only when scoring was asked to include
+        closed cases (the window's "Show closed"), None when every scored case is open. The
+        outlook and targeting leave closed cases out either way.
     """
 
     as_of: dt.date
@@ -125,6 +129,7 @@ class CaseloadScores:
     timelines: Timelines
     p_at_last_contact: np.ndarray | None = None
     unscorable: UnscorableCases = field(default_factory=_no_unscorable)
+    is_closed: np.ndarray | None = None
 
     @property
     def n_cases(self) -> int:
@@ -293,4 +298,8 @@ def score_caseload(workspace, as_of: dt.date, horizon_days: float = 90.0, model:
         caseload = subset_caseload(caseload, workspace.open_case_mask(caseload.case_ids, as_of_day))
     if callback:
         callback(0.05)
-    return score_loaded(caseload, model, as_of_day, horizon_days, model_version=version_id, callback=callback)
+    scores = score_loaded(caseload, model, as_of_day, horizon_days, model_version=version_id, callback=callback)
+    if include_closed:
+        is_open = np.asarray(workspace.open_case_mask(list(scores.case_ids), as_of_day), dtype=bool)
+        scores = replace(scores, is_closed=~is_open)
+    return scores

@@ -87,9 +87,7 @@ def open_case_rows(scores, coordinator: str | None = None) -> OpenCases:
     if set_aside.n_cases:
         n_set_aside = int(set_aside.n_cases) if coordinator is None else \
             int(np.sum(np.asarray(set_aside.coordinators).astype(str) == str(coordinator)))
-    # TODO(casework): CaseloadScores has no is_closed yet, so with "Show closed" on the window's outlook
-    # counts closed cases as open; this reads the mark once scoring records it
-    closed = np.asarray(getattr(scores, "is_closed", np.zeros(n, dtype=bool)), dtype=bool)
+    closed = np.zeros(n, dtype=bool) if scores.is_closed is None else np.asarray(scores.is_closed, dtype=bool)
     left = np.zeros(n, dtype=bool)
     model = scores.model
     if n and model.exact_entry_stages:

@@ -232,7 +232,8 @@ def _rescore_one(ws, loaded, case_id: str, include_closed: bool):
     scores = loaded.scores
     model = scores.model
     one = ws.load_case(model, case_id, as_of_day=scores.as_of_day)
-    keep = one.n_cases == 1 and (include_closed or bool(ws.open_case_mask([case_id], scores.as_of_day)[0]))
+    is_open = bool(ws.open_case_mask([case_id], scores.as_of_day)[0])
+    keep = one.n_cases == 1 and (include_closed or is_open)
     ids = np.asarray(scores.case_ids, dtype=object)
     row = int(np.searchsorted(ids, case_id))
     present = row < ids.size and ids[row] == case_id
@@ -240,6 +241,8 @@ def _rescore_one(ws, loaded, case_id: str, include_closed: bool):
         return loaded, -1
     splice = _Splice(row, present, keep)
     fresh = score_loaded(one, model, scores.as_of_day, scores.horizon_days, scores.model_version) if keep else None
+    if fresh is not None and scores.is_closed is not None:  # the closed mark is spliced with the other rows
+        fresh = dataclasses.replace(fresh, is_closed=np.array([not is_open] * fresh.n_cases, dtype=bool))
 
     old_caseload = scores.caseload
     timelines = _timelines(scores.timelines, fresh.timelines if keep else None, splice)

@@ -158,3 +158,40 @@ def test_target_errors_are_one_line(demo_ws, tmp_path, capsys, options, message)
     code, _, err = run(capsys, "target", demo_ws, "--as-of", AS_OF, *options, "--out", out)
     assert code == 2 and message in err and err.count("\n") == 1
     assert not out.exists()
+
+
+def test_closed_cases_stay_out_of_the_outlook_when_the_window_shows_them(tmp_path):
+    """'Show closed' puts closed cases back in the window's scores; the outlook must still leave them out,
+    also after one case is rescored (the window's one-case refresh)."""
+    from caseview.operations import casework
+    from caseview.operations.outlook import outlook_from_scores
+    from caseview.operations.single_case import rescore_one
+    from caseview.scoring import score_caseload
+    from caseview.followup import assess_caseload
+    from caseview.gui.data_source import LoadedCaseload
+
+    path = tmp_path / "demo.cvw"
+    assert main(["demo", str(path)]) == 0
+    as_of = parse_date(AS_OF)
+    with Workspace.open(path) as ws:
+        version = ws.current_model()[1]
+        open_only = score_caseload(ws, as_of)
+        closing = [str(c) for c in open_only.case_ids[:3]]
+        for case_id in closing:
+            casework.close_case(ws, case_id, "2026-11-01", "moved", "tester")
+        without = score_caseload(ws, as_of)
+        shown = score_caseload(ws, as_of, include_closed=True)
+        assert shown.n_cases == without.n_cases + 3
+        assert shown.is_closed is not None and int(shown.is_closed.sum()) == 3
+        expected = outlook_from_scores(without, version, as_of, 3, "none", "none")
+        got = outlook_from_scores(shown, version, as_of, 3, "none", "none")
+        as_if_open = outlook_from_scores(replace(shown, is_closed=None), version, as_of, 3, "none", "none")
+        counted_before = set(closing) & {str(c) for c in shown.case_ids[as_if_open.open_cases.rows]}
+        assert counted_before and got.open_cases.n_closed == len(counted_before)
+        np.testing.assert_allclose(got.expected, expected.expected, rtol=1e-12)
+        assessment = assess_caseload(ws, as_of, 90.0, explain_reasons=False, reopen=False, include_closed=True)
+        loaded = LoadedCaseload(assessment.scores, assessment, [], [])
+        rescored, row = rescore_one(ws, loaded, closing[0], include_closed=True)
+        assert row >= 0 and bool(rescored.scores.is_closed[row])
+        again = outlook_from_scores(rescored.scores, version, as_of, 3, "none", "none")
+        np.testing.assert_allclose(again.expected, expected.expected, rtol=1e-12)
