@@ -132,63 +132,6 @@ def make_workspace(ws: Path, model: Path, csv: Path, notes: list | None = None) 
     return imported
 
 
-def demo_model() -> dict:
-    from generate import demo_model_json
-
-    return demo_model_json(True, True)
-
-
-def last_date_of(csv: Path) -> str:
-    """The latest contact date in a generated CSV (its ``date`` column)."""
-    import pandas as pd
-
-    return str(pd.read_csv(csv, usecols=["date"])["date"].max())
-
-
-def gui_rows(ctx, n: int, ws: Path, as_of: str, measured: dict) -> None:
-    """Sort and filter from the window's open, then the whole window in a process of its own."""
-    figures, peak = measured["gui_figures"], measured["gui_peak_mb"]
-    log("timing the whole window (open until shown, stalls while reasons arrive)")
-    whole = run_measured([PYTHON, str(HERE / "gui_timing.py"), str(ws), "--as-of", as_of, "--part", "window"])
-    shown = whole.last_json_line()
-    if whole.ok and shown:
-        ctx.rows.append(Row(f"whole window: open {n:,}-case workspace until table, risk queue and selected case are "
-                            "shown", shown["window_shown"], None, "<= 3 s", whole.peak_mb, limit=3.0))
-        ctx.rows.append(Row("whole window: longest main-thread stall while reasons arrive", shown["longest_stall"],
-                            None, "(no target; < 0.1 s feels instant)", whole.peak_mb))
-        ctx.notes.append(f"whole window: reasons for every flagged case done {shown['reasons_done']:.2f} s after "
-                         f"asking; {shown['stalls_over_100ms']} main-thread stalls over 0.1 s")
-    else:
-        ctx.missing.append(f"whole-window timing failed: {whole.problem() or 'no figures printed'}")
-    ctx.rows.append(Row("window: sort the table (slowest of 5 columns x 2 directions)", figures["sort_max"], None,
-                        "<= 0.1 s", peak, limit=0.1))
-    ctx.rows.append(Row("window: filter the table (slowest of coordinator / search / flagged / clear)",
-                        figures["filter_max"], None, "<= 0.1 s", peak, limit=0.1))
-    parts = ", ".join(f"{k} {v:.3f} s" for k, v in figures.items() if isinstance(v, float))
-    ctx.notes.append(f"window breakdown ({n:,} cases): {parts}")
-
-
-def middle_case(n: int) -> str:
-    """The case code of the middle case of a generated caseload of ``n`` cases."""
-    from generate import case_codes
-
-    return str(case_codes(n)[n // 2])
-
-
-def make_workspace(ws: Path, model: Path, csv: Path, notes: list | None = None) -> Measured:
-    """``caseview init`` (untimed) then ``caseview import`` (measured)."""
-    cv = caseview_command()
-    if ws.exists():
-        ws.unlink()
-    init = subprocess.run(cv + ["init", str(ws), "--model", str(model)], capture_output=True, text=True)
-    if init.returncode:
-        raise RuntimeError(f"caseview init failed: {init.stderr.strip()}")
-    imported = run_measured(cv + ["import", str(ws), str(csv)])
-    if not imported.ok:
-        raise RuntimeError(f"caseview import {csv.name} failed: {imported.problem()}")
-    return imported
-
-
 def score_cross_check(scores_csv: Path, posterior_npy: Path, stages: list) -> float:
     """Largest |caseview p_now - hmmlearn posterior at the last contact| over all cases and stages."""
     import numpy as np
