@@ -177,7 +177,7 @@ def postgres_rows(ctx, n: int, sqlite_ws: Path, as_of: str, sqlite_seconds: dict
     try:
         url = cluster.create_database(f"bench{n}")
         ctx.log(f"copying the {n:,}-case workspace into PostgreSQL")
-        copied = run_measured(ctx.cv + ["copy", str(sqlite_ws), url, "--by", "benchmark"])
+        copied = run_measured(ctx.cv + ["copy", str(sqlite_ws), url])
         if not copied.ok:
             ctx.missing.append(f"caseview copy into PostgreSQL failed: {copied.problem()}")
             return
