@@ -34,7 +34,8 @@ from .contacts import register_model_fields
 from .filesystem import network_warning
 from .location import DatabaseURL, workspace_location
 from .row_digests import LAYOUT_TABLES, RowChanges
-from .workspace_files import backup_workspace, connect_read_only, disk_hint
+from .workspace_files import (SQLITE_SUFFIXES, backup_workspace, connect_read_only, disk_hint,
+                              remove_sqlite_files)
 
 DEFAULT_BUSY_TIMEOUT_MS = 5000
 
@@ -167,11 +168,7 @@ class Workspace:
             con.execute("PRAGMA wal_checkpoint(TRUNCATE)")  # the main file now identifies itself on disk
         except BaseException:
             ws.close()
-            for suffix in ("", "-wal", "-shm", "-journal"):
-                try:
-                    os.unlink(str(path) + suffix)
-                except OSError:
-                    pass
+            remove_sqlite_files(path)
             raise
         ws._check_network()
         return ws
@@ -243,7 +240,7 @@ class Workspace:
         """True when ``path`` is this workspace's file or its -wal/-shm/-journal (compared with stat, never opened)."""
         if self.is_postgres or isinstance(path, DatabaseURL):
             return False
-        for suffix in ("", "-wal", "-shm", "-journal"):
+        for suffix in SQLITE_SUFFIXES:
             try:
                 if os.path.samefile(path, str(self.path) + suffix):
                     return True

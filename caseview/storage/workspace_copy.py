@@ -11,7 +11,6 @@ source and the source's chain head at the time of the copy.
 
 from __future__ import annotations
 
-import os
 from dataclasses import dataclass
 from itertools import islice
 
@@ -143,6 +142,7 @@ def _empty_destination(destination, password):
     if not location.parent.exists():
         raise WorkspaceError(f"{location.parent}: folder does not exist")
     from ..private_files import create_private_file
+    from .workspace_files import remove_sqlite_files
     from .schema import APPLICATION_ID
 
     create_private_file(location)
@@ -152,11 +152,7 @@ def _empty_destination(destination, password):
 
     def remove():
         ws.close()
-        for suffix in ("", "-wal", "-shm", "-journal"):
-            try:
-                os.unlink(str(location) + suffix)
-            except OSError:
-                pass
+        remove_sqlite_files(location)
 
     return ws, remove
 

@@ -12,6 +12,18 @@ from pathlib import Path
 from ..errors import WorkspaceError
 from ..private_files import create_private_file, describe_os_error, partial_path
 
+#: An SQLite workspace's file and the files SQLite keeps beside it.
+SQLITE_SUFFIXES = ("", "-wal", "-shm", "-journal")
+
+
+def remove_sqlite_files(path, *also) -> None:
+    """Remove ``path`` with its -wal/-shm/-journal files (and any of ``also``); missing files are fine."""
+    for name in [str(path) + suffix for suffix in SQLITE_SUFFIXES] + [str(a) for a in also]:
+        try:
+            os.unlink(name)
+        except OSError:
+            pass
+
 
 def disk_hint(path, exc) -> str:
     """' - the disk is full' when SQLite's error comes from a full disk (SQLITE_FULL, or an I/O error
@@ -98,12 +110,6 @@ def backup_workspace(ws, destination, actor: str | None = None) -> Path:
     except OSError as exc:
         raise WorkspaceError(describe_os_error(destination, exc)) from None
     finally:
-        leftovers = [str(temporary) + suffix for suffix in ("", "-wal", "-shm", "-journal")]
-        if placed and not done:  # the entry could not be written: the copy goes too
-            leftovers.append(str(destination))
-        for name in leftovers:
-            try:
-                os.unlink(name)
-            except OSError:
-                pass
+        # the entry could not be written: the copy goes too
+        remove_sqlite_files(temporary, *([destination] if placed and not done else []))
     return destination
