@@ -113,6 +113,7 @@ def test_fit_in_worker_previews_then_asks_before_the_new_version_becomes_current
     current_before = [v.id for v in ws.model_versions() if v.is_current]
     panel.starts.setValue(1)
     panel.intervals.setCurrentIndex(panel.intervals.findData("wald"))   # fast; profile intervals: tests/fitting
+    panel.calibration.setValue(0)   # no calibration refits (tests/fitting/test_calibration.py)
     finished, failures = [], []
     panel.fit_finished.connect(finished.append)
     panel.fit_failed.connect(failures.append)
