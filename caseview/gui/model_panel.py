@@ -125,7 +125,7 @@ class ModelPanel(QWidget):
         self.intervals.setAccessibleName("Kind of 95% interval (automatic: profile likelihood below 5,000 cases)")
         self.calibration = QSpinBox()
         self.calibration.setRange(-1, 1000)
-        self.calibration.setSpecialValueText("width calibration: automatic")
+        self.calibration.setSpecialValueText("calibration: auto")
         self.calibration.setPrefix("calibration refits: ")
         self.calibration.setValue(-1)
         self.calibration.setAccessibleName("Refits of simulated caseloads that calibrate the intervals' width "
@@ -192,6 +192,9 @@ class ModelPanel(QWidget):
             fitted += f" ({summary.interval_label()})"
         self.heading.setText(f"<b>{self.model.name}</b> — {label}, {fitted}. Rates and probabilities are "
                              "estimates; advisory only.")
+        self.heading.setToolTip("" if summary is None else "\n".join(
+            line for line in (summary.calibration.describe() if summary.calibration else "",
+                              summary.interval_caveat()) if line))
         self.summary_view.set_model(self.model, self.version)
         self._fill_time_in_stage(summary)
         self._fill_hazards(summary)

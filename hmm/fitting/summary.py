@@ -158,6 +158,14 @@ class FitSummary:
             f", widths calibrated by {self.calibration.used} bootstrap refits (x{self.calibration.multiplier:.2f})")
         return f"{label}{penalty}{calibrated}{reason}{tail}"
 
+    def interval_caveat(self) -> str:
+        """What the coverage study measured for intervals like these ("" without intervals)."""
+        if self.interval_kind not in ("profile", "wald"):
+            return ""
+        from .intervals import coverage_caveat
+
+        return coverage_caveat(self.calibration is not None)
+
     def format_table(self) -> str:
         """A plain-text table for a terminal (see :func:`format_summary_table`)."""
         return format_summary_table(self)
@@ -310,10 +318,8 @@ def format_summary_table(summary: FitSummary) -> str:
                      "'wald (profile search failed: ...)'")
     if summary.calibration is not None:
         lines.append(f"calibration         {summary.calibration.describe()}")
-    if summary.interval_kind in ("profile", "wald"):
-        from .intervals import coverage_caveat
-
-        lines.append(f"caveat: {coverage_caveat(summary.calibration is not None)}")
+    if summary.interval_caveat():
+        lines.append(f"caveat: {summary.interval_caveat()}")
     for w in summary.warnings:
         lines.append(f"warning: {w}")
     return "\n".join(lines)
