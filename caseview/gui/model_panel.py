@@ -143,10 +143,13 @@ class ModelPanel(QWidget):
         self.fit_warnings.setMaximumHeight(150)
         self.fit_warnings.setWordWrap(True)
         self.fit_warnings.hide()
-        fit_row = QHBoxLayout()
-        for w in (self.fit_button, self.starts, self.penalised, self.intervals, self.calibration, self.progress,
-                  self.cancel_button):
+        fit_row = QHBoxLayout()       # how to fit, then (below) the running fit's progress
+        for w in (self.fit_button, self.starts, self.penalised, self.intervals, self.calibration):
             fit_row.addWidget(w)
+        fit_row.addStretch(1)
+        progress_row = QHBoxLayout()
+        progress_row.addWidget(self.progress, 1)
+        progress_row.addWidget(self.cancel_button)
         self.preview = FitPreviewBox()
         self.preview.decided.connect(self.decide)
         self.use_fitted, self.keep_current = self.preview.use_fitted, self.preview.keep_current
@@ -156,6 +159,7 @@ class ModelPanel(QWidget):
         lv.addWidget(self.heading)
         lv.addWidget(self.diagram, 1)
         lv.addLayout(fit_row)
+        lv.addLayout(progress_row)
         lv.addWidget(self.fit_message)
         lv.addWidget(self.fit_warnings)
         lv.addWidget(self.preview)
