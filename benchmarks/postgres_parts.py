@@ -6,7 +6,8 @@ shared_buffers 64 MB) serves both sizes, a database per size. The caseload goes 
 ``caseview import`` of the same CSV the SQLite workspace was imported from, so both hold the same contacts
 and the 1-start fits must reach the same optimum (log-likelihood within 0.01). Every command runs in a fresh
 process (``measure.run_measured``: wall time, CPU time, peak RSS of the caseview process); while it runs the
-server's memory is sampled (:class:`ServerMemory`) and reported beside it.
+server's memory is sampled (:class:`ServerMemory`) and reported beside it. After the timed import the
+database is vacuumed and analysed, untimed (:func:`settle`).
 """
 
 from __future__ import annotations
@@ -147,6 +148,7 @@ def postgres_rows(ctx, server: PostgresServer, n: int, csv: Path, model: Path, c
          memory_mb, server_mb, done.problem())
     if not done.ok:
         return
+    settle(ctx, cluster, f"bench{n}")
     for name, command in (("score", ["score", url, "--as-of", as_of, "--out", str(ctx.work / f"pg_s{n}.csv")]),
                           ("flags", ["flags", url, "--as-of", as_of, "--out", str(ctx.work / f"pg_f{n}.csv")]),
                           ("history", ["history", url, case_id, "--out", str(ctx.work / f"pg_h{n}.csv")])):
@@ -176,6 +178,22 @@ def postgres_rows(ctx, server: PostgresServer, n: int, csv: Path, model: Path, c
                                 f"|difference| <= {LOGLIK_TOLERANCE}", None,
                                 figure=f"{abs(log_likelihood - theirs):.4f}", verdict=same))
     cluster.drop_database(f"bench{n}")   # the large size needs the disk
+
+
+def settle(ctx, cluster, dbname: str) -> None:
+    """``VACUUM (ANALYZE)`` after the bulk import, untimed: what autovacuum would otherwise start on its own
+    during the timed commands (PostgreSQL documentation, "Populating a Database": run ANALYZE afterwards),
+    so the timings are of a settled server, as a SQLite workspace is after its import."""
+    import time
+
+    import psycopg
+
+    ctx.log(f"VACUUM (ANALYZE) of {dbname} (untimed)")
+    start = time.perf_counter()
+    with psycopg.connect(dbname=dbname, host=str(cluster.socket_dir), user="postgres", autocommit=True) as con:
+        con.execute("VACUUM (ANALYZE)")
+    ctx.notes.append(f"PostgreSQL {dbname}: VACUUM (ANALYZE) after the import took {time.perf_counter() - start:.1f} s "
+                     "(untimed; autovacuum would otherwise run during the timed commands)")
 
 
 def _row(ctx, what: str, n: int, seconds, sqlite, peak_mb: float, memory_mb: float, server_mb, problem: str) -> None:
