@@ -72,7 +72,7 @@ def _fitted_model_into(big: Path, small: Path) -> int:
         _, version = ws.current_model()
         if version.fit_summary and version.fit_summary.get("covariance"):
             return version.id
-    _run(CASEVIEW + ["fit", str(small)])
+    _run(CASEVIEW + ["fit", str(small), "--calibration-draws", "0"])   # the outlook needs the covariance only
     with Workspace.open(small) as ws:
         _, fitted = ws.current_model()
     with Workspace.open(big) as ws:

@@ -67,6 +67,9 @@ GLOSSARY = (
     ("time in stage", "How long people typically stay in a stage before moving on (the mean time in stage)."),
     ("interval", "The range the model's estimate is likely to lie in given the data (a 95% interval). Wide "
                  "intervals mean the data say little about that number."),
+    ("calibration refits", "Below a few thousand cases the usual 95% intervals were measured to be too narrow. "
+                           "The fit then simulates caseloads from the fitted model, fits each again and widens "
+                           "every interval as far as those refits needed."),
     ("hazard ratio", "How many times faster (above 1) or slower (below 1) a change of stage happens when a "
                      "covariate is 1 instead of 0."),
     ("observation channel", "One thing recorded at a contact (for example mobility, falls, concern), each with "

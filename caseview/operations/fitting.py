@@ -38,20 +38,24 @@ if TYPE_CHECKING:
 
 __all__ = ["FitOptions", "FitInputs", "FitOutcome", "SavedFit", "FitPreview", "FitCheckOptions", "FitCheckOutcome",
            "fit_inputs", "inputs_from_caseload", "compute_fit", "save_fit", "make_version_current", "run_fit",
-           "preview_fit", "compute_fit_check", "record_fit_check", "run_fit_check", "stored_fit_summary",
+           "preview_fit", "compute_fit_check", "default_calibration_draws", "record_fit_check", "run_fit_check",
+           "stored_fit_summary",
            "stored_fit_failed",
            "DEFAULT_SEED"]
 
 
 @dataclass(frozen=True)
 class FitOptions:
-    """How to fit: ``starts`` seeded from ``seed``; ``intervals`` ``auto`` | ``profile`` | ``wald``."""
+    """How to fit: ``starts`` seeded from ``seed``; ``intervals`` ``auto`` | ``profile`` | ``wald``;
+    ``calibration_draws`` bootstrap refits that calibrate the intervals' width (None: the default,
+    :func:`default_calibration_draws`; 0: off)."""
 
     starts: int = 3
     seed: int = DEFAULT_SEED
     penalised: bool = False
     intervals: str = "auto"
     max_iterations: int = 500
+    calibration_draws: int | None = None
 
     def check(self) -> None:
         if self.starts < 1:
@@ -60,6 +64,27 @@ class FitOptions:
             raise InputError(f"maximum iterations: expected a whole number >= 1, got {self.max_iterations}")
         if self.intervals not in ("auto", "profile", "wald"):
             raise InputError(f"intervals: expected auto, profile or wald, got {self.intervals!r}")
+        if self.calibration_draws is not None and not 0 <= self.calibration_draws <= MAX_CALIBRATION_DRAWS:
+            raise InputError(f"calibration draws: expected a whole number from 0 to {MAX_CALIBRATION_DRAWS}, "
+                             f"got {self.calibration_draws}")
+
+    def calibration_draws_for(self, n_cases: int) -> int:
+        """The refits to calibrate with for a caseload of ``n_cases`` cases."""
+        if self.calibration_draws is not None:
+            return self.calibration_draws
+        return default_calibration_draws(n_cases, self.penalised)
+
+
+#: Largest number of calibration refits accepted (each is a whole fit of the caseload).
+MAX_CALIBRATION_DRAWS = 1000
+
+
+def default_calibration_draws(n_cases: int, penalised: bool = False) -> int:
+    """Bootstrap refits calibrating the intervals by default: 40 below 5,000 cases (where chi-squared
+    theory was measured to undercover, README "Fitting the model"), none above or for a penalised fit."""
+    from hmm.fitting.calibration import CALIBRATE_BELOW_CASES, DEFAULT_CALIBRATION_DRAWS
+
+    return DEFAULT_CALIBRATION_DRAWS if n_cases < CALIBRATE_BELOW_CASES and not penalised else 0
 
 
 @dataclass(frozen=True)
@@ -147,7 +172,8 @@ def compute_fit(inputs: FitInputs, options: FitOptions, callback=None, on_progre
         inputs.model, inputs.timelines, starts=options.starts, rng=random_generator(options.seed),
         penalised=options.penalised, callback=callback, max_iterations=options.max_iterations,
         intervals=options.intervals, on_progress=on_progress,
-        observed_until=observation_end_day(inputs.timelines)))
+        observed_until=observation_end_day(inputs.timelines),
+        calibration_draws=options.calibration_draws_for(inputs.timelines.n_cases)))
     summary = result.to_summary().with_provenance(
         None if inputs.contacts_as_of is None else inputs.contacts_as_of.isoformat(), inputs.version_id)
     return FitOutcome(inputs, options, result, summary)

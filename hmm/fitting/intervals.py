@@ -36,6 +36,7 @@ from .quantities import from_link, reported_quantities, to_link
 from .uncertainty import FLAT_TOLERANCE, ParameterEstimate, Z_95
 
 __all__ = ["choose_interval_kind", "estimates_with_intervals", "identification_warnings", "effect_warnings",
+           "link_scale_standard_errors",
            "PROFILE_BELOW_CASES", "WEAK_STANDARD_ERROR", "ILL_CONDITIONED", "LARGE_EFFECT"]
 
 #: Default to profile intervals below this many cases (issue 13; Wald needs large samples).
@@ -49,20 +50,23 @@ ILL_CONDITIONED = 1e8
 #: transitions (separation), so the likelihood keeps rising towards the optimiser's limit of 20
 #: (common practice, no source).
 LARGE_EFFECT = 5.0
-#: The coverage study's result (tests/fitting/test_coverage_demo.py), quoted under every profile fit summary.
+#: The coverage study's results (tests/fitting/test_coverage_demo.py), quoted under every fit summary with intervals.
 MEASURED_COVERAGE = (
-    "in a simulation study on the demo model's structure (5 caseloads of 200 cases) 95% profile intervals "
-    "not marked weakly identified covered the true value only 78% of the time (Wald 81%), below the 92% target: "
-    "with a few hundred cases read every interval as approximate (README, Fitting the model)")
+    "in a simulation study on the demo model's structure (40 caseloads of 1,000 cases) uncalibrated 95% "
+    "intervals not marked weakly identified covered the true value only 88% of the time (Wald; profile "
+    "intervals no better): with fewer than a few thousand cases read them as too narrow (README, Fitting the model)")
+MEASURED_CALIBRATED_COVERAGE = (
+    "in a simulation study on the demo model's structure (STUDY PENDING) bootstrap-calibrated 95% intervals "
+    "not marked weakly identified covered the true value PENDING of the time (README, Fitting the model)")
 #: Link-scale limits of a profile search for quantities that are not themselves a free parameter (a
 #: coordinate's limits are the optimiser's bounds): probabilities between about 1e-10 and 1 - 1e-10,
 #: mean times between 0.01 day and 10^12 days.
 _LINK_LIMITS = {"logit": (-23.0, 23.0), "log": (math.log(0.01), math.log(1e12))}
 
 
-def coverage_caveat() -> str:
-    """What the coverage study measured for the profile intervals (README, statistics section), for fit summaries."""
-    return MEASURED_COVERAGE
+def coverage_caveat(calibrated: bool = False) -> str:
+    """What the coverage study measured for intervals of this kind (README, statistics section), for fit summaries."""
+    return MEASURED_CALIBRATED_COVERAGE if calibrated else MEASURED_COVERAGE
 
 
 def choose_interval_kind(requested: str, n_cases: int, information: np.ndarray | None) -> tuple:
@@ -131,13 +135,10 @@ def effect_warnings(spec, theta: np.ndarray) -> list:
     return out
 
 
-def _wald(table, theta, covariance) -> list:
-    """Delta-method estimates on the link scale for one quantity table."""
-    links = np.asarray(table.links)
-    values = table.function(theta)
-    linked = table.linked(theta)
+def _link_jacobian(table, theta) -> np.ndarray:
+    """Central-difference Jacobian of the table's link-scale values, shape (n_values, p) (non-finite -> 0)."""
     p = theta.size
-    jac = np.zeros((values.size, p))
+    jac = np.zeros((len(table), p))
     with np.errstate(invalid="ignore", divide="ignore"):
         for i in range(p):
             h = 1e-6 * max(1.0, abs(theta[i]))
@@ -146,6 +147,51 @@ def _wald(table, theta, covariance) -> list:
             down[i] -= h
             jac[:, i] = (table.linked(up) - table.linked(down)) / (2 * h)
     jac[~np.isfinite(jac)] = 0.0
+    return jac
+
+
+def link_scale_standard_errors(spec, theta: np.ndarray, covariance: np.ndarray) -> tuple:
+    """Every reported quantity on its link scale with its delta-method standard error.
+
+    Parameters
+    ----------
+    spec : ParameterSpec
+    theta : ndarray, shape (p,)
+    covariance : ndarray, shape (p, p)
+
+    Returns
+    -------
+    linked, standard_error : ndarray, shape (n_quantities,)
+        In the order of :func:`~hmm.fitting.quantities.reported_quantities`; nan for fixed quantities
+        and where there is no standard error.
+    """
+    theta = np.asarray(theta, dtype=float)
+    covariance = np.asarray(covariance, dtype=float)
+    linked_all, se_all = [], []
+    for table in reported_quantities(spec):
+        linked = np.asarray(table.linked(theta), dtype=float)
+        jac = _link_jacobian(table, theta)
+        se = np.full(len(table), np.nan)
+        for j in range(len(table)):
+            used = np.flatnonzero(jac[j] != 0)
+            if table.fixed[j] or used.size == 0 or not np.isfinite(linked[j]):
+                linked[j] = np.nan
+                continue
+            variance = float(jac[j, used] @ covariance[np.ix_(used, used)] @ jac[j, used])
+            if np.isfinite(variance) and variance >= 0:
+                se[j] = math.sqrt(variance)
+        linked_all.append(linked)
+        se_all.append(se)
+    return np.concatenate(linked_all), np.concatenate(se_all)
+
+
+def _wald(table, theta, covariance, z: float = Z_95) -> list:
+    """Delta-method estimates on the link scale for one quantity table (half-width ``z`` standard errors)."""
+    links = np.asarray(table.links)
+    values = table.function(theta)
+    linked = table.linked(theta)
+    p = theta.size
+    jac = _link_jacobian(table, theta)
     out = []
     for j in range(values.size):
         boundary = links[j] != "identity" and not np.isfinite(linked[j])
@@ -157,7 +203,7 @@ def _wald(table, theta, covariance) -> list:
             variance = float(jac[j, used] @ covariance[np.ix_(used, used)] @ jac[j, used])
             if np.isfinite(variance) and variance >= 0:
                 se_link = math.sqrt(variance)
-                lo, hi = from_link(np.array([linked[j] - Z_95 * se_link, linked[j] + Z_95 * se_link]),
+                lo, hi = from_link(np.array([linked[j] - z * se_link, linked[j] + z * se_link]),
                                    np.array([links[j]] * 2))
                 v = values[j]
                 scale = {"log": v, "logit": v * (1 - v), "identity": 1.0}[links[j]]
@@ -222,7 +268,7 @@ def _profiled(table, problem: ProfileProblem, wald: list, callback) -> list:
 
 
 def estimates_with_intervals(spec, theta: np.ndarray, covariance: np.ndarray | None, kind: str,
-                             problem: ProfileProblem | None = None, callback=None) -> dict:
+                             problem: ProfileProblem | None = None, callback=None, z: float = Z_95) -> dict:
     """Every reported quantity with its interval, by group.
 
     Parameters
@@ -235,6 +281,9 @@ def estimates_with_intervals(spec, theta: np.ndarray, covariance: np.ndarray | N
     problem : ProfileProblem, optional
         Needed for ``kind="profile"``.
     callback : callable(fraction), optional
+    z : float
+        Half-width of Wald intervals in standard errors (1.96; a calibrated value from
+        :mod:`hmm.fitting.calibration`, whose threshold ``z**2`` the ``problem`` then uses too).
 
     Returns
     -------
@@ -243,7 +292,7 @@ def estimates_with_intervals(spec, theta: np.ndarray, covariance: np.ndarray | N
         of :class:`ParameterEstimate`.
     """
     tables = {t.group: t for t in reported_quantities(spec)}
-    groups = {g: _wald(t, theta, None if kind == "none" else covariance) for g, t in tables.items()}
+    groups = {g: _wald(t, theta, None if kind == "none" else covariance, z) for g, t in tables.items()}
     if kind == "none":
         groups = {g: [replace(e, weakly_identified=False, note="") for e in items] for g, items in groups.items()}
     if kind == "profile" and problem is not None:

@@ -14,6 +14,8 @@ stops for any other reason (iteration limit, line-search failure) is reported as
 
 from __future__ import annotations
 
+import math
+
 import numpy as np
 import scipy.optimize
 
@@ -25,7 +27,8 @@ from .parameters import parameter_spec
 from .priors import Prior
 from .intervals import (choose_interval_kind, condition_number, effect_warnings, estimates_with_intervals,
                         identification_warnings)
-from .profile import ProfileProblem
+from .calibration import calibrate_intervals, calibration_warnings
+from .profile import PROFILE_THRESHOLD, ProfileProblem
 from .result import FitProgress, FitResult, StartResult
 from .summary import FitIteration
 from .uncertainty import covariance_from_information, observed_information
@@ -80,7 +83,7 @@ class _Objective:
 def fit_model(model: StageModel, timelines: Timelines, *, starts: int = 3, rng: np.random.Generator | None = None,
               penalised: bool = False, prior: Prior | None = None, callback=None, max_iterations: int = 500,
               tolerance: float = 1e-10, standard_errors: bool = True, observed_until=None,
-              intervals: str = "auto", on_progress=None) -> FitResult:
+              intervals: str = "auto", on_progress=None, calibration_draws: int = 0) -> FitResult:
     """Fit every free parameter of ``model`` to ``timelines``.
 
     Parameters
@@ -112,6 +115,10 @@ def fit_model(model: StageModel, timelines: Timelines, *, starts: int = 3, rng: 
         profile-likelihood intervals below 5,000 cases or when the information is ill-conditioned.
     on_progress : callable(FitProgress), optional
         Typed progress (phase, start, iteration, log-likelihood) beside ``callback``.
+    calibration_draws : int
+        Refits of caseloads simulated from the fitted model that calibrate the intervals' width
+        (:mod:`hmm.fitting.calibration`; 0, the default: chi-squared theory, no calibration). Not for
+        penalised fits. Draws come from ``rng`` after the starts.
     observed_until : float or ndarray, shape (n_cases,), optional
         Only with an ``unscheduled_contacts`` block: the day observation ended (for example the data
         extract); the quiet time from each case's last contact to it enters the likelihood
@@ -138,8 +145,9 @@ def fit_model(model: StageModel, timelines: Timelines, *, starts: int = 3, rng: 
     plan = prepare(model, timelines, spec)
     objective = _Objective(plan, prior)
     # units of work: one per start, one for the information, and (profile) four for the intervals
-    progress = _Progress(starts + 1.0 + (4.0 if intervals in ("auto", "profile") and spec.n_free else 0.0),
-                         callback, on_progress)
+    calibrating = calibration_draws > 0 and not penalised and intervals != "none" and spec.n_free > 0
+    progress = _Progress(starts + 1.0 + (4.0 if intervals in ("auto", "profile") and spec.n_free else 0.0)
+                         + (4.0 if calibrating else 0.0), callback, on_progress)
 
     runs, histories, ends = _optimise_starts(objective, spec, spec.to_vector(model), starts, rng, max_iterations,
                                              tolerance, progress)
@@ -153,15 +161,23 @@ def fit_model(model: StageModel, timelines: Timelines, *, starts: int = 3, rng: 
     kind, reason = _interval_kind(intervals, timelines.n_cases, spec, information, value, converged)
     warnings += _boundary_warnings(spec, theta)
     warnings += effect_warnings(spec, theta)
+    calibration = None
+    if calibrating and kind in ("profile", "wald") and converged and np.isfinite(np.diag(covariance)).any():
+        calibration = calibrate_intervals(
+            spec.to_model(theta), observed, spec, theta, covariance, int(calibration_draws),
+            np.random.default_rng(int(rng.integers(0, 2 ** 63 - 1))),
+            callback=lambda f: progress.report((starts + 1 + 4 * f) / progress.units, "calibration"))
+        warnings += calibration_warnings(calibration)
+    intervals_done = starts + 1 + (4 if calibrating else 0)
     groups, profile_warnings = _estimates_with_intervals(
         objective, spec, theta, value, information, covariance, kind,
-        lambda f: progress.report((starts + 1 + 4 * f) / progress.units, "intervals"))
+        lambda f: progress.report((intervals_done + 4 * f) / progress.units, "intervals"), calibration)
     warnings += profile_warnings
     final = evaluate(plan, theta, gradient=False)
     progress.report(1.0, "done")
     return _fit_result(spec, theta, final.log_likelihood, value if penalised else final.log_likelihood, penalised,
                        observed, timelines.n_cases, runs[best].iterations, objective.evaluations, converged, warnings,
-                       history, runs, groups, kind, reason, covariance, information)
+                       history, runs, groups, kind, reason, covariance, information, calibration)
 
 
 class _Progress:
@@ -263,12 +279,17 @@ def _interval_kind(intervals, n_cases, spec, information, value, converged) -> t
     return kind, reason
 
 
-def _estimates_with_intervals(objective, spec, theta, value, information, covariance, kind, callback) -> tuple:
-    """Estimates grouped for the result, with intervals of ``kind``; warnings from the profile search."""
+def _estimates_with_intervals(objective, spec, theta, value, information, covariance, kind, callback,
+                              calibration=None) -> tuple:
+    """Estimates grouped for the result, with intervals of ``kind`` (at the calibrated width when
+    ``calibration`` is given); warnings from the profile search."""
     problem = None
+    threshold = PROFILE_THRESHOLD if calibration is None else calibration.threshold
     if kind == "profile":
-        problem = ProfileProblem(objective.log_likelihood_function, theta, value, information, spec.lower, spec.upper)
-    groups = estimates_with_intervals(spec, theta, covariance, kind, problem, callback=callback)
+        problem = ProfileProblem(objective.log_likelihood_function, theta, value, information, spec.lower, spec.upper,
+                                 threshold=threshold)
+    groups = estimates_with_intervals(spec, theta, covariance, kind, problem, callback=callback,
+                                      z=math.sqrt(threshold))
     warnings = []
     if problem is not None and problem.better_log_likelihood is not None:
         warnings.append(f"the profile search found a log-likelihood above the reported maximum "
@@ -278,7 +299,8 @@ def _estimates_with_intervals(objective, spec, theta, value, information, covari
 
 
 def _fit_result(spec, theta, log_l, penalised_log_l, penalised, observed, n_cases, iterations, evaluations,
-                converged, warnings, history, runs, groups, kind, reason, covariance, information) -> FitResult:
+                converged, warnings, history, runs, groups, kind, reason, covariance, information,
+                calibration=None) -> FitResult:
     """Assemble the :class:`FitResult` (AIC, BIC with ``n = n_cases``, the condition number)."""
     k = spec.n_free
     return FitResult(
@@ -291,7 +313,7 @@ def _fit_result(spec, theta, log_l, penalised_log_l, penalised, observed, n_case
         mean_time_in_stage=groups["mean_time_in_stage"], next_stage_probabilities=groups["next_stage_probabilities"],
         interval_kind=kind, interval_reason=reason,
         condition_number=condition_number(information) if k and np.all(np.isfinite(information)) else float("nan"),
-        covariance=covariance, information=information, free_vector=theta)
+        covariance=covariance, information=information, free_vector=theta, calibration=calibration)
 
 
 def _with_quiet_tail(model: StageModel, timelines: Timelines, observed_until) -> Timelines:

@@ -13,6 +13,7 @@ from dataclasses import dataclass, field
 import numpy as np
 
 from ..model import StageModel
+from .calibration import IntervalCalibration
 from .summary import FitIteration, FitSummary
 
 __all__ = ["FitResult", "StartResult", "FitProgress", "DAYS_PER_YEAR"]
@@ -57,7 +58,7 @@ class FitProgress:
     ----------
     fraction : float
         Of the whole fit, in [0, 1].
-    phase : {"start", "information", "intervals", "done"}
+    phase : {"start", "information", "calibration", "intervals", "done"}
     start : int
         The start being optimised (phase ``"start"``).
     iteration : int
@@ -111,6 +112,8 @@ class FitResult:
     information : ndarray, shape (n_parameters, n_parameters)
         Observed information there (nan when not computed).
     free_vector : ndarray, shape (n_parameters,)
+    calibration : IntervalCalibration or None
+        How the intervals' width was calibrated by bootstrap refits (None: not calibrated).
     """
 
     model: StageModel
@@ -139,6 +142,7 @@ class FitResult:
     covariance: np.ndarray = field(repr=False)
     information: np.ndarray = field(repr=False)
     free_vector: np.ndarray = field(repr=False)
+    calibration: IntervalCalibration | None = None
 
     @property
     def start_log_likelihoods(self) -> list:
@@ -158,7 +162,7 @@ class FitResult:
             hazard_ratios=tuple(self.hazard_ratios), mean_time_in_stage=tuple(self.mean_time_in_stage),
             next_stage_probabilities=tuple(self.next_stage_probabilities), history=tuple(self.history),
             interval_kind=self.interval_kind, interval_reason=self.interval_reason,
-            condition_number=self.condition_number,
+            condition_number=self.condition_number, calibration=self.calibration,
             unscheduled_contacts_per_year=tuple(self.unscheduled_contacts_per_year()),
             covariance=tuple(tuple(_finite(v) for v in row) for row in np.asarray(self.covariance, dtype=float)))
 

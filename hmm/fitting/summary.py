@@ -14,6 +14,7 @@ from __future__ import annotations
 import math
 from dataclasses import dataclass, field, replace
 
+from .calibration import IntervalCalibration
 from .uncertainty import ParameterEstimate
 
 __all__ = ["FitSummary", "FitIteration", "SUMMARY_FORMAT_VERSION", "format_summary_table"]
@@ -72,6 +73,9 @@ class FitSummary:
         ISO date: the fit used contacts up to and including it; None: every stored contact.
     fitted_from_version : int or None
         The model version the fit started from.
+    calibration : IntervalCalibration or None
+        The bootstrap calibration of the intervals' width (:mod:`hmm.fitting.calibration`); None: the
+        intervals use the chi-squared(1) / normal 95% points.
     covariance : tuple of tuple of (float or None), or None
         Inverse observed information on the unconstrained scale, order ``free_parameters`` (None when
         not computed; non-finite entries None). The outlook draws parameters from it.
@@ -104,6 +108,7 @@ class FitSummary:
     fitted_from_version: int | None = None
     covariance: tuple | None = None
     unscheduled_contacts_per_year: tuple = ()
+    calibration: IntervalCalibration | None = None
     format_version: int = field(default=SUMMARY_FORMAT_VERSION)
 
     # ------------------------------------------------------------ reading
@@ -149,7 +154,17 @@ class FitSummary:
         penalty = " of the penalised log-likelihood" if self.penalised and self.interval_kind == "profile" else ""
         reason = f" ({self.interval_reason})" if self.interval_reason else ""
         tail = "; next-stage probabilities: Wald" if self.interval_kind == "profile" else ""
-        return f"{label}{penalty}{reason}{tail}"
+        calibrated = "" if self.calibration is None else (
+            f", widths calibrated by {self.calibration.used} bootstrap refits (x{self.calibration.multiplier:.2f})")
+        return f"{label}{penalty}{calibrated}{reason}{tail}"
+
+    def interval_caveat(self) -> str:
+        """What the coverage study measured for intervals like these ("" without intervals)."""
+        if self.interval_kind not in ("profile", "wald"):
+            return ""
+        from .intervals import coverage_caveat
+
+        return coverage_caveat(self.calibration is not None)
 
     def format_table(self) -> str:
         """A plain-text table for a terminal (see :func:`format_summary_table`)."""
@@ -189,6 +204,7 @@ class FitSummary:
             # unconstrained scale, order free_parameters; the outlook draws parameters from it
             "covariance": None if self.covariance is None else [[_number(v) for v in row] for row in self.covariance],
             "unscheduled_contacts_per_year": rows(self.unscheduled_contacts_per_year),
+            "calibration": None if self.calibration is None else self.calibration.to_dict(),
         }
 
     @classmethod
@@ -243,6 +259,8 @@ class FitSummary:
                 covariance=None if data.get("covariance") is None
                 else tuple(tuple(_number(v) for v in row) for row in data["covariance"]),
                 unscheduled_contacts_per_year=estimates("unscheduled_contacts_per_year"),
+                calibration=None if data.get("calibration") is None
+                else IntervalCalibration.from_dict(data["calibration"]),
             )
         except (KeyError, TypeError, ValueError) as exc:
             raise ValueError(f"fit summary is not readable ({type(exc).__name__}: {exc})") from None
@@ -298,10 +316,10 @@ def format_summary_table(summary: FitSummary) -> str:
     if failed:
         lines.append(f"profile failed      {len(failed)}: {'; '.join(failed)} - Wald intervals shown instead, labelled "
                      "'wald (profile search failed: ...)'")
-    if summary.interval_kind == "profile":
-        from .intervals import coverage_caveat
-
-        lines.append(f"caveat: {coverage_caveat()}")
+    if summary.calibration is not None:
+        lines.append(f"calibration         {summary.calibration.describe()}")
+    if summary.interval_caveat():
+        lines.append(f"caveat: {summary.interval_caveat()}")
     for w in summary.warnings:
         lines.append(f"warning: {w}")
     return "\n".join(lines)

@@ -17,7 +17,7 @@ def test_fit_saves_a_new_current_version_and_keeps_fixed_rows(tmp_path):
     ws = tmp_path / "demo.cvw"
     assert run("demo", ws).returncode == 0
     out = tmp_path / "fitted.json"
-    proc = run("fit", ws, "--starts", "1", "--intervals", "wald", "--out", out)
+    proc = run("fit", ws, "--starts", "1", "--intervals", "wald", "--calibration-draws", "0", "--out", out)
     assert proc.returncode == 0, proc.stderr
     assert "mean time in Stable" in proc.stdout and "AIC" in proc.stdout and "Advisory only" in proc.stdout
     assert "Intervals: 95% Wald (delta-method) intervals (as asked)" in proc.stdout and "(all contacts)" in proc.stdout
@@ -43,6 +43,31 @@ def test_fit_saves_a_new_current_version_and_keeps_fixed_rows(tmp_path):
     assert bad.returncode == 2 and "was not fitted" in bad.stderr and "Traceback" not in bad.stderr
 
 
+def test_fit_calibrates_the_interval_widths_by_bootstrap_refits_and_says_so(tmp_path):
+    ws = tmp_path / "demo.cvw"
+    assert run("demo", ws).returncode == 0
+    proc = run("fit", ws, "--starts", "1", "--intervals", "wald", "--calibration-draws", "2")
+    assert proc.returncode == 0, proc.stderr
+    assert "widths calibrated by 2 bootstrap refits" in proc.stdout
+    assert "calibration         widths calibrated by 2 refits of caseloads simulated from the fitted" in proc.stdout
+    with Workspace.open(ws) as w:
+        stored = w.model_versions()[-1].fit_summary["calibration"]
+    assert stored["draws"] == 2 and stored["threshold"] >= 3.84
+    refused = run("fit", ws, "--calibration-draws", "-1")
+    assert refused.returncode == 2 and "calibration draws: expected a whole number from 0 to 1000, got -1" in \
+        refused.stderr and "Traceback" not in refused.stderr
+
+
+def test_calibration_is_the_default_below_five_thousand_cases_and_not_for_penalised_fits():
+    from caseview.operations.fitting import FitOptions, default_calibration_draws
+
+    assert default_calibration_draws(400) == 40 and default_calibration_draws(4999) == 40
+    assert default_calibration_draws(5000) == 0 and default_calibration_draws(400, penalised=True) == 0
+    assert FitOptions().calibration_draws_for(1000) == 40
+    assert FitOptions(calibration_draws=0).calibration_draws_for(1000) == 0
+    assert FitOptions(calibration_draws=7).calibration_draws_for(100_000) == 7
+
+
 def test_compare_refuses_penalised_fits_and_explains_nesting_and_the_boundary(tmp_path):
     import dataclasses
 
@@ -57,9 +82,10 @@ def test_compare_refuses_penalised_fits_and_explains_nesting_and_the_boundary(tm
         kept = tuple(t for t in model.transitions
                      if (model.stages[t.source], model.stages[t.target]) != ("Slipping", "Crisis"))
         restricted = dump_model(dataclasses.replace(model, transitions=kept))
-        general_fit = run_fit(w, FitOptions(starts=1, intervals="wald"), "tester")           # version 2
+        quick = FitOptions(starts=1, intervals="wald", calibration_draws=0)   # calibration: test_calibration.py
+        general_fit = run_fit(w, quick, "tester")                                              # version 2
         w.add_model_version(restricted, "no Slipping -> Crisis", "tester", make_current=True)  # version 3
-        restricted_fit = run_fit(w, FitOptions(starts=1, intervals="wald"), "tester")        # version 4
+        restricted_fit = run_fit(w, quick, "tester")                                           # version 4
         run_fit(w, FitOptions(starts=1, intervals="wald", penalised=True), "tester")         # version 5
     assert (general_fit.version_id, restricted_fit.version_id) == (2, 4)
     compared = run("models", ws, "--compare", 2, 4)

@@ -113,6 +113,7 @@ def test_fit_in_worker_previews_then_asks_before_the_new_version_becomes_current
     current_before = [v.id for v in ws.model_versions() if v.is_current]
     panel.starts.setValue(1)
     panel.intervals.setCurrentIndex(panel.intervals.findData("wald"))   # fast; profile intervals: tests/fitting
+    panel.calibration.setValue(2)   # two calibration refits only (the default, 40, is for real use)
     finished, failures = [], []
     panel.fit_finished.connect(finished.append)
     panel.fit_failed.connect(failures.append)
@@ -139,6 +140,10 @@ def test_fit_in_worker_previews_then_asks_before_the_new_version_becomes_current
     assert ws.audit_entries()[-1].action == "model.current"
     # the panel now shows fitted mean times in stage with intervals and their kind
     assert "fitted" in panel.heading.text() and "intervals" in panel.heading.text()
+    assert fitted.fit_summary["calibration"]["draws"] == 2
+    assert "widths calibrated by 2 bootstrap refits" in panel.heading.text()
+    assert "refits of caseloads simulated from the fitted model" in panel.heading.toolTip()
+    assert "caveat" not in panel.heading.toolTip() and "simulation study" in panel.heading.toolTip()
     assert panel.time_in_stage_table.rowCount() == len(fitted.fit_summary["mean_time_in_stage"])
     kinds = {panel.time_in_stage_table.item(r, 2).text() for r in range(panel.time_in_stage_table.rowCount())}
     assert any(k.endswith("wald") for k in kinds), kinds
