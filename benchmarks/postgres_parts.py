@@ -7,7 +7,8 @@ shared_buffers 64 MB) serves both sizes, a database per size. The caseload goes 
 and the 1-start fits must reach the same optimum (log-likelihood within 0.01). Every command runs in a fresh
 process (``measure.run_measured``: wall time, CPU time, peak RSS of the caseview process); while it runs the
 server's memory is sampled (:class:`ServerMemory`) and reported beside it. After the timed import the
-database is vacuumed and analysed, untimed (:func:`settle`).
+database is vacuumed, analysed and checkpointed, untimed (:func:`settle`). ``history`` is the median of
+five runs on both backends (``scale_parts.median_run``).
 """
 
 from __future__ import annotations
@@ -20,6 +21,7 @@ from pathlib import Path
 
 from measure import run_measured
 from report import Row
+from scale_parts import HISTORY_RUNS, median_run
 
 #: PostgreSQL figures within this factor of SQLite's (issue 19 item 5).
 POSTGRES_RATIO_LIMIT = 1.5
@@ -137,10 +139,10 @@ def postgres_rows(ctx, server: PostgresServer, n: int, csv: Path, model: Path, c
         ctx.missing.append(f"caseview init on PostgreSQL ({n:,} cases) failed: {init.stderr.strip()}")
         return
 
-    def measured(what: str, command: list):
+    def measured(what: str, command: list, runs: int = 1):
         ctx.log(f"timing {what} on PostgreSQL ({n:,} cases)")
         with ServerMemory(cluster.data_dir) as server_memory:
-            done = run_measured(command)
+            done = run_measured(command) if runs == 1 else median_run(command, runs)
         return done, server_memory.peak_mb
 
     done, server_mb = measured("caseview import", ctx.cv + ["import", url, str(csv)])
@@ -152,8 +154,9 @@ def postgres_rows(ctx, server: PostgresServer, n: int, csv: Path, model: Path, c
     for name, command in (("score", ["score", url, "--as-of", as_of, "--out", str(ctx.work / f"pg_s{n}.csv")]),
                           ("flags", ["flags", url, "--as-of", as_of, "--out", str(ctx.work / f"pg_f{n}.csv")]),
                           ("history", ["history", url, case_id, "--out", str(ctx.work / f"pg_h{n}.csv")])):
-        done, server_mb = measured(f"caseview {name}", ctx.cv + command)
-        what = f"`caseview {name}`" + (f" {case_id}" if name == "history" else "")
+        runs = HISTORY_RUNS if name == "history" else 1
+        done, server_mb = measured(f"caseview {name}", ctx.cv + command, runs)
+        what = f"`caseview {name}`" + (f" {case_id}, median of {runs}" if name == "history" else "")
         _row(ctx, what, n, done.seconds if done.ok or done.returncode == 4 else None, sqlite.get(name),
              done.peak_mb, memory_mb, server_mb, done.problem())
     if window:
@@ -181,9 +184,11 @@ def postgres_rows(ctx, server: PostgresServer, n: int, csv: Path, model: Path, c
 
 
 def settle(ctx, cluster, dbname: str) -> None:
-    """``VACUUM (ANALYZE)`` after the bulk import, untimed: what autovacuum would otherwise start on its own
-    during the timed commands (PostgreSQL documentation, "Populating a Database": run ANALYZE afterwards),
-    so the timings are of a settled server, as a SQLite workspace is after its import."""
+    """``VACUUM (ANALYZE)`` and ``CHECKPOINT`` after the bulk import, untimed: what autovacuum and the
+    checkpointer would otherwise do during the timed commands (PostgreSQL documentation, "Populating a
+    Database": run ANALYZE afterwards; a spread checkpoint of the import's gigabytes made one history run
+    take 1.25 s instead of about 0.5 s), so the timings are of a settled server, as a SQLite workspace is
+    after its import (whose WAL is checkpointed when the import closes it: inside SQLite's import time)."""
     import time
 
     import psycopg
@@ -192,8 +197,9 @@ def settle(ctx, cluster, dbname: str) -> None:
     start = time.perf_counter()
     with psycopg.connect(dbname=dbname, host=str(cluster.socket_dir), user="postgres", autocommit=True) as con:
         con.execute("VACUUM (ANALYZE)")
+        con.execute("CHECKPOINT")
     ctx.notes.append(f"PostgreSQL {dbname}: VACUUM (ANALYZE) after the import took {time.perf_counter() - start:.1f} s "
-                     "(untimed; autovacuum would otherwise run during the timed commands)")
+                     "with CHECKPOINT (untimed; autovacuum and the checkpointer would otherwise run during the timed commands)")
 
 
 def _row(ctx, what: str, n: int, seconds, sqlite, peak_mb: float, memory_mb: float, server_mb, problem: str) -> None:
