@@ -37,6 +37,7 @@ sys.path.insert(0, str(HERE))
 
 from measure import Measured, run_measured  # noqa: E402
 from report import Row, render_results, render_table  # noqa: E402
+import postgres_parts  # noqa: E402
 import scale_parts  # noqa: E402
 
 PYTHON = sys.executable
@@ -200,6 +201,7 @@ def main(argv=None) -> int:
             missing.append(f"`caseview {' / '.join(absent)}` not available yet")
         return not absent
 
+    server = postgres_parts.PostgresServer(ctx)   # started on first use, stopped at the end
     try:
         # ------------------------------------------------ score vs hmmlearn (equal gaps; two channels)
         if not args.skip_score and need("init", "import", "score"):
@@ -222,7 +224,9 @@ def main(argv=None) -> int:
             if "gui_figures" in small_seconds:
                 gui_rows(ctx, n, irregular_ws, irregular["last_day"], small_seconds)
             if not args.skip_postgres:
-                scale_parts.postgres_rows(ctx, n, irregular_ws, irregular["last_day"], small_seconds)
+                postgres_parts.postgres_rows(ctx, server, n, work / "irregular.csv", work / "demo_model.json",
+                                             middle_case(n), irregular["last_day"], small_seconds, MEMORY_TARGET_MB,
+                                             fit=not args.skip_fit_one_start, window=not args.skip_gui)
         if not args.skip_large and need("init", "import"):
             large = args.large_cases
             csv = args.large_csv or work / "irregular_large.csv"
@@ -239,6 +243,10 @@ def main(argv=None) -> int:
                 ctx, large, large_ws, last_day, scale_parts.LARGE_MEMORY_MB, imported,
                 fit=not args.skip_fit_one_start, window=not args.skip_gui)
             scale_parts.growth_rows(ctx, n, large, small_seconds, large_seconds)
+            if not args.skip_postgres:
+                postgres_parts.postgres_rows(ctx, server, large, csv, work / "demo_model.json", middle_case(large),
+                                             last_day, large_seconds, scale_parts.LARGE_MEMORY_MB,
+                                             fit=not args.skip_fit_one_start, window=not args.skip_gui)
 
 
         # ------------------------------------------------ fit vs hmmlearn EM
@@ -282,6 +290,7 @@ def main(argv=None) -> int:
                     if fitted is not None:
                         missing.append(f"caseview fit at {m} failed: {fitted.problem()}")
     finally:
+        server.stop()
         if not args.keep and not args.workdir:
             shutil.rmtree(work, ignore_errors=True)
 

@@ -44,12 +44,15 @@ class FieldLayout:
 
 
 def field_layout(connection) -> FieldLayout:
+    """The channel/category/covariate registry in two statements (a round trip each on PostgreSQL)."""
+    grouped: dict = {}
+    for channel_id, name, code, label in connection.execute(
+            "SELECT ch.id, ch.name, ca.code, ca.label FROM channels ch LEFT JOIN categories ca "
+            "ON ca.channel_id = ch.id ORDER BY ch.position, ca.code"):
+        grouped.setdefault(channel_id, (name, []))[1].extend(() if code is None else [(code, label)])
     channels = []
-    for channel_id, name in connection.execute("SELECT id, name FROM channels ORDER BY position"):
+    for name, rows in grouped.values():
         codes = {}
-        labels = [""] * 0
-        rows = connection.execute("SELECT code, label FROM categories WHERE channel_id = ? ORDER BY code",
-                                  (channel_id,)).fetchall()
         labels = [""] * (max((r[0] for r in rows), default=-1) + 1)
         for code, label in rows:
             codes[label] = code

@@ -69,15 +69,21 @@ def connect(location: DatabaseURL, password: str | None, busy_timeout_ms: int, r
             raise PasswordRequired(message, login, refused="authentication failed" in lowered) from None
         raise WorkspaceError(message) from None
     con = PgConnection(raw)
-    try:
-        raw.execute("SET TIME ZONE 'UTC'")
-        raw.execute(f"SET lock_timeout = {int(busy_timeout_ms)}")
-        if read_only:
-            raw.execute("SET default_transaction_read_only = on")
+    try:  # one round trip: several statements without parameters go as one simple query
+        raw.execute(session_settings(busy_timeout_ms, read_only))
     except psycopg.Error as exc:
         con.close()
         raise WorkspaceError(f"{location}: cannot prepare the connection ({as_sqlite_error(exc)})") from None
     return con
+
+
+def session_settings(busy_timeout_ms: int, read_only: bool) -> str:
+    """The session settings of every connection, as one text of statements: UTC, the lock timeout and,
+    for a read-only open, read-only transactions."""
+    statements = ["SET TIME ZONE 'UTC'", f"SET lock_timeout = {int(busy_timeout_ms)}"]
+    if read_only:
+        statements.append("SET default_transaction_read_only = on")
+    return "; ".join(statements)
 
 
 def begin_write(con: PgConnection) -> None:
@@ -146,14 +152,21 @@ def apply_migrations(ws, from_version: int) -> None:
 
 
 def stored_version(con: PgConnection, location: DatabaseURL) -> int:
-    """The schema version of the workspace in this database; WorkspaceError when it holds none."""
-    names = _relations(con)
-    if pg_schema.META_TABLE not in names:
+    """The schema version of the workspace in this database; WorkspaceError when it holds none.
+
+    One statement when the database holds a workspace (the identity row); only when that table is
+    missing does a look at the catalogue say whether the database is empty or holds something else.
+    """
+    try:
+        row = con.execute(f"SELECT application_id, schema_version FROM {pg_schema.META_TABLE}").fetchone()
+    except sqlite3.DatabaseError:
+        names = _relations(con)
+        if pg_schema.META_TABLE in names:
+            raise
         if not names:
             raise WorkspaceError(f"{location}: the database is empty, not a caseview workspace yet "
-                                 "(create one first: caseview init, or New workspace in the window)")
-        raise WorkspaceError(f"{location}: not a caseview workspace (the database holds other tables)")
-    row = con.execute(f"SELECT application_id, schema_version FROM {pg_schema.META_TABLE}").fetchone()
+                                 "(create one first: caseview init, or New workspace in the window)") from None
+        raise WorkspaceError(f"{location}: not a caseview workspace (the database holds other tables)") from None
     if row is None or int(row[0]) != _schema.APPLICATION_ID:
         raise WorkspaceError(f"{location}: not a caseview workspace (its identity row is missing or foreign)")
     return int(row[1])
