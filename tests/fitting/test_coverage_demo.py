@@ -218,13 +218,16 @@ def tabulate(records: list) -> tuple:
     for record in records:
         for row in record["rows"]:
             t = table.setdefault(row["name"], dict.fromkeys(
-                ("n", "shown", "covered", "weak", "profile", "fallback", "wald_shown", "wald_covered"), 0))
+                ("n", "shown", "covered", "weak", "profile", "fallback", "wald_shown", "wald_covered",
+                 "calibrated_wald_shown", "calibrated_wald_covered"), 0))
             t["n"] += 1
-            for key in ("shown", "covered", "weak", "fallback", "wald_shown", "wald_covered"):
+            for key in ("shown", "covered", "weak", "fallback", "wald_shown", "wald_covered", "calibrated_wald_shown",
+                        "calibrated_wald_covered"):
                 t[key] += bool(row.get(key, False))
             t["profile"] += row["kind"] == "profile"
     pooled = {kind: _pooled(records, *keys) for kind, keys in
-              (("default", ("shown", "covered")), ("wald", ("wald_shown", "wald_covered")))}
+              (("default", ("shown", "covered")), ("wald", ("wald_shown", "wald_covered")),
+               ("calibrated_wald", ("calibrated_wald_shown", "calibrated_wald_covered")))}
     return table, pooled
 
 
@@ -252,12 +255,14 @@ def format_table(table: dict, pooled: dict, n_replicates: int, n_cases: int = N_
     lines = [f"coverage of 95% intervals not marked weakly identified, {n_replicates} caseloads of {n_cases} cases "
              "(Monte Carlo standard error in brackets)",
              f"  {'quantity':<62} {'shown':>5} {'default (SE)':>14} {'weak':>4} {'profile':>7} {'fallbk':>6} "
-             f"{'wald n':>6} {'Wald (SE)':>14}"]
+             f"{'wald n':>6} {'Wald (SE)':>14} {'calibrated Wald':>15}"]
     for name, t in table.items():
         lines.append(f"  {name:<62} {t['shown']:>5} {_rate(t['covered'], t['shown']):>14} {t['weak']:>4} "
                      f"{t['profile']:>7} {t['fallback']:>6} {t['wald_shown']:>6} "
-                     f"{_rate(t['wald_covered'], t['wald_shown']):>14}")
-    for kind, label in (("default", "default (profile) intervals"), ("wald", "Wald intervals")):
+                     f"{_rate(t['wald_covered'], t['wald_shown']):>14} "
+                     f"{_rate(t.get('calibrated_wald_covered', 0), t.get('calibrated_wald_shown', 0)):>15}")
+    for kind, label in (("default", "default intervals (calibrated profile)"), ("wald", "uncalibrated Wald intervals"),
+                        ("calibrated_wald", "calibrated Wald intervals")):
         p, se = pooled[kind]
         lines.append(f"  pooled over every shown interval, {label}: {p:.3f} (SE {se:.3f})")
     return "\n".join(lines)
@@ -271,9 +276,10 @@ def test_the_study_machinery_fits_profiles_and_tabulates_both_kinds_on_small_cas
     model = three_stage_model()
     truth = true_values(model)
     records = [one_replicate(r, model, truth, 150, lambda m, n, rng: simulate(m, rng, n_cases=n, n_contacts=8)
-                             .timelines) for r in range(3)]
+                             .timelines, calibration_draws=2) for r in range(3)]
     for record in records:
         assert record["interval_kind"] == "profile" and record["converged"]
+        assert record["calibration"]["draws"] == 2 and record["calibration"]["threshold"] >= 3.84
         profiled = [row for row in record["rows"] if not row["name"].startswith("next stage")]
         assert profiled and all(row["method"].startswith("profile") for row in profiled), profiled
         assert not any(row["fallback"] for row in record["rows"])
@@ -282,7 +288,7 @@ def test_the_study_machinery_fits_profiles_and_tabulates_both_kinds_on_small_cas
     assert set(table) <= set(truth) and all(t["n"] == 3 for t in table.values())
     assert sum(t["profile"] for t in table.values()) == sum(
         t["n"] for name, t in table.items() if not name.startswith("next stage"))
-    for kind in ("default", "wald"):
+    for kind in ("default", "wald", "calibrated_wald"):
         p, se = pooled[kind]
         assert 0.0 <= p <= 1.0 and se >= 0.0
     text = format_table(table, pooled, len(records), 150)
