@@ -56,8 +56,10 @@ MEASURED_COVERAGE = (
     "intervals not marked weakly identified covered the true value only 88% of the time (Wald; profile "
     "intervals no better): with fewer than a few thousand cases read them as too narrow (README, Fitting the model)")
 MEASURED_CALIBRATED_COVERAGE = (
-    "in a simulation study on the demo model's structure (STUDY PENDING) bootstrap-calibrated 95% intervals "
-    "not marked weakly identified covered the true value PENDING of the time (README, Fitting the model)")
+    "in a simulation study on the demo model's structure (30 caseloads of 1,000 cases, 40 refits each) "
+    "bootstrap-calibrated 95% profile intervals not marked weakly identified covered the true value 94% of the "
+    "time (Monte Carlo standard error 1.4%; uncalibrated Wald 89% on the same caseloads); per replicate 71-100%: "
+    "a caseload that settles on a different account of the stages can still be off (README, Fitting the model)")
 #: Link-scale limits of a profile search for quantities that are not themselves a free parameter (a
 #: coordinate's limits are the optimiser's bounds): probabilities between about 1e-10 and 1 - 1e-10,
 #: mean times between 0.01 day and 10^12 days.
