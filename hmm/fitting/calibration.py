@@ -37,7 +37,7 @@ from __future__ import annotations
 import math
 import os
 import threading
-from concurrent.futures import ThreadPoolExecutor
+from concurrent.futures import FIRST_EXCEPTION, ThreadPoolExecutor, wait
 from dataclasses import dataclass
 
 import numpy as np
@@ -151,16 +151,23 @@ def calibrate_intervals(fitted: StageModel, timelines: Timelines, spec: Paramete
     seeds = rng.integers(0, 2 ** 63 - 1, size=draws)
     done = [0]
     lock = threading.Lock()
+    cancelled = threading.Event()     # the callback raised: start no further refit
 
     def one(seed) -> np.ndarray | None:
         from .optimise import fit_model
 
+        if cancelled.is_set():
+            return None
         simulated = _replicate(fitted, schedule, np.random.default_rng(int(seed)))
         refit = fit_model(fitted, simulated, starts=1, intervals="wald")
         with lock:
             done[0] += 1
             if callback is not None:
-                callback(done[0] / draws)
+                try:
+                    callback(done[0] / draws)
+                except BaseException:
+                    cancelled.set()
+                    raise
         if not refit.converged:
             return None
         linked, se = link_scale_standard_errors(spec, refit.free_vector, refit.covariance)
@@ -175,12 +182,14 @@ def calibrate_intervals(fitted: StageModel, timelines: Timelines, spec: Paramete
     else:
         with ThreadPoolExecutor(max_workers=workers) as pool:
             futures = [pool.submit(one, s) for s in seeds]
-            try:
-                results = [f.result() for f in futures]
-            except BaseException:      # a cancelled fit (the callback raised): drop the refits not started
+            wait(futures, return_when=FIRST_EXCEPTION)
+            failed = next((f for f in futures if f.done() and f.exception() is not None), None)
+            if failed is not None:     # a cancelled fit (the callback raised): drop the refits not started
+                cancelled.set()
                 for f in futures:
                     f.cancel()
-                raise
+                raise failed.exception()
+            results = [f.result() for f in futures]
     kept = [z for z in results if z is not None]
     pooled = np.concatenate(kept) if kept else np.zeros(0)
     if pooled.size == 0:
