@@ -152,6 +152,14 @@ def _link_jacobian(table, theta) -> np.ndarray:
     return jac
 
 
+def _link_standard_error(jac_row: np.ndarray, covariance: np.ndarray) -> float | None:
+    """Delta-method standard error on the link scale, ``sqrt(J C J')`` over the parameters the value
+    depends on (None when that variance is not a finite non-negative number)."""
+    used = np.flatnonzero(jac_row != 0)
+    variance = float(jac_row[used] @ covariance[np.ix_(used, used)] @ jac_row[used])
+    return math.sqrt(variance) if np.isfinite(variance) and variance >= 0 else None
+
+
 def link_scale_standard_errors(spec, theta: np.ndarray, covariance: np.ndarray) -> tuple:
     """Every reported quantity on its link scale with its delta-method standard error.
 
@@ -175,13 +183,12 @@ def link_scale_standard_errors(spec, theta: np.ndarray, covariance: np.ndarray) 
         jac = _link_jacobian(table, theta)
         se = np.full(len(table), np.nan)
         for j in range(len(table)):
-            used = np.flatnonzero(jac[j] != 0)
-            if table.fixed[j] or used.size == 0 or not np.isfinite(linked[j]):
+            if table.fixed[j] or not np.any(jac[j] != 0) or not np.isfinite(linked[j]):
                 linked[j] = np.nan
                 continue
-            variance = float(jac[j, used] @ covariance[np.ix_(used, used)] @ jac[j, used])
-            if np.isfinite(variance) and variance >= 0:
-                se[j] = math.sqrt(variance)
+            se_link = _link_standard_error(jac[j], covariance)
+            if se_link is not None:
+                se[j] = se_link
         linked_all.append(linked)
         se_all.append(se)
     return np.concatenate(linked_all), np.concatenate(se_all)
@@ -201,10 +208,8 @@ def _wald(table, theta, covariance, z: float = Z_95) -> list:
         se = lower = upper = None
         kind, weak, note = None, False, ""
         if not fixed and covariance is not None:
-            used = np.flatnonzero(jac[j] != 0)
-            variance = float(jac[j, used] @ covariance[np.ix_(used, used)] @ jac[j, used])
-            if np.isfinite(variance) and variance >= 0:
-                se_link = math.sqrt(variance)
+            se_link = _link_standard_error(jac[j], covariance)
+            if se_link is not None:
                 lo, hi = from_link(np.array([linked[j] - z * se_link, linked[j] + z * se_link]),
                                    np.array([links[j]] * 2))
                 v = values[j]
